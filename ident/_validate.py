@@ -1,0 +1,130 @@
+"""Validation helpers called at the top of every public core function.
+
+Each helper names the parameter, says what is allowed and shows what arrived,
+and raises :class:`ident.errors.OptionError` (a ``ValueError``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+from typing import Any
+
+import numpy as np
+
+from .errors import OptionError
+
+__all__ = [
+    "as_signal",
+    "as_matrix",
+    "positive_float",
+    "optional_positive_float",
+    "int_in_range",
+    "fraction",
+    "one_of",
+    "names_tuple",
+]
+
+
+def _short(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def as_signal(x: Any, name: str, *, ndim: int = 2, finite: bool = True) -> np.ndarray:
+    """Return ``x`` as a float64 array of samples.
+
+    A 1-D input with ``ndim=2`` becomes one column ``(n_samples, 1)``. The caller's
+    array is never modified; a copy is made only when a conversion is needed.
+    """
+    try:
+        arr = np.asarray(x, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise OptionError(f"{name} must be numeric; got {_short(x)}") from exc
+    if ndim == 2 and arr.ndim == 1:
+        arr = arr[:, None]
+    if arr.ndim != ndim:
+        raise OptionError(f"{name} must be a {ndim}-D array; got shape {arr.shape}")
+    if finite and not np.all(np.isfinite(arr)):
+        bad = np.argwhere(~np.isfinite(arr))[0]
+        raise OptionError(
+            f"{name} must be finite; sample {int(bad[0])} is {arr[tuple(bad)]!r}"
+        )
+    return arr
+
+
+def as_matrix(x: Any, name: str, shape: tuple[int | None, int | None] | None = None) -> np.ndarray:
+    """Return ``x`` as a finite 2-D float64 array, optionally of a given shape."""
+    arr = as_signal(x, name, ndim=2)
+    if shape is not None:
+        for axis, want in enumerate(shape):
+            if want is not None and arr.shape[axis] != want:
+                raise OptionError(
+                    f"{name} must have shape {tuple('*' if s is None else s for s in shape)}; "
+                    f"got {arr.shape}"
+                )
+    return arr
+
+
+def positive_float(value: Any, name: str) -> float:
+    """Return ``value`` as a finite float > 0."""
+    try:
+        out = float(value)
+    except (TypeError, ValueError) as exc:
+        raise OptionError(f"{name} must be a positive number; got {_short(value)}") from exc
+    if not math.isfinite(out) or out <= 0:
+        raise OptionError(f"{name} must be a positive number; got {_short(value)}")
+    return out
+
+
+def optional_positive_float(value: Any, name: str) -> float | None:
+    """Like :func:`positive_float` but ``None`` passes through."""
+    return None if value is None else positive_float(value, name)
+
+
+def int_in_range(value: Any, name: str, low: int, high: int | None = None) -> int:
+    """Return ``value`` as an int in ``[low, high]`` (``high=None``: no upper bound)."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        if isinstance(value, float) and value.is_integer():
+            value = int(value)
+        else:
+            raise OptionError(f"{name} must be an integer in {_range(low, high)}; got {_short(value)}")
+    value = int(value)
+    if value < low or (high is not None and value > high):
+        raise OptionError(f"{name} must be an integer in {_range(low, high)}; got {value}")
+    return value
+
+
+def _range(low: int, high: int | None) -> str:
+    return f"[{low}, {high}]" if high is not None else f"[{low}, inf)"
+
+
+def fraction(value: Any, name: str, *, low: float = 0.0, high: float = 1.0,
+             inclusive: bool = False) -> float:
+    """Return ``value`` as a float strictly inside ``(low, high)`` (or closed if inclusive)."""
+    try:
+        out = float(value)
+    except (TypeError, ValueError) as exc:
+        raise OptionError(f"{name} must be a number in ({low}, {high}); got {_short(value)}") from exc
+    ok = (low <= out <= high) if inclusive else (low < out < high)
+    if not ok or not math.isfinite(out):
+        brackets = f"[{low}, {high}]" if inclusive else f"({low}, {high})"
+        raise OptionError(f"{name} must be a number in {brackets}; got {_short(value)}")
+    return out
+
+
+def one_of(value: Any, name: str, allowed: Sequence[str]) -> str:
+    """Return ``value`` if it is one of ``allowed``; no aliases, no case folding."""
+    if value not in allowed:
+        raise OptionError(f"{name} must be one of {', '.join(map(repr, allowed))}; got {_short(value)}")
+    return value
+
+
+def names_tuple(names: Iterable[str] | None, name: str, count: int, prefix: str) -> tuple[str, ...]:
+    """Return ``count`` signal names; ``None`` gives ``prefix1, prefix2, ...``."""
+    if names is None:
+        return tuple(f"{prefix}{i + 1}" for i in range(count))
+    out = tuple(str(n) for n in names)
+    if len(out) != count:
+        raise OptionError(f"{name} must hold {count} names; got {len(out)}")
+    return out

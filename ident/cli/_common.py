@@ -1,0 +1,150 @@
+"""Shared pieces of the subcommands: error mapping, warnings, output helpers."""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import sys
+import traceback
+import warnings
+from collections.abc import Iterator
+from typing import Any
+
+import click
+
+from ..errors import IdentError
+
+EXIT_OK = 0
+EXIT_INTERNAL = 1
+EXIT_BAD_INPUT = 2
+EXIT_GATE_FAILED = 3
+
+
+class DataError(click.ClickException):
+    """A user error in the data or options: one line on stderr, exit status 2."""
+
+    exit_code = EXIT_BAD_INPUT
+
+    def __init__(self, message: str, hint: str | None = None) -> None:
+        super().__init__(message)
+        self.hint = hint
+
+    def show(self, file: Any = None) -> None:  # noqa: D102
+        stream = file if file is not None else sys.stderr
+        click.echo(f"error: {self.format_message()}", file=stream)
+        if self.hint:
+            click.echo(f"hint: {self.hint}", file=stream)
+
+
+class GateFailed(click.ClickException):
+    """A validation gate, expectation or drift threshold failed: exit status 3."""
+
+    exit_code = EXIT_GATE_FAILED
+
+    def show(self, file: Any = None) -> None:  # noqa: D102
+        click.echo(f"failed: {self.format_message()}", file=file if file is not None else sys.stderr)
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    click.echo(f"warning: {message}", err=True)
+
+
+def run_guarded(command: click.Command, argv: list[str] | None = None) -> int:
+    """Run a click command, mapping errors to rigfit's exit statuses.
+
+    Returns the exit status: 0 ok, 1 internal error, 2 bad input or usage,
+    3 gate failed. Tracebacks are shown only with ``--debug``.
+    """
+    args = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in args
+    old_show = warnings.showwarning
+    warnings.showwarning = _show_warning
+    try:
+        command.main(args=args, prog_name="rigfit", standalone_mode=False)
+        return EXIT_OK
+    except click.exceptions.Exit as exc:
+        return exc.exit_code
+    except click.Abort:
+        click.echo("aborted", err=True)
+        return EXIT_INTERNAL
+    except click.UsageError as exc:
+        exc.show()
+        return EXIT_BAD_INPUT
+    except click.ClickException as exc:
+        exc.show()
+        return exc.exit_code
+    except IdentError as exc:
+        DataError(str(exc), getattr(exc, "hint", None)).show()
+        return EXIT_BAD_INPUT
+    except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
+        DataError(f"{exc.filename}: {exc.strerror}").show()
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        click.echo("interrupted", err=True)
+        return 130
+    except Exception as exc:  # internal error: short message, traceback on --debug
+        if debug:
+            traceback.print_exc()
+        click.echo(
+            f"internal error: {type(exc).__name__}: {exc} (run again with 'rigfit --debug ...' "
+            "for the traceback)",
+            err=True,
+        )
+        return EXIT_INTERNAL
+    finally:
+        warnings.showwarning = old_show
+
+
+def echo_json(payload: Any) -> None:
+    """Print ``payload`` as JSON on stdout (NaN and inf become null)."""
+    click.echo(json.dumps(_json_safe(payload), indent=2, allow_nan=False))
+
+
+def _json_safe(obj: Any) -> Any:
+    import math
+
+    import numpy as np
+
+    if isinstance(obj, dict):
+        return {str(k): _json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_json_safe(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _json_safe(obj.tolist())
+    if isinstance(obj, (np.floating, float)):
+        value = float(obj)
+        return value if math.isfinite(value) else None
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    if isinstance(obj, complex):
+        return [_json_safe(obj.real), _json_safe(obj.imag)]
+    return obj
+
+
+json_safe = _json_safe
+
+
+def progress_enabled(quiet: bool) -> bool:
+    """Progress bars only when not quiet and stderr is a terminal."""
+    return not quiet and sys.stderr.isatty()
+
+
+@contextlib.contextmanager
+def progress_step(label: str, enabled: bool, length: int = 1) -> Iterator[Any]:
+    """A click progress bar on stderr, or a no-op object when disabled."""
+    if enabled:
+        with click.progressbar(length=length, label=label, file=sys.stderr) as bar:
+            yield bar
+    else:
+        class _Null:
+            def update(self, n: int) -> None:
+                pass
+
+        yield _Null()
+
+
+def reraise_as_data_error(exc: IdentError) -> DataError:
+    """Convert a library error into the CLI's exit-2 error."""
+    return DataError(str(exc), getattr(exc, "hint", None))

@@ -1,0 +1,4 @@
+"""File input and output: rig logs, model files, pipeline files.
+
+This layer may use pandas; the numeric core never imports it.
+"""

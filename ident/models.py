@@ -1,0 +1,266 @@
+"""Linear time-invariant model types: state space and transfer function.
+
+Both are frozen dataclasses holding read-only float copies of their arrays.
+A ``sample_time`` of ``None`` means continuous time; a positive float is the
+sample time of a discrete-time model in seconds.
+
+Conventions
+-----------
+State space, discrete time::
+
+    x[k+1] = A x[k] + B u[k]
+    y[k]   = C x[k] + D u[k]
+
+and ``dx/dt = A x + B u`` in continuous time. Inputs and outputs are
+*deviations* from ``operating_point`` (the levels the model was linearised
+around); ``operating_point`` is ``None`` when unknown.
+
+Transfer function: ``num[i][j]`` and ``den[i][j]`` are the numerator and
+denominator of the channel from input ``j`` to output ``i``, as coefficient
+arrays in descending powers of z (or s), as :mod:`scipy.signal` uses.
+Denominators are monic.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+
+from ._validate import as_matrix, names_tuple, optional_positive_float
+from .errors import OptionError
+
+__all__ = ["OperatingPoint", "StateSpaceModel", "TransferFunctionModel"]
+
+
+def _frozen_copy(x: Any, name: str, ndim: int = 2) -> np.ndarray:
+    arr = np.array(x, dtype=float, copy=True)
+    if ndim == 2 and arr.ndim < 2:
+        arr = arr.reshape((arr.size, 1)) if arr.ndim == 1 else arr.reshape((1, 1))
+    if arr.ndim != ndim:
+        raise OptionError(f"{name} must be {ndim}-D; got shape {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise OptionError(f"{name} must be finite")
+    arr.flags.writeable = False
+    return arr
+
+
+def _set(obj: Any, name: str, value: Any) -> None:
+    object.__setattr__(obj, name, value)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class OperatingPoint:
+    """Input and output levels a model is linearised around.
+
+    Parameters
+    ----------
+    inputs : array_like, shape (n_inputs,)
+        Input levels, in the inputs' units.
+    outputs : array_like, shape (n_outputs,)
+        Output levels, in the outputs' units.
+    """
+
+    inputs: np.ndarray
+    outputs: np.ndarray
+
+    def __post_init__(self) -> None:
+        _set(self, "inputs", _frozen_copy(np.ravel(self.inputs), "operating_point.inputs", 1))
+        _set(self, "outputs", _frozen_copy(np.ravel(self.outputs), "operating_point.outputs", 1))
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class StateSpaceModel:
+    """A linear state-space model ``(A, B, C, D)``.
+
+    Parameters
+    ----------
+    A : array_like, shape (n, n)
+    B : array_like, shape (n, m)
+    C : array_like, shape (p, n)
+    D : array_like, shape (p, m)
+    sample_time : float or None
+        Sample time in seconds; ``None`` for a continuous-time model.
+    inputs, outputs : sequence of str, optional
+        Signal names; default ``u1, u2, ...`` and ``y1, y2, ...``.
+    input_units, output_units : sequence of str, optional
+        Units of each signal; default empty strings.
+    operating_point : OperatingPoint, optional
+        Levels the model is linearised around; ``None`` when unknown.
+    noise_gain : array_like, shape (n, p), optional
+        Kalman gain ``K`` of the innovation form
+        ``x[k+1] = A x + B u + K e``; ``None`` when the model has no noise model.
+
+    Notes
+    -----
+    A model with zero states (a static gain) has ``A`` of shape ``(0, 0)``.
+    """
+
+    A: np.ndarray
+    B: np.ndarray
+    C: np.ndarray
+    D: np.ndarray
+    sample_time: float | None = None
+    inputs: tuple[str, ...] | None = None
+    outputs: tuple[str, ...] | None = None
+    input_units: tuple[str, ...] | None = None
+    output_units: tuple[str, ...] | None = None
+    operating_point: OperatingPoint | None = None
+    noise_gain: np.ndarray | None = field(default=None)
+
+    def __post_init__(self) -> None:
+        A = _frozen_copy(self.A, "A") if np.size(self.A) else np.zeros((0, 0))
+        n = A.shape[0]
+        if A.shape != (n, n):
+            raise OptionError(f"A must be square; got shape {A.shape}")
+        D = _frozen_copy(self.D, "D")
+        p, m = D.shape
+        B = _frozen_copy(self.B, "B") if n else np.zeros((0, m))
+        C = _frozen_copy(self.C, "C") if n else np.zeros((p, 0))
+        if B.shape != (n, m):
+            raise OptionError(f"B must have shape ({n}, {m}) to match A and D; got {B.shape}")
+        if C.shape != (p, n):
+            raise OptionError(f"C must have shape ({p}, {n}) to match A and D; got {C.shape}")
+        for arr in (A, B, C):
+            arr.flags.writeable = False
+        _set(self, "A", A)
+        _set(self, "B", B)
+        _set(self, "C", C)
+        _set(self, "D", D)
+        _set(self, "sample_time", optional_positive_float(self.sample_time, "sample_time"))
+        _set(self, "inputs", names_tuple(self.inputs, "inputs", m, "u"))
+        _set(self, "outputs", names_tuple(self.outputs, "outputs", p, "y"))
+        units_in = ("",) * m if self.input_units is None else self.input_units
+        units_out = ("",) * p if self.output_units is None else self.output_units
+        _set(self, "input_units", names_tuple(units_in, "input_units", m, ""))
+        _set(self, "output_units", names_tuple(units_out, "output_units", p, ""))
+        op = self.operating_point
+        if op is not None:
+            if not isinstance(op, OperatingPoint):
+                raise OptionError("operating_point must be an OperatingPoint or None")
+            if op.inputs.shape != (m,) or op.outputs.shape != (p,):
+                raise OptionError(
+                    f"operating_point must hold {m} input and {p} output levels; got "
+                    f"{op.inputs.size} and {op.outputs.size}"
+                )
+        if self.noise_gain is not None:
+            _set(self, "noise_gain", as_matrix(self.noise_gain, "noise_gain", (n, p)).copy())
+            self.noise_gain.flags.writeable = False
+
+    @property
+    def n_states(self) -> int:
+        """Number of states ``n``."""
+        return self.A.shape[0]
+
+    @property
+    def n_inputs(self) -> int:
+        """Number of inputs ``m``."""
+        return self.D.shape[1]
+
+    @property
+    def n_outputs(self) -> int:
+        """Number of outputs ``p``."""
+        return self.D.shape[0]
+
+    @property
+    def is_discrete(self) -> bool:
+        """True for a discrete-time model."""
+        return self.sample_time is not None
+
+    def poles(self) -> np.ndarray:
+        """Eigenvalues of ``A``, the poles of the model (complex array, shape (n,))."""
+        if self.n_states == 0:
+            return np.zeros(0, dtype=complex)
+        return np.linalg.eigvals(self.A).astype(complex)
+
+    def with_changes(self, **changes: Any) -> StateSpaceModel:
+        """Return a copy with some fields replaced (arrays are copied again)."""
+        return replace(self, **changes)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class TransferFunctionModel:
+    """A p x m matrix of rational transfer functions.
+
+    Parameters
+    ----------
+    num : sequence of sequence of array_like
+        ``num[i][j]``: numerator of output ``i`` / input ``j``, descending powers.
+    den : sequence of sequence of array_like
+        ``den[i][j]``: denominator, descending powers; stored monic.
+    sample_time : float or None
+        Sample time in seconds; ``None`` for continuous time.
+    inputs, outputs, input_units, output_units, operating_point
+        As for :class:`StateSpaceModel`.
+    """
+
+    num: tuple[tuple[np.ndarray, ...], ...]
+    den: tuple[tuple[np.ndarray, ...], ...]
+    sample_time: float | None = None
+    inputs: tuple[str, ...] | None = None
+    outputs: tuple[str, ...] | None = None
+    input_units: tuple[str, ...] | None = None
+    output_units: tuple[str, ...] | None = None
+    operating_point: OperatingPoint | None = None
+
+    def __post_init__(self) -> None:
+        num_rows = list(self.num)
+        den_rows = list(self.den)
+        p = len(num_rows)
+        if p == 0 or len(den_rows) != p:
+            raise OptionError("num and den must both be non-empty p x m nested sequences")
+        m = len(num_rows[0])
+        new_num, new_den = [], []
+        for i in range(p):
+            if len(num_rows[i]) != m or len(den_rows[i]) != m:
+                raise OptionError(f"num and den row {i} must both hold {m} polynomials")
+            nrow, drow = [], []
+            for j in range(m):
+                b = np.atleast_1d(np.array(num_rows[i][j], dtype=float))
+                a = np.atleast_1d(np.array(den_rows[i][j], dtype=float))
+                a = np.trim_zeros(a, "f")
+                if a.size == 0:
+                    raise OptionError(f"den[{i}][{j}] must not be zero")
+                if not (np.all(np.isfinite(a)) and np.all(np.isfinite(b))):
+                    raise OptionError(f"num[{i}][{j}] and den[{i}][{j}] must be finite")
+                b = b / a[0]
+                a = a / a[0]
+                b = np.trim_zeros(b, "f")
+                if b.size == 0:
+                    b = np.zeros(1)
+                if b.size > a.size:
+                    raise OptionError(
+                        f"channel ({i}, {j}) is improper: numerator degree {b.size - 1} > "
+                        f"denominator degree {a.size - 1}"
+                    )
+                b.flags.writeable = False
+                a.flags.writeable = False
+                nrow.append(b)
+                drow.append(a)
+            new_num.append(tuple(nrow))
+            new_den.append(tuple(drow))
+        _set(self, "num", tuple(new_num))
+        _set(self, "den", tuple(new_den))
+        _set(self, "sample_time", optional_positive_float(self.sample_time, "sample_time"))
+        _set(self, "inputs", names_tuple(self.inputs, "inputs", m, "u"))
+        _set(self, "outputs", names_tuple(self.outputs, "outputs", p, "y"))
+        units_in = ("",) * m if self.input_units is None else self.input_units
+        units_out = ("",) * p if self.output_units is None else self.output_units
+        _set(self, "input_units", names_tuple(units_in, "input_units", m, ""))
+        _set(self, "output_units", names_tuple(units_out, "output_units", p, ""))
+
+    @property
+    def n_inputs(self) -> int:
+        """Number of inputs ``m``."""
+        return len(self.num[0])
+
+    @property
+    def n_outputs(self) -> int:
+        """Number of outputs ``p``."""
+        return len(self.num)
+
+    @property
+    def is_discrete(self) -> bool:
+        """True for a discrete-time model."""
+        return self.sample_time is not None
