@@ -1,0 +1,31 @@
+"""Shared test fixtures."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+REPO = Path(__file__).resolve().parents[1]
+#: Open measured datasets kept beside the repository (never copied into it).
+DATASETS = Path(os.environ.get("RIGFIT_DATASETS", REPO.parent / "shared" / "datasets"))
+
+
+@pytest.fixture
+def rng() -> np.random.Generator:
+    return np.random.default_rng(20261201)
+
+
+@pytest.fixture
+def shared_dataset():
+    """Return a function giving the path of a shared dataset, skipping when absent."""
+
+    def _get(name: str) -> Path:
+        path = DATASETS / name
+        if not path.is_file():
+            pytest.skip(f"shared dataset {name} not available")
+        return path
+
+    return _get
