@@ -29,3 +29,17 @@ def shared_dataset():
         return path
 
     return _get
+
+
+@pytest.fixture
+def run_cli():
+    """Invoke the rigfit CLI in-process; returns click's Result (exit_code, stdout, stderr)."""
+    from click.testing import CliRunner
+
+    from ident.cli import cli
+
+    def _run(*args: str, input: str | None = None):
+        runner = CliRunner()
+        return runner.invoke(cli, [str(a) for a in args], input=input, catch_exceptions=True)
+
+    return _run

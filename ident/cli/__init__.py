@@ -17,6 +17,7 @@ import sys
 
 import click
 
+from ..errors import IdentError
 from ._common import DataError, run_guarded
 
 __all__ = ["cli", "main", "DataError"]
@@ -56,6 +57,14 @@ class _LazyGroup(click.Group):
         module_name, attr = target.split(":")
         module = importlib.import_module(f"{__name__}.{module_name}")
         return getattr(module, attr)
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except IdentError as exc:
+            raise DataError(str(exc), getattr(exc, "hint", None)) from exc
+        except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
+            raise DataError(f"{exc.filename}: {exc.strerror}") from exc
 
     def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
         rows = [(name, _SHORT_HELP.get(name, "")) for name in self.list_commands(ctx)]
