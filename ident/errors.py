@@ -117,7 +117,8 @@ class ModelFileError(IdentError, ValueError):
 
 class ModelError(IdentError, ValueError):
     """A model cannot be used or converted as asked (for example no real
-    continuous-time equivalent exists)."""
+    continuous-time equivalent exists).
+    """
 
 
 class PipelineError(IdentError, ValueError):

@@ -174,7 +174,7 @@ def estimate_initial_state(
     N = u.shape[0]
     count = min(N, max(10 * n, 100)) if n_samples is None else min(N, int(n_samples))
     forced = simulate(model, u[:count])
-    O = free_response_matrix(model, count)
+    obs = free_response_matrix(model, count)
     rhs = (y[:count] - forced).reshape(-1)
-    x0, *_ = linalg.lstsq(O, rhs, lapack_driver="gelsy")
+    x0, *_ = linalg.lstsq(obs, rhs, lapack_driver="gelsy")
     return x0

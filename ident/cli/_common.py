@@ -133,7 +133,7 @@ def progress_enabled(quiet: bool) -> bool:
 
 @contextlib.contextmanager
 def progress_step(label: str, enabled: bool, length: int = 1) -> Iterator[Any]:
-    """A click progress bar on stderr, or a no-op object when disabled."""
+    """Show a click progress bar on stderr, or yield a no-op object when disabled."""
     if enabled:
         with click.progressbar(length=length, label=label, file=sys.stderr) as bar:
             yield bar

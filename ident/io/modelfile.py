@@ -1,0 +1,315 @@
+"""The rigfit model file: a JSON document holding one state-space model.
+
+Layout (schema version 1)::
+
+    {
+      "format": "rigfit-model",
+      "schema_version": 1,
+      "sample_time": 0.001,                 # seconds; null for continuous time
+      "inputs": ["motor_torque_cmd"],       # model order of the inputs
+      "outputs": ["motor_speed", "carriage_speed"],
+      "units": {"inputs": ["N m"], "outputs": ["rad/s", "m/s"]},
+      "operating_point": {"inputs": [...], "outputs": [...]},   # or null
+      "state_space": {"A": [[...]], "B": [[...]], "C": [[...]], "D": [[...]]},
+      "noise_gain": [[...]] or null,        # innovation-form Kalman gain K (n x p)
+      "provenance": {"tool": "rigfit", "tool_version": ..., "created_utc": ..., "log": {...},
+                     "estimation": {...}, "validation": {...}}
+    }
+
+Discrete time means ``x[k+1] = A x + B u``, ``y = C x + D u``; the model maps
+deviations from the operating point. Floats are written with ``repr``
+precision, so a save/load round trip is exact.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .._version import __version__
+from ..errors import IdentError, ModelFileError
+from ..models import OperatingPoint, StateSpaceModel
+from .atomic import write_atomic
+
+__all__ = [
+    "FORMAT_NAME",
+    "SCHEMA_VERSION",
+    "ModelFile",
+    "model_to_dict",
+    "model_from_dict",
+    "save_model",
+    "load_model",
+    "dumps_model",
+]
+
+FORMAT_NAME = "rigfit-model"
+SCHEMA_VERSION = 1
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ModelFile:
+    """A model read from a model file, with the file's provenance record.
+
+    Parameters
+    ----------
+    model : StateSpaceModel
+        The model.
+    provenance : dict
+        Tool version, creation time, log identity, estimation settings and
+        validation figures, as written (empty when the file has none).
+    path : str or None
+        The file it was read from.
+    """
+
+    model: StateSpaceModel
+    provenance: dict = field(default_factory=dict)
+    path: str | None = None
+
+
+def _matrix(arr: np.ndarray) -> list[list[float]]:
+    return [[float(v) for v in row] for row in np.asarray(arr, dtype=float)]
+
+
+def _finite_json(obj: Any) -> Any:
+    """Make provenance JSON-safe: numpy to builtins, non-finite floats to None."""
+    if isinstance(obj, dict):
+        return {str(k): _finite_json(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_finite_json(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _finite_json(obj.tolist())
+    if isinstance(obj, (np.floating, float)):
+        value = float(obj)
+        return value if math.isfinite(value) else None
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    if isinstance(obj, complex):
+        return [_finite_json(obj.real), _finite_json(obj.imag)]
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
+
+
+def default_provenance() -> dict:
+    """Tool name, version and the current UTC time, the base of every provenance record."""
+    now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
+    return {
+        "tool": "rigfit",
+        "tool_version": __version__,
+        "created_utc": now.isoformat().replace("+00:00", "Z"),
+    }
+
+
+def model_to_dict(model: StateSpaceModel, provenance: dict | None = None) -> dict:
+    """Return the model file content for ``model`` as a JSON-ready dict.
+
+    Parameters
+    ----------
+    model : StateSpaceModel
+        Model to store (discrete or continuous time).
+    provenance : dict, optional
+        Extra provenance entries (``log``, ``estimation``, ``validation``, ...);
+        merged over :func:`default_provenance`.
+    """
+    if not isinstance(model, StateSpaceModel):
+        raise IdentError(f"model must be a StateSpaceModel; got {type(model).__name__}")
+    prov = default_provenance()
+    if provenance:
+        prov.update(_finite_json(provenance))
+    op = model.operating_point
+    return {
+        "format": FORMAT_NAME,
+        "schema_version": SCHEMA_VERSION,
+        "sample_time": model.sample_time,
+        "inputs": list(model.inputs),
+        "outputs": list(model.outputs),
+        "units": {"inputs": list(model.input_units), "outputs": list(model.output_units)},
+        "operating_point": None
+        if op is None
+        else {"inputs": [float(v) for v in op.inputs], "outputs": [float(v) for v in op.outputs]},
+        "state_space": {
+            "A": _matrix(model.A),
+            "B": _matrix(model.B),
+            "C": _matrix(model.C),
+            "D": _matrix(model.D),
+        },
+        "noise_gain": None if model.noise_gain is None else _matrix(model.noise_gain),
+        "provenance": prov,
+    }
+
+
+def dumps_model(model: StateSpaceModel, provenance: dict | None = None) -> str:
+    """Serialise ``model`` to the model-file JSON text (exact float round trip)."""
+    return json.dumps(model_to_dict(model, provenance), indent=2, allow_nan=False) + "\n"
+
+
+def _require(mapping: dict, key: str, path: str | None) -> Any:
+    if key not in mapping:
+        raise ModelFileError(f"missing key {key!r}", path=path)
+    return mapping[key]
+
+
+def _as_matrix(value: Any, name: str, rows: int | None, cols: int | None, path: str | None) -> np.ndarray:
+    try:
+        arr = np.array(value, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise ModelFileError(f"{name} must be a matrix of numbers", path=path) from exc
+    if arr.size == 0:  # a model without states writes A as [] and B as []
+        arr = arr.reshape(rows or 0, cols or 0)
+    if arr.ndim != 2:
+        raise ModelFileError(f"{name} must be a list of rows (2-D); got {arr.ndim}-D", path=path)
+    if (rows is not None and arr.shape[0] != rows) or (cols is not None and arr.shape[1] != cols):
+        want = f"({'*' if rows is None else rows}, {'*' if cols is None else cols})"
+        raise ModelFileError(f"{name} must have shape {want}; got {arr.shape}", path=path)
+    if not np.all(np.isfinite(arr)):
+        raise ModelFileError(f"{name} holds a value that is not finite", path=path)
+    return arr
+
+
+def model_from_dict(data: Any, *, path: str | os.PathLike | None = None) -> ModelFile:
+    """Build a :class:`ModelFile` from parsed model-file JSON, checking every field.
+
+    Raises
+    ------
+    ModelFileError
+        The format name or schema version is unknown, or a field is missing
+        or malformed.
+    """
+    where = None if path is None else os.fspath(path)
+    if not isinstance(data, dict):
+        raise ModelFileError("not a model file (top level must be a JSON object)", path=where)
+    fmt = data.get("format")
+    if fmt != FORMAT_NAME:
+        raise ModelFileError(f"not a rigfit model file (format is {fmt!r}, expected {FORMAT_NAME!r})", path=where)
+    version = data.get("schema_version")
+    if version != SCHEMA_VERSION:
+        raise ModelFileError(
+            f"unsupported schema_version {version!r}; this rigfit reads version {SCHEMA_VERSION}",
+            path=where,
+            hint="upgrade rigfit to read files written by a newer version",
+        )
+    ss = _require(data, "state_space", where)
+    if not isinstance(ss, dict):
+        raise ModelFileError("state_space must be an object with A, B, C, D", path=where)
+    inputs = _require(data, "inputs", where)
+    outputs = _require(data, "outputs", where)
+    if not (isinstance(inputs, list) and all(isinstance(s, str) for s in inputs)):
+        raise ModelFileError("inputs must be a list of names", path=where)
+    if not (isinstance(outputs, list) and all(isinstance(s, str) for s in outputs)):
+        raise ModelFileError("outputs must be a list of names", path=where)
+    m, p = len(inputs), len(outputs)
+    A = _as_matrix(_require(ss, "A", where), "state_space.A", None, None, where)
+    n = A.shape[0]
+    if A.shape != (n, n):
+        raise ModelFileError(f"state_space.A must be square; got {A.shape}", path=where)
+    B = _as_matrix(_require(ss, "B", where), "state_space.B", n, m, where)
+    C = _as_matrix(_require(ss, "C", where), "state_space.C", p, n, where)
+    D = _as_matrix(_require(ss, "D", where), "state_space.D", p, m, where)
+    sample_time = _require(data, "sample_time", where)
+    if sample_time is not None and (
+        isinstance(sample_time, bool)
+        or not isinstance(sample_time, (int, float))
+        or not math.isfinite(sample_time)
+        or sample_time <= 0
+    ):
+        raise ModelFileError(f"sample_time must be a positive number or null; got {sample_time!r}", path=where)
+    units = data.get("units") or {}
+    if not isinstance(units, dict):
+        raise ModelFileError("units must be an object with inputs and outputs", path=where)
+    in_units = units.get("inputs", [""] * m)
+    out_units = units.get("outputs", [""] * p)
+    if len(in_units) != m or len(out_units) != p:
+        raise ModelFileError("units must list one unit per input and per output", path=where)
+    op_raw = data.get("operating_point")
+    op = None
+    if op_raw is not None:
+        if not isinstance(op_raw, dict):
+            raise ModelFileError("operating_point must be an object or null", path=where)
+        op_in = _as_matrix([_require(op_raw, "inputs", where)], "operating_point.inputs", 1, m, where)
+        op_out = _as_matrix([_require(op_raw, "outputs", where)], "operating_point.outputs", 1, p, where)
+        op = OperatingPoint(op_in[0], op_out[0])
+    K_raw = data.get("noise_gain")
+    K = None if K_raw is None else _as_matrix(K_raw, "noise_gain", n, p, where)
+    provenance = data.get("provenance") or {}
+    if not isinstance(provenance, dict):
+        raise ModelFileError("provenance must be an object", path=where)
+    try:
+        model = StateSpaceModel(
+            A=A if n else np.zeros((0, 0)),
+            B=B,
+            C=C,
+            D=D,
+            sample_time=None if sample_time is None else float(sample_time),
+            inputs=tuple(inputs),
+            outputs=tuple(outputs),
+            input_units=tuple(str(u) for u in in_units),
+            output_units=tuple(str(u) for u in out_units),
+            operating_point=op,
+            noise_gain=K,
+        )
+    except IdentError as exc:
+        raise ModelFileError(str(exc), path=where) from exc
+    return ModelFile(model=model, provenance=provenance, path=where)
+
+
+def save_model(
+    path: str | os.PathLike,
+    model: StateSpaceModel,
+    *,
+    provenance: dict | None = None,
+    force: bool = False,
+    protected: tuple[str | os.PathLike, ...] = (),
+) -> Path:
+    """Write ``model`` to a model file atomically.
+
+    Parameters
+    ----------
+    path : path-like
+        Destination.
+    model : StateSpaceModel
+        Model to write.
+    provenance : dict, optional
+        Extra provenance (see :func:`model_to_dict`).
+    force : bool
+        Replace an existing file; without it an existing file is an error.
+    protected : tuple of path-like
+        Files never to be written (the input log).
+
+    Returns
+    -------
+    pathlib.Path
+        The written path.
+    """
+    return write_atomic(path, dumps_model(model, provenance), force=force, protected=protected)
+
+
+def load_model(path: str | os.PathLike) -> ModelFile:
+    """Read a model file.
+
+    Raises
+    ------
+    ModelFileError
+        The file is missing, is not JSON, or is not a valid model file.
+    """
+    where = os.fspath(path)
+    try:
+        with open(where, encoding="utf-8") as fh:
+            text = fh.read()
+    except FileNotFoundError as exc:
+        raise ModelFileError("no such file", path=where) from exc
+    except (IsADirectoryError, PermissionError, UnicodeDecodeError) as exc:
+        raise ModelFileError(f"cannot read ({exc.__class__.__name__})", path=where) from exc
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise ModelFileError(f"not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})", path=where) from exc
+    return model_from_dict(data, path=where)
