@@ -116,8 +116,9 @@ class ModelFileError(IdentError, ValueError):
 
 
 class ModelError(IdentError, ValueError):
-    """A model cannot be used or converted as asked (for example no real
-    continuous-time equivalent exists).
+    """A model cannot be used or converted as asked.
+
+    For example, no real continuous-time equivalent exists.
     """
 
 
