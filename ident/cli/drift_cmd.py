@@ -1,0 +1,170 @@
+"""``rigfit drift``: what moved between a baseline model and a new model."""
+
+from __future__ import annotations
+
+import click
+
+from ._common import GateFailed, echo_json
+
+
+@click.command()
+@click.argument("baseline_path", metavar="BASELINE", type=click.Path(dir_okay=False))
+@click.argument("new_path", metavar="NEW", type=click.Path(dir_okay=False))
+@click.option("--log", "log_path", type=click.Path(dir_okay=False), default=None,
+              help="A log of the rig after the change: both models are scored on it.")
+@click.option("--time", "time_column", default=None, help="Time column of --log (default: auto-detect time/t).")
+@click.option("--sample-rate", "sample_rate", type=float, default=None, help="Sample rate of --log [Hz].")
+@click.option("--band", "band_hz", type=(float, float), default=None, metavar="LOW HIGH",
+              help="Band [Hz] for the frequency-response comparison (default: the log's excited band, "
+                   "else 0.001 to 0.8 Nyquist).")
+@click.option("--max-frequency-shift", "frequency_shift_percent", type=float, default=10.0, show_default=True,
+              help="Largest allowed mode frequency shift [%].")
+@click.option("--max-damping-shift", "damping_shift", type=float, default=0.05, show_default=True,
+              help="Largest allowed absolute damping-ratio change.")
+@click.option("--max-gain-change", "dc_gain_change_percent", type=float, default=20.0, show_default=True,
+              help="Largest allowed DC-gain change [%].")
+@click.option("--max-response-difference", "response_difference_db", type=float, default=6.0, show_default=True,
+              help="Largest allowed frequency-response difference in the band [dB].")
+@click.option("--no-new-modes", is_flag=True, help="Treat a mode that appears or vanishes as a breach.")
+@click.option("--json", "as_json", is_flag=True, help="Print machine-readable JSON on stdout.")
+def drift(
+    baseline_path: str,
+    new_path: str,
+    log_path: str | None,
+    time_column: str | None,
+    sample_rate: float | None,
+    band_hz: tuple[float, float] | None,
+    frequency_shift_percent: float,
+    damping_shift: float,
+    dc_gain_change_percent: float,
+    response_difference_db: float,
+    no_new_modes: bool,
+    as_json: bool,
+) -> None:
+    """Compare NEW with BASELINE (two model files of the same rig) and report what moved.
+
+    Exit status 3 when a threshold is breached.
+    """
+    from ..drift import DriftThresholds, compare_models
+    from ..io.modelfile import load_model
+
+    baseline = load_model(baseline_path).model
+    new = load_model(new_path).model
+    thresholds = DriftThresholds(
+        frequency_shift_percent=frequency_shift_percent,
+        damping_shift=damping_shift,
+        dc_gain_change_percent=dc_gain_change_percent,
+        response_difference_db=response_difference_db,
+        new_modes_allowed=not no_new_modes,
+    )
+    u = y = None
+    if log_path is not None:
+        from ..io.log import read_log
+
+        log = read_log(log_path, list(new.inputs), list(new.outputs), time=time_column, sample_rate=sample_rate)
+        u, y = log.u, log.y
+        if band_hz is None:
+            band_hz = excited_band(u, new.sample_time)
+    report = compare_models(baseline, new, thresholds=thresholds, band_hz=band_hz, u=u, y=y)
+    if as_json:
+        echo_json(drift_to_dict(report))
+    else:
+        click.echo(drift_text(report))
+    if not report.passed:
+        raise GateFailed("; ".join(report.breaches))
+
+
+def excited_band(u, sample_time: float) -> tuple[float, float] | None:
+    """Return the widest 90 % power band over the inputs, in Hz (``None`` if it cannot be judged)."""
+    from ..excitation import power_band
+
+    nyquist = 0.5 / sample_time
+    highs = []
+    for j in range(u.shape[1]):
+        band = power_band(u[:, j], sample_time)
+        highs.append(float(band.high_fraction) * nyquist)
+    high = max(highs) if highs else 0.0
+    return (nyquist * 1e-3, high) if high > nyquist * 1e-3 else None
+
+
+def _mode_dict(mode) -> dict | None:
+    if mode is None:
+        return None
+    return {"natural_frequency_hz": mode.natural_frequency_hz, "damping_ratio": mode.damping_ratio}
+
+
+def drift_to_dict(report) -> dict:
+    """JSON-ready form of a :class:`ident.drift.DriftReport`."""
+    r = report.response
+    return {
+        "passed": report.passed,
+        "breaches": list(report.breaches),
+        "modes": [
+            {
+                "status": s.status,
+                "baseline": _mode_dict(s.baseline),
+                "new": _mode_dict(s.new),
+                "frequency_shift_hz": s.frequency_shift_hz,
+                "frequency_shift_percent": s.frequency_shift_percent,
+                "damping_shift": s.damping_shift,
+                "z_score": s.z_score,
+                "breaches": list(s.breaches),
+            }
+            for s in report.mode_shifts
+        ],
+        "dc_gains": [
+            {"input": g.input, "output": g.output, "baseline": g.baseline, "new": g.new,
+             "change_percent": g.change_percent, "breach": g.breach}
+            for g in report.gain_changes
+        ],
+        "response_difference": {
+            "band_hz": list(r.band_hz),
+            "largest_db": r.largest_db,
+            "at_frequency_hz": r.at_frequency_hz,
+            "input": r.input,
+            "output": r.output,
+        },
+        "fit_on_new_log": None
+        if report.new_model_fit is None
+        else {"baseline_model": report.old_model_fit.tolist(), "new_model": report.new_model_fit.tolist()},
+    }
+
+
+def drift_text(report) -> str:
+    """Readable drift summary."""
+    lines = ["modes (baseline -> new)"]
+    lines.append(f"  {'status':<9}{'f base [Hz]':>13}{'f new [Hz]':>13}{'shift [%]':>11}"
+                 f"{'zeta base':>11}{'zeta new':>10}  note")
+    for s in report.mode_shifts:
+        fb = f"{s.baseline.natural_frequency_hz:.4g}" if s.baseline else "-"
+        fn = f"{s.new.natural_frequency_hz:.4g}" if s.new else "-"
+        zb = f"{s.baseline.damping_ratio:.3f}" if s.baseline else "-"
+        zn = f"{s.new.damping_ratio:.3f}" if s.new else "-"
+        shift = f"{s.frequency_shift_percent:+.1f}" if s.frequency_shift_percent is not None else "-"
+        note = ", ".join(s.breaches) + (" !" if s.breaches else "")
+        lines.append(f"  {s.status:<9}{fb:>13}{fn:>13}{shift:>11}{zb:>11}{zn:>10}  {note}".rstrip())
+    lines.append("")
+    lines.append("DC gains")
+    for g in report.gain_changes:
+        pct = f"{g.change_percent:+.1f} %" if g.change_percent is not None else "n/a"
+        mark = "  !" if g.breach else ""
+        lines.append(f"  {g.input} -> {g.output}: {g.baseline:.4g} -> {g.new:.4g} ({pct}){mark}")
+    r = report.response
+    lines.append("")
+    lines.append(
+        f"largest response difference in {r.band_hz[0]:.3g}-{r.band_hz[1]:.3g} Hz: {r.largest_db:.2f} dB "
+        f"at {r.at_frequency_hz:.4g} Hz ({r.input} -> {r.output})"
+    )
+    if report.new_model_fit is not None:
+        lines.append("")
+        width = max(len(name) for name in report.outputs) + 4
+        lines.append(f"{'fit on the new log [%]':<{width}}{'baseline model':>16}{'new model':>12}")
+        for k, name in enumerate(report.outputs):
+            lines.append(f"  {name:<{width - 2}}{report.old_model_fit[k]:>16.1f}{report.new_model_fit[k]:>12.1f}")
+    lines.append("")
+    if report.passed:
+        lines.append("verdict: within the drift thresholds")
+    else:
+        lines.append("verdict: drift thresholds breached:")
+        lines += [f"  - {b}" for b in report.breaches]
+    return "\n".join(lines)

@@ -1,0 +1,395 @@
+"""What moved between a baseline model and a new one after a hardware change.
+
+Modes of the two models are paired by an optimal assignment on a cost that
+combines the relative frequency difference and the damping difference
+(:func:`scipy.optimize.linear_sum_assignment`); pairs whose cost exceeds a
+limit are reported as a vanished and an appeared mode instead. For every pair
+the shift of natural frequency and damping ratio is given, with a significance
+test when both models carry pole uncertainties. DC gains, the largest
+frequency-response difference in the excited band, and (when a new log is
+given) how well each model explains the new data complete the comparison.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy.optimize import linear_sum_assignment
+
+from ._validate import as_signal, fraction, positive_float
+from .analysis import dc_gain, frequency_response
+from .diagnostics import fit_percent
+from .errors import OptionError
+from .models import StateSpaceModel
+from .modes import Mode, mode_table
+from .simulate import estimate_initial_state, simulate
+
+__all__ = [
+    "MODE_STATUSES",
+    "DriftThresholds",
+    "ModeShift",
+    "GainChange",
+    "ResponseDifference",
+    "DriftReport",
+    "compare_models",
+]
+
+#: How a mode of one model relates to the other model.
+MODE_STATUSES = ("matched", "appeared", "vanished")
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class DriftThresholds:
+    """Limits beyond which a change counts as a breach (a failed gate).
+
+    Parameters
+    ----------
+    frequency_shift_percent : float
+        Largest allowed change of a matched mode's natural frequency, in percent of
+        the baseline frequency. Default 10.
+    damping_shift : float
+        Largest allowed absolute change of a matched mode's damping ratio. Default 0.05.
+    dc_gain_change_percent : float
+        Largest allowed change of any channel's DC gain, in percent. Default 20.
+    response_difference_db : float
+        Largest allowed difference of the frequency-response magnitudes in the
+        excited band, in dB. Default 6.
+    new_modes_allowed : bool
+        When false, a mode that appears or vanishes is a breach. Default true.
+    match_cost_limit : float
+        Pairs of modes whose matching cost exceeds this are not paired. The cost is
+        ``|ln(f_new / f_base)| + |zeta_new - zeta_base|``; the default 0.7 pairs modes
+        within about a factor of two in frequency.
+    """
+
+    frequency_shift_percent: float = 10.0
+    damping_shift: float = 0.05
+    dc_gain_change_percent: float = 20.0
+    response_difference_db: float = 6.0
+    new_modes_allowed: bool = True
+    match_cost_limit: float = 0.7
+
+    def __post_init__(self) -> None:
+        for name in ("frequency_shift_percent", "damping_shift", "dc_gain_change_percent",
+                     "response_difference_db", "match_cost_limit"):
+            object.__setattr__(self, name, positive_float(getattr(self, name), name))
+        if not isinstance(self.new_modes_allowed, bool):
+            raise OptionError(f"new_modes_allowed must be true or false; got {self.new_modes_allowed!r}")
+
+    @classmethod
+    def from_mapping(cls, mapping: dict[str, Any]) -> DriftThresholds:
+        """Build from a pipeline-file table; unknown keys are an :class:`OptionError`."""
+        allowed = set(cls.__dataclass_fields__)
+        unknown = sorted(set(mapping) - allowed)
+        if unknown:
+            raise OptionError(
+                f"unknown drift threshold {unknown[0]!r}; valid: {', '.join(sorted(allowed))}"
+            )
+        return cls(**mapping)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ModeShift:
+    """One mode's change between the baseline and the new model.
+
+    Parameters
+    ----------
+    status : {"matched", "appeared", "vanished"}
+        ``appeared``: only in the new model; ``vanished``: only in the baseline.
+    baseline, new : Mode or None
+        The mode in each model (``None`` where absent).
+    frequency_shift_hz, frequency_shift_percent, damping_shift : float or None
+        New minus baseline; ``None`` unless matched.
+    z_score : float or None
+        Frequency shift divided by its standard uncertainty, when both modes
+        carry uncertainties; ``None`` otherwise.
+    breaches : tuple of str
+        Which thresholds this mode exceeds.
+    """
+
+    status: str
+    baseline: Mode | None
+    new: Mode | None
+    frequency_shift_hz: float | None
+    frequency_shift_percent: float | None
+    damping_shift: float | None
+    z_score: float | None
+    breaches: tuple[str, ...]
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class GainChange:
+    """Change of one channel's DC gain (``inf`` for an integrating channel)."""
+
+    input: str
+    output: str
+    baseline: float
+    new: float
+    change_percent: float | None
+    breach: bool
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ResponseDifference:
+    """Largest frequency-response magnitude difference within the band.
+
+    Parameters
+    ----------
+    band_hz : tuple of float
+        The band compared.
+    largest_db : float
+        Largest ``|20 log10 |G_new| - 20 log10 |G_base||`` over the band and all channels.
+    at_frequency_hz : float
+        Where it occurs.
+    input, output : str
+        In which channel.
+    frequencies_hz : numpy.ndarray, shape (F,)
+    baseline_db, new_db : numpy.ndarray, shape (F, p, m)
+        Magnitudes, for plotting.
+    """
+
+    band_hz: tuple[float, float]
+    largest_db: float
+    at_frequency_hz: float
+    input: str
+    output: str
+    frequencies_hz: np.ndarray
+    baseline_db: np.ndarray
+    new_db: np.ndarray
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class DriftReport:
+    """Everything that moved between two models, with threshold breaches.
+
+    ``old_model_fit`` and ``new_model_fit`` (fit percent per output on the new log)
+    are ``None`` when no log was given.
+    """
+
+    mode_shifts: tuple[ModeShift, ...]
+    gain_changes: tuple[GainChange, ...]
+    response: ResponseDifference
+    old_model_fit: np.ndarray | None
+    new_model_fit: np.ndarray | None
+    thresholds: DriftThresholds
+    outputs: tuple[str, ...] = field(default=())
+    breaches: tuple[str, ...] = field(default=())
+
+    @property
+    def passed(self) -> bool:
+        """True when no threshold is breached."""
+        return not self.breaches
+
+
+def _log_freq(mode: Mode) -> float:
+    return math.log(max(mode.natural_frequency_hz or 0.0, 1e-300))
+
+
+def _damping(mode: Mode) -> float:
+    # an integrator (z = 1) has no damping ratio; it sits with the non-oscillating modes
+    return 1.0 if mode.damping_ratio is None else mode.damping_ratio
+
+
+def _comparable(modes: tuple[Mode, ...]) -> tuple[Mode, ...]:
+    # poles at z = 0 or on the negative real axis have no natural frequency to compare
+    return tuple(m for m in modes if m.natural_frequency_hz is not None)
+
+
+def _match(base: tuple[Mode, ...], new: tuple[Mode, ...], limit: float) -> list[tuple[int | None, int | None]]:
+    if not base or not new:
+        return [(i, None) for i in range(len(base))] + [(None, j) for j in range(len(new))]
+    cost = np.array(
+        [[abs(_log_freq(b) - _log_freq(n)) + abs(_damping(b) - _damping(n)) for n in new] for b in base]
+    )
+    rows, cols = linear_sum_assignment(cost)
+    pairs: list[tuple[int | None, int | None]] = []
+    used_b, used_n = set(), set()
+    for i, j in zip(rows, cols, strict=True):
+        if cost[i, j] <= limit:
+            pairs.append((int(i), int(j)))
+            used_b.add(int(i))
+            used_n.add(int(j))
+    pairs += [(i, None) for i in range(len(base)) if i not in used_b]
+    pairs += [(None, j) for j in range(len(new)) if j not in used_n]
+    return pairs
+
+
+def _frequency_std(mode: Mode) -> float | None:
+    std = getattr(mode, "natural_frequency_std_hz", None)
+    return None if std is None or not math.isfinite(std) else float(std)
+
+
+def _mode_shift(b: Mode | None, n: Mode | None, th: DriftThresholds) -> ModeShift:
+    if b is None or n is None:
+        status = "appeared" if b is None else "vanished"
+        breaches = () if th.new_modes_allowed else (f"mode {status}",)
+        return ModeShift(status, b, n, None, None, None, None, breaches)
+    df = n.natural_frequency_hz - b.natural_frequency_hz
+    df_pct = 100.0 * df / b.natural_frequency_hz if b.natural_frequency_hz > 0 else math.inf
+    dz = _damping(n) - _damping(b)
+    sb, sn = _frequency_std(b), _frequency_std(n)
+    z_score = df / math.hypot(sb, sn) if sb is not None and sn is not None and (sb or sn) else None
+    breaches = []
+    if abs(df_pct) > th.frequency_shift_percent:
+        breaches.append("frequency shift")
+    if abs(dz) > th.damping_shift:
+        breaches.append("damping shift")
+    return ModeShift("matched", b, n, df, df_pct, dz, z_score, tuple(breaches))
+
+
+def _response_difference(
+    base: StateSpaceModel, new: StateSpaceModel, band_hz: tuple[float, float], n_points: int
+) -> ResponseDifference:
+    lo, hi = band_hz
+    lo = max(lo, hi * 1e-4)
+    freqs = np.geomspace(lo, hi, n_points)
+    tiny = np.finfo(float).tiny
+    gb = 20 * np.log10(np.maximum(np.abs(frequency_response(base, freqs)), tiny))
+    gn = 20 * np.log10(np.maximum(np.abs(frequency_response(new, freqs)), tiny))
+    diff = np.abs(gn - gb)
+    k, i, j = np.unravel_index(int(np.argmax(diff)), diff.shape)
+    return ResponseDifference(
+        band_hz=(float(lo), float(hi)),
+        largest_db=float(diff[k, i, j]),
+        at_frequency_hz=float(freqs[k]),
+        input=new.inputs[j],
+        output=new.outputs[i],
+        frequencies_hz=freqs,
+        baseline_db=gb,
+        new_db=gn,
+    )
+
+
+def _fit_on(model: StateSpaceModel, u: np.ndarray, y: np.ndarray) -> np.ndarray:
+    op = model.operating_point
+    du = u - (op.inputs if op is not None else u.mean(axis=0))
+    dy = y - (op.outputs if op is not None else y.mean(axis=0))
+    x0 = estimate_initial_state(model, du, dy)
+    return fit_percent(dy, simulate(model, du, x0))
+
+
+def compare_models(
+    baseline: StateSpaceModel,
+    new: StateSpaceModel,
+    *,
+    thresholds: DriftThresholds | None = None,
+    band_hz: tuple[float, float] | None = None,
+    u: np.ndarray | None = None,
+    y: np.ndarray | None = None,
+    n_points: int = 400,
+) -> DriftReport:
+    """Compare a new model with a baseline of the same rig.
+
+    Parameters
+    ----------
+    baseline, new : StateSpaceModel
+        Discrete-time models with the same inputs and outputs (by name and order)
+        and the same sample time.
+    thresholds : DriftThresholds, optional
+        Breach limits; defaults as documented in :class:`DriftThresholds`.
+    band_hz : (float, float), optional
+        Band for the frequency-response comparison (the band the excitation
+        covered). Default: from 1/1000 of Nyquist to 0.8 Nyquist.
+    u, y : array_like, shape (N, m) and (N, p), optional
+        A log of the NEW rig in absolute units; each model removes its own
+        operating point, and both are scored on it by simulation fit percent.
+    n_points : int
+        Frequencies (log-spaced) in the band.
+
+    Returns
+    -------
+    DriftReport
+        Mode shifts, DC-gain changes, response difference, fits and breaches.
+
+    Notes
+    -----
+    Poles at z = 0 or on the negative real axis have no natural frequency and
+    are left out of the mode comparison (the mode table flags them).
+    Mode matching minimises the total cost ``|ln(f_new/f_base)| + |zeta_new - zeta_base|``
+    over one-to-one pairings (the assignment problem, solved exactly by
+    :func:`scipy.optimize.linear_sum_assignment`).
+
+    References
+    ----------
+    .. [1] H. W. Kuhn, "The Hungarian method for the assignment problem", Naval
+       Research Logistics Quarterly 2, 83-97, 1955.
+    """
+    th = thresholds if thresholds is not None else DriftThresholds()
+    if not isinstance(baseline, StateSpaceModel) or not isinstance(new, StateSpaceModel):
+        raise OptionError("baseline and new must be StateSpaceModel objects")
+    if baseline.sample_time is None or new.sample_time is None:
+        raise OptionError("drift comparison needs two discrete-time models")
+    if baseline.inputs != new.inputs or baseline.outputs != new.outputs:
+        raise OptionError(
+            f"models do not share signals: baseline {list(baseline.inputs)} -> {list(baseline.outputs)}, "
+            f"new {list(new.inputs)} -> {list(new.outputs)}"
+        )
+    nyquist = 0.5 / new.sample_time
+    if band_hz is None:
+        band_hz = (nyquist * 1e-3, 0.8 * nyquist)
+    else:
+        lo, hi = (float(band_hz[0]), positive_float(band_hz[1], "band_hz[1]"))
+        if not 0 <= lo < hi:
+            raise OptionError(f"band_hz must be (low, high) with 0 <= low < high; got {band_hz}")
+        fraction(hi / nyquist, "band_hz[1] / Nyquist", low=0.0, high=1.0, inclusive=True)
+        band_hz = (lo, hi)
+
+    base_modes = _comparable(mode_table(baseline).modes)
+    new_modes = _comparable(mode_table(new).modes)
+    shifts = tuple(
+        _mode_shift(None if i is None else base_modes[i], None if j is None else new_modes[j], th)
+        for i, j in _match(base_modes, new_modes, th.match_cost_limit)
+    )
+    shifts = tuple(
+        sorted(shifts, key=lambda s: (s.baseline or s.new).natural_frequency_hz)  # type: ignore[union-attr]
+    )
+
+    g_base, g_new = dc_gain(baseline), dc_gain(new)
+    gains = []
+    for i, out in enumerate(new.outputs):
+        for j, inp in enumerate(new.inputs):
+            b, n = float(g_base[i, j]), float(g_new[i, j])
+            if math.isfinite(b) and math.isfinite(n) and b != 0:
+                pct: float | None = 100.0 * (n - b) / abs(b)
+            else:
+                pct = None
+            breach = pct is not None and abs(pct) > th.dc_gain_change_percent
+            gains.append(GainChange(inp, out, b, n, pct, breach))
+
+    response = _response_difference(baseline, new, band_hz, n_points)
+
+    old_fit = new_fit = None
+    if (u is None) != (y is None):
+        raise OptionError("give both u and y of the new log, or neither")
+    if u is not None:
+        u = as_signal(u, "u")
+        y = as_signal(y, "y")
+        old_fit = _fit_on(baseline, u, y)
+        new_fit = _fit_on(new, u, y)
+
+    breaches = []
+    for s in shifts:
+        for b in s.breaches:
+            m = s.baseline or s.new
+            breaches.append(f"{b}: mode at {m.natural_frequency_hz:.4g} Hz")  # type: ignore[union-attr]
+    for g in gains:
+        if g.breach:
+            breaches.append(f"DC gain {g.input} -> {g.output} changed by {g.change_percent:+.1f} %")
+    if response.largest_db > th.response_difference_db:
+        breaches.append(
+            f"frequency response differs by {response.largest_db:.1f} dB at {response.at_frequency_hz:.4g} Hz "
+            f"({response.input} -> {response.output})"
+        )
+    return DriftReport(
+        mode_shifts=shifts,
+        gain_changes=tuple(gains),
+        response=response,
+        old_model_fit=old_fit,
+        new_model_fit=new_fit,
+        thresholds=th,
+        outputs=new.outputs,
+        breaches=tuple(breaches),
+    )

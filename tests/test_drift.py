@@ -1,0 +1,93 @@
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import signal
+
+from ident.drift import DriftThresholds, compare_models
+from ident.errors import OptionError
+from ident.models import OperatingPoint, StateSpaceModel
+
+T = 1e-3
+
+
+def _plant(modes, gain=1.0, op=(0.5, 10.0)):
+    """Discrete ZOH model of a cascade of second-order sections (f_n [Hz], zeta) and one real pole at 2 Hz."""
+    num, den = [gain * (2 * np.pi * 2.0)], [1.0, 2 * np.pi * 2.0]
+    for f, zeta in modes:
+        w = 2 * np.pi * f
+        num = np.polymul(num, [w * w])
+        den = np.polymul(den, [1.0, 2 * zeta * w, w * w])
+    A, B, C, D = signal.tf2ss(num, den)
+    Ad, Bd, Cd, Dd, _ = signal.cont2discrete((A, B, C, D), T, method="zoh")
+    return StateSpaceModel(Ad, Bd, Cd, Dd, sample_time=T, inputs=("torque",), outputs=("speed",),
+                           operating_point=OperatingPoint([op[0]], [op[1]]))
+
+
+def test_resonance_shift_recovered():
+    base = _plant([(30.0, 0.05)])
+    new = _plant([(36.0, 0.04)])
+    report = compare_models(base, new)
+    matched = [s for s in report.mode_shifts if s.status == "matched"]
+    assert len(matched) == 2
+    res = max(matched, key=lambda s: s.baseline.natural_frequency_hz)
+    # closed form: ZOH maps s-plane poles exactly to z = exp(sT), so the modes are the continuous ones
+    assert_allclose(res.baseline.natural_frequency_hz, 30.0, rtol=1e-8)
+    assert_allclose(res.frequency_shift_percent, 20.0, rtol=1e-6)  # 36/30 - 1, closed form
+    assert_allclose(res.damping_shift, -0.01, atol=1e-8)  # 0.04 - 0.05, closed form
+    assert "frequency shift" in res.breaches  # 20 % > default 10 %
+    assert not report.passed
+    # DC gain of each cascade is `gain` (closed form: every section has unit static gain)
+    assert_allclose(report.gain_changes[0].baseline, 1.0, rtol=1e-8)
+    assert_allclose(report.gain_changes[0].change_percent, 0.0, atol=1e-6)
+
+
+def test_identical_models_pass():
+    base = _plant([(30.0, 0.05)])
+    report = compare_models(base, base)
+    assert report.passed and report.breaches == ()
+    assert_allclose(report.response.largest_db, 0.0, atol=1e-9)  # same model: no difference, closed form
+    assert all(s.status == "matched" for s in report.mode_shifts)
+
+
+def test_appeared_mode_and_threshold():
+    base = _plant([(30.0, 0.05)])
+    new = _plant([(30.0, 0.05), (120.0, 0.1)])
+    report = compare_models(base, new)
+    statuses = sorted(s.status for s in report.mode_shifts)
+    assert statuses == ["appeared", "matched", "matched"]
+    strict = compare_models(base, new, thresholds=DriftThresholds(new_modes_allowed=False,
+                                                                  response_difference_db=100.0))
+    assert any("appeared" in b for b in strict.breaches)
+
+
+def test_dc_gain_change_breach():
+    base = _plant([(30.0, 0.05)], gain=1.0)
+    new = _plant([(30.0, 0.05)], gain=1.5)
+    report = compare_models(base, new, thresholds=DriftThresholds(response_difference_db=100.0))
+    assert_allclose(report.gain_changes[0].change_percent, 50.0, rtol=1e-6)  # closed form: 1.5/1 - 1
+    assert any("DC gain" in b for b in report.breaches)
+
+
+def test_old_model_scored_on_new_log(rng):
+    from ident.simulate import simulate
+
+    base = _plant([(30.0, 0.05)])
+    new = _plant([(36.0, 0.04)])
+    u = 0.5 + rng.standard_normal((4000, 1))
+    y = 10.0 + simulate(new, u - 0.5)
+    report = compare_models(base, new, u=u, y=y)
+    # noise-free data from the new model: it fits exactly (fit percent 100 by definition)
+    assert_allclose(report.new_model_fit, [100.0], atol=1e-6)
+    assert report.old_model_fit[0] < 95.0
+
+
+def test_rejects_mismatched_signals():
+    base = _plant([(30.0, 0.05)])
+    other = base.with_changes(outputs=("position",))
+    with pytest.raises(OptionError, match="do not share signals"):
+        compare_models(base, other)
+
+
+def test_thresholds_from_mapping_rejects_unknown_key():
+    with pytest.raises(OptionError, match="unknown drift threshold 'frequency_shift'"):
+        DriftThresholds.from_mapping({"frequency_shift": 5})

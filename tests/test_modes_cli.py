@@ -1,0 +1,182 @@
+"""Tests of ``rigfit modes``."""
+
+from __future__ import annotations
+
+import cmath
+import json
+import math
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import signal
+
+from ident.io.modelfile import save_model
+from ident.models import StateSpaceModel
+from ident.modes import FLAGS
+
+T = 1e-3
+
+
+def _pair(zeta: float, f_hz: float) -> list[complex]:
+    wn = 2 * math.pi * f_hz
+    z = cmath.exp(complex(-zeta * wn, wn * math.sqrt(1 - zeta**2)) * T)  # z = exp(sT), closed form
+    return [z, z.conjugate()]
+
+
+def _model(poles, zeros=(), dc=40.0) -> StateSpaceModel:
+    poles = np.asarray(poles, complex)
+    zeros = np.asarray(zeros, complex)
+    k = dc * abs(np.prod(1 - poles)) / abs(np.prod(1 - zeros))  # G(1) = dc, closed form
+    A, B, C, D = signal.zpk2ss(zeros, poles, k)
+    return StateSpaceModel(
+        A=A.real, B=B.real, C=C.real, D=D.real, sample_time=T,
+        inputs=["motor_torque_cmd"], outputs=["motor_speed"],
+        input_units=["N m"], output_units=["rad/s"],
+    )
+
+
+@pytest.fixture
+def clean_file(tmp_path):
+    path = tmp_path / "clean.json"
+    save_model(path, _model([*_pair(0.3, 32.0), 0.98]))
+    return path
+
+
+@pytest.fixture
+def resonant_file(tmp_path):
+    """A lightly damped 32 Hz mode (damping 0.01) and a pole on the negative real axis."""
+    path = tmp_path / "resonant.json"
+    save_model(path, _model([*_pair(0.01, 32.0), -0.6, 0.98]))
+    return path
+
+
+def test_flag_choices_match_the_core():
+    from ident.cli.modes_cmd import _FLAG_CHOICES
+
+    assert _FLAG_CHOICES == FLAGS
+
+
+def test_text_table_has_units_and_no_warnings_when_clean(run_cli, clean_file):
+    result = run_cli("modes", clean_file)
+    assert result.exit_code == 0, result.output
+    out = result.stdout
+    for header in ("f_n [Hz]", "zeta [-]", "tau [s]", "f_d [Hz]", "period [s]"):
+        assert header in out
+    assert "32" in out  # the resonance, built at 32 Hz
+    assert "motor_torque_cmd -> motor_speed: 40 rad/s/(N m)" in out  # built with DC gain 40
+    assert "warnings" not in out
+
+
+def test_text_marks_and_explains_warnings(run_cli, resonant_file):
+    result = run_cli("modes", resonant_file)
+    assert result.exit_code == 0
+    out = result.stdout
+    assert "warnings (rows marked !):" in out
+    assert "lightly_damped:" in out and "negative_real:" in out
+    assert any(line.startswith("!") for line in out.splitlines())
+
+
+def test_json_shape(run_cli, resonant_file):
+    result = run_cli("modes", resonant_file, "--json")
+    assert result.exit_code == 0
+    data = json.loads(result.stdout)
+    modes = data["modes"]
+    assert len(modes) == 3  # the pair once
+    for m in modes:
+        assert {"z", "s", "natural_frequency_hz", "damping_ratio", "time_constant_s", "flags"} <= set(m)
+    neg = [m for m in modes if m["z"][0] < 0][0]
+    assert neg["s"] is None and "negative_real" in neg["flags"]
+    osc = [m for m in modes if m["z"][1] != 0][0]
+    assert osc["z"][1] > 0
+    # built at 32 Hz and damping 0.01 (closed form); round-off only
+    assert_allclose(osc["natural_frequency_hz"], 32.0, rtol=1e-8)
+    assert_allclose(osc["damping_ratio"], 0.01, rtol=1e-6)
+    assert "lightly_damped" in osc["flags"]
+    assert_allclose(data["dc_gain"][0]["gain"], 40.0, rtol=1e-8)
+    assert data["expectations"] == []
+
+
+def test_fail_on_exits_3_only_when_the_flag_is_present(run_cli, resonant_file, clean_file):
+    assert run_cli("modes", resonant_file, "--fail-on", "lightly_damped").exit_code == 3
+    assert run_cli("modes", resonant_file, "--fail-on", "unstable").exit_code == 0
+    assert run_cli("modes", clean_file, "--fail-on", "lightly_damped",
+                   "--fail-on", "negative_real").exit_code == 0
+    result = run_cli("modes", resonant_file, "--fail-on", "lightly_damped", "--json")
+    assert json.loads(result.stdout)["fail_on"]["present"] == ["lightly_damped"]
+    assert "flag lightly_damped present" in result.stderr
+
+
+def test_damping_threshold_option(run_cli, clean_file):
+    assert run_cli("modes", clean_file, "--fail-on", "lightly_damped").exit_code == 0
+    # damping 0.3 is below a threshold of 0.5
+    assert run_cli("modes", clean_file, "--fail-on", "lightly_damped",
+                   "--damping-below", "0.5").exit_code == 3
+
+
+def test_log_duration_from_option_and_provenance(run_cli, tmp_path):
+    model = _model([math.exp(-T / 0.5)])  # tau 0.5 s
+    path = tmp_path / "slow.json"
+    save_model(path, model, provenance={"log": {"n_samples": 1000}})  # a 1 s log
+    assert run_cli("modes", path, "--fail-on", "slow_for_log").exit_code == 3
+    assert run_cli("modes", path, "--fail-on", "slow_for_log", "--log-duration", "60").exit_code == 0
+
+
+def _expect(tmp_path, text):
+    path = tmp_path / "expect.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_expectations_pass_and_fail(run_cli, clean_file, tmp_path):
+    good = _expect(tmp_path, "[expect]\nstable = true\n[[expect.mode]]\nname = \"belt\"\n"
+                   "frequency_hz = [25, 45]\n[[expect.dc_gain]]\nsign = \"positive\"\nrange = [10, 100]\n")
+    result = run_cli("modes", clean_file, "--expect", good)
+    assert result.exit_code == 0
+    assert "met      mode 'belt'" in result.stdout
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[expect]\nmax_order = 2\n[[expect.mode]]\nfrequency_hz = [100, 200]\n",
+                   encoding="utf-8")
+    result = run_cli("modes", clean_file, "--expect", bad, "--json")
+    assert result.exit_code == 3
+    data = json.loads(result.stdout)
+    assert [r["met"] for r in data["expectations"]] == [False, False]
+    assert data["expectations"][0]["measured_value"] == 3
+    assert "max_order" in result.stderr
+
+
+def test_unknown_expectation_key_exits_2_naming_it(run_cli, clean_file, tmp_path):
+    path = _expect(tmp_path, "[expect]\n[[expect.mode]]\nfrequncy_hz = [25, 45]\n")
+    result = run_cli("modes", clean_file, "--expect", path)
+    assert result.exit_code == 2
+    assert "expect.mode[1].frequncy_hz" in result.stderr
+    assert "frequency_hz" in result.stderr
+
+
+def test_plot_writes_png_and_refuses_overwrite(run_cli, resonant_file, tmp_path):
+    png = tmp_path / "poles.png"
+    assert run_cli("modes", resonant_file, "--plot", png).exit_code == 0
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, sec. 5.2)
+    again = run_cli("modes", resonant_file, "--plot", png)
+    assert again.exit_code == 2 and "already exists" in again.stderr
+    assert run_cli("modes", resonant_file, "--plot", png, "--force").exit_code == 0
+
+
+def test_plot_function_draws_on_given_axes(resonant_file):
+    from matplotlib.figure import Figure
+
+    from ident.io.modelfile import load_model
+    from ident.modes import mode_table
+    from ident.plots.poles import pole_zero_map
+
+    fig = Figure()
+    ax = fig.add_subplot(1, 1, 1)
+    table = mode_table(load_model(resonant_file).model,
+                       pole_covariance=np.array([np.eye(2) * 1e-6] * 4))
+    assert pole_zero_map(table, ax=ax) is fig
+    assert len(ax.lines) > 20  # unit circle, grid curves, confidence ellipses
+
+
+def test_missing_model_file_exits_2(run_cli, tmp_path):
+    result = run_cli("modes", tmp_path / "nope.json")
+    assert result.exit_code == 2
