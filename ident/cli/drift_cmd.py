@@ -81,8 +81,9 @@ def excited_band(u, sample_time: float) -> tuple[float, float] | None:
     nyquist = 0.5 / sample_time
     highs = []
     for j in range(u.shape[1]):
-        band = power_band(u[:, j], sample_time)
-        highs.append(float(band.high_fraction) * nyquist)
+        frac = power_band(u[:, j], sample_time)
+        if frac is not None:
+            highs.append(float(frac) * nyquist)
     high = max(highs) if highs else 0.0
     return (nyquist * 1e-3, high) if high > nyquist * 1e-3 else None
 

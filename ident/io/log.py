@@ -1,0 +1,992 @@
+"""Reading rig logs (CSV in the usual logger dialects, or Parquet) into a :class:`Log`.
+
+A rig log is a table with one header line naming the columns, optionally with a
+unit in brackets or parentheses (``motor_torque_cmd [N m]``, ``temp (degC)``),
+preceded by any number of ``#`` comment lines. The reader
+
+* sniffs the dialect: comma; semicolon with a decimal point or a decimal comma;
+  tab (also with a decimal comma); a UTF-8 byte-order mark; CRLF line ends;
+  trailing empty columns;
+* matches the requested columns by their bare name, case-insensitively, and says
+  which columns exist (and the nearest name) when one is missing;
+* refuses non-numeric cells, NaN and inf with the file, the 1-based line number,
+  the column and the offending text, or drops such rows on request;
+* builds the time base from a time column (``time``/``t`` or a named one, in
+  s, ms, us, min or h) or from a sample rate, estimates the sample time robustly
+  (median interval) and refuses non-monotonic stamps and gaps, or splits the log
+  into segments at gaps on request.
+
+Memory: the happy path parses with the pandas C engine straight into float64
+columns of the requested columns only, and the ``u``/``y`` matrices are the one
+extra copy; object-dtype text is read only to locate a bad cell after the fast
+parse has failed.
+"""
+
+from __future__ import annotations
+
+import csv
+import difflib
+import hashlib
+import io
+import math
+import os
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .._validate import fraction, optional_positive_float
+from ..errors import LogFormatError, OptionError
+
+__all__ = [
+    "TIME_UNITS",
+    "TIME_COLUMN_NAMES",
+    "TimingStats",
+    "LogSource",
+    "Column",
+    "Table",
+    "TimeBase",
+    "Log",
+    "read_log",
+    "read_table",
+    "time_base",
+    "log_from_table",
+]
+
+#: Time units understood in a time column's header, with their factor to seconds.
+TIME_UNITS: dict[str, float] = {
+    "": 1.0,
+    "s": 1.0,
+    "ms": 1e-3,
+    "us": 1e-6,
+    "µs": 1e-6,
+    "min": 60.0,
+    "h": 3600.0,
+}
+#: Bare column names taken as the time column when none is named (case-insensitive).
+TIME_COLUMN_NAMES: tuple[str, ...] = ("time", "t")
+#: Timing bases reported in :class:`TimingStats`.
+TIMING_BASES: tuple[str, ...] = ("time column", "sample rate")
+
+_PARQUET_MAGIC = b"PAR1"
+_PREVIEW_BYTES = 1 << 16
+_SNIFF_ROWS = 50
+_UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\))\s*$")
+_DECIMAL_COMMA_RE = re.compile(r"^\s*[-+]?\d*,\d+(?:[eE][-+]?\d+)?\s*$")
+_INSTALL_PARQUET = "pip install 'rigfit[parquet]'"
+
+
+# --------------------------------------------------------------------------- records
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class TimingStats:
+    """Sample time and jitter of a log.
+
+    Attributes
+    ----------
+    sample_time : float
+        Sample time ``T`` in s: the median interval between time stamps, or
+        ``1 / sample_rate``.
+    jitter_std_s : float
+        Standard deviation of ``dt - T`` within segments, in s (0 for a sample rate).
+    jitter_max_s : float
+        Largest ``|dt - T|`` within segments, in s.
+    jitter_relative : float
+        ``jitter_max_s / T``.
+    basis : str
+        ``"time column"`` or ``"sample rate"``.
+    """
+
+    sample_time: float
+    jitter_std_s: float
+    jitter_max_s: float
+    jitter_relative: float
+    basis: str
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class LogSource:
+    """Where a log came from.
+
+    Attributes
+    ----------
+    path : str
+        The file as given.
+    file_name : str
+        Its base name.
+    sha256 : str
+        Hex SHA-256 of the file bytes.
+    first_row, last_row : int
+        1-based file line numbers of the first and last data row used (for
+        Parquet: 1-based row numbers in the table).
+    """
+
+    path: str
+    file_name: str
+    sha256: str
+    first_row: int
+    last_row: int
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Column:
+    """One column of a log: bare name, unit (``""`` when none) and float64 values."""
+
+    name: str
+    unit: str
+    values: np.ndarray
+
+    @property
+    def label(self) -> str:
+        """The name with its unit in brackets, as for a plot axis."""
+        return f"{self.name} [{self.unit}]" if self.unit else self.name
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Table:
+    """Numeric columns of a log, as read (used by ``rigfit inspect``).
+
+    Attributes
+    ----------
+    columns : tuple of Column
+        In file order.
+    source : LogSource
+        Provenance.
+    dropped_rows : int
+        Rows dropped because of non-numeric, NaN or inf cells (``drop_bad_rows``).
+    line_numbers : numpy.ndarray or None
+        1-based file line of each kept row when rows were dropped; ``None`` when
+        the rows are contiguous from ``source.first_row``.
+    """
+
+    columns: tuple[Column, ...]
+    source: LogSource
+    dropped_rows: int = 0
+    line_numbers: np.ndarray | None = None
+
+    @property
+    def n_rows(self) -> int:
+        """Number of data rows."""
+        return int(self.columns[0].values.shape[0]) if self.columns else 0
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """Bare column names in file order."""
+        return tuple(c.name for c in self.columns)
+
+    def line_of(self, index: int) -> int:
+        """1-based file line (or Parquet row) of data row ``index`` (0-based)."""
+        if self.line_numbers is not None:
+            return int(self.line_numbers[index])
+        return self.source.first_row + int(index)
+
+    def column(self, name: str) -> Column:
+        """Return the column whose bare name matches ``name`` case-insensitively.
+
+        Raises
+        ------
+        LogFormatError
+            No such column; the message lists the columns and the nearest name.
+        """
+        idx = _match_name(name, [c.name for c in self.columns], [c.unit for c in self.columns],
+                          self.source.path)
+        return self.columns[idx]
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class TimeBase:
+    """Time stamps of a log and what they say about sampling.
+
+    Attributes
+    ----------
+    time : numpy.ndarray, shape (N,)
+        Seconds.
+    column : str or None
+        Bare name of the time column; ``None`` when built from a sample rate.
+    timing : TimingStats
+    segments : tuple of (int, int)
+        ``[start, stop)`` sample ranges between gaps; ``((0, N),)`` without gaps.
+    """
+
+    time: np.ndarray
+    column: str | None
+    timing: TimingStats
+    segments: tuple[tuple[int, int], ...]
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Log:
+    """A rig log ready for identification.
+
+    Attributes
+    ----------
+    time : numpy.ndarray, shape (N,)
+        Time stamps in s (converted from the header unit).
+    u : numpy.ndarray, shape (N, m)
+        Inputs, float64.
+    y : numpy.ndarray, shape (N, p)
+        Outputs, float64.
+    input_names, output_names : tuple of str
+        Bare names as written in the header.
+    input_units, output_units : tuple of str
+        Units from the header, ``""`` when none.
+    sample_time : float
+        Seconds.
+    timing : TimingStats
+    source : LogSource
+    segments : tuple of (int, int)
+        ``[start, stop)`` sample index ranges of contiguous segments; ``((0, N),)``
+        unless the log was split at gaps.
+    dropped_rows : int
+        Rows dropped by ``drop_bad_rows`` (0 otherwise).
+    """
+
+    time: np.ndarray
+    u: np.ndarray
+    y: np.ndarray
+    input_names: tuple[str, ...]
+    output_names: tuple[str, ...]
+    input_units: tuple[str, ...]
+    output_units: tuple[str, ...]
+    sample_time: float
+    timing: TimingStats
+    source: LogSource
+    segments: tuple[tuple[int, int], ...]
+    dropped_rows: int = 0
+
+    @property
+    def n_samples(self) -> int:
+        """Number of samples ``N``."""
+        return int(self.u.shape[0])
+
+    @property
+    def n_inputs(self) -> int:
+        """Number of inputs ``m``."""
+        return int(self.u.shape[1])
+
+    @property
+    def n_outputs(self) -> int:
+        """Number of outputs ``p``."""
+        return int(self.y.shape[1])
+
+    @property
+    def duration_s(self) -> float:
+        """Time from the first to the last sample, in s."""
+        return float(self.time[-1] - self.time[0]) if self.time.size else 0.0
+
+
+# --------------------------------------------------------------------------- public API
+
+
+def read_log(
+    path: str | os.PathLike,
+    inputs: str | Sequence[str],
+    outputs: str | Sequence[str],
+    *,
+    time: str | None = None,
+    sample_rate: float | None = None,
+    drop_bad_rows: bool = False,
+    split_at_gaps: bool = False,
+    jitter_tolerance: float = 0.1,
+) -> Log:
+    """Read the named input and output columns of a rig log.
+
+    Parameters
+    ----------
+    path : path-like
+        CSV (comma, semicolon, tab; see the module notes) or Parquet file.
+    inputs, outputs : str or sequence of str
+        Bare column names (units in the header are ignored for matching;
+        case-insensitive). At least one of each; no name in both.
+    time : str, optional
+        Name of the time column. Default: a column named ``time`` or ``t`` when
+        ``sample_rate`` is not given.
+    sample_rate : float, optional
+        Samples per second, for logs without a time column. Exclusive with ``time``.
+    drop_bad_rows : bool, default False
+        Drop rows holding a non-numeric, empty, NaN or inf cell in a used column
+        (the count is in ``Log.dropped_rows``) instead of refusing the log.
+    split_at_gaps : bool, default False
+        Split the log into ``segments`` at intervals longer than
+        ``(1 + jitter_tolerance) * T`` instead of refusing it.
+    jitter_tolerance : float, default 0.1
+        Largest accepted ``|dt - T| / T``.
+
+    Returns
+    -------
+    Log
+
+    Raises
+    ------
+    LogFormatError
+        Unreadable file, missing or duplicate column, bad cell, bad time stamps.
+    OptionError
+        Invalid arguments (for example a name both input and output).
+    """
+    in_names = _names_arg(inputs, "inputs")
+    out_names = _names_arg(outputs, "outputs")
+    if not in_names:
+        raise OptionError("inputs must name at least one column; got none")
+    if not out_names:
+        raise OptionError("outputs must name at least one column; got none")
+    _check_time_args(time, sample_rate, jitter_tolerance)
+    path = os.fspath(path)
+    header = _read_header(path)
+    # resolve every requested name against the header before parsing the data
+    wanted = [*in_names, *out_names]
+    if time is not None:
+        wanted.append(time)
+    elif sample_rate is None:
+        auto = _auto_time_index(header.names)
+        if auto is not None:
+            wanted.append(header.names[auto])
+    indices = sorted({_match_name(n, header.names, header.units, path) for n in wanted})
+    table = _read_columns(path, header, indices, drop_bad_rows=drop_bad_rows)
+    return log_from_table(
+        table, in_names, out_names, time=time, sample_rate=sample_rate,
+        split_at_gaps=split_at_gaps, jitter_tolerance=jitter_tolerance,
+    )
+
+
+def read_table(path: str | os.PathLike, *, drop_bad_rows: bool = False) -> Table:
+    """Read every column of a rig log as float64 (for summaries such as ``rigfit inspect``).
+
+    Parameters
+    ----------
+    path : path-like
+        CSV or Parquet file.
+    drop_bad_rows : bool, default False
+        Drop rows with a non-numeric, empty, NaN or inf cell instead of refusing.
+
+    Returns
+    -------
+    Table
+
+    Raises
+    ------
+    LogFormatError
+        As :func:`read_log`.
+    """
+    path = os.fspath(path)
+    header = _read_header(path)
+    return _read_columns(path, header, list(range(len(header.names))), drop_bad_rows=drop_bad_rows)
+
+
+def time_base(
+    table: Table,
+    *,
+    time: str | None = None,
+    sample_rate: float | None = None,
+    split_at_gaps: bool = False,
+    jitter_tolerance: float = 0.1,
+) -> TimeBase:
+    """Build and check the time base of a table.
+
+    Parameters
+    ----------
+    table : Table
+    time, sample_rate, split_at_gaps, jitter_tolerance
+        As in :func:`read_log`.
+
+    Returns
+    -------
+    TimeBase
+
+    Raises
+    ------
+    LogFormatError
+        No time column, an unknown time unit, non-finite, non-monotonic or
+        duplicated stamps, intervals off by more than the tolerance, or gaps
+        (unless ``split_at_gaps``).
+
+    Notes
+    -----
+    The sample time is the median of the positive intervals, which a few
+    gaps or outliers do not move. An interval ``dt`` is a gap when
+    ``dt > (1 + tol) T`` and irregular when ``dt < (1 - tol) T``.
+    """
+    _check_time_args(time, sample_rate, jitter_tolerance)
+    n = table.n_rows
+    if n < 2:
+        raise LogFormatError(
+            f"needs at least 2 data rows to establish a sample time; got {n}",
+            path=table.source.path,
+        )
+    if sample_rate is not None:
+        rate = float(sample_rate)
+        t_s = 1.0 / rate
+        stamps = np.arange(n, dtype=float) * t_s
+        stats = TimingStats(t_s, 0.0, 0.0, 0.0, "sample rate")
+        return TimeBase(_readonly(stamps), None, stats, ((0, n),))
+    if time is None:
+        names = [c.name for c in table.columns]
+        auto = _auto_time_index(names)
+        if auto is None:
+            raise LogFormatError(
+                "no time column (named 'time' or 't') and no sample rate",
+                path=table.source.path,
+                hint="name the time column (--time NAME) or give the sample rate (--sample-rate HZ)",
+            )
+        col = table.columns[auto]
+    else:
+        col = table.column(time)
+    unit_key = col.unit.strip()
+    factor = TIME_UNITS.get(unit_key, TIME_UNITS.get(unit_key.lower()))
+    if factor is None:
+        raise LogFormatError(
+            f"unknown time unit {col.unit!r}; expected one of "
+            + ", ".join(repr(u) for u in TIME_UNITS if u and u != "µs"),
+            path=table.source.path, column=col.name,
+        )
+    stamps = col.values * factor if factor != 1.0 else col.values
+    return _check_stamps(stamps, col.name, table, split_at_gaps, jitter_tolerance)
+
+
+def log_from_table(
+    table: Table,
+    inputs: str | Sequence[str],
+    outputs: str | Sequence[str],
+    *,
+    time: str | None = None,
+    sample_rate: float | None = None,
+    split_at_gaps: bool = False,
+    jitter_tolerance: float = 0.1,
+) -> Log:
+    """Assemble a :class:`Log` from an already read table.
+
+    Parameters are as in :func:`read_log`; the input and output matrices are the
+    only copy made of the data.
+    """
+    in_names = _names_arg(inputs, "inputs")
+    out_names = _names_arg(outputs, "outputs")
+    in_cols = [table.column(n) for n in in_names]
+    out_cols = [table.column(n) for n in out_names]
+    _check_roles(in_cols, out_cols)
+    base = time_base(table, time=time, sample_rate=sample_rate,
+                     split_at_gaps=split_at_gaps, jitter_tolerance=jitter_tolerance)
+    if base.column is not None:
+        for role, cols in (("input", in_cols), ("output", out_cols)):
+            for c in cols:
+                if c.name.lower() == base.column.lower():
+                    raise OptionError(
+                        f"column {c.name!r} is the time column and cannot also be an {role}"
+                    )
+    u = _stack(in_cols, table.n_rows)
+    y = _stack(out_cols, table.n_rows)
+    return Log(
+        time=base.time,
+        u=u,
+        y=y,
+        input_names=tuple(c.name for c in in_cols),
+        output_names=tuple(c.name for c in out_cols),
+        input_units=tuple(c.unit for c in in_cols),
+        output_units=tuple(c.unit for c in out_cols),
+        sample_time=base.timing.sample_time,
+        timing=base.timing,
+        source=table.source,
+        segments=base.segments,
+        dropped_rows=table.dropped_rows,
+    )
+
+
+# --------------------------------------------------------------------------- argument checks
+
+
+def _names_arg(value: str | Sequence[str] | None, name: str) -> tuple[str, ...]:
+    if value is None:
+        return ()
+    if isinstance(value, str):
+        return (value,)
+    try:
+        out = tuple(value)
+    except TypeError as exc:
+        raise OptionError(f"{name} must be a column name or a list of names; got {value!r}") from exc
+    for item in out:
+        if not isinstance(item, str) or not item.strip():
+            raise OptionError(f"{name} must hold non-empty column names; got {item!r}")
+    return out
+
+
+def _check_time_args(time: str | None, sample_rate: float | None, jitter_tolerance: float) -> None:
+    if time is not None and sample_rate is not None:
+        raise OptionError("give either a time column or a sample rate, not both")
+    optional_positive_float(sample_rate, "sample_rate")
+    fraction(jitter_tolerance, "jitter_tolerance")
+
+
+def _check_roles(in_cols: list[Column], out_cols: list[Column]) -> None:
+    seen: dict[str, str] = {}
+    for role, cols in (("input", in_cols), ("output", out_cols)):
+        for c in cols:
+            key = c.name.lower()
+            if key in seen:
+                other = seen[key]
+                if other != role:
+                    raise OptionError(
+                        f"column {c.name!r} is named both as an input and as an output"
+                    )
+                raise OptionError(f"column {c.name!r} is named twice as an {role}")
+            seen[key] = role
+
+
+def _stack(cols: list[Column], n: int) -> np.ndarray:
+    out = np.empty((n, len(cols)), dtype=float)
+    for j, c in enumerate(cols):
+        out[:, j] = c.values
+    out.flags.writeable = False
+    return out
+
+
+def _readonly(a: np.ndarray) -> np.ndarray:
+    a.flags.writeable = False
+    return a
+
+
+# --------------------------------------------------------------------------- header
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Header:
+    kind: str  # "csv" or "parquet"
+    names: list[str]
+    units: list[str]
+    raw: list[str]
+    indices: list[int]  # field index in the file of each named column
+    header_line: int  # 1-based line of the header (0 for Parquet)
+    sep: str
+    decimal: str
+    encoding: str
+    data_offset: int  # byte offset of the first line after the header
+
+
+def _split_unit(raw: str) -> tuple[str, str]:
+    text = raw.strip().strip('"').strip()
+    m = _UNIT_RE.match(text)
+    if m and m.group("name").strip():
+        unit = m.group("u1") if m.group("u1") is not None else m.group("u2")
+        return m.group("name").strip(), unit.strip()
+    return text, ""
+
+
+def _read_header(path: str) -> _Header:
+    with open(path, "rb") as fh:
+        head = fh.read(_PREVIEW_BYTES)
+        complete = len(fh.read(1)) == 0
+    if head.startswith(_PARQUET_MAGIC):
+        return _parquet_header(path)
+    if not head.strip():
+        raise LogFormatError("the file is empty", path=path)
+    if b"\x00" in head:
+        raise LogFormatError("not a text file (binary content); expected CSV or Parquet", path=path)
+    if head.startswith(b"\xef\xbb\xbf"):
+        head_body, bom = head[3:], 3
+    else:
+        head_body, bom = head, 0
+    encoding = "utf-8"
+    try:
+        head_body.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        if not (exc.start >= len(head_body) - 4 and not complete):  # not just a cut character
+            encoding = "cp1252"
+    raw_lines = head_body.split(b"\n")
+    if not complete:
+        raw_lines = raw_lines[:-1]  # possibly cut
+    lines = [ln.rstrip(b"\r").decode(encoding, errors="replace") for ln in raw_lines]
+    h = 0
+    while h < len(lines) and (not lines[h].strip() or lines[h].lstrip().startswith("#")):
+        h += 1
+    if h >= len(lines):
+        raise LogFormatError("no header line found (only comments or blank lines)", path=path)
+    data_offset = bom + sum(len(ln) + 1 for ln in raw_lines[: h + 1])
+    header_text = lines[h]
+    data_lines = [ln for ln in lines[h + 1 : h + 1 + _SNIFF_ROWS] if ln.strip()]
+    sep = _sniff_separator(header_text, data_lines)
+    decimal = "."
+    if sep != ",":
+        # every complete line of the preview, so integer-only first rows do not hide it
+        for ln in lines[h + 1 :]:
+            if any(_DECIMAL_COMMA_RE.match(f) for f in ln.split(sep)):
+                decimal = ","
+                break
+    raw = next(csv.reader([header_text], delimiter=sep, quotechar='"'))
+    while raw and not raw[-1].strip():
+        raw.pop()  # trailing empty columns
+    if not raw:
+        raise LogFormatError("the header line names no columns", path=path, row=h + 1)
+    names: list[str] = []
+    units: list[str] = []
+    for k, field in enumerate(raw):
+        if not field.strip():
+            raise LogFormatError(
+                f"header field {k + 1} is empty; every column needs a name",
+                path=path, row=h + 1,
+            )
+        name, unit = _split_unit(field)
+        names.append(name)
+        units.append(unit)
+    _check_duplicates(names, raw, path, h + 1)
+    return _Header("csv", names, units, raw, list(range(len(raw))), h + 1, sep, decimal, encoding,
+                   data_offset)
+
+
+def _sniff_separator(header: str, data: list[str]) -> str:
+    for sep in ("\t", ";"):
+        if sep in header:
+            return sep
+    if "," in header:
+        return ","
+    # a single-column header: let the data decide
+    for sep in ("\t", ";"):
+        if data and all(sep in ln for ln in data):
+            return sep
+    return ","
+
+
+def _check_duplicates(names: list[str], raw: list[str], path: str, row: int | None) -> None:
+    first: dict[str, int] = {}
+    for k, name in enumerate(names):
+        key = name.lower()
+        if key in first:
+            j = first[key]
+            raise LogFormatError(
+                f"duplicate column name {name!r}: header fields {j + 1} ({raw[j].strip()!r}) "
+                f"and {k + 1} ({raw[k].strip()!r})",
+                path=path, row=row, hint="rename one of the columns",
+            )
+        first[key] = k
+
+
+def _auto_time_index(names: Sequence[str]) -> int | None:
+    lower = [n.lower() for n in names]
+    for candidate in TIME_COLUMN_NAMES:
+        if candidate in lower:
+            return lower.index(candidate)
+    return None
+
+
+def _match_name(name: str, names: Sequence[str], units: Sequence[str], path: str) -> int:
+    bare, _ = _split_unit(name)
+    key = bare.lower()
+    lower = [n.lower() for n in names]
+    if key in lower:
+        return lower.index(key)
+    near = difflib.get_close_matches(key, lower, n=1, cutoff=0.6)
+    listing = ", ".join(f"{n} [{u}]" if u else n for n, u in zip(names, units, strict=True))
+    nearest = f"; nearest: {names[lower.index(near[0])]!r}" if near else ""
+    raise LogFormatError(
+        f"no column named {bare!r}{nearest}; available: {listing}",
+        path=path,
+        hint=f"did you mean {names[lower.index(near[0])]!r}?" if near else None,
+    )
+
+
+# --------------------------------------------------------------------------- data
+
+
+def _sha256(path: str) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_rows: bool) -> Table:
+    sha = _sha256(path)
+    if header.kind == "parquet":
+        arrays, first_line, lines, dropped = _parquet_columns(path, header, indices, drop_bad_rows)
+    else:
+        arrays, first_line, lines, dropped = _csv_columns(path, header, indices, drop_bad_rows)
+    n = arrays[0].shape[0] if arrays else 0
+    if n == 0:
+        raise LogFormatError("no data rows after the header", path=path,
+                             row=header.header_line or None)
+    last_line = int(lines[-1]) if lines is not None else first_line + n - 1
+    if lines is not None:
+        first_line = int(lines[0])
+    source = LogSource(path, os.path.basename(path), sha, first_line, last_line)
+    columns = tuple(
+        Column(header.names[k], header.units[k], _readonly(a))
+        for k, a in zip(indices, arrays, strict=True)
+    )
+    return Table(columns, source, dropped, None if lines is None else _readonly(lines))
+
+
+def _csv_columns(path, header: _Header, indices, drop_bad_rows):
+    import pandas as pd
+
+    first_line = header.header_line + 1
+    width = len(header.raw)
+    # One column past the header is read as a sentinel: it is empty on well-formed rows,
+    # so a row with more fields than the header (a decimal comma in a comma-separated
+    # file, a shifted row) is caught although usecols makes pandas tolerate it.
+    # pandas validates usecols against the widest row it has seen, so a synthetic first
+    # row of width + 1 zeros is put in front of the data (and dropped after parsing).
+    common = dict(
+        sep=header.sep, decimal=header.decimal, header=None,
+        names=list(range(width + 1)), usecols=[*indices, width], engine="c",
+        encoding=header.encoding, index_col=False, skip_blank_lines=False, quotechar='"',
+    )
+    arrays = None
+    try:
+        with _data_stream(path, header) as stream:
+            frame = pd.read_csv(stream, dtype=np.float64, **common)
+        arrays = [frame[k].to_numpy(dtype=np.float64, copy=False)[1:] for k in indices]
+        extra = frame[width].to_numpy(dtype=np.float64, copy=False)[1:]
+        del frame
+    except (ValueError, pd.errors.ParserError, UnicodeDecodeError):
+        arrays = None
+    if arrays is not None:
+        over = np.flatnonzero(~np.isnan(extra))
+        if over.size:
+            _raise_structure_error(path, header, first_line + int(over[0]))
+        del extra
+        n = arrays[0].shape[0]
+        end = _trailing_blank_start(arrays, n)
+        if end < n:
+            arrays = [a[:end] for a in arrays]
+        if all(np.isfinite(a).all() for a in arrays):
+            return arrays, first_line, None, 0
+    # slow path: read the text of the used columns to find (or drop) the bad cells
+    try:
+        with _data_stream(path, header) as stream:
+            frame = pd.read_csv(stream, dtype=str, na_filter=False, keep_default_na=False,
+                                **common)
+    except pd.errors.ParserError as exc:
+        raise LogFormatError(f"malformed CSV ({str(exc).strip()})", path=path) from exc
+    except UnicodeDecodeError as exc:
+        raise LogFormatError(f"cannot decode the file as {header.encoding}: {exc.reason}",
+                             path=path) from exc
+    texts = [frame[k].to_numpy(dtype=object)[1:] for k in indices]
+    extra = frame[width].to_numpy(dtype=object)[1:]
+    del frame
+    over = np.flatnonzero(np.char.strip(extra.astype(str)) != "")
+    if over.size:
+        _raise_structure_error(path, header, first_line + int(over[0]))
+    del extra
+    n = texts[0].shape[0]
+    blank = np.ones(n, dtype=bool)
+    for t in texts:
+        blank &= np.char.strip(t.astype(str)) == ""
+    end = n
+    while end > 0 and blank[end - 1]:
+        end -= 1
+    texts = [t[:end] for t in texts]
+    values = [_to_float(t, header.decimal) for t in texts]
+    bad = np.zeros(end, dtype=bool)
+    for v in values:
+        bad |= ~np.isfinite(v)
+    if not bad.any():
+        return values, first_line, None, 0
+    if not drop_bad_rows:
+        i = int(np.argmax(bad))
+        for k, v, t in zip(indices, values, texts, strict=True):
+            if not np.isfinite(v[i]):
+                raise LogFormatError(
+                    _bad_cell_reason(t[i], v[i]), path=path, row=first_line + i,
+                    column=header.names[k],
+                    hint="fix the cell, or drop such rows (--drop-bad-rows / drop_bad_rows=True)",
+                )
+    keep = ~bad
+    lines = np.flatnonzero(keep) + first_line
+    return [v[keep] for v in values], first_line, lines, int(bad.sum())
+
+
+class _PrefixedStream(io.RawIOBase):
+    """Bytes of ``prefix`` followed by the rest of an open binary file."""
+
+    def __init__(self, prefix: bytes, fh) -> None:
+        super().__init__()
+        self._prefix = prefix
+        self._fh = fh
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:
+        if self._prefix:
+            n = min(len(buffer), len(self._prefix))
+            buffer[:n] = self._prefix[:n]
+            self._prefix = self._prefix[n:]
+            return n
+        return self._fh.readinto(buffer)
+
+    def close(self) -> None:
+        self._fh.close()
+        super().close()
+
+
+def _data_stream(path: str, header: _Header) -> io.BufferedReader:
+    fh = open(path, "rb")  # closed by the stream
+    fh.seek(header.data_offset)
+    prefix = (header.sep.join(["0"] * (len(header.raw) + 1)) + "\n").encode("ascii")
+    return io.BufferedReader(_PrefixedStream(prefix, fh), buffer_size=1 << 20)
+
+
+def _trailing_blank_start(arrays, n: int) -> int:
+    end = n
+    while end > 0 and all(np.isnan(a[end - 1]) for a in arrays):
+        end -= 1
+    return end
+
+
+def _to_float(text: np.ndarray, decimal: str) -> np.ndarray:
+    import pandas as pd
+
+    s = pd.Series(text, dtype=object).astype(str).str.strip()
+    if decimal == ",":
+        # a cell already holding a '.' is not a decimal-comma number: keep it unparseable
+        s = s.where(~s.str.contains(".", regex=False), "\x00").str.replace(",", ".", regex=False)
+    return pd.to_numeric(s, errors="coerce").to_numpy(dtype=np.float64)
+
+
+def _bad_cell_reason(text, value: float) -> str:
+    raw = str(text)
+    stripped = raw.strip()
+    if not stripped:
+        return "empty cell"
+    if math.isnan(value) and stripped.lower() in {"nan", "-nan", "+nan"}:
+        return f"NaN is not allowed ({raw!r})"
+    if math.isinf(value):
+        return f"infinite value is not allowed ({raw!r})"
+    return f"not a number ({raw!r})"
+
+
+def _raise_structure_error(path: str, header: _Header, line: int) -> None:
+    width = len(header.raw)
+    fields: list[str] = []
+    with open(path, encoding=header.encoding, newline="") as fh:
+        for k, text in enumerate(fh, start=1):
+            if k == line:
+                fields = next(csv.reader([text], delimiter=header.sep, quotechar='"'), [])
+                break
+    while len(fields) > width and not fields[-1].strip():
+        fields.pop()
+    hint = f"check the delimiter ({_SEP_NAMES.get(header.sep, header.sep)} was detected)"
+    if header.sep == ",":
+        hint += "; a decimal comma needs ';' or tab as the delimiter"
+    raise LogFormatError(
+        f"{len(fields)} fields but the header has {width}", path=path, row=line, hint=hint
+    )
+
+
+_SEP_NAMES = {",": "comma", ";": "semicolon", "\t": "tab"}
+
+
+# --------------------------------------------------------------------------- Parquet
+
+
+def _import_parquet(path: str):
+    try:
+        import pyarrow.parquet as pq
+    except ImportError as exc:
+        raise LogFormatError(
+            "reading Parquet needs the pyarrow package, which is not installed",
+            path=path, hint=f"install it with: {_INSTALL_PARQUET}",
+        ) from exc
+    return pq
+
+
+def _parquet_header(path: str) -> _Header:
+    pq = _import_parquet(path)
+    try:
+        schema = pq.read_schema(path)
+    except Exception as exc:  # pyarrow raises several types for corrupt files
+        raise LogFormatError(f"cannot read Parquet file: {exc}", path=path) from exc
+    raw = [str(n) for n in schema.names if not str(n).startswith("__index_level_")]
+    names, units = zip(*(_split_unit(r) for r in raw), strict=True) if raw else ((), ())
+    _check_duplicates(list(names), raw, path, None)
+    return _Header("parquet", list(names), list(units), raw, list(range(len(raw))), 0, "", ".", "",
+                   0)
+
+
+def _parquet_columns(path, header: _Header, indices, drop_bad_rows):
+    pq = _import_parquet(path)
+    wanted = [header.raw[k] for k in indices]
+    table = pq.read_table(path, columns=wanted)
+    arrays = []
+    for k, raw in zip(indices, wanted, strict=True):
+        col = table.column(raw)
+        try:
+            values = col.to_numpy().astype(np.float64, copy=False)
+        except (TypeError, ValueError) as exc:
+            raise LogFormatError(
+                f"not a numeric column (type {col.type})", path=path, column=header.names[k]
+            ) from exc
+        arrays.append(values)
+    del table
+    bad = np.zeros(arrays[0].shape[0] if arrays else 0, dtype=bool)
+    for a in arrays:
+        bad |= ~np.isfinite(a)
+    if not bad.any():
+        return arrays, 1, None, 0
+    if not drop_bad_rows:
+        i = int(np.argmax(bad))
+        for k, a in zip(indices, arrays, strict=True):
+            if not np.isfinite(a[i]):
+                raise LogFormatError(
+                    _bad_cell_reason(repr(float(a[i])), float(a[i])), path=path, row=i + 1,
+                    column=header.names[k],
+                    hint="fix the value, or drop such rows (--drop-bad-rows / drop_bad_rows=True)",
+                )
+    keep = ~bad
+    return [a[keep] for a in arrays], 1, np.flatnonzero(keep) + 1, int(bad.sum())
+
+
+# --------------------------------------------------------------------------- timing
+
+
+def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol: float) -> TimeBase:
+    path = table.source.path
+    dt = np.diff(stamps)
+    bad = np.flatnonzero(dt <= 0)
+    if bad.size:
+        i = int(bad[0]) + 1
+        what = "duplicated time stamp" if dt[i - 1] == 0 else "time goes backwards"
+        raise LogFormatError(
+            f"{what} ({_fmt(stamps[i])} s after {_fmt(stamps[i - 1])} s on the row before)",
+            path=path, row=table.line_of(i), column=name,
+        )
+    t_s = float(np.median(dt))
+    short = np.flatnonzero(dt < (1.0 - tol) * t_s)
+    if short.size:
+        i = int(short[0]) + 1
+        raise LogFormatError(
+            f"irregular sampling: interval {_fmt(dt[i - 1])} s is more than {tol:.0%} shorter "
+            f"than the sample time {_fmt(t_s)} s",
+            path=path, row=table.line_of(i), column=name,
+        )
+    gaps = np.flatnonzero(dt > (1.0 + tol) * t_s)
+    if gaps.size and not split:
+        i = int(gaps[0]) + 1
+        raise LogFormatError(
+            f"gap of {_fmt(dt[i - 1])} s ({dt[i - 1] / t_s:.3g} sample times) before this row; "
+            f"sample time {_fmt(t_s)} s, tolerance {tol:.0%}",
+            path=path, row=table.line_of(i), column=name,
+            hint="split the log at gaps (--split-at-gaps / split_at_gaps=True)"
+            + (" or raise the jitter tolerance" if dt[i - 1] < 2 * t_s else ""),
+        )
+    starts = [0, *(int(g) + 1 for g in gaps)]
+    stops = [*(int(g) + 1 for g in gaps), stamps.shape[0]]
+    segments = tuple(zip(starts, stops, strict=True))
+    if gaps.size:
+        inside = np.ones(dt.shape[0], dtype=bool)
+        inside[gaps] = False
+        dev = dt[inside] - t_s
+    else:
+        dev = dt - t_s
+    std = float(np.std(dev)) if dev.size else 0.0
+    mx = float(np.max(np.abs(dev))) if dev.size else 0.0
+    stats = TimingStats(t_s, std, mx, mx / t_s, "time column")
+    if not stamps.flags.writeable:
+        out = stamps
+    else:
+        out = _readonly(stamps)
+    return TimeBase(out, name, stats, segments)
+
+
+def _fmt(x: float) -> str:
+    return f"{float(x):.6g}"
+
