@@ -1,0 +1,109 @@
+import json
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import signal
+
+from ident.cli.convert_cmd import METHOD_CHOICES, REALIZATION_CHOICES
+from ident.io.modelfile import load_model, save_model
+from ident.models import OperatingPoint, StateSpaceModel
+
+
+@pytest.fixture
+def zoh_example(tmp_path):
+    # G(s) = 1/(s(s+1)), T = 1 s, discretised with scipy.signal.cont2discrete (ZOH)
+    A, B, C, D, _ = signal.cont2discrete(signal.tf2ss([1.0], [1.0, 1.0, 0.0]), 1.0, method="zoh")
+    model = StateSpaceModel(A, B, C, D, sample_time=1.0, inputs=("force",), outputs=("position",),
+                            input_units=("N",), output_units=("m",),
+                            operating_point=OperatingPoint([0.0], [0.0]))
+    return save_model(tmp_path / "plant.json", model)
+
+
+def test_choice_sets_match_core():
+    from ident.discretize import DISCRETIZE_METHODS
+    from ident.realization import REALIZATIONS
+
+    assert METHOD_CHOICES == DISCRETIZE_METHODS
+    assert REALIZATION_CHOICES == REALIZATIONS
+
+
+def test_tf_json_matches_textbook(run_cli, zoh_example):
+    result = run_cli("convert", zoh_example, "--to", "tf", "--json")
+    assert result.exit_code == 0, result.stderr
+    data = json.loads(result.stdout)
+    assert data["sample_time"] == 1.0
+    (ch,) = data["channels"]
+    assert ch["input"] == "force" and ch["output"] == "position"
+    # Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed., ZOH equivalent of
+    # 1/(s(s+1)) with T = 1: (0.3679 z + 0.2642) / (z^2 - 1.3679 z + 0.3679); 4 printed digits
+    assert_allclose(ch["num"], [0.3679, 0.2642], atol=5e-5)
+    assert_allclose(ch["den"], [1.0, -1.3679, 0.3679], atol=5e-5)
+
+
+def test_tf_readable(run_cli, zoh_example):
+    result = run_cli("convert", zoh_example, "--to", "tf")
+    assert result.exit_code == 0
+    assert "force [N] -> position [m]" in result.stdout
+    assert "z^2 - 1.36788 z + 0.367879" in result.stdout
+
+
+def test_continuous_round_trip(run_cli, zoh_example, tmp_path):
+    out = tmp_path / "cont.json"
+    result = run_cli("convert", zoh_example, "--to", "continuous", "-o", out)
+    assert result.exit_code == 0, result.stderr
+    data = json.loads(out.read_text())
+    assert data["sample_time"] is None
+    cont = load_model(out).model
+    # poles of 1/(s(s+1)) are 0 and -1 (closed form); logm inverse recovers them to rounding
+    assert_allclose(np.sort(cont.poles().real), [-1.0, 0.0], atol=1e-9)
+    back = tmp_path / "back.json"
+    assert run_cli("convert", out, "--to", "discrete", "--sample-time", "1", "-o", back).exit_code == 0
+    orig = load_model(zoh_example).model
+    w = np.linspace(0.01, 0.45, 20)
+    g1 = signal.dfreqresp((orig.A, orig.B, orig.C, orig.D, 1.0), w=2 * np.pi * w)[1]
+    m2 = load_model(back).model
+    g2 = signal.dfreqresp((m2.A, m2.B, m2.C, m2.D, 1.0), w=2 * np.pi * w)[1]
+    assert_allclose(g2, g1, rtol=1e-8)  # exact round trip up to logm/expm rounding
+
+
+def test_refusals(run_cli, zoh_example, tmp_path):
+    before = zoh_example.read_bytes()
+    r = run_cli("convert", zoh_example, "--to", "ss", "-o", zoh_example, "--force")
+    assert r.exit_code == 2 and "input file" in r.stderr
+    assert zoh_example.read_bytes() == before
+    out = tmp_path / "x.json"
+    out.write_text("keep")
+    r = run_cli("convert", zoh_example, "--to", "ss", "-o", out)
+    assert r.exit_code == 2 and "already exists" in r.stderr and out.read_text() == "keep"
+    r = run_cli("convert", zoh_example, "--to", "tf", "-o", tmp_path / "tf.json")
+    assert r.exit_code == 2 and "cannot be written" in r.stderr
+    r = run_cli("convert", zoh_example, "--to", "discrete")
+    assert r.exit_code == 2 and "--sample-time" in r.stderr
+    assert "Traceback" not in r.stderr
+
+
+def test_negative_real_pole_refused(run_cli, tmp_path):
+    model = StateSpaceModel([[-0.5]], [[1.0]], [[1.0]], [[0.0]], sample_time=0.01)
+    path = save_model(tmp_path / "neg.json", model)
+    r = run_cli("convert", path, "--to", "continuous")
+    assert r.exit_code == 2
+    assert "-0.5" in r.stderr
+    assert r.stderr.startswith("error:")
+
+
+def test_modal_realization_keeps_response(run_cli, zoh_example, tmp_path):
+    out = tmp_path / "modal.json"
+    assert run_cli("convert", zoh_example, "--to", "ss", "--realization", "modal", "-o", out).exit_code == 0
+    a, b = load_model(zoh_example).model, load_model(out).model
+    assert_allclose(np.sort(b.poles().real), np.sort(a.poles().real), atol=1e-12)
+    # Markov parameters C A^k B are realisation invariant (standard result)
+    for k in range(5):
+        assert_allclose(b.C @ np.linalg.matrix_power(b.A, k) @ b.B,
+                        a.C @ np.linalg.matrix_power(a.A, k) @ a.B, rtol=1e-10, atol=1e-12)
+
+
+def test_readable_ss_shows_operating_point(run_cli, zoh_example):
+    r = run_cli("convert", zoh_example, "--to", "ss")
+    assert r.exit_code == 0
+    assert "operating point" in r.stdout and "A (2 x 2)" in r.stdout
