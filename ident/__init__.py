@@ -20,7 +20,17 @@ from .errors import (
     PoorExcitationWarning,
     UnstableModelWarning,
 )
-from .models import OperatingPoint, StateSpaceModel, TransferFunctionModel
+
+_LAZY = {"OperatingPoint": "models", "StateSpaceModel": "models", "TransferFunctionModel": "models"}
+
+
+def __getattr__(name: str):
+    # numpy-backed types load on first use, so `rigfit --help` starts instantly
+    if name in _LAZY:
+        import importlib
+
+        return getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 __all__ = [
     "__version__",
