@@ -46,10 +46,11 @@ def test_help_does_not_load_numeric_stack():
         "    cli.main(['--help'], standalone_mode=False)\n"
         "except SystemExit:\n"
         "    pass\n"
-        "print(','.join(m for m in ('numpy', 'scipy', 'matplotlib', 'pandas') if m in sys.modules))\n"
+        "print('LOADED:' + ','.join(m for m in ('numpy', 'scipy', 'matplotlib', 'pandas') if m in sys.modules))\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip().splitlines()[-1] == ""
+    assert "Commands:" in out.stdout
+    assert out.stdout.strip().splitlines()[-1] == "LOADED:"
 
 
 @pytest.mark.parametrize("module", CORE_MODULES)
