@@ -1,0 +1,278 @@
+"""``rigfit check``: validate a model file on a rig log it was not fitted on."""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+import click
+
+from ._common import GateFailed, echo_json
+
+
+@click.command()
+@click.argument("log_path", metavar="LOG", type=click.Path(dir_okay=False))
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("--input", "input_columns", multiple=True, metavar="NAME",
+              help="Log column for each model input, in the model's input order "
+                   "(repeatable; default: the model's input names).")
+@click.option("--output", "output_columns", multiple=True, metavar="NAME",
+              help="Log column for each model output, in the model's output order "
+                   "(repeatable; default: the model's output names).")
+@click.option("--time", "time_column", default=None, metavar="NAME",
+              help="Time column of the log (default: a column named time or t).")
+@click.option("--sample-rate", type=float, default=None, metavar="HZ",
+              help="Sample rate of a log without a time column [Hz].")
+@click.option("--min-fit", type=float, default=None, metavar="PCT",
+              help="Gate: every output's simulation fit must reach PCT percent (exit 3 if not).")
+@click.option("--require-white", is_flag=True,
+              help="Gate: every output's residuals must pass the Ljung-Box test (exit 3 if not).")
+@click.option("--prediction-steps", type=int, default=1, show_default=True, metavar="K",
+              help="Horizon of the k-step-ahead prediction whose fit is reported.")
+@click.option("--max-lag", type=int, default=25, show_default=True, metavar="L",
+              help="Largest lag of the residual correlations and the Ljung-Box test.")
+@click.option("--json", "as_json", is_flag=True, help="Print machine-readable JSON on stdout.")
+@click.option("--plot", "plot_dir", type=click.Path(file_okay=False), default=None, metavar="DIR",
+              help="Write PNG figures into DIR (created if missing).")
+@click.option("--force", is_flag=True, help="Replace existing figure files in DIR.")
+def check(
+    log_path: str,
+    model_path: str,
+    input_columns: tuple[str, ...],
+    output_columns: tuple[str, ...],
+    time_column: str | None,
+    sample_rate: float | None,
+    min_fit: float | None,
+    require_white: bool,
+    prediction_steps: int,
+    max_lag: int,
+    as_json: bool,
+    plot_dir: str | None,
+    force: bool,
+) -> None:
+    """Validate MODEL (a model file) on LOG, a rig log it was not fitted on.
+
+    Reports fit percent of simulation and k-step prediction, residual whiteness
+    (autocorrelation, Ljung-Box), independence of the residuals from the inputs
+    (cross-correlation; negative lags reveal feedback), normality, and the
+    model's frequency response against an estimate from the data with its
+    coherence, each with a verdict in plain words. The log's columns are
+    matched to the model's signal names and the model's operating point is
+    subtracted.
+
+    Exit status: 0 ok; 2 bad input; 3 a gate (--min-fit, --require-white) failed.
+    """
+    import warnings
+
+    import numpy as np
+
+    from ..diagnostics import CheckOptions, report_to_dict, validate_model
+    from ..errors import IdentError, IdentWarning
+    from ..io.modelfile import load_model
+
+    options = CheckOptions(
+        prediction_steps=prediction_steps, max_lag=max_lag, min_fit=min_fit,
+        require_white=require_white,
+    )
+    loaded = load_model(model_path)
+    model = loaded.model
+    if not model.is_discrete:
+        raise IdentError(
+            f"{model_path}: the model is continuous-time; check needs a discrete-time model",
+            hint="discretise it first with 'rigfit convert --discrete'",
+        )
+    inputs = _columns(input_columns, model.inputs, "--input", "inputs")
+    outputs = _columns(output_columns, model.outputs, "--output", "outputs")
+    log = _read(log_path, inputs, outputs, time_column, sample_rate)
+    _check_sample_time(log.sample_time, model.sample_time, log_path, model_path)
+
+    u, y = np.array(log.u, dtype=float), np.array(log.y, dtype=float)
+    op = model.operating_point
+    if op is None:
+        warnings.warn(
+            f"{model_path} records no operating point; the log's mean levels are used",
+            IdentWarning, stacklevel=1,
+        )
+        u -= u.mean(axis=0)
+        y -= y.mean(axis=0)
+    else:
+        u -= op.inputs
+        y -= op.outputs
+    report = validate_model(model, u, y, log.sample_time, options)
+
+    written: list[str] = []
+    if plot_dir is not None:
+        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path))
+
+    if as_json:
+        payload = report_to_dict(report)
+        payload["log"] = log_path
+        payload["model"] = model_path
+        payload["columns"] = {"inputs": list(inputs), "outputs": list(outputs)}
+        payload["figures"] = written
+        echo_json(payload)
+    else:
+        click.echo(report_text(report, log_path=log_path, model_path=model_path))
+        for path in written:
+            click.echo(f"wrote {path}", err=True)
+    failures = report.gate_failures
+    if failures:
+        raise GateFailed("; ".join(v.message.split(";")[0] for v in failures))
+
+
+def _columns(given: tuple[str, ...], names: tuple[str, ...], option: str, what: str) -> tuple:
+    from ..errors import OptionError
+
+    if not given:
+        return tuple(names)
+    if len(given) != len(names):
+        raise OptionError(
+            f"{option} was given {len(given)} time(s) but the model has {len(names)} {what} "
+            f"({', '.join(names)}); give one column per model {what[:-1]}, in that order"
+        )
+    return tuple(given)
+
+
+def _read(path: str, inputs: tuple, outputs: tuple, time: str | None,
+          sample_rate: float | None) -> Any:
+    from ..errors import LogFormatError
+    from ..io.log import read_log
+
+    try:
+        return read_log(path, inputs, outputs, time=time, sample_rate=sample_rate)
+    except LogFormatError as exc:
+        if not exc.reason.startswith("no column named"):
+            raise
+        columns = _log_columns(path)
+        if columns is None:
+            raise
+        lower = {c.lower() for c in columns}
+        missing = [n for n in (*inputs, *outputs) if n.lower() not in lower]
+        if not missing:
+            raise
+        raise LogFormatError(
+            f"the log has no column for the model's signal(s) {', '.join(map(repr, missing))}; "
+            f"log columns: {', '.join(columns)}",
+            path=path,
+            hint="name the log columns with --input/--output (one per model signal, in order)",
+        ) from exc
+
+
+def _log_columns(path: str) -> list[str] | None:
+    """Bare column names of a log, or None when they cannot be read."""
+    try:
+        from ..io.log import _read_header  # header only; the data are not parsed
+
+        return list(_read_header(str(path)).names)
+    except Exception:  # noqa: BLE001 - only used to enrich an error message
+        return None
+
+
+def _check_sample_time(log_T: float, model_T: float, log_path: str, model_path: str) -> None:
+    from ..diagnostics import SAMPLE_TIME_RTOL
+    from ..errors import IdentError
+
+    if abs(log_T - model_T) > SAMPLE_TIME_RTOL * model_T:
+        raise IdentError(
+            f"{log_path}: sample time {log_T:g} s ({1 / log_T:g} Hz) differs from the model's "
+            f"{model_T:g} s ({1 / model_T:g} Hz) in {model_path}",
+            hint="validate on a log recorded at the model's rate, or refit at this rate",
+        )
+
+
+def report_text(report: Any, *, log_path: str = "", model_path: str = "") -> str:
+    """Human-readable summary of a validation report."""
+    outs, ins = report.outputs, report.inputs
+    k = report.prediction_steps
+    T = report.sample_time
+    lines = []
+    if log_path or model_path:
+        lines.append(f"check of {model_path} on {log_path}")
+    x0 = "estimated from the first samples" if report.initial_state == "estimate" else "zero"
+    lines.append(f"  {report.n_samples} samples at {1 / T:g} Hz; initial state {x0}")
+    lines.append("")
+    w = max(12, *(len(n) for n in outs))
+    lines.append(f"{'fit [%]':<{w}}  {'simulation':>10}  {f'{k}-step prediction':>18}")
+    for i, name in enumerate(outs):
+        lines.append(f"{name:<{w}}  {report.simulation_fit[i]:>10.1f}  "
+                     f"{report.prediction_fit[i]:>18.1f}")
+    lines.append("")
+    L = report.options.max_lag
+    band = report.whiteness[0].autocorrelation.band
+    conf = 100 * report.options.confidence
+    lines.append(f"residuals: one-step prediction errors; lags up to {L}, "
+                 f"{conf:g} % band +-{band:.3f}")
+    lines.append(f"{'output':<{w}}  {'Ljung-Box p':>11}  {'white':>5}  {'JB p':>7}  "
+                 "lags outside the band")
+    for i, wr in enumerate(report.whiteness):
+        sig = ", ".join(map(str, wr.autocorrelation.significant_lags[:8])) or "-"
+        lines.append(f"{outs[i]:<{w}}  {wr.ljung_box_pvalue:>11.3g}  "
+                     f"{'yes' if wr.white else 'no':>5}  {report.normality.pvalue[i]:>7.3g}  {sig}")
+    lines.append("cross-correlation with the inputs (lag > 0: input leads; lag < 0: feedback)")
+    for i, row in enumerate(report.cross_correlation):
+        for j, c in enumerate(row):
+            sig = ", ".join(map(str, c.significant_lags[:10])) or "-"
+            lines.append(f"  {outs[i]} / {ins[j]}: lags outside the band: {sig}")
+    sp = report.spectral
+    lines.append(f"spectra: Welch segment {sp.segment_length} samples ({sp.n_segments} averages), "
+                 f"{sp.frequencies_hz[0]:.4g} to {sp.frequencies_hz[-1]:.4g} Hz; "
+                 "normality (JB) reported, not gated")
+    lines.append("")
+    lines.append("verdicts")
+    from ..diagnostics import DATA_TESTS
+
+    for v in report.verdicts:
+        mark = "ok  " if v.passed else ("note" if v.test in DATA_TESTS else "FAIL")
+        lines.append(f"  {mark}  {v.test:<18}  {v.message}")
+    lines.append("")
+    if report.passed:
+        lines.append("result: passed" + ("" if _gated(report) else " (no gate set)"))
+    else:
+        lines.append("result: FAILED " + ", ".join(sorted({v.test for v in report.gate_failures})))
+    return "\n".join(lines)
+
+
+def _gated(report: Any) -> bool:
+    return report.options.min_fit is not None or report.options.require_white
+
+
+def _safe(name: str) -> str:
+    return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("._") or "signal"
+
+
+def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple) -> list[str]:
+    import io
+    from pathlib import Path
+
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from ..io.atomic import check_output_path, write_atomic
+    from ..plots import validation as vplots
+
+    target = Path(folder)
+    if target.exists() and not target.is_dir():
+        from ..errors import IdentError
+
+        raise IdentError(f"{folder}: exists and is not a folder")
+    jobs: list[tuple[Path, Any]] = [
+        (target / "outputs.png", lambda: vplots.output_comparison(report)),
+        (target / "verdicts.png", lambda: vplots.verdict_card(report)),
+    ]
+    for i, oname in enumerate(report.outputs):
+        jobs.append((target / f"residuals_{_safe(oname)}.png",
+                     lambda i=i: vplots.residual_correlations(report, output=i)))
+        for j, iname in enumerate(report.inputs):
+            jobs.append((target / f"response_{_safe(iname)}_to_{_safe(oname)}.png",
+                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j)))
+    for path, _ in jobs:  # refuse before writing anything
+        check_output_path(path, force=force, protected=protected)
+    target.mkdir(parents=True, exist_ok=True)
+    written = []
+    for path, make in jobs:
+        fig = make()
+        buffer = io.BytesIO()
+        fig.savefig(buffer, format="png", dpi=110)
+        write_atomic(path, buffer.getvalue(), force=force, protected=protected)
+        written.append(str(path))
+    return written

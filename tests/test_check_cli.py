@@ -1,0 +1,134 @@
+import json
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import linalg, signal
+
+from ident.diagnostics import CheckOptions, validate_model
+from ident.io.modelfile import save_model
+from ident.models import OperatingPoint, StateSpaceModel
+from ident.simulate import simulate
+
+T = 0.01
+U_LEVEL, Y_LEVEL = 2.0, 10.0
+
+
+def _model():
+    # invented valve-to-flow plant with input delay 2 and a Kalman gain (test_diagnostics)
+    A, B, C, D = signal.tf2ss([0.5, 0.3], [1, -1.5, 0.7, 0])
+    Q = 0.5 * np.diag([1.0, 0.0, 0.0])
+    P = linalg.solve_discrete_are(A.T, C.T, Q, np.eye(1))
+    K = A @ P @ C.T @ np.linalg.inv(C @ P @ C.T + np.eye(1))
+    return StateSpaceModel(
+        A=A, B=B, C=C, D=D, sample_time=T, inputs=["valve_cmd"], outputs=["flow"],
+        input_units=["%"], output_units=["l/min"],
+        operating_point=OperatingPoint([U_LEVEL], [Y_LEVEL]), noise_gain=K,
+    )
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("check")
+    model = _model()
+    rng = np.random.default_rng(606)
+    n = 3000
+    u = rng.standard_normal((n, 1))
+    e = 0.3 * rng.standard_normal((n, 1))
+    aug = StateSpaceModel(A=model.A, B=np.hstack([model.B, model.noise_gain]), C=model.C,
+                          D=np.hstack([model.D, np.eye(1)]), sample_time=T)
+    y = simulate(aug, np.hstack([u, e]))
+    t = np.arange(n) * T
+    log = folder / "rig.csv"
+    np.savetxt(log, np.column_stack([t, u[:, 0] + U_LEVEL, y[:, 0] + Y_LEVEL]), delimiter=",",
+               header="time [s],valve_cmd [%],flow [l/min]", comments="", fmt="%.9f")
+    renamed = folder / "renamed.csv"
+    renamed.write_text(log.read_text().replace("flow [l/min]", "flow_rate [l/min]", 1))
+    slow = folder / "slow.csv"
+    np.savetxt(slow, np.column_stack([2 * t, u[:, 0] + U_LEVEL, y[:, 0] + Y_LEVEL]),
+               delimiter=",", header="time [s],valve_cmd [%],flow [l/min]", comments="",
+               fmt="%.9f")
+    good = folder / "plant.json"
+    save_model(good, model)
+    plain = folder / "plain.json"
+    save_model(plain, model.with_changes(noise_gain=None))
+    return {"log": log, "renamed": renamed, "slow": slow, "model": good, "plain": plain,
+            "u": u, "y": y, "dir": folder}
+
+
+def test_check_passes_and_prints_report(run_cli, files):
+    res = run_cli("check", files["log"], files["model"], "--min-fit", "70")
+    assert res.exit_code == 0, res.output
+    assert "verdicts" in res.stdout and "flow" in res.stdout
+    assert "result: passed" in res.stdout
+
+
+def test_json_shape_and_operating_point(run_cli, files):
+    res = run_cli("check", files["log"], files["model"], "--json", "--max-lag", "15")
+    assert res.exit_code == 0, res.output
+    d = json.loads(res.stdout)
+    assert {"fit", "whiteness", "cross_correlation", "normality", "spectral", "verdicts",
+            "gates", "log", "model"} <= set(d)
+    assert d["inputs"] == ["valve_cmd"] and d["outputs"] == ["flow"]
+    assert len(d["whiteness"]["flow"]["autocorrelation"]["lags"]) == 16
+    assert len(d["cross_correlation"]["flow"]["valve_cmd"]["values"]) == 31
+    assert d["gates"]["passed"] is True
+    # the CLI subtracts the model's operating point: same figures as the library on
+    # deviation arrays (the CSV holds 9 decimals, so agreement to about 1e-6 %)
+    ref = validate_model(_model(), files["u"], files["y"], T, CheckOptions(max_lag=15))
+    assert_allclose(d["fit"]["flow"]["simulation_percent"], ref.simulation_fit[0], atol=1e-4)
+    assert_allclose(d["whiteness"]["flow"]["ljung_box_pvalue"],
+                    ref.whiteness[0].ljung_box_pvalue, rtol=1e-4)
+
+
+def test_min_fit_unmet_exits_3(run_cli, files):
+    res = run_cli("check", files["log"], files["model"], "--min-fit", "99")
+    assert res.exit_code == 3
+    assert "failed:" in res.stderr and "below the required 99 %" in res.stderr
+
+
+def test_require_white_fails_without_noise_model(run_cli, files):
+    res = run_cli("check", files["log"], files["plain"], "--require-white", "--json")
+    assert res.exit_code == 3
+    d = json.loads(res.stdout)
+    white = [v for v in d["verdicts"] if v["test"] == "whiteness"]
+    assert white[0]["passed"] is False and white[0]["cause"] == "noise_model"
+
+
+def test_column_mismatch_exits_2_naming_columns(run_cli, files):
+    res = run_cli("check", files["renamed"], files["model"])
+    assert res.exit_code == 2
+    assert "'flow'" in res.stderr and "flow_rate" in res.stderr and "valve_cmd" in res.stderr
+    # naming the column explicitly works
+    ok = run_cli("check", files["renamed"], files["model"], "--output", "flow_rate")
+    assert ok.exit_code == 0, ok.output
+
+
+def test_wrong_override_count_exits_2(run_cli, files):
+    res = run_cli("check", files["log"], files["model"], "--output", "flow", "--output", "x")
+    assert res.exit_code == 2
+    assert "--output" in res.stderr
+
+
+def test_sample_time_mismatch_exits_2(run_cli, files):
+    res = run_cli("check", files["slow"], files["model"])
+    assert res.exit_code == 2
+    assert "sample time" in res.stderr and "0.02" in res.stderr
+
+
+def test_plot_writes_pngs_and_refuses_overwrite(run_cli, files):
+    out = files["dir"] / "figs" / "nested"
+    res = run_cli("check", files["log"], files["model"], "--plot", out)
+    assert res.exit_code == 0, res.output
+    pngs = sorted(p.name for p in out.glob("*.png"))
+    assert pngs == ["outputs.png", "residuals_flow.png", "response_valve_cmd_to_flow.png",
+                    "verdicts.png"]
+    for p in out.glob("*.png"):
+        assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec)
+    before = (out / "outputs.png").stat().st_mtime_ns
+    again = run_cli("check", files["log"], files["model"], "--plot", out)
+    assert again.exit_code == 2 and "already exists" in again.stderr
+    assert (out / "outputs.png").stat().st_mtime_ns == before
+    forced = run_cli("check", files["log"], files["model"], "--plot", out, "--force")
+    assert forced.exit_code == 0, forced.output
+    assert not list(out.glob(".*.tmp"))  # no temporary files left behind

@@ -1,0 +1,304 @@
+import json
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import linalg, signal
+from statsmodels.stats.diagnostic import acorr_ljungbox
+from statsmodels.stats.stattools import jarque_bera
+from statsmodels.tsa.stattools import acf, ccf
+
+from ident.diagnostics import (
+    DATA_TESTS,
+    CheckOptions,
+    correlation,
+    cross_correlation,
+    predict,
+    report_to_dict,
+    spectral_comparison,
+    validate_model,
+    whiteness,
+)
+from ident.errors import ModelError, OptionError
+from ident.models import StateSpaceModel
+from ident.simulate import simulate
+
+T = 0.01
+
+
+def _ss(num, den, **kw):
+    A, B, C, D = signal.tf2ss(num, den)
+    return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=T, **kw)
+
+
+def _true_model():
+    # invented plant: (0.5 z^-2 + 0.3 z^-3) / (1 - 1.5 z^-1 + 0.7 z^-2), input delay 2 samples,
+    # with the steady-state Kalman gain of a disturbance entering the first state
+    model = _ss([0.5, 0.3], [1, -1.5, 0.7, 0])
+    Q = 0.5 * np.diag([1.0, 0.0, 0.0])
+    R = np.array([[1.0]])
+    P = linalg.solve_discrete_are(model.A.T, model.C.T, Q, R)
+    K = model.A @ P @ model.C.T @ np.linalg.inv(model.C @ P @ model.C.T + R)
+    return model.with_changes(noise_gain=K)
+
+
+def _innovation_data(model, n, seed, noise=0.3, x0=None):
+    rng = np.random.default_rng(seed)
+    u = rng.standard_normal((n, model.n_inputs))
+    e = noise * rng.standard_normal((n, model.n_outputs))
+    aug = StateSpaceModel(
+        A=model.A, B=np.hstack([model.B, model.noise_gain]), C=model.C,
+        D=np.hstack([model.D, np.eye(model.n_outputs)]), sample_time=T,
+    )
+    return u, simulate(aug, np.hstack([u, e]), x0), e
+
+
+@pytest.fixture(scope="module")
+def truth():
+    model = _true_model()
+    u, y, _ = _innovation_data(model, 4000, seed=11)
+    return model, u, y
+
+
+def _failed(report, test):
+    return [v for v in report.verdicts if v.test == test and not v.passed]
+
+
+# --- correlations against statsmodels and the textbook band ---------------------------------
+
+
+def test_band_is_2_58_over_sqrt_n(rng):
+    x = rng.standard_normal(1600)
+    c = correlation(x, 10, confidence=0.99)
+    # Ljung, System Identification, 2nd ed., sec. 16.6: 99 % band +-2.58/sqrt(N);
+    # 2.58 is the rounded normal quantile (scipy.stats.norm.ppf(0.995) = 2.5758)
+    assert_allclose(c.band, 2.58 / 40.0, rtol=2e-3)  # rounding of 2.58 vs 2.5758
+    assert CheckOptions().z_value == pytest.approx(2.5758293, abs=1e-6)  # scipy.stats.norm.ppf
+
+
+def test_autocorrelation_equals_statsmodels_acf(rng):
+    e = signal.lfilter([1.0], [1.0, -0.6], rng.standard_normal(700))
+    c = correlation(e, 25)
+    # reference: statsmodels.tsa.stattools.acf (biased estimator, demeaned); rounding only
+    assert_allclose(c.values, acf(e, nlags=25, fft=False), rtol=1e-10, atol=1e-12)
+    assert c.lags.tolist() == list(range(26))
+    outside = [k for k in range(1, 26) if abs(c.values[k]) > c.band]
+    assert list(c.significant_lags) == outside and 1 in outside
+
+
+def test_cross_correlation_equals_statsmodels_ccf(rng):
+    u = rng.standard_normal(900)
+    e = 0.5 * np.roll(u, 3) + rng.standard_normal(900)
+    c = cross_correlation(e, u, 12)
+    # statsmodels ccf(x, y)[k] = corr(x[t+k], y[t]); negative lags from ccf(u, e)
+    pos = ccf(e, u, adjusted=False, fft=False)[:13]
+    neg = ccf(u, e, adjusted=False, fft=False)[1:13][::-1]
+    assert_allclose(c.values, np.concatenate([neg, pos]), rtol=1e-10, atol=1e-12)
+    assert c.lags.tolist() == list(range(-12, 13))
+    assert 3 in c.significant_lags  # the injected lag-3 coupling
+
+
+def test_ljung_box_equals_statsmodels_and_closed_form(rng):
+    e = rng.standard_normal(500) + 0.2 * np.concatenate([[0.0], rng.standard_normal(499)])
+    w = whiteness(e, 20)
+    ref = acorr_ljungbox(e, lags=[20], return_df=True)
+    # reference: statsmodels.stats.diagnostic.acorr_ljungbox; rounding only
+    assert_allclose(w.ljung_box_statistic, ref["lb_stat"].iloc[0], rtol=1e-10)
+    assert_allclose(w.ljung_box_pvalue, ref["lb_pvalue"].iloc[0], rtol=1e-10)
+    # closed form, Ljung & Box (1978): Q = N (N + 2) sum r_k^2 / (N - k)
+    r = acf(e, nlags=20, fft=False)[1:]
+    N = e.size
+    q = N * (N + 2) * np.sum(r**2 / (N - np.arange(1, 21)))
+    assert_allclose(w.ljung_box_statistic, q, rtol=1e-10)
+    assert w.white == (w.ljung_box_pvalue >= 0.01)
+
+
+# --- spectra against scipy.signal ----------------------------------------------------------
+
+
+@pytest.mark.filterwarnings("ignore::scipy.signal.BadCoefficients")
+def test_siso_spectra_equal_scipy(truth):
+    model, u, y = truth
+    sp = spectral_comparison(model, u, y, segment=256)
+    kw = {"fs": 1 / T, "nperseg": 256}
+    f, puu = signal.welch(u[:, 0], **kw)
+    _, pyu = signal.csd(u[:, 0], y[:, 0], **kw)
+    _, coh = signal.coherence(u[:, 0], y[:, 0], **kw)
+    # same scipy calls, zero-frequency bin dropped: agreement to rounding
+    assert_allclose(sp.frequencies_hz, f[1:], rtol=1e-12)
+    assert_allclose(sp.estimate[:, 0, 0], (pyu / puu)[1:], rtol=1e-9)
+    assert_allclose(sp.coherence[:, 0, 0], coh[1:], rtol=1e-9, atol=1e-12)
+    assert_allclose(sp.multiple_coherence[:, 0], coh[1:], rtol=1e-9, atol=1e-12)
+    # model response against scipy.signal.dfreqresp
+    _, g = signal.dfreqresp((model.A, model.B, model.C, model.D, T), w=2 * np.pi * f[1:] * T)
+    assert_allclose(sp.model_response[:, 0, 0], g, rtol=1e-9)
+
+
+def test_mimo_h1_recovers_noise_free_system(rng):
+    model = StateSpaceModel(
+        A=[[0.7, 0.2], [0.0, 0.5]], B=[[1.0, 0.0], [0.3, 1.0]], C=[[1.0, 0.0], [0.0, 1.0]],
+        D=[[0.0, 0.0], [0.0, 0.0]], sample_time=T,
+    )
+    u = rng.standard_normal((20000, 2))
+    y = simulate(model, u)
+    sp = spectral_comparison(model, u, y, segment=1024)
+    # closed form G(z) = C (zI - A)^-1 B + D at z = exp(j 2 pi f T)
+    z = np.exp(2j * np.pi * sp.frequencies_hz * T)
+    g = np.array([model.C @ np.linalg.solve(zk * np.eye(2) - model.A, model.B) for zk in z])
+    # noise-free but windowed: Hann leakage (largest in the lowest bins, next to the
+    # removed mean) stays below about 1 % of the peak gain (about 4)
+    assert_allclose(sp.estimate, g, atol=0.04)
+    assert_allclose(sp.estimate[5:], g[5:], atol=0.02)  # away from DC: under 0.5 %
+    # noise-free linear data: multiple coherence 1 (closed form), up to leakage
+    assert np.all(sp.multiple_coherence > 0.99)
+
+
+# --- prediction ----------------------------------------------------------------------------
+
+
+def _kalman_predictor_loop(model, u, y, x0):
+    # direct recursion: xhat[t+1] = A xhat + B u + K (y - C xhat - D u)
+    A, B, C, D, K = model.A, model.B, model.C, model.D, model.noise_gain
+    x = np.array(x0, float)
+    states = []
+    for t in range(u.shape[0]):
+        states.append(x.copy())
+        x = A @ x + B @ u[t] + K @ (y[t] - C @ x - D @ u[t])
+    return np.array(states)
+
+
+@pytest.mark.parametrize("steps", [1, 3])
+def test_predict_equals_direct_kalman_recursion(truth, steps):
+    model, u, y = truth
+    u, y = u[:300], y[:300]
+    x0 = np.array([0.4, -0.2, 0.1])
+    xp = _kalman_predictor_loop(model, u, y, x0)
+    A, B, C, D = model.A, model.B, model.C, model.D
+    ref = np.empty_like(y)
+    for t in range(u.shape[0]):
+        if t - steps + 1 <= 0:  # no measurement yet: free run from x0
+            x, s = x0.copy(), 0
+        else:
+            s = t - steps + 1
+            x = xp[s].copy()
+        for k in range(s, t):
+            x = A @ x + B @ u[k]
+        ref[t] = C @ x + D @ u[t]
+    # same arithmetic in another order: rounding only
+    assert_allclose(predict(model, u, y, steps, x0), ref, rtol=1e-9, atol=1e-10)
+
+
+def test_predict_without_noise_gain_is_simulation(truth, rng):
+    model, u, y = truth
+    plain = model.with_changes(noise_gain=None)
+    x0 = rng.standard_normal(3)
+    for steps in (1, 5):
+        # identical by definition (K = None): rounding only
+        assert_allclose(predict(plain, u, y, steps, x0), simulate(plain, u, x0), rtol=1e-12)
+
+
+# --- the whole check -----------------------------------------------------------------------
+
+
+def test_fit_is_100_for_noise_free_data_from_the_true_model(rng):
+    model = _true_model().with_changes(noise_gain=None)
+    u = rng.standard_normal((800, 1))
+    y = simulate(model, u, x0=np.array([1.0, -2.0, 0.5]))
+    report = validate_model(model, u, y, T)
+    # closed form: a perfect model of noise-free data fits 100 %; the initial state is
+    # estimated by least squares, so agreement is to rounding
+    assert_allclose(report.simulation_fit, [100.0], atol=1e-6)
+    assert_allclose(report.prediction_fit, [100.0], atol=1e-6)
+
+
+def test_true_model_passes_on_its_own_data(truth):
+    model, u, y = truth
+    report = validate_model(model, u, y, T, CheckOptions(min_fit=70.0, require_white=True))
+    model_failures = [v for v in report.verdicts if not v.passed and v.test not in DATA_TESTS]
+    assert model_failures == [], [v.message for v in model_failures]
+    assert report.passed and report.whiteness[0].white
+    assert not _failed(report, "feedback")
+    # the one-step predictor of the true model is better than its simulation (noise model)
+    assert report.prediction_fit[0] > report.simulation_fit[0]
+    # Jarque-Bera is reported as statsmodels computes it on the same residuals
+    jb, pval, _, _ = jarque_bera(report.residuals, axis=0)
+    assert_allclose(report.normality.statistic, jb, rtol=1e-12)
+    assert_allclose(report.normality.pvalue, pval, rtol=1e-12)
+
+
+def test_under_ordered_model_fails_with_order_verdict(truth):
+    _, u, y = truth
+    under = _ss([0.6], [1, -0.85, 0])  # first order, same delay and DC gain 4
+    report = validate_model(under, u, y, T, CheckOptions(min_fit=70.0))
+    causes = {v.cause for v in _failed(report, "input_independence")}
+    assert causes == {"order"}
+    assert _failed(report, "min_fit") and not report.passed
+    assert [v.cause for v in _failed(report, "whiteness")] == ["input_dynamics"]
+    assert _failed(report, "frequency_response")
+
+
+def test_wrong_delay_fails_with_delay_verdict(truth):
+    _, u, y = truth
+    early = _ss([0.5, 0.3], [1, -1.5, 0.7])  # right dynamics, delay 1 instead of 2
+    report = validate_model(early, u, y, T)
+    bad = _failed(report, "input_independence")
+    assert [v.cause for v in bad] == ["delay"]
+    assert "1 sample(s) later" in bad[0].message
+
+
+def test_missing_noise_model_is_named(truth):
+    model, u, y = truth
+    report = validate_model(model.with_changes(noise_gain=None), u, y, T)
+    assert not _failed(report, "input_independence")
+    assert [v.cause for v in _failed(report, "whiteness")] == ["noise_model"]
+    assert "noise model" in _failed(report, "whiteness")[0].message
+
+
+def test_feedback_is_detected(rng):
+    # closed loop: u[t] = r[t] - 0.3 y[t-1]; the residual of y leads u
+    model = _true_model()
+    n = 4000
+    r = rng.standard_normal(n)
+    e = 0.3 * rng.standard_normal(n)
+    A, B, C, K = model.A, model.B, model.C, model.noise_gain
+    x = np.zeros(3)
+    u = np.zeros((n, 1))
+    y = np.zeros((n, 1))
+    for t in range(n):
+        u[t] = r[t] - (0.3 * y[t - 1, 0] if t else 0.0)
+        y[t] = C @ x + e[t]
+        x = A @ x + B[:, 0] * u[t, 0] + K[:, 0] * e[t]
+    report = validate_model(model.with_changes(noise_gain=None), u, y, T)
+    assert [v.cause for v in _failed(report, "feedback")] == ["feedback"]
+
+
+def test_report_to_dict_is_json(truth):
+    model, u, y = truth
+    report = validate_model(model, u[:1000], y[:1000], T, CheckOptions(max_lag=10))
+    d = report_to_dict(report)
+    text = json.dumps(d, allow_nan=False)
+    back = json.loads(text)
+    assert back["fit"]["y1"]["simulation_percent"] == pytest.approx(report.simulation_fit[0])
+    assert len(back["whiteness"]["y1"]["autocorrelation"]["values"]) == 11
+    assert len(back["cross_correlation"]["y1"]["u1"]["lags"]) == 21
+    assert {"test", "passed", "message", "cause"} <= set(back["verdicts"][0])
+
+
+def test_options_and_inputs_are_checked(truth):
+    model, u, y = truth
+    with pytest.raises(OptionError, match="max_lag"):
+        CheckOptions(max_lag=0)
+    with pytest.raises(OptionError, match="initial_state"):
+        CheckOptions(initial_state="guess")
+    with pytest.raises(OptionError, match="unknown check option"):
+        CheckOptions.from_mapping({"max_lags": 3})
+    assert CheckOptions.from_mapping({"max_lag": 7}).max_lag == 7
+    with pytest.raises(OptionError, match="sample time"):
+        validate_model(model, u, y, 0.02)
+    with pytest.raises(OptionError, match="at least"):
+        validate_model(model, u[:50], y[:50], T)
+    with pytest.raises(ModelError):
+        validate_model(model.with_changes(sample_time=None, noise_gain=None), u, y, T)
+    before = u.copy()
+    validate_model(model, u[:600], y[:600], T, CheckOptions(max_lag=10, initial_state="zero"))
+    assert_allclose(u, before, rtol=0, atol=0)
