@@ -160,11 +160,12 @@ def _read(path: str, inputs: tuple, outputs: tuple, time: str | None,
 
 def _log_columns(path: str) -> list[str] | None:
     """Bare column names of a log, or None when they cannot be read."""
-    try:
-        from ..io.log import _read_header  # header only; the data are not parsed
+    from ..errors import IdentError
+    from ..io.log import read_column_names  # header only; the data are not parsed
 
-        return list(_read_header(str(path)).names)
-    except Exception:  # noqa: BLE001 - only used to enrich an error message
+    try:
+        return list(read_column_names(path))
+    except (IdentError, OSError):  # only used to enrich an error message
         return None
 
 

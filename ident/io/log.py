@@ -50,6 +50,7 @@ __all__ = [
     "Log",
     "read_log",
     "read_table",
+    "read_column_names",
     "time_base",
     "log_from_table",
 ]
@@ -348,6 +349,17 @@ def read_log(
         table, in_names, out_names, time=time, sample_rate=sample_rate,
         split_at_gaps=split_at_gaps, jitter_tolerance=jitter_tolerance,
     )
+
+
+def read_column_names(path: str | os.PathLike) -> tuple[str, ...]:
+    """Return the bare column names of a log from its header alone (no data parsed).
+
+    Raises
+    ------
+    LogFormatError
+        The header cannot be read.
+    """
+    return tuple(_read_header(os.fspath(path)).names)
 
 
 def read_table(path: str | os.PathLike, *, drop_bad_rows: bool = False) -> Table:
