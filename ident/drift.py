@@ -35,6 +35,7 @@ __all__ = [
     "ResponseDifference",
     "DriftReport",
     "compare_models",
+    "drift_report_to_dict",
 ]
 
 #: How a mode of one model relates to the other model.
@@ -106,6 +107,10 @@ class ModeShift:
     z_score : float or None
         Frequency shift divided by its standard uncertainty, when both modes
         carry uncertainties; ``None`` otherwise.
+    in_band : bool
+        Whether the mode lies in the compared (excited) band in either model.
+        A mode outside it is reported but breaches nothing: the data cannot
+        pin it down.
     breaches : tuple of str
         Which thresholds this mode exceeds.
     """
@@ -117,6 +122,7 @@ class ModeShift:
     frequency_shift_percent: float | None
     damping_shift: float | None
     z_score: float | None
+    in_band: bool
     breaches: tuple[str, ...]
 
 
@@ -222,22 +228,24 @@ def _frequency_std(mode: Mode) -> float | None:
     return None if std is None or not math.isfinite(std) else float(std)
 
 
-def _mode_shift(b: Mode | None, n: Mode | None, th: DriftThresholds) -> ModeShift:
+def _mode_shift(b: Mode | None, n: Mode | None, th: DriftThresholds, band_hz: tuple[float, float]) -> ModeShift:
+    lo, hi = band_hz
+    in_band = any(m is not None and lo <= m.natural_frequency_hz <= hi for m in (b, n))
     if b is None or n is None:
         status = "appeared" if b is None else "vanished"
-        breaches = () if th.new_modes_allowed else (f"mode {status}",)
-        return ModeShift(status, b, n, None, None, None, None, breaches)
+        breaches = () if th.new_modes_allowed or not in_band else (f"mode {status}",)
+        return ModeShift(status, b, n, None, None, None, None, in_band, breaches)
     df = n.natural_frequency_hz - b.natural_frequency_hz
     df_pct = 100.0 * df / b.natural_frequency_hz if b.natural_frequency_hz > 0 else math.inf
     dz = _damping(n) - _damping(b)
     sb, sn = _frequency_std(b), _frequency_std(n)
     z_score = df / math.hypot(sb, sn) if sb is not None and sn is not None and (sb or sn) else None
     breaches = []
-    if abs(df_pct) > th.frequency_shift_percent:
+    if in_band and abs(df_pct) > th.frequency_shift_percent:
         breaches.append("frequency shift")
-    if abs(dz) > th.damping_shift:
+    if in_band and abs(dz) > th.damping_shift:
         breaches.append("damping shift")
-    return ModeShift("matched", b, n, df, df_pct, dz, z_score, tuple(breaches))
+    return ModeShift("matched", b, n, df, df_pct, dz, z_score, in_band, tuple(breaches))
 
 
 def _response_difference(
@@ -291,8 +299,9 @@ def compare_models(
     thresholds : DriftThresholds, optional
         Breach limits; defaults as documented in :class:`DriftThresholds`.
     band_hz : (float, float), optional
-        Band for the frequency-response comparison (the band the excitation
-        covered). Default: from 1/1000 of Nyquist to 0.8 Nyquist.
+        The band the excitation covered, in Hz: the frequency responses are
+        compared there, and only modes inside it can breach a threshold.
+        Default: from 1/1000 of Nyquist to 0.8 Nyquist.
     u, y : array_like, shape (N, m) and (N, p), optional
         A log of the NEW rig in absolute units; each model removes its own
         operating point, and both are scored on it by simulation fit percent.
@@ -340,7 +349,7 @@ def compare_models(
     base_modes = _comparable(mode_table(baseline).modes)
     new_modes = _comparable(mode_table(new).modes)
     shifts = tuple(
-        _mode_shift(None if i is None else base_modes[i], None if j is None else new_modes[j], th)
+        _mode_shift(None if i is None else base_modes[i], None if j is None else new_modes[j], th, band_hz)
         for i, j in _match(base_modes, new_modes, th.match_cost_limit)
     )
     shifts = tuple(
@@ -393,3 +402,58 @@ def compare_models(
         outputs=new.outputs,
         breaches=tuple(breaches),
     )
+
+
+def _mode_dict(mode: Mode | None) -> dict | None:
+    if mode is None:
+        return None
+    return {
+        "natural_frequency_hz": mode.natural_frequency_hz,
+        "damping_ratio": mode.damping_ratio,
+        "time_constant_s": mode.time_constant_s,
+        "is_pair": mode.is_pair,
+    }
+
+
+def drift_report_to_dict(report: DriftReport) -> dict:
+    """Return a JSON-ready dict of a :class:`DriftReport` (None where a figure is absent)."""
+    r = report.response
+    th = report.thresholds
+    return {
+        "passed": report.passed,
+        "breaches": list(report.breaches),
+        "thresholds": {name: getattr(th, name) for name in th.__dataclass_fields__},
+        "modes": [
+            {
+                "status": s.status,
+                "baseline": _mode_dict(s.baseline),
+                "new": _mode_dict(s.new),
+                "frequency_shift_hz": s.frequency_shift_hz,
+                "frequency_shift_percent": s.frequency_shift_percent,
+                "damping_shift": s.damping_shift,
+                "z_score": s.z_score,
+                "in_band": s.in_band,
+                "breaches": list(s.breaches),
+            }
+            for s in report.mode_shifts
+        ],
+        "dc_gains": [
+            {"input": g.input, "output": g.output, "baseline": g.baseline, "new": g.new,
+             "change_percent": g.change_percent, "breach": g.breach}
+            for g in report.gain_changes
+        ],
+        "response_difference": {
+            "band_hz": list(r.band_hz),
+            "largest_db": r.largest_db,
+            "at_frequency_hz": r.at_frequency_hz,
+            "input": r.input,
+            "output": r.output,
+        },
+        "fit_on_new_log": None
+        if report.new_model_fit is None
+        else {
+            "outputs": list(report.outputs),
+            "baseline_model": [float(v) for v in report.old_model_fit],
+            "new_model": [float(v) for v in report.new_model_fit],
+        },
+    }

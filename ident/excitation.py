@@ -41,6 +41,7 @@ __all__ = [
     "excitation_covariance",
     "persistent_excitation_order",
     "power_band",
+    "excited_band",
     "excitation_report",
 ]
 
@@ -323,3 +324,34 @@ def excitation_report(
             )
         )
     return tuple(out)
+
+
+def excited_band(u: np.ndarray, sample_time: float, power_fraction: float = 0.9) -> tuple[float, float] | None:
+    """Return the band the inputs excited: up to the widest power band over the inputs.
+
+    Parameters
+    ----------
+    u : array_like, shape (N, m)
+        Inputs.
+    sample_time : float
+        Seconds.
+    power_fraction : float, default 0.9
+        Share of each input's power that defines its band (:func:`power_band`).
+
+    Returns
+    -------
+    (float, float) or None
+        ``(0.001 f_N, f_high)`` in Hz, where ``f_high`` is the largest over the
+        inputs of the frequency below which ``power_fraction`` of the input power lies;
+        ``None`` when no input varies.
+    """
+    u = as_signal(u, "u", ndim=2)
+    nyquist = 0.5 / positive_float(sample_time, "sample_time")
+    highs = []
+    for j in range(u.shape[1]):
+        band = power_band(u[:, j], sample_time, power_fraction)
+        if band is not None:
+            highs.append(band * nyquist)
+    low = 1e-3 * nyquist
+    high = max(highs, default=0.0)
+    return (low, high) if high > low else None

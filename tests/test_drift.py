@@ -91,3 +91,25 @@ def test_rejects_mismatched_signals():
 def test_thresholds_from_mapping_rejects_unknown_key():
     with pytest.raises(OptionError, match="unknown drift threshold 'frequency_shift'"):
         DriftThresholds.from_mapping({"frequency_shift": 5})
+
+
+def test_modes_outside_band_do_not_breach():
+    base = _plant([(30.0, 0.05), (300.0, 0.1)])
+    new = _plant([(31.0, 0.05), (400.0, 0.1)])
+    report = compare_models(base, new, band_hz=(0.5, 100.0),
+                            thresholds=DriftThresholds(response_difference_db=100.0))
+    fast = max(report.mode_shifts, key=lambda s: s.baseline.natural_frequency_hz)
+    # 400/300 - 1 = 33 % (closed form) would breach, but the mode lies outside the compared band
+    assert_allclose(fast.frequency_shift_percent, 100.0 / 3.0, rtol=1e-6)
+    assert not fast.in_band and fast.breaches == ()
+    assert report.passed
+
+
+def test_report_dict_is_json_ready():
+    import json
+
+    from ident.drift import drift_report_to_dict
+
+    d = drift_report_to_dict(compare_models(_plant([(30.0, 0.05)]), _plant([(36.0, 0.04)])))
+    text = json.dumps(d, allow_nan=False)
+    assert '"status": "matched"' in text and d["passed"] is False

@@ -45,7 +45,7 @@ def drift(
 
     Exit status 3 when a threshold is breached.
     """
-    from ..drift import DriftThresholds, compare_models
+    from ..drift import DriftThresholds, compare_models, drift_report_to_dict
     from ..io.modelfile import load_model
 
     baseline = load_model(baseline_path).model
@@ -59,6 +59,7 @@ def drift(
     )
     u = y = None
     if log_path is not None:
+        from ..excitation import excited_band
         from ..io.log import read_log
 
         log = read_log(log_path, list(new.inputs), list(new.outputs), time=time_column, sample_rate=sample_rate)
@@ -67,68 +68,11 @@ def drift(
             band_hz = excited_band(u, new.sample_time)
     report = compare_models(baseline, new, thresholds=thresholds, band_hz=band_hz, u=u, y=y)
     if as_json:
-        echo_json(drift_to_dict(report))
+        echo_json(drift_report_to_dict(report))
     else:
         click.echo(drift_text(report))
     if not report.passed:
         raise GateFailed("; ".join(report.breaches))
-
-
-def excited_band(u, sample_time: float) -> tuple[float, float] | None:
-    """Return the widest 90 % power band over the inputs, in Hz (``None`` if it cannot be judged)."""
-    from ..excitation import power_band
-
-    nyquist = 0.5 / sample_time
-    highs = []
-    for j in range(u.shape[1]):
-        frac = power_band(u[:, j], sample_time)
-        if frac is not None:
-            highs.append(float(frac) * nyquist)
-    high = max(highs) if highs else 0.0
-    return (nyquist * 1e-3, high) if high > nyquist * 1e-3 else None
-
-
-def _mode_dict(mode) -> dict | None:
-    if mode is None:
-        return None
-    return {"natural_frequency_hz": mode.natural_frequency_hz, "damping_ratio": mode.damping_ratio}
-
-
-def drift_to_dict(report) -> dict:
-    """JSON-ready form of a :class:`ident.drift.DriftReport`."""
-    r = report.response
-    return {
-        "passed": report.passed,
-        "breaches": list(report.breaches),
-        "modes": [
-            {
-                "status": s.status,
-                "baseline": _mode_dict(s.baseline),
-                "new": _mode_dict(s.new),
-                "frequency_shift_hz": s.frequency_shift_hz,
-                "frequency_shift_percent": s.frequency_shift_percent,
-                "damping_shift": s.damping_shift,
-                "z_score": s.z_score,
-                "breaches": list(s.breaches),
-            }
-            for s in report.mode_shifts
-        ],
-        "dc_gains": [
-            {"input": g.input, "output": g.output, "baseline": g.baseline, "new": g.new,
-             "change_percent": g.change_percent, "breach": g.breach}
-            for g in report.gain_changes
-        ],
-        "response_difference": {
-            "band_hz": list(r.band_hz),
-            "largest_db": r.largest_db,
-            "at_frequency_hz": r.at_frequency_hz,
-            "input": r.input,
-            "output": r.output,
-        },
-        "fit_on_new_log": None
-        if report.new_model_fit is None
-        else {"baseline_model": report.old_model_fit.tolist(), "new_model": report.new_model_fit.tolist()},
-    }
 
 
 def drift_text(report) -> str:
@@ -142,7 +86,7 @@ def drift_text(report) -> str:
         zb = f"{s.baseline.damping_ratio:.3f}" if s.baseline else "-"
         zn = f"{s.new.damping_ratio:.3f}" if s.new else "-"
         shift = f"{s.frequency_shift_percent:+.1f}" if s.frequency_shift_percent is not None else "-"
-        note = ", ".join(s.breaches) + (" !" if s.breaches else "")
+        note = ", ".join(s.breaches) + (" !" if s.breaches else "") + ("" if s.in_band else "outside the band")
         lines.append(f"  {s.status:<9}{fb:>13}{fn:>13}{shift:>11}{zb:>11}{zn:>10}  {note}".rstrip())
     lines.append("")
     lines.append("DC gains")
