@@ -125,3 +125,16 @@ def test_static_gain_model_round_trip(tmp_path):
     back = load_model(save_model(tmp_path / "s.json", static)).model
     assert back.n_states == 0
     assert_array_equal(back.D, [[2.5]])  # closed form: stored as written
+
+
+def test_written_file_has_umask_mode(model, tmp_path):
+    import os
+    import stat
+
+    mask = os.umask(0o022)
+    try:
+        path = save_model(tmp_path / "perm.json", model)
+    finally:
+        os.umask(mask)
+    # a plain open() under umask 022 gives 0644 (POSIX, common practice)
+    assert stat.S_IMODE(path.stat().st_mode) == 0o644

@@ -64,6 +64,12 @@ def check_output_path(
     return target
 
 
+def _file_mode() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
 def write_atomic(
     path: str | os.PathLike,
     data: str | bytes,
@@ -96,6 +102,8 @@ def write_atomic(
     payload = data.encode("utf-8") if isinstance(data, str) else data
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
     try:
+        # mkstemp makes the file private (0600); give it the mode a plain open() would
+        os.chmod(tmp, _file_mode())
         with os.fdopen(fd, "wb") as fh:
             fh.write(payload)
             fh.flush()
