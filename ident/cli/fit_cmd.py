@@ -1,0 +1,306 @@
+"""``rigfit fit``: identify a linear model from a rig log."""
+
+from __future__ import annotations
+
+import os
+from typing import Any
+
+import click
+
+from ._common import echo_json, progress_enabled
+
+# Kept equal to ident.identify.METHODS (a test checks it); spelled out here so
+# that ``rigfit fit --help`` does not import numpy.
+_METHOD_CHOICES = ("arx", "subspace", "auto")
+
+
+def _parse_order(value: str) -> int | None:
+    if value == "auto":
+        return None
+    try:
+        order = int(value)
+    except ValueError:
+        raise click.BadParameter(f"must be a positive integer or 'auto'; got {value!r}") from None
+    if order < 1:
+        raise click.BadParameter(f"must be a positive integer or 'auto'; got {value!r}")
+    return order
+
+
+@click.command()
+@click.argument("log_path", metavar="LOG", type=click.Path(dir_okay=False))
+@click.option("--input", "inputs", multiple=True, required=True, metavar="NAME",
+              help="Input column (repeatable; the order is kept).")
+@click.option("--output", "outputs", multiple=True, required=True, metavar="NAME",
+              help="Output column (repeatable; the order is kept).")
+@click.option("--time", "time_column", default=None, metavar="NAME",
+              help="Time column [s]. Default: a column named 'time' or 't'.")
+@click.option("--sample-rate", type=float, default=None, metavar="HZ",
+              help="Sample rate for a log without a time column.")
+@click.option("--method", type=click.Choice(_METHOD_CHOICES), default="auto", show_default=True,
+              help="Model family; 'auto' fits both and keeps the best on validation data.")
+@click.option("--order", "order_text", default="auto", show_default=True, metavar="N|auto",
+              help="Model order (ARX: na = nb = N; subspace: N states), or 'auto' to select.")
+@click.option("--max-order", type=int, default=10, show_default=True, metavar="N",
+              help="Largest order tried with --order auto.")
+@click.option("--delay", type=int, default=None, metavar="SAMPLES",
+              help="ARX input delay in samples (default: estimated from the data).")
+@click.option("--holdout", type=float, default=0.3, show_default=True, metavar="FRACTION",
+              help="Fraction at the end of the log (of each segment) held out for validation.")
+@click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part.")
+@click.option("--decimate", type=int, default=1, show_default=True, metavar="Q",
+              help="Low-pass filter and keep every Q-th sample before fitting.")
+@click.option("--drop-bad-rows", is_flag=True,
+              help="Drop rows with a non-numeric or missing cell instead of refusing the log.")
+@click.option("-o", "--model-out", "model_out", type=click.Path(dir_okay=False), default=None,
+              metavar="PATH", help="Write the selected model to this model file.")
+@click.option("--force", is_flag=True, help="Replace an existing --model-out file.")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
+@click.option("--quiet", is_flag=True, help="No progress display.")
+def fit(
+    log_path: str,
+    inputs: tuple[str, ...],
+    outputs: tuple[str, ...],
+    time_column: str | None,
+    sample_rate: float | None,
+    method: str,
+    order_text: str,
+    max_order: int,
+    delay: int | None,
+    holdout: float,
+    detrend: bool,
+    decimate: int,
+    drop_bad_rows: bool,
+    model_out: str | None,
+    force: bool,
+    as_json: bool,
+    quiet: bool,
+) -> None:
+    """Identify a linear model of the OUTPUTs driven by the INPUTs in LOG.
+
+    The last --holdout fraction of the log is held out; ARX models (na = nb =
+    1 .. --max-order, delays estimated) and subspace models (1 .. --max-order
+    states) are fitted on the rest, and the one with the best fit on the
+    held-out part is kept (within 0.5 points, the simpler model wins).
+
+    Exit status: 0 ok; 2 bad input (unreadable log, missing column, output
+    equal to an input, collinear or non-exciting inputs, order too high).
+    """
+    import warnings
+
+    from ..identify import IdentifyOptions, identify
+    from ..io.atomic import check_output_path
+    from ..io.log import read_log
+    from ..preprocess import PreprocessOptions
+
+    order = _parse_order(order_text)
+    names_in = [n.lower() for n in inputs]
+    for name in outputs:
+        if name.lower() in names_in:
+            raise click.BadParameter(
+                f"{name!r} is given as both an input and an output", param_hint="--output"
+            )
+    if model_out is not None:
+        check_output_path(model_out, force=force, protected=(log_path,))
+    options = IdentifyOptions(
+        method=method,
+        order=order,
+        max_order=max_order,
+        delay=delay,
+        preprocess=PreprocessOptions(holdout=holdout, detrend=detrend, decimate=decimate),
+    )
+    show_progress = progress_enabled(quiet)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        if show_progress:
+            click.echo(f"reading {os.path.basename(log_path)} ...", err=True)
+        log = read_log(
+            log_path, list(inputs), list(outputs), time=time_column, sample_rate=sample_rate,
+            drop_bad_rows=drop_bad_rows, split_at_gaps=True,
+        )
+        segments = [(log.u[a:b], log.y[a:b]) for a, b in log.segments]
+        starts = [a for a, _ in log.segments]
+        kwargs: dict[str, Any] = {
+            "input_names": log.input_names, "output_names": log.output_names,
+            "input_units": log.input_units, "output_units": log.output_units,
+            "segment_starts": starts,
+        }
+        if show_progress:
+            with click.progressbar(length=1000, label="identifying", file=click.get_text_stream("stderr")) as bar:
+                done = [0]
+
+                def progress(step: str, fraction: float) -> None:
+                    bar.label = f"{step:<22}"
+                    target = int(round(1000 * min(max(fraction, 0.0), 1.0)))
+                    if target > done[0]:
+                        bar.update(target - done[0])
+                        done[0] = target
+
+                result = identify(segments, log.sample_time, options, progress=progress, **kwargs)
+        else:
+            result = identify(segments, log.sample_time, options, **kwargs)
+    messages = []
+    for w in caught:
+        text = str(w.message)
+        if text not in messages:
+            messages.append(text)
+
+    from ..modes import mode_table
+
+    table = mode_table(result.model, log_duration_s=log.duration_s or None)
+    written = None
+    if model_out is not None:
+        from ..io.modelfile import save_model
+
+        written = save_model(
+            model_out, result.model, provenance=_provenance(log, result),
+            force=force, protected=(log_path,),
+        )
+    for text in messages:
+        click.echo(f"warning: {text}", err=True)
+    if as_json:
+        echo_json(_summary(log, result, table, messages, written))
+    else:
+        click.echo(_text(log, result, table, written))
+
+
+def _fit_dict(names, values) -> dict[str, float]:
+    return {name: float(v) for name, v in zip(names, values, strict=True)}
+
+
+def _provenance(log, result) -> dict[str, Any]:
+    prep = result.prepared
+    return {
+        "log": {
+            "file_name": log.source.file_name,
+            "sha256": log.source.sha256,
+            "first_row": log.source.first_row,
+            "last_row": log.source.last_row,
+            "n_samples": log.n_samples,
+            "duration_s": log.duration_s,
+            "sample_time": log.sample_time,
+            "segments": [list(s) for s in log.segments],
+            "dropped_rows": log.dropped_rows,
+        },
+        "estimation": {
+            "command": "fit",
+            "method": result.method,
+            "order": result.order,
+            "structure": result.selected.structure,
+            "options": result.options.to_dict(),
+            "ranges": [list(r) for r in prep.estimation_ranges],
+            "n_samples": prep.n_estimation_samples,
+            "sample_time": prep.sample_time,
+            "decimation": prep.decimation,
+            "selection": [c.as_dict() for c in result.candidates],
+        },
+        "validation": {
+            "ranges": [list(r) for r in prep.validation_ranges],
+            "n_samples": prep.n_validation_samples,
+            "fit_percent": _fit_dict(prep.output_names, result.validation_fit),
+            "estimation_fit_percent": _fit_dict(prep.output_names, result.estimation_fit),
+        },
+    }
+
+
+def _summary(log, result, table, messages, written) -> dict[str, Any]:
+    from ..modes import mode_table_to_dict
+
+    prep = result.prepared
+    flags = sorted({flag for mode in table.modes for flag in mode.flags})
+    return {
+        "log": {
+            "file_name": log.source.file_name,
+            "sha256": log.source.sha256,
+            "n_samples": log.n_samples,
+            "sample_time": log.sample_time,
+            "segments": [list(s) for s in log.segments],
+            "dropped_rows": log.dropped_rows,
+        },
+        "inputs": list(prep.input_names),
+        "outputs": list(prep.output_names),
+        "method": result.method,
+        "order": result.order,
+        "n_states": result.model.n_states,
+        "structure": result.selected.structure,
+        "sample_time": prep.sample_time,
+        "validation_fit": _fit_dict(prep.output_names, result.validation_fit),
+        "mean_validation_fit": float(result.selected.mean_fit),
+        "estimation_fit": _fit_dict(prep.output_names, result.estimation_fit),
+        "candidates": [c.as_dict() for c in result.candidates],
+        "singular_values": None if result.singular_values is None else result.singular_values,
+        "suggested_subspace_order": result.suggested_order,
+        "delays": None if result.delay is None else result.delay.delays,
+        "operating_point": {
+            "inputs": prep.operating_point.inputs,
+            "outputs": prep.operating_point.outputs,
+        },
+        "ranges": {
+            "estimation": [list(r) for r in prep.estimation_ranges],
+            "validation": [list(r) for r in prep.validation_ranges],
+        },
+        "modes": mode_table_to_dict(table),
+        "flags": flags,
+        "warnings": messages,
+        "notes": list(result.notes),
+        "model_file": None if written is None else str(written),
+    }
+
+
+def _fmt_fit(value: float) -> str:
+    return f"{value:7.2f} %" if value > -1e6 else "   diverged"
+
+
+def _text(log, result, table, written) -> str:
+    prep = result.prepared
+    lines = []
+    seg = f", {len(log.segments)} segments" if len(log.segments) > 1 else ""
+    lines.append(
+        f"{log.source.file_name}: {log.n_samples} samples{seg}, T = {log.sample_time:g} s"
+        + (f", decimated by {prep.decimation} to T = {prep.sample_time:g} s"
+           if prep.decimation > 1 else "")
+    )
+    sel = result.selected
+    if result.method == "arx":
+        what = (f"ARX na = {sel.structure['na']}, nb = {sel.structure['nb']}, "
+                f"nk = {sel.structure['nk']}")
+    else:
+        what = f"subspace ({sel.structure['weighting']}), horizon {sel.structure['horizon']}"
+    lines.append(
+        f"model: {what}; {result.model.n_states} states, {sel.n_parameters} parameters "
+        f"(chosen from {len(result.candidates)} candidates by validation fit)"
+    )
+    lines.append("")
+    held = prep.options.holdout
+    lines.append(f"fit percent     validation (last {100 * held:g} %)   estimation")
+    for k, name in enumerate(prep.output_names):
+        unit = prep.output_units[k]
+        label = f"{name} [{unit}]" if unit else name
+        lines.append(f"  {label:<16}{_fmt_fit(result.validation_fit[k]):>12}"
+                     f"{_fmt_fit(result.estimation_fit[k]):>20}")
+    lines.append("")
+    lines.append("candidates (mean validation fit):")
+    lines.append("  method    order  states  params   fit %")
+    for c in result.candidates:
+        mark = "  <- selected" if c.selected else ""
+        fit_text = f"{c.mean_fit:7.2f}" if c.mean_fit > -1e6 else "diverged"
+        lines.append(f"  {c.method:<9}{c.order:>6}{c.n_states:>8}{c.n_parameters:>8}"
+                     f"{fit_text:>9}{mark}")
+    if result.singular_values is not None:
+        sv = ", ".join(f"{v:.3g}" for v in result.singular_values[: result.options.max_order + 1])
+        lines.append(f"subspace singular values: {sv} (largest gap after "
+                     f"{result.suggested_order})")
+    lines.append("")
+    lines.append("modes:")
+    try:
+        from .modes_cmd import modes_text
+
+        lines.append(modes_text(table, units=(prep.input_units, prep.output_units)))
+    except ImportError:  # pragma: no cover - modes_cmd ships with the package
+        for mode in table.modes:
+            lines.append(f"  z = {mode.z:.5g}  f_n = {mode.natural_frequency_hz} Hz  "
+                         f"zeta = {mode.damping_ratio}  tau = {mode.time_constant_s} s")
+    for note in result.notes:
+        lines.append(f"note: {note}")
+    if written is not None:
+        lines.append(f"model written to {written}")
+    return "\n".join(lines)

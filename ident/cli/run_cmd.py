@@ -1,0 +1,107 @@
+"""``rigfit run``: run a pipeline file end to end into a new run folder with a report."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import click
+
+from ._common import GateFailed, echo_json
+
+
+def progress_printer(quiet: bool, prefix: str = "") -> Any:
+    """Return a ``progress(step, fraction)`` callback printing each new step on stderr (or None)."""
+    if quiet:
+        return None
+    last = [""]
+
+    def progress(step: str, fraction: float) -> None:
+        if step != last[0]:
+            last[0] = step
+            click.echo(f"{prefix}[{100 * fraction:3.0f} %] {step}", err=True)
+
+    return progress
+
+
+def run_text(result: Any) -> str:
+    """Readable summary of a :class:`ident.pipeline.RunResult`."""
+    s = result.summary
+    m = s["model"]
+    fits = ", ".join(f"{k} {v:.1f} %" if v is not None else f"{k} diverged"
+                     for k, v in m["validation_fit"].items())
+    lines = [s["name"], s["verdict"]["headline"],
+             f"model: {m['method']} order {m['order']} ({m['n_states']} states); validation fit {fits}"]
+    modes = []
+    for mode in s["modes"]["modes"]:
+        f, z = mode["natural_frequency_hz"], mode["damping_ratio"]
+        if f is None:
+            continue
+        text = f"{f:.4g} Hz" + (f" (zeta {z:.3g})" if mode["is_pair"] and z is not None else "")
+        if mode["flags"]:
+            text += " [" + ", ".join(mode["flags"]) + "]"
+        modes.append(text)
+    if modes:
+        lines.append("modes: " + "; ".join(modes))
+    drift = s.get("drift")
+    if drift is not None:
+        for shift in drift["modes"]:
+            if shift["status"] == "matched" and shift["baseline"]["is_pair"]:
+                lines.append(
+                    f"drift: mode {shift['baseline']['natural_frequency_hz']:.4g} Hz -> "
+                    f"{shift['new']['natural_frequency_hz']:.4g} Hz "
+                    f"({shift['frequency_shift_hz']:+.3g} Hz, {shift['frequency_shift_percent']:+.1f} %)"
+                )
+    for gate in result.gates:
+        if not gate.passed:
+            lines.append(f"  FAILED {gate.key_path}: {gate.detail}")
+    lines.append(f"run folder: {result.folder}")
+    lines.append(f"report: {result.report_path}")
+    return "\n".join(lines)
+
+
+@click.command()
+@click.argument("pipeline_path", metavar="PIPELINE", type=click.Path(dir_okay=False))
+@click.option("--out", "out_dir", type=click.Path(file_okay=False), default=None, metavar="DIR",
+              help="Put the new run folder in DIR (default: runs/ next to the pipeline file).")
+@click.option("--baseline", "baseline", type=click.Path(dir_okay=False), default=None, metavar="MODEL",
+              help="Model file to compare with (overrides [drift] baseline in the pipeline file).")
+@click.option("--quiet", is_flag=True, help="No progress messages on stderr.")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
+def run(pipeline_path: str, out_dir: str | None, baseline: str | None, quiet: bool, as_json: bool) -> None:
+    """Run the pipeline file PIPELINE end to end into a new run folder.
+
+    Ingest, preprocess, fit candidates, select, validate, check modes and
+    expectations, compare with a baseline, and write a NEW run folder (model.json,
+    summary.json, figures, report.html). Earlier runs are never touched.
+
+    Exit status: 0 all gates passed; 2 bad input (nothing written); 3 a gate,
+    expectation or drift threshold failed (the summary and the report say which).
+    """
+    from ..pipeline import run_pipeline
+
+    result = run_pipeline(pipeline_path, out_dir=out_dir, baseline=baseline,
+                          progress=progress_printer(quiet))
+    if as_json:
+        s = result.summary
+        echo_json({
+            "name": s["name"],
+            "passed": result.passed,
+            "headline": s["verdict"]["headline"],
+            "gates": s["gates"],
+            "folder": str(result.folder),
+            "report": str(result.report_path),
+            "summary": str(result.summary_path),
+            "model": str(result.model_path),
+            "figures": [str(p) for p in result.figure_paths],
+            "method": s["model"]["method"],
+            "order": s["model"]["order"],
+            "validation_fit": s["model"]["validation_fit"],
+            "modes": s["modes"]["modes"],
+            "drift": s["drift"],
+            "warnings": s["warnings"],
+        })
+    else:
+        click.echo(run_text(result))
+    if not result.passed:
+        failed = result.failed_gates
+        raise GateFailed(f"{len(failed)} gate(s) failed: " + ", ".join(g.key_path for g in failed))

@@ -1,0 +1,866 @@
+"""The top-level identification job: candidates, selection, validation.
+
+:func:`identify` prepares the data (:mod:`ident.preprocess`), checks that it can
+support the models asked for, fits a family of candidate models and picks one
+by its fit on the held-out validation data:
+
+- **ARX** candidates ``na = nb = n`` for ``n = 1 .. max_order``, with the input
+  delays estimated from the data (:func:`ident.delay.estimate_delay`) unless
+  given, one MISO ARX model per output (:func:`ident.arx.fit_arx`);
+- **subspace** candidates of ``n = 1 .. max_order`` states, all from one
+  projection of the data (:func:`ident.subspace.project` then
+  :func:`ident.subspace.model_of_order`).
+
+Every candidate is simulated on the validation data from an initial state
+fitted to its first samples, and scored by its fit percent
+(:func:`ident.diagnostics.fit_percent`), averaged over the outputs. The
+candidate with the best mean fit wins; candidates within
+:data:`TIE_TOLERANCE` percentage points of the best count as tied, and among
+tied candidates the simpler one wins (fewer states, then fewer parameters).
+
+The model returned is the selected candidate as estimated on the estimation
+part; it is *not* re-estimated on all the data, so the validation figures it
+carries are figures of exactly this model.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field, fields, replace
+from typing import Any, Literal
+
+import numpy as np
+
+from ._validate import int_in_range, one_of
+from .data import Experiment
+from .diagnostics import fit_percent
+from .errors import (
+    IdentificationError,
+    IllConditionedWarning,
+    OptionError,
+    PoorExcitationWarning,
+    UnstableModelWarning,
+)
+from .models import StateSpaceModel
+from .order import Criteria
+from .preprocess import PreparedData, PreprocessOptions, _from_mapping, prepare
+from .simulate import estimate_initial_state, simulate, simulate_states
+
+__all__ = [
+    "METHODS",
+    "TIE_TOLERANCE",
+    "IdentifyOptions",
+    "Candidate",
+    "Identification",
+    "identify",
+    "select_candidate",
+    "excitation_order",
+]
+
+#: Identification methods; ``"auto"`` tries both and keeps the best.
+METHODS = ("arx", "subspace", "auto")
+
+#: Subspace weightings accepted (kept equal to ``ident.subspace.WEIGHTINGS``).
+WEIGHTINGS = ("n4sid", "moesp", "cva")
+
+#: Two candidates whose mean validation fits differ by at most this many
+#: percentage points are tied; the simpler one is chosen.
+TIE_TOLERANCE = 0.5
+
+#: Largest order accepted for ``order`` and ``max_order``.
+MAX_ORDER = 40
+
+#: Estimation samples needed per estimated parameter (a rule of thumb: below
+#: about ten samples per parameter the variance of the estimate dominates).
+SAMPLES_PER_PARAMETER = 10
+
+#: At most this many samples per experiment are used for the excitation and
+#: collinearity checks (the checks are about the signal's content, not its length).
+_CHECK_SAMPLES = 200_000
+
+#: Samples simulated at a time when scoring a candidate (bounds the memory of the
+#: state trajectories on long logs).
+_SIM_CHUNK = 1 << 16
+
+#: Two inputs whose correlation exceeds this in magnitude are collinear (error).
+_COLLINEAR_LIMIT = 1.0 - 1e-9
+#: ... and above this they are nearly collinear (warning).
+_NEAR_COLLINEAR_LIMIT = 0.99
+
+
+def _positive_int_or_none(value: Any, name: str, high: int) -> int | None:
+    return None if value is None else int_in_range(value, name, 1, high)
+
+
+@dataclass(frozen=True, slots=True, eq=False, kw_only=True)
+class IdentifyOptions:
+    """What :func:`identify` fits and how it chooses.
+
+    Parameters
+    ----------
+    method : {"arx", "subspace", "auto"}
+        Model family; ``"auto"`` (default) fits both and keeps the candidate
+        with the best validation fit.
+    order : int, optional
+        Fixed model order; ``None`` (default) selects it. For subspace it is
+        the number of states; for ARX ``na = nb = order``.
+    max_order : int
+        Largest order tried when ``order`` is ``None`` (default 10).
+    delay : int, optional
+        Input delay ``nk`` in samples, the same for every input, for ARX;
+        ``None`` (default) estimates the delays from the data.
+    weighting : {"n4sid", "moesp", "cva"}
+        Subspace weighting (default ``"n4sid"``).
+    horizon : int, optional
+        Subspace past/future horizon; ``None`` (default) lets
+        :mod:`ident.subspace` choose it from the data and the order.
+    stabilize : bool
+        Reflect unstable subspace poles into the unit circle (default
+        ``False``); when it happens the result says so.
+    tie_tolerance : float
+        Mean validation fits within this many percentage points of the best
+        are tied (default :data:`TIE_TOLERANCE`, 0.5).
+    preprocess : PreprocessOptions
+        Operating point, detrending, decimation and hold-out.
+    """
+
+    method: Literal["arx", "subspace", "auto"] = "auto"
+    order: int | None = None
+    max_order: int = 10
+    delay: int | None = None
+    weighting: Literal["n4sid", "moesp", "cva"] = "n4sid"
+    horizon: int | None = None
+    stabilize: bool = False
+    tie_tolerance: float = TIE_TOLERANCE
+    preprocess: PreprocessOptions = field(default_factory=PreprocessOptions)
+
+    def __post_init__(self) -> None:
+        one_of(self.method, "method", METHODS)
+        one_of(self.weighting, "weighting", WEIGHTINGS)
+        object.__setattr__(self, "order", _positive_int_or_none(self.order, "order", MAX_ORDER))
+        object.__setattr__(self, "max_order", int_in_range(self.max_order, "max_order", 1, MAX_ORDER))
+        if self.delay is not None:
+            object.__setattr__(self, "delay", int_in_range(self.delay, "delay", 0, 1000))
+        object.__setattr__(self, "horizon", _positive_int_or_none(self.horizon, "horizon", 10_000))
+        if not isinstance(self.stabilize, (bool, np.bool_)):
+            raise OptionError(f"stabilize must be true or false; got {self.stabilize!r}")
+        object.__setattr__(self, "stabilize", bool(self.stabilize))
+        try:
+            tol = float(self.tie_tolerance)
+        except (TypeError, ValueError) as exc:
+            raise OptionError(
+                f"tie_tolerance must be a number >= 0; got {self.tie_tolerance!r}"
+            ) from exc
+        if not (tol >= 0 and math.isfinite(tol)):
+            raise OptionError(f"tie_tolerance must be a number >= 0; got {self.tie_tolerance!r}")
+        object.__setattr__(self, "tie_tolerance", tol)
+        if isinstance(self.preprocess, Mapping):
+            object.__setattr__(self, "preprocess", PreprocessOptions(**self.preprocess))
+        if not isinstance(self.preprocess, PreprocessOptions):
+            raise OptionError(
+                f"preprocess must be PreprocessOptions; got {type(self.preprocess).__name__}"
+            )
+
+    @classmethod
+    def from_mapping(cls, mapping: Mapping[str, Any], *, key_path: str = "") -> IdentifyOptions:
+        """Build options from a mapping such as a parsed TOML table.
+
+        A nested ``preprocess`` table becomes :class:`PreprocessOptions`.
+
+        Raises
+        ------
+        PipelineError
+            An unknown key, or a value that is not allowed.
+        """
+        if isinstance(mapping, Mapping) and "preprocess" in mapping:
+            sub_path = f"{key_path}.preprocess" if key_path else "preprocess"
+            mapping = dict(mapping)
+            mapping["preprocess"] = PreprocessOptions.from_mapping(
+                mapping["preprocess"], key_path=sub_path
+            )
+        return _from_mapping(cls, mapping, key_path)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the options as a plain nested dict (for provenance records)."""
+        out = {f.name: getattr(self, f.name) for f in fields(self) if f.name != "preprocess"}
+        out["preprocess"] = self.preprocess.to_dict()
+        return out
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Candidate:
+    """One fitted candidate model and its scores.
+
+    Attributes
+    ----------
+    method : {"arx", "subspace"}
+        Model family.
+    order : int
+        ``na = nb`` for ARX, the number of states for subspace.
+    structure : dict
+        ``{"na", "nb", "nk"}`` (lists per input for ``nb`` and ``nk``) for ARX,
+        ``{"n", "weighting", "horizon"}`` for subspace.
+    n_states : int
+        States of the model in state-space form.
+    n_parameters : int
+        Estimated parameters, all outputs together. For subspace models the
+        count of a canonical parametrisation, ``n (m + p) + m p``.
+    validation_fit : numpy.ndarray, shape (p,)
+        Fit percent per output on the held-out data (simulation from a fitted
+        initial state); ``-inf`` when the simulation diverges.
+    mean_fit : float
+        Mean of ``validation_fit`` over the outputs (the selection score).
+    criteria : Criteria or None
+        AIC, BIC and FPE on the estimation data for ARX candidates (prediction
+        errors); ``None`` for subspace candidates, whose evidence is the
+        singular values.
+    selected : bool
+        True for the chosen candidate.
+    """
+
+    method: str
+    order: int
+    structure: dict[str, Any]
+    n_states: int
+    n_parameters: int
+    validation_fit: np.ndarray
+    mean_fit: float
+    criteria: Criteria | None
+    selected: bool = False
+
+    def as_dict(self) -> dict[str, Any]:
+        """Return a JSON-friendly dict of the candidate."""
+        return {
+            "method": self.method,
+            "order": self.order,
+            "structure": self.structure,
+            "n_states": self.n_states,
+            "n_parameters": self.n_parameters,
+            "validation_fit": [float(v) for v in self.validation_fit],
+            "mean_fit": float(self.mean_fit),
+            "criteria": None if self.criteria is None else self.criteria.as_dict(),
+            "selected": self.selected,
+        }
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Identification:
+    """The result of :func:`identify`.
+
+    Attributes
+    ----------
+    model : StateSpaceModel
+        The selected model, discrete time at the (decimated) sample time, with
+        names, units and operating point set.
+    method : {"arx", "subspace"}
+        Family of the selected model.
+    order : int
+        Its order (``na = nb`` for ARX, states for subspace).
+    candidates : tuple of Candidate
+        Every candidate fitted, ARX first, by increasing order; exactly one
+        has ``selected=True``.
+    validation_fit : numpy.ndarray, shape (p,)
+        Fit percent per output of ``model`` on the held-out data.
+    estimation_fit : numpy.ndarray, shape (p,)
+        Fit percent per output of ``model`` on the estimation data.
+    prepared : PreparedData
+        The data as prepared, with its ranges in the original log.
+    arx : object or None
+        The ``ArxResult`` of the selected model when it is an ARX model.
+    subspace : object or None
+        The ``SubspaceResult`` of the selected model when it is a subspace model.
+    singular_values : numpy.ndarray or None
+        Singular values of the subspace projection (``None`` without subspace).
+    suggested_order : int or None
+        Order at the largest gap in ``singular_values``.
+    delay : object or None
+        The ``DelayEstimate`` used for ARX (``None`` when the delay was given
+        or no ARX model was fitted).
+    warnings : tuple of str
+        Warnings raised while identifying (also issued as Python warnings).
+    notes : tuple of str
+        Informational remarks (orders skipped and why, selection rule).
+    options : IdentifyOptions
+        The options used.
+    """
+
+    model: StateSpaceModel
+    method: str
+    order: int
+    candidates: tuple[Candidate, ...]
+    validation_fit: np.ndarray
+    estimation_fit: np.ndarray
+    prepared: PreparedData
+    arx: Any
+    subspace: Any
+    singular_values: np.ndarray | None
+    suggested_order: int | None
+    delay: Any
+    warnings: tuple[str, ...]
+    notes: tuple[str, ...]
+    options: IdentifyOptions
+
+    @property
+    def selected(self) -> Candidate:
+        """The selected candidate."""
+        return next(c for c in self.candidates if c.selected)
+
+
+def select_candidate(candidates: Sequence[Candidate], *, tie_tolerance: float = TIE_TOLERANCE) -> int:
+    """Index of the candidate to keep: best mean validation fit, ties to the simpler.
+
+    Parameters
+    ----------
+    candidates : sequence of Candidate
+        Scored candidates (``selected`` is ignored).
+    tie_tolerance : float
+        Candidates whose ``mean_fit`` is within this many percentage points of
+        the best are tied.
+
+    Returns
+    -------
+    int
+        Position of the winner: among the tied candidates the one with the
+        fewest states, then the fewest parameters, then the best fit, then the
+        first in the sequence.
+
+    Raises
+    ------
+    IdentificationError
+        If no candidate has a finite validation fit (every one diverged).
+    """
+    if not candidates:
+        raise OptionError("candidates must not be empty")
+    fits = np.array([c.mean_fit for c in candidates], dtype=float)
+    finite = np.isfinite(fits)
+    if not finite.any():
+        raise IdentificationError(
+            "every candidate model diverged on the validation data",
+            hint="check the data (drift, saturation) or fix a low --order",
+        )
+    best = np.max(fits[finite])
+    tied = [k for k in range(len(candidates)) if finite[k] and fits[k] >= best - tie_tolerance]
+    return min(
+        tied,
+        key=lambda k: (candidates[k].n_states, candidates[k].n_parameters, -fits[k], k),
+    )
+
+
+# --------------------------------------------------------------------------- checks
+
+
+def excitation_order(u: Sequence[np.ndarray], max_lags: int) -> np.ndarray:
+    """Order of persistent excitation of each input column, up to ``max_lags``.
+
+    Parameters
+    ----------
+    u : sequence of numpy.ndarray, each (N_k, m)
+        Input deviations of each experiment.
+    max_lags : int
+        Largest order tested.
+
+    Returns
+    -------
+    numpy.ndarray of int, shape (m,)
+        Per input, the largest order found by
+        :func:`ident.excitation.persistent_excitation_order` in any one
+        experiment (at most :data:`_CHECK_SAMPLES` samples of each are used).
+    """
+    from .excitation import persistent_excitation_order
+
+    max_lags = int_in_range(max_lags, "max_lags", 1)
+    m = u[0].shape[1]
+    orders = np.zeros(m, dtype=int)
+    for j in range(m):
+        for part in u:
+            col = part[:_CHECK_SAMPLES, j]
+            if col.shape[0] >= 2:
+                orders[j] = max(orders[j], persistent_excitation_order(col, max_order=max_lags))
+    return orders
+
+
+def _check_signals(prep: PreparedData) -> list[str]:
+    """Errors for unusable signals; returns warning texts for doubtful ones."""
+    m, p = prep.n_inputs, prep.n_outputs
+    u_parts = [e.u[:_CHECK_SAMPLES] for e in prep.estimation]
+    y_parts = [e.y[:_CHECK_SAMPLES] for e in prep.estimation]
+    u = np.vstack(u_parts)
+    y = np.vstack(y_parts)
+    out: list[str] = []
+    u_std = u.std(axis=0)
+    y_std = y.std(axis=0)
+    for j in range(m):
+        if not u_std[j] > 1e-12 * max(1.0, float(np.max(np.abs(prep.operating_point.inputs[j])))):
+            raise IdentificationError(
+                f"input {prep.input_names[j]!r} is constant over the estimation part; "
+                "it excites nothing",
+                hint="choose an input column that varies, or a longer estimation part",
+            )
+    for i in range(p):
+        if not y_std[i] > 1e-12 * max(1.0, float(np.max(np.abs(prep.operating_point.outputs[i])))):
+            raise IdentificationError(
+                f"output {prep.output_names[i]!r} is constant over the estimation part; "
+                "there is nothing to model",
+                hint="check the output column name",
+            )
+    # an output identical to an input (the same column given twice, or a loop-back)
+    for i in range(p):
+        for j in range(m):
+            raw_y = y[:, i] + prep.operating_point.outputs[i]
+            raw_u = u[:, j] + prep.operating_point.inputs[j]
+            scale = max(float(np.max(np.abs(raw_u))), 1e-300)
+            if np.max(np.abs(raw_y - raw_u)) <= 1e-12 * scale:
+                raise IdentificationError(
+                    f"output {prep.output_names[i]!r} is identical to input "
+                    f"{prep.input_names[j]!r}",
+                    hint="an output must be a measured response, not a copy of an input",
+                )
+    if m > 1:
+        corr = np.corrcoef(u, rowvar=False)
+        for a in range(m):
+            for b in range(a + 1, m):
+                r = abs(corr[a, b])
+                name_a, name_b = prep.input_names[a], prep.input_names[b]
+                if r > _COLLINEAR_LIMIT:
+                    raise IdentificationError(
+                        f"inputs {name_a!r} and {name_b!r} are collinear "
+                        f"(correlation {corr[a, b]:+.9f}); their effects cannot be separated",
+                        hint="drop one of them, or use a log where they move independently",
+                    )
+                if r > _NEAR_COLLINEAR_LIMIT:
+                    out.append(
+                        f"inputs {name_a!r} and {name_b!r} are nearly collinear (correlation "
+                        f"{corr[a, b]:+.4f}); their separate effects are poorly determined"
+                    )
+        sv = np.linalg.svd(u / u_std, compute_uv=False)
+        if sv[-1] <= 1e-7 * sv[0]:
+            raise IdentificationError(
+                f"the inputs {', '.join(map(repr, prep.input_names))} are linearly dependent; "
+                "their effects cannot be separated",
+                hint="drop an input that is a combination of the others",
+            )
+    return out
+
+
+def _samples_needed(order: int, m: int, p: int) -> int:
+    """Estimation samples needed for order ``order`` (see SAMPLES_PER_PARAMETER)."""
+    # the larger of an ARX model's parameters per output and a subspace model's
+    # canonical parameter count, plus the lags lost at the start
+    params = max(order * (1 + m), order * (m + p) + m * p)
+    return SAMPLES_PER_PARAMETER * params + 2 * order
+
+
+# --------------------------------------------------------------------------- scoring
+
+
+def _for_simulation(model: StateSpaceModel) -> StateSpaceModel:
+    """Return the model in real modal form when it has one, else unchanged.
+
+    Canonical forms (as ARX models come) have badly conditioned eigenvectors,
+    which sends :func:`ident.simulate.simulate` to its sample-by-sample
+    recursion; the block-diagonal modal form simulates mode by mode in compiled
+    code. The input-output behaviour is the same up to rounding amplified by
+    the transformation's condition number, far below what fit percent resolves.
+    """
+    from .errors import ModelError
+    from .realization import modal_form
+
+    if model.n_states == 0:
+        return model
+    try:
+        return modal_form(model)
+    except (ModelError, np.linalg.LinAlgError, ValueError):
+        return model
+
+
+def _simulate_chunked(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray) -> np.ndarray:
+    """Free-run output, simulated :data:`_SIM_CHUNK` samples at a time to bound memory."""
+    N = u.shape[0]
+    if N <= _SIM_CHUNK or model.n_states == 0:
+        return simulate(model, u, x0)
+    out = np.empty((N, model.n_outputs))
+    x = np.asarray(x0, dtype=float)
+    for k0 in range(0, N, _SIM_CHUNK):
+        k1 = min(N, k0 + _SIM_CHUNK)
+        states = simulate_states(model, u[k0:k1], x)
+        out[k0:k1] = states @ model.C.T + u[k0:k1] @ model.D.T
+        x = model.A @ states[-1] + model.B @ u[k1 - 1]
+        if not np.all(np.isfinite(x)):
+            out[k1:] = np.nan
+            break
+    return out
+
+
+def _validation_fit(model: StateSpaceModel, parts: Sequence[Experiment]) -> np.ndarray:
+    """Fit percent of a free-run simulation on ``parts`` (pooled), per output."""
+    model = _for_simulation(model)
+    ys, yhats = [], []
+    with np.errstate(all="ignore"):
+        for part in parts:
+            try:
+                x0 = estimate_initial_state(model, part.u, part.y)
+                y_hat = _simulate_chunked(model, part.u, x0)
+            except (np.linalg.LinAlgError, ValueError, FloatingPointError):
+                return np.full(model.n_outputs, -np.inf)
+            if not np.all(np.isfinite(y_hat)):
+                return np.full(model.n_outputs, -np.inf)
+            ys.append(part.y)
+            yhats.append(y_hat)
+        fit = fit_percent(np.vstack(ys), np.vstack(yhats))  # may overflow when diverging
+    return np.where(np.isnan(fit), -np.inf, fit)
+
+
+def _subspace_parameters(n: int, m: int, p: int) -> int:
+    return n * (m + p) + m * p
+
+
+def _mean(fit: np.ndarray) -> float:
+    return float(np.mean(fit)) if np.all(np.isfinite(fit)) else -math.inf
+
+
+# --------------------------------------------------------------------------- main job
+
+
+def identify(
+    segments: Any,
+    sample_time: float,
+    options: IdentifyOptions | None = None,
+    *,
+    input_names: Sequence[str] | None = None,
+    output_names: Sequence[str] | None = None,
+    input_units: Sequence[str] | None = None,
+    output_units: Sequence[str] | None = None,
+    segment_starts: Sequence[int] | None = None,
+    progress: Callable[[str, float], None] | None = None,
+) -> Identification:
+    """Fit candidate ARX and/or subspace models and keep the best validated one.
+
+    Parameters
+    ----------
+    segments : Experiment, (u, y) pair, or sequence of them
+        Raw logged records (see :func:`ident.preprocess.prepare`).
+    sample_time : float
+        Sample time of the records, in s.
+    options : IdentifyOptions, optional
+        Method, order and preprocessing; default ``IdentifyOptions()``.
+    input_names, output_names, input_units, output_units : sequence of str, optional
+        Signal names and units, carried into the model.
+    segment_starts : sequence of int, optional
+        First sample of each record in the original log (for the ranges).
+    progress : callable, optional
+        Called as ``progress(step, fraction_done)`` between steps.
+
+    Returns
+    -------
+    Identification
+        The selected model, the table of candidates and the evidence.
+
+    Raises
+    ------
+    IdentificationError
+        The data cannot support the request: a constant input or output, an
+        output identical to an input, collinear inputs, an input not
+        persistently exciting of the order asked, an order too high for the
+        number of estimation samples, or every candidate diverging.
+    OptionError
+        Bad options or data shapes.
+
+    Warns
+    -----
+    PoorExcitationWarning
+        An input excites fewer orders than asked for (the sweep is then capped).
+    IllConditionedWarning
+        Nearly collinear inputs.
+    UnstableModelWarning
+        The selected model has a pole outside the unit circle.
+
+    Notes
+    -----
+    Identifiability of an ``n``-th order model needs an input persistently
+    exciting of order ``2 n`` [1]_; a fixed order with excitation below ``n`` is
+    an error, between ``n`` and ``2 n`` a warning. In a sweep the largest
+    order is capped at half the excitation order, and at the largest order
+    with :data:`SAMPLES_PER_PARAMETER` estimation samples per parameter.
+
+    References
+    ----------
+    .. [1] L. Ljung, *System Identification: Theory for the User*, 2nd ed.,
+       Prentice Hall, 1999, sec. 13.2 (informative experiments) and
+       sec. 16.4-16.6 (model structure selection and validation).
+    """
+    options = IdentifyOptions() if options is None else options
+    if not isinstance(options, IdentifyOptions):
+        raise OptionError(f"options must be IdentifyOptions; got {type(options).__name__}")
+    report = progress if progress is not None else (lambda step, fraction: None)
+    if options.preprocess.holdout <= 0:
+        raise OptionError(
+            "identify needs held-out validation data; holdout must be in (0, 1); got 0"
+        )
+    texts: list[str] = []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            result = _identify(
+                segments, sample_time, options, input_names, output_names, input_units,
+                output_units, segment_starts, report,
+            )
+        finally:
+            pending = list(caught)
+    # re-issue outside the recording context, once each, so callers see them too
+    seen: set[tuple[type, str]] = set()
+    for w in pending:
+        key = (w.category, str(w.message))
+        if key in seen:
+            continue
+        seen.add(key)
+        texts.append(str(w.message))
+        warnings.warn(str(w.message), w.category, stacklevel=2)
+    return replace(result, warnings=tuple(texts))
+
+
+def _warn(text: str, category: type[Warning]) -> None:
+    warnings.warn(text, category, stacklevel=3)
+
+
+def _identify(
+    segments, sample_time, options, input_names, output_names, input_units, output_units,
+    segment_starts, report,
+) -> Identification:
+    report("preparing data", 0.0)
+    prep = prepare(
+        segments, sample_time, options.preprocess,
+        input_names=input_names, output_names=output_names,
+        input_units=input_units, output_units=output_units, segment_starts=segment_starts,
+    )
+    if not prep.validation:
+        raise OptionError("the hold-out left no validation samples; raise holdout")
+    m, p = prep.n_inputs, prep.n_outputs
+    notes: list[str] = []
+    for text in _check_signals(prep):
+        _warn(text, IllConditionedWarning)
+
+    # which orders the data can support
+    fixed = options.order
+    top = fixed if fixed is not None else options.max_order
+    n_est = prep.n_estimation_samples
+    pe = excitation_order([e.u for e in prep.estimation], max(2 * top, 2))
+    weakest = int(np.argmin(pe))
+    pe_min = int(pe[weakest])
+    weak_name = prep.input_names[weakest]
+    if fixed is not None:
+        if pe_min < fixed:
+            raise IdentificationError(
+                f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
+                f"order {fixed} needs at least {fixed} (better {2 * fixed})",
+                hint="lower --order, or use a log with a richer input (noise, chirp, PRBS)",
+            )
+        if pe_min < 2 * fixed:
+            _warn(
+                f"input {weak_name!r} is persistently exciting of order {pe_min}; an order-"
+                f"{fixed} model needs {2 * fixed} to be reliably identifiable",
+                PoorExcitationWarning,
+            )
+        needed = _samples_needed(fixed, m, p)
+        if n_est < needed:
+            raise IdentificationError(
+                f"order {fixed} is too high for {n_est} estimation samples "
+                f"(needs at least {needed})",
+                hint="lower --order or --holdout, or use a longer log",
+            )
+        orders = [fixed]
+    else:
+        cap = options.max_order
+        if pe_min < 2:
+            raise IdentificationError(
+                f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
+                "not even a first-order model is identifiable",
+                hint="use a log with a richer input (noise, chirp, PRBS, several steps)",
+            )
+        if pe_min < 2 * cap:
+            cap = pe_min // 2
+            _warn(
+                f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
+                f"orders above {cap} were not tried",
+                PoorExcitationWarning,
+            )
+        while cap >= 1 and n_est < _samples_needed(cap, m, p):
+            cap -= 1
+        if cap < 1:
+            raise IdentificationError(
+                f"{n_est} estimation samples are too few for even a first-order model "
+                f"(needs at least {_samples_needed(1, m, p)})",
+                hint="use a longer log or a smaller --holdout",
+            )
+        if cap < options.max_order and pe_min >= 2 * options.max_order:
+            notes.append(
+                f"orders above {cap} were not tried: {n_est} estimation samples support "
+                f"at most order {cap}"
+            )
+        orders = list(range(1, cap + 1))
+
+    candidates: list[Candidate] = []
+    fitted: list[Any] = []  # (model, raw result) per candidate
+    arx_delay = None
+    singular_values = None
+    suggested = None
+    do_arx = options.method in ("arx", "auto")
+    do_sub = options.method in ("subspace", "auto")
+    n_steps = (len(orders) if do_arx else 0) + (len(orders) + 1 if do_sub else 0) + 1
+    step = 0
+    names = {"input_names": prep.input_names, "output_names": prep.output_names}
+
+    if do_arx:
+        from .arx import ArxOptions, fit_arx
+
+        if options.delay is not None:
+            nk: Any = options.delay
+            notes.append(f"ARX input delay fixed at {options.delay} samples")
+        else:
+            from .delay import estimate_delay
+
+            report("estimating delays", step / n_steps)
+            try:
+                arx_delay = estimate_delay(prep.estimation, max_delay=20)
+            except IdentificationError as exc:
+                arx_delay = None
+                nk = 1
+                _warn(f"input delays could not be estimated ({exc}); ARX models assume a "
+                      "delay of 1 sample", PoorExcitationWarning)
+            else:
+                delays = np.asarray(arx_delay.delays, dtype=int).reshape(p, m)
+                # one delay per input, shared by the outputs' MISO models: the smallest
+                # seen from that input, so that no output loses its earliest response
+                nk = tuple(int(v) for v in delays.min(axis=0))
+        for n in orders:
+            report(f"ARX order {n}", step / n_steps)
+            step += 1
+            try:
+                with warnings.catch_warnings(record=True) as caught:
+                    warnings.simplefilter("always")
+                    res = fit_arx(prep.estimation, prep.sample_time,
+                                  ArxOptions(na=n, nb=n, nk=nk), **names)
+            except (IdentificationError, OptionError) as exc:
+                if fixed is not None or n == orders[0]:
+                    raise
+                notes.append(f"ARX orders from {n} up were not fitted: {exc}")
+                break
+            model = res.model
+            vfit = _validation_fit(model, prep.validation)
+            candidates.append(
+                Candidate(
+                    method="arx",
+                    order=n,
+                    structure={"na": int(res.na), "nb": [int(v) for v in res.nb],
+                               "nk": [int(v) for v in res.nk]},
+                    n_states=model.n_states,
+                    n_parameters=int(res.n_parameters),
+                    validation_fit=vfit,
+                    mean_fit=_mean(vfit),
+                    criteria=res.criteria,
+                )
+            )
+            fitted.append((model, res, caught))
+
+    if do_sub:
+        from .subspace import SubspaceOptions, model_of_order, project, suggest_order
+
+        report("subspace projection", step / n_steps)
+        step += 1
+        projection = project(
+            prep.estimation, horizon=options.horizon, weighting=options.weighting,
+            max_order=max(orders),
+        )
+        singular_values = np.asarray(projection.singular_values, dtype=float)
+        suggested = int(suggest_order(projection).order)
+        n_supported = int(projection.max_order)
+        sub_orders = [n for n in orders if n <= n_supported]
+        if len(sub_orders) < len(orders):
+            if not sub_orders:
+                raise IdentificationError(
+                    f"subspace order {orders[0]} exceeds what horizon "
+                    f"{projection.horizon} supports ({n_supported})",
+                    hint="give a larger horizon or a lower order",
+                )
+            notes.append(
+                f"subspace orders above {n_supported} need a longer horizon and were skipped"
+            )
+        for n in sub_orders:
+            report(f"subspace order {n}", step / n_steps)
+            step += 1
+            sopts = SubspaceOptions(
+                order=n, weighting=options.weighting, horizon=projection.horizon,
+                max_order=projection.max_order, stabilize=options.stabilize,
+            )
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                res = model_of_order(projection, prep.estimation, n, prep.sample_time,
+                                     options=sopts, **names)
+            model = res.model
+            vfit = _validation_fit(model, prep.validation)
+            candidates.append(
+                Candidate(
+                    method="subspace",
+                    order=n,
+                    structure={"n": n, "weighting": options.weighting,
+                               "horizon": int(projection.horizon)},
+                    n_states=model.n_states,
+                    n_parameters=_subspace_parameters(n, m, p),
+                    validation_fit=vfit,
+                    mean_fit=_mean(vfit),
+                    criteria=None,
+                )
+            )
+            fitted.append((model, res, caught))
+
+    report("selecting", step / n_steps)
+    chosen = select_candidate(candidates, tie_tolerance=options.tie_tolerance)
+    candidates = [replace(c, selected=(k == chosen)) for k, c in enumerate(candidates)]
+    best = candidates[chosen]
+    model, raw, candidate_warnings = fitted[chosen]
+    for w in candidate_warnings:  # only the selected candidate's own warnings matter
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    model = model.with_changes(
+        inputs=prep.input_names,
+        outputs=prep.output_names,
+        input_units=prep.input_units,
+        output_units=prep.output_units,
+        operating_point=prep.operating_point,
+    )
+    estimation_fit = _validation_fit(model, prep.estimation)
+    if best.method == "subspace" and raw.stabilized:
+        notes.append("unstable subspace poles were reflected into the unit circle "
+                     "(stabilize=True)")
+    unstable = model.poles()[np.abs(model.poles()) > 1.0 + 1e-9]
+    if unstable.size and not any(
+        issubclass(w.category, UnstableModelWarning) for w in candidate_warnings
+    ):
+        _warn(
+            f"the selected model has {unstable.size} unstable pole(s): "
+            + ", ".join(f"{z:.4g}" for z in unstable),
+            UnstableModelWarning,
+        )
+    notes.append(
+        f"selected by mean validation fit; fits within {options.tie_tolerance:g} points of "
+        "the best count as tied and the simplest tied model wins (fewer states, then fewer "
+        "parameters); the model is not re-estimated on the validation data"
+    )
+    report("done", 1.0)
+    return Identification(
+        model=model,
+        method=best.method,
+        order=best.order,
+        candidates=tuple(candidates),
+        validation_fit=best.validation_fit,
+        estimation_fit=estimation_fit,
+        prepared=prep,
+        arx=raw if best.method == "arx" else None,
+        subspace=raw if best.method == "subspace" else None,
+        singular_values=singular_values,
+        suggested_order=suggested,
+        delay=arx_delay,
+        warnings=(),
+        notes=tuple(notes),
+        options=options,
+    )

@@ -1,0 +1,544 @@
+"""Pipeline files: one rig's identification job as a TOML file kept under version control.
+
+A pipeline file is read with :mod:`tomllib` (data only: nothing in it is ever
+executed) and every section is parsed by the ``from_mapping`` of the options
+class that owns it, so a pipeline accepts exactly what the library and the
+command line accept. Layout (every section but ``[log]`` is optional)::
+
+    name = "belt axis, packaging bench"     # free text (default: the file name)
+    notes = "after the belt change"         # free text
+
+    [log]
+    paths = ["../sample_data/belt_axis_before.csv"]  # relative to this file; globs allowed;
+                                                     # several files = several experiments
+    inputs = ["motor_torque_cmd"]           # column names (units in the header are ignored)
+    outputs = ["motor_speed", "carriage_speed"]
+    time = "time"                           # time column; default: auto-detect time/t
+    # sample_rate_hz = 1000                 # instead of a time column
+    drop_bad_rows = false
+    split_at_gaps = false
+    jitter_tolerance = 0.1
+    units = { motor_torque_cmd = "N m" }    # fill in units the header does not carry
+
+    [preprocess]   # ident.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
+                   # decimate, holdout
+    [fit]          # ident.identify.IdentifyOptions: method, order ("auto" or N), max_order,
+                   # delay, weighting, horizon, stabilize, tie_tolerance
+    [check]        # ident.diagnostics.CheckOptions: gates min_fit, require_white; and
+                   # prediction_steps, max_lag, confidence, initial_state, spectral_segment
+    [modes]        # ident.modes.ModeThresholds, plus fail_on = ["unstable", ...] (flags
+                   # that fail the run; default ["unstable"])
+    [expect]       # ident.expectations.Expectations
+    [drift]        # baseline = "model.json" (relative to this file) and
+                   # ident.drift.DriftThresholds
+
+Unknown keys and wrong types raise :class:`ident.errors.PipelineError` naming
+the file, the dotted key path (``fit.ordr``) and, for unknown keys, the
+nearest valid key.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import glob
+import hashlib
+import math
+import os
+import tomllib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ..diagnostics import CheckOptions
+from ..drift import DriftThresholds
+from ..errors import IdentError, PipelineError
+from ..expectations import Expectations
+from ..identify import IdentifyOptions
+from ..modes import FLAGS, ModeThresholds
+from ..preprocess import PreprocessOptions
+
+__all__ = [
+    "SECTIONS",
+    "LOG_KEYS",
+    "DEFAULT_FAIL_ON",
+    "LogSpec",
+    "ModesSpec",
+    "DriftSpec",
+    "PipelineSpec",
+    "load_pipeline",
+    "parse_pipeline",
+]
+
+#: Top-level keys of a pipeline file.
+SECTIONS: tuple[str, ...] = (
+    "name", "notes", "log", "preprocess", "fit", "check", "modes", "expect", "drift",
+)
+#: Keys of the ``[log]`` table.
+LOG_KEYS: tuple[str, ...] = (
+    "paths", "inputs", "outputs", "time", "sample_rate_hz", "drop_bad_rows", "split_at_gaps",
+    "jitter_tolerance", "units",
+)
+#: Mode flags that fail a run when ``[modes] fail_on`` is not given.
+DEFAULT_FAIL_ON: tuple[str, ...] = ("unstable",)
+
+_GLOB_CHARS = frozenset("*?[")
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class LogSpec:
+    """The ``[log]`` section: which files and columns, and how to read them.
+
+    Attributes
+    ----------
+    patterns : tuple of str
+        The paths as written (relative to the pipeline file; may be globs).
+    files : tuple of pathlib.Path
+        The files they match, absolute, in order (each pattern's matches
+        sorted by name; duplicates removed). Each file is one experiment.
+    inputs, outputs : tuple of str
+        Column names.
+    time : str or None
+        Time column; ``None`` auto-detects ``time``/``t`` unless
+        ``sample_rate_hz`` is given.
+    sample_rate_hz : float or None
+        Sample rate for logs without a time column.
+    drop_bad_rows, split_at_gaps : bool
+        As in :func:`ident.io.log.read_log`.
+    jitter_tolerance : float
+        As in :func:`ident.io.log.read_log`.
+    units : dict
+        Column name -> unit, used where the header carries no unit.
+    """
+
+    patterns: tuple[str, ...]
+    files: tuple[Path, ...]
+    inputs: tuple[str, ...]
+    outputs: tuple[str, ...]
+    time: str | None = None
+    sample_rate_hz: float | None = None
+    drop_bad_rows: bool = False
+    split_at_gaps: bool = False
+    jitter_tolerance: float = 0.1
+    units: dict[str, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ModesSpec:
+    """The ``[modes]`` section: flag thresholds and the flags that fail the run."""
+
+    thresholds: ModeThresholds = field(default_factory=ModeThresholds)
+    fail_on: tuple[str, ...] = DEFAULT_FAIL_ON
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class DriftSpec:
+    """The ``[drift]`` section: an optional baseline model file and the breach thresholds."""
+
+    baseline: Path | None = None
+    thresholds: DriftThresholds = field(default_factory=DriftThresholds)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class PipelineSpec:
+    """A parsed pipeline file.
+
+    Attributes
+    ----------
+    name : str
+        Free text naming the job (default: the file name without suffix).
+    notes : str
+        Free text (may be empty).
+    path : pathlib.Path or None
+        The pipeline file (absolute), ``None`` for a spec built from a mapping.
+    sha256 : str
+        Hex SHA-256 of the file bytes (``""`` without a file).
+    log : LogSpec
+    fit : IdentifyOptions
+        Candidate structures, orders and selection; its ``preprocess`` field
+        holds the ``[preprocess]`` section.
+    check : CheckOptions
+        Validation settings and gates.
+    modes : ModesSpec
+    expect : Expectations
+    drift : DriftSpec
+    """
+
+    name: str
+    notes: str
+    path: Path | None
+    sha256: str
+    log: LogSpec
+    fit: IdentifyOptions
+    check: CheckOptions
+    modes: ModesSpec
+    expect: Expectations
+    drift: DriftSpec
+
+    @property
+    def base_dir(self) -> Path:
+        """Folder relative paths are resolved against (the pipeline file's folder)."""
+        return self.path.parent if self.path is not None else Path.cwd()
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the spec as plain JSON-ready data (for summaries and provenance)."""
+        exp = dataclasses.asdict(self.expect)
+        return {
+            "name": self.name,
+            "notes": self.notes,
+            "path": None if self.path is None else str(self.path),
+            "sha256": self.sha256,
+            "log": {
+                "paths": list(self.log.patterns),
+                "files": [str(f) for f in self.log.files],
+                "inputs": list(self.log.inputs),
+                "outputs": list(self.log.outputs),
+                "time": self.log.time,
+                "sample_rate_hz": self.log.sample_rate_hz,
+                "drop_bad_rows": self.log.drop_bad_rows,
+                "split_at_gaps": self.log.split_at_gaps,
+                "jitter_tolerance": self.log.jitter_tolerance,
+                "units": dict(self.log.units),
+            },
+            "preprocess": self.fit.preprocess.to_dict(),
+            "fit": {k: v for k, v in self.fit.to_dict().items() if k != "preprocess"},
+            "check": {f.name: getattr(self.check, f.name) for f in dataclasses.fields(self.check)},
+            "modes": {
+                **{f.name: getattr(self.modes.thresholds, f.name)
+                   for f in dataclasses.fields(self.modes.thresholds)},
+                "fail_on": list(self.modes.fail_on),
+            },
+            "expect": exp,
+            "drift": {
+                "baseline": None if self.drift.baseline is None else str(self.drift.baseline),
+                **{f.name: getattr(self.drift.thresholds, f.name)
+                   for f in dataclasses.fields(self.drift.thresholds)},
+            },
+        }
+
+
+# --------------------------------------------------------------------------- public API
+
+
+def load_pipeline(path: str | os.PathLike) -> PipelineSpec:
+    """Read and check a pipeline file.
+
+    Parameters
+    ----------
+    path : path-like
+        The TOML file. Relative paths inside it are relative to its folder.
+
+    Returns
+    -------
+    PipelineSpec
+
+    Raises
+    ------
+    PipelineError
+        The file cannot be read, is not valid TOML, has an unknown key (the
+        message names the key path, the hint the nearest valid key), a value
+        of the wrong type or out of range, or a log path that matches no file.
+    """
+    where = Path(path)
+    try:
+        data = where.read_bytes()
+    except FileNotFoundError as exc:
+        raise PipelineError("no such file", path=where) from exc
+    except (IsADirectoryError, PermissionError) as exc:
+        raise PipelineError(f"cannot read ({exc.strerror})", path=where) from exc
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise PipelineError(f"not UTF-8 text (byte {exc.start})", path=where) from exc
+    try:
+        mapping = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise PipelineError(f"not valid TOML: {exc}", path=where) from exc
+    return parse_pipeline(
+        mapping, path=where.resolve(), sha256=hashlib.sha256(data).hexdigest()
+    )
+
+
+def parse_pipeline(
+    mapping: Mapping[str, Any], *, path: str | os.PathLike | None = None, sha256: str = ""
+) -> PipelineSpec:
+    """Build a :class:`PipelineSpec` from a parsed TOML document.
+
+    Parameters
+    ----------
+    mapping : Mapping
+        The document, as :func:`tomllib.loads` gives it.
+    path : path-like, optional
+        The file it came from; relative log and baseline paths are resolved
+        against its folder (the current folder without it).
+    sha256 : str
+        Hash of the file bytes, recorded in the spec.
+
+    Returns
+    -------
+    PipelineSpec
+
+    Raises
+    ------
+    PipelineError
+        As :func:`load_pipeline`.
+    """
+    src = None if path is None else Path(path)
+    base = src.parent if src is not None else Path.cwd()
+    _check_keys(mapping, "", SECTIONS, src)
+    name = _text(mapping, "name", src, default=src.stem if src is not None else "pipeline")
+    notes = _text(mapping, "notes", src, default="")
+    if "log" not in mapping:
+        raise PipelineError("missing section [log] (the log files and their columns)", path=src,
+                            key_path="log")
+    log = _parse_log(mapping["log"], base, src)
+
+    prep_table = _section(mapping, "preprocess", src)
+    _parse_options(PreprocessOptions, prep_table, "preprocess", src,
+                   lambda t: PreprocessOptions.from_mapping(t, key_path="preprocess"))
+    fit_table = dict(_section(mapping, "fit", src))
+    if "preprocess" in fit_table:
+        raise PipelineError(
+            "unknown key", path=src, key_path="fit.preprocess",
+            hint="preprocessing has its own section [preprocess]",
+        )
+    if fit_table.get("order") == "auto":
+        fit_table["order"] = None
+    fit = _parse_options(
+        IdentifyOptions, fit_table, "fit", src,
+        lambda t: IdentifyOptions.from_mapping({**t, "preprocess": prep_table}, key_path="fit"),
+        exclude=("preprocess",),
+    )
+    check = _parse_options(CheckOptions, _section(mapping, "check", src), "check", src,
+                           CheckOptions.from_mapping)
+    modes = _parse_modes(_section(mapping, "modes", src), src)
+    try:
+        expect = Expectations.from_mapping(
+            _section(mapping, "expect", src), source=None if src is None else str(src), key_path="expect"
+        )
+    except PipelineError as exc:
+        raise _with_path(exc, src) from exc
+    drift = _parse_drift(_section(mapping, "drift", src), base, src)
+    return PipelineSpec(
+        name=name, notes=notes, path=src, sha256=sha256, log=log, fit=fit, check=check,
+        modes=modes, expect=expect, drift=drift,
+    )
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _nearest(key: str, valid: tuple[str, ...]) -> str | None:
+    close = difflib.get_close_matches(key, valid, n=1, cutoff=0.5)
+    return f"did you mean {close[0]!r}?" if close else None
+
+
+def _join(prefix: str, key: str) -> str:
+    return f"{prefix}.{key}" if prefix else key
+
+
+def _check_keys(table: Any, key_path: str, valid: tuple[str, ...], src: Path | None) -> None:
+    if not isinstance(table, Mapping):
+        raise PipelineError(f"must be a table; got {type(table).__name__}", path=src,
+                            key_path=key_path or None)
+    for key in table:
+        if key not in valid:
+            raise PipelineError(
+                f"unknown key; valid keys are {', '.join(valid)}",
+                path=src, key_path=_join(key_path, str(key)), hint=_nearest(str(key), valid),
+            )
+
+
+def _section(mapping: Mapping[str, Any], key: str, src: Path | None) -> Mapping[str, Any]:
+    table = mapping.get(key, {})
+    if not isinstance(table, Mapping):
+        raise PipelineError(f"must be a table [{key}]; got {type(table).__name__}", path=src, key_path=key)
+    return table
+
+
+def _text(mapping: Mapping[str, Any], key: str, src: Path | None, *, default: str) -> str:
+    value = mapping.get(key, default)
+    if not isinstance(value, str):
+        raise PipelineError(f"must be a string; got {value!r}", path=src, key_path=key)
+    return value
+
+
+def _with_path(exc: PipelineError, src: Path | None) -> PipelineError:
+    return PipelineError(exc.reason, path=src if src is not None else exc.path,
+                         key_path=exc.key_path, hint=exc.hint)
+
+
+def _parse_options(
+    cls: type,
+    table: Mapping[str, Any],
+    key_path: str,
+    src: Path | None,
+    build: Callable[[Mapping[str, Any]], Any],
+    *,
+    exclude: tuple[str, ...] = (),
+) -> Any:
+    """Check the keys of a section, then build it with the owner's ``from_mapping``.
+
+    On a bad value the offending key is located by building the class from that
+    key alone, so the error names ``section.key`` rather than just the section.
+    """
+    valid = tuple(f.name for f in dataclasses.fields(cls) if f.name not in exclude)
+    _check_keys(table, key_path, valid, src)
+    try:
+        return build(table)
+    except (IdentError, TypeError, ValueError) as exc:
+        where = key_path
+        for key, value in table.items():
+            try:
+                cls(**{key: value})
+            except (IdentError, TypeError, ValueError):
+                where = _join(key_path, key)
+                break
+        reason = exc.reason if isinstance(exc, PipelineError) else str(exc)
+        raise PipelineError(reason, path=src, key_path=where, hint=getattr(exc, "hint", None)) from exc
+
+
+def _names(value: Any, key_path: str, src: Path | None) -> tuple[str, ...]:
+    if isinstance(value, str):
+        value = [value]
+    if not isinstance(value, list) or not value or not all(isinstance(v, str) and v for v in value):
+        raise PipelineError(f"must be a non-empty list of column names; got {value!r}", path=src,
+                            key_path=key_path)
+    return tuple(value)
+
+
+def _bool(table: Mapping[str, Any], key: str, key_path: str, src: Path | None) -> bool:
+    value = table.get(key, False)
+    if not isinstance(value, bool):
+        raise PipelineError(f"must be true or false; got {value!r}", path=src, key_path=_join(key_path, key))
+    return value
+
+
+def _number(value: Any, key_path: str, src: Path | None, *, what: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise PipelineError(f"must be {what}; got {value!r}", path=src, key_path=key_path)
+    return float(value)
+
+
+def _expand(patterns: tuple[str, ...], base: Path, src: Path | None) -> tuple[Path, ...]:
+    files: list[Path] = []
+    for k, pattern in enumerate(patterns):
+        target = Path(pattern).expanduser()
+        target = target if target.is_absolute() else base / target
+        if _GLOB_CHARS & set(pattern):
+            matches = sorted(Path(p) for p in glob.glob(str(target), recursive=True) if Path(p).is_file())
+            if not matches:
+                raise PipelineError(f"no file matches {pattern!r} (relative to {base})", path=src,
+                                    key_path=f"log.paths[{k + 1}]")
+        else:
+            if not target.is_file():
+                raise PipelineError(f"no such file {pattern!r} (relative to {base})", path=src,
+                                    key_path=f"log.paths[{k + 1}]")
+            matches = [target]
+        for m in matches:
+            m = m.resolve()
+            if m not in files:
+                files.append(m)
+    return tuple(files)
+
+
+def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
+    _check_keys(table, "log", LOG_KEYS, src)
+    for key in ("paths", "inputs", "outputs"):
+        if key not in table:
+            raise PipelineError(f"missing key {key!r}", path=src, key_path=f"log.{key}")
+    patterns = _names(table["paths"], "log.paths", src)
+    inputs = _names(table["inputs"], "log.inputs", src)
+    outputs = _names(table["outputs"], "log.outputs", src)
+    lowered = {n.lower() for n in inputs}
+    for name in outputs:
+        if name.lower() in lowered:
+            raise PipelineError(f"column {name!r} is both an input and an output", path=src,
+                                key_path="log.outputs")
+    time = table.get("time")
+    if time is not None and (not isinstance(time, str) or not time):
+        raise PipelineError(f"must be a column name; got {time!r}", path=src, key_path="log.time")
+    rate = table.get("sample_rate_hz")
+    if rate is not None:
+        rate = _number(rate, "log.sample_rate_hz", src, what="a positive number of samples per second")
+        if rate <= 0:
+            raise PipelineError(f"must be a positive number; got {rate!r}", path=src,
+                                key_path="log.sample_rate_hz")
+        if time is not None:
+            raise PipelineError("give either 'time' or 'sample_rate_hz', not both", path=src,
+                                key_path="log.sample_rate_hz")
+    jitter = _number(table.get("jitter_tolerance", 0.1), "log.jitter_tolerance", src,
+                     what="a number in (0, 1)")
+    if not 0 < jitter < 1:
+        raise PipelineError(f"must be a number in (0, 1); got {jitter!r}", path=src,
+                            key_path="log.jitter_tolerance")
+    units = table.get("units", {})
+    if not isinstance(units, Mapping) or not all(
+        isinstance(k, str) and isinstance(v, str) for k, v in units.items()
+    ):
+        raise PipelineError("must be a table of column name = \"unit\" strings", path=src,
+                            key_path="log.units")
+    known = {n.lower(): n for n in (*inputs, *outputs)}
+    for key in units:
+        if key.lower() not in known:
+            raise PipelineError(
+                "names no input or output column", path=src, key_path=f"log.units.{key}",
+                hint=_nearest(key, tuple(known.values())),
+            )
+    return LogSpec(
+        patterns=patterns,
+        files=_expand(patterns, base, src),
+        inputs=inputs,
+        outputs=outputs,
+        time=time,
+        sample_rate_hz=rate,
+        drop_bad_rows=_bool(table, "drop_bad_rows", "log", src),
+        split_at_gaps=_bool(table, "split_at_gaps", "log", src),
+        jitter_tolerance=jitter,
+        units={k.lower(): v for k, v in units.items()},
+    )
+
+
+def _parse_modes(table: Mapping[str, Any], src: Path | None) -> ModesSpec:
+    valid = (*(f.name for f in dataclasses.fields(ModeThresholds)), "fail_on")
+    _check_keys(table, "modes", valid, src)
+    rest = {k: v for k, v in table.items() if k != "fail_on"}
+    try:
+        thresholds = ModeThresholds.from_mapping(rest, source=None if src is None else str(src))
+    except PipelineError as exc:
+        where = exc.key_path
+        if where == "modes":
+            for key, value in rest.items():
+                try:
+                    ModeThresholds(**{key: value})
+                except (IdentError, TypeError, ValueError):
+                    where = f"modes.{key}"
+                    break
+        raise PipelineError(exc.reason, path=src, key_path=where, hint=exc.hint) from exc
+    fail_on = table.get("fail_on", list(DEFAULT_FAIL_ON))
+    if not isinstance(fail_on, list) or not all(isinstance(f, str) for f in fail_on):
+        raise PipelineError(f"must be a list of flag names; got {fail_on!r}", path=src,
+                            key_path="modes.fail_on")
+    for flag in fail_on:
+        if flag not in FLAGS:
+            raise PipelineError(
+                f"unknown flag {flag!r}; flags are {', '.join(FLAGS)}", path=src,
+                key_path="modes.fail_on", hint=_nearest(flag, FLAGS),
+            )
+    return ModesSpec(thresholds=thresholds, fail_on=tuple(dict.fromkeys(fail_on)))
+
+
+def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None) -> DriftSpec:
+    valid = ("baseline", *(f.name for f in dataclasses.fields(DriftThresholds)))
+    _check_keys(table, "drift", valid, src)
+    baseline = table.get("baseline")
+    if baseline is not None:
+        if not isinstance(baseline, str) or not baseline:
+            raise PipelineError(f"must be the path of a model file; got {baseline!r}", path=src,
+                                key_path="drift.baseline")
+        target = Path(baseline).expanduser()
+        baseline = (target if target.is_absolute() else base / target).resolve()
+    rest = {k: v for k, v in table.items() if k != "baseline"}
+    thresholds = _parse_options(DriftThresholds, rest, "drift", src, DriftThresholds.from_mapping)
+    return DriftSpec(baseline=baseline, thresholds=thresholds)

@@ -1,0 +1,705 @@
+"""The whole identification job of a pipeline file, into a new run folder.
+
+:func:`run_pipeline` runs the steps of a :class:`~ident.io.pipelinefile.PipelineSpec`:
+
+1. **ingest** every log file (each file, and each segment between timing gaps
+   when ``split_at_gaps`` is on, is one experiment);
+2. **preprocess, candidates, selection** with :func:`ident.identify.identify`;
+3. **validation** of the selected model on every held-out part with
+   :func:`ident.diagnostics.validate_model`;
+4. **modes and expectations** (:func:`ident.modes.mode_table`,
+   :func:`ident.expectations.check_expectations`);
+5. **drift** against a baseline model file, when one is given
+   (:func:`ident.drift.compare_models`);
+
+then evaluates the gates and writes a NEW folder ``<UTC time>-<hash>`` (under
+``runs/`` next to the pipeline file unless told otherwise) holding the model
+file, ``summary.json``, the figures as PNG, ``report.html`` and a copy of the
+pipeline file. Nothing is written until every step has run, and an existing
+folder is never reused, so earlier runs stay byte-identical.
+
+Gates (each listed in ``summary.json`` with its key path, passed or not):
+
+- ``check.min_fit`` and ``check.require_white`` when set in ``[check]``;
+- ``modes.fail_on``: no mode may carry one of these flags;
+- one gate per stated expectation (``expect.*``);
+- ``drift`` when a baseline is compared: no threshold breached.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import io
+import json
+import math
+import os
+import platform
+import warnings
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ._version import __version__
+from .errors import IdentError, IdentWarning, PipelineError
+from .io.pipelinefile import PipelineSpec, load_pipeline
+
+#: Share of the input power that defines the excited band.
+BAND_POWER_FRACTION = 0.9
+
+__all__ = [
+    "SUMMARY_FORMAT",
+    "SUMMARY_SCHEMA_VERSION",
+    "SAFETY_CAUTION",
+    "Gate",
+    "RunResult",
+    "run_pipeline",
+]
+
+#: ``format`` field of ``summary.json``.
+SUMMARY_FORMAT = "rigfit-run"
+#: Version of the ``summary.json`` layout.
+SUMMARY_SCHEMA_VERSION = 1
+#: Caution printed in every report.
+SAFETY_CAUTION = (
+    "A model is valid only near the operating point and in the frequency band it was excited in. "
+    "Validate any controller safely before running it on hardware; local machinery-safety rules "
+    "and qualified engineers have the final say."
+)
+#: Share of the input power that defines the excited band.
+#: At most this many frequency-response comparison figures (channels) are drawn.
+MAX_FREQUENCY_FIGURES = 4
+#: File names inside a run folder.
+MODEL_FILE = "model.json"
+SUMMARY_FILE = "summary.json"
+REPORT_FILE = "report.html"
+PIPELINE_COPY = "pipeline.toml"
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Gate:
+    """One pass/fail check of a run.
+
+    Attributes
+    ----------
+    name : str
+        Short label, e.g. ``"minimum fit"`` or ``"mode 'belt resonance'"``.
+    key_path : str
+        The pipeline-file key that set it, e.g. ``"check.min_fit"``.
+    passed : bool
+    detail : str
+        What was measured against what was required.
+    """
+
+    name: str
+    key_path: str
+    passed: bool
+    detail: str
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return {"name": self.name, "key_path": self.key_path, "passed": self.passed, "detail": self.detail}
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class RunResult:
+    """What :func:`run_pipeline` did and found.
+
+    Attributes
+    ----------
+    folder : pathlib.Path
+        The new run folder.
+    passed : bool
+        True when every gate passed.
+    gates : tuple of Gate
+        Every gate evaluated, in the order of the steps.
+    summary : dict
+        The content of ``summary.json``.
+    spec : PipelineSpec
+    identification : ident.identify.Identification
+    validation : tuple of ident.diagnostics.ValidationReport
+        One per held-out part long enough to validate on (the longest first).
+    modes : ident.modes.ModeTable
+    expectations : tuple of ident.expectations.ExpectationResult
+    drift : ident.drift.DriftReport or None
+        ``None`` without a baseline.
+    model_path, summary_path, report_path : pathlib.Path
+    figure_paths : tuple of pathlib.Path
+    """
+
+    folder: Path
+    passed: bool
+    gates: tuple[Gate, ...]
+    summary: dict[str, Any]
+    spec: PipelineSpec
+    identification: Any
+    validation: tuple[Any, ...]
+    modes: Any
+    expectations: tuple[Any, ...]
+    drift: Any
+    model_path: Path
+    summary_path: Path
+    report_path: Path
+    figure_paths: tuple[Path, ...]
+
+    @property
+    def failed_gates(self) -> tuple[Gate, ...]:
+        """The gates that failed."""
+        return tuple(g for g in self.gates if not g.passed)
+
+
+# --------------------------------------------------------------------------- public API
+
+
+def run_pipeline(
+    spec: PipelineSpec | str | os.PathLike,
+    *,
+    out_dir: str | os.PathLike | None = None,
+    baseline: str | os.PathLike | None = None,
+    progress: Callable[[str, float], None] | None = None,
+) -> RunResult:
+    """Run a pipeline end to end and write a new run folder.
+
+    Parameters
+    ----------
+    spec : PipelineSpec or path-like
+        The parsed pipeline, or the path of a pipeline file.
+    out_dir : path-like, optional
+        Folder that receives the run folder (created if missing). Default:
+        ``runs/`` beside the pipeline file.
+    baseline : path-like, optional
+        Model file to compare with; overrides ``[drift] baseline``.
+    progress : callable, optional
+        Called as ``progress(step, fraction_done)`` between steps.
+
+    Returns
+    -------
+    RunResult
+        Gate failures are results, not errors: check ``RunResult.passed``.
+
+    Raises
+    ------
+    ident.errors.IdentError
+        Bad input: an invalid pipeline file, an unreadable log, data that
+        cannot support the model asked for, a baseline model of other signals
+        or another sample time. Nothing is written then.
+    """
+    if not isinstance(spec, PipelineSpec):
+        spec = load_pipeline(spec)
+    if out_dir is not None and Path(out_dir).exists() and not Path(out_dir).is_dir():
+        raise IdentError(f"{out_dir}: exists and is not a folder", hint="give a folder for the run folders")
+    report = progress if progress is not None else (lambda step, fraction: None)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        state = _compute(spec, baseline, report)
+    texts: list[str] = []
+    for w in caught:
+        text = str(w.message)
+        if text not in texts:
+            texts.append(text)
+            category = w.category if issubclass(w.category, IdentWarning) else IdentWarning
+            warnings.warn(text, category, stacklevel=2)
+    state["warnings"] = texts
+    report("drawing figures", 0.85)
+    figures = _figures(state)
+    report("writing the run folder", 0.95)
+    result = _write(spec, state, figures, out_dir)
+    report("done", 1.0)
+    return result
+
+
+# --------------------------------------------------------------------------- steps
+
+
+def _read_logs(spec: PipelineSpec) -> list[Any]:
+    from .io.log import read_log
+
+    ls = spec.log
+    logs = []
+    for path in ls.files:
+        logs.append(
+            read_log(
+                path, list(ls.inputs), list(ls.outputs), time=ls.time, sample_rate=ls.sample_rate_hz,
+                drop_bad_rows=ls.drop_bad_rows, split_at_gaps=ls.split_at_gaps,
+                jitter_tolerance=ls.jitter_tolerance,
+            )
+        )
+    first = logs[0]
+    for log in logs[1:]:
+        if abs(log.sample_time - first.sample_time) > 1e-3 * first.sample_time:
+            raise PipelineError(
+                f"{log.source.file_name} has sample time {log.sample_time:g} s, "
+                f"{first.source.file_name} {first.sample_time:g} s; experiments must share one rate",
+                path=spec.path, key_path="log.paths",
+            )
+    return logs
+
+
+def _units(spec: PipelineSpec, names: Sequence[str], header: Sequence[str], role: str) -> tuple[str, ...]:
+    out = []
+    for name, unit in zip(names, header, strict=True):
+        given = spec.log.units.get(name.lower())
+        if given is not None and unit and given != unit:
+            raise PipelineError(
+                f"the log header gives {role} {name!r} the unit {unit!r}, the pipeline {given!r}",
+                path=spec.path, key_path=f"log.units.{name}",
+            )
+        out.append(unit or given or "")
+    return tuple(out)
+
+
+def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float], None]) -> dict[str, Any]:
+    from .diagnostics import validate_model
+    from .excitation import excitation_report, excited_band
+    from .expectations import check_expectations
+    from .identify import identify
+    from .modes import mode_table
+
+    report("reading logs", 0.0)
+    logs = _read_logs(spec)
+    first = logs[0]
+    input_units = _units(spec, first.input_names, first.input_units, "input")
+    output_units = _units(spec, first.output_names, first.output_units, "output")
+
+    segments, starts, offset = [], [], 0
+    for log in logs:
+        for a, b in log.segments:
+            segments.append((log.u[a:b], log.y[a:b]))
+            starts.append(offset + a)
+        offset += log.n_samples
+
+    # baseline first: a missing or unsuitable baseline is bad input, found before the long steps
+    baseline_path = Path(baseline_arg).resolve() if baseline_arg is not None else spec.drift.baseline
+    baseline = None
+    if baseline_path is not None:
+        from .io.modelfile import load_model
+
+        baseline = load_model(baseline_path)
+
+    def ident_progress(step: str, fraction: float) -> None:
+        if step != "done":
+            report(step, 0.05 + 0.6 * min(max(fraction, 0.0), 1.0))
+
+    result = identify(
+        segments, first.sample_time, spec.fit,
+        input_names=first.input_names, output_names=first.output_names,
+        input_units=input_units, output_units=output_units,
+        segment_starts=starts, progress=ident_progress,
+    )
+    model = result.model
+    prep = result.prepared
+
+    report("validating", 0.68)
+    need = max(32, 4 * spec.check.max_lag)
+    parts = sorted(
+        (k for k, e in enumerate(prep.validation) if e.n_samples >= need),
+        key=lambda k: -prep.validation[k].n_samples,
+    )
+    if not parts:
+        raise IdentError(
+            f"no held-out part has the {need} samples validation needs (max_lag {spec.check.max_lag})",
+            hint="raise preprocess.holdout or lower check.max_lag",
+        )
+    validation = tuple(
+        validate_model(model, prep.validation[k].u, prep.validation[k].y, prep.sample_time, spec.check)
+        for k in parts
+    )
+
+    report("modes and expectations", 0.75)
+    duration = max(
+        (b - a - 1) * log.sample_time for log in logs for a, b in log.segments
+    ) or None
+    table = mode_table(model, thresholds=spec.modes.thresholds, log_duration_s=duration)
+    expectations = () if spec.expect.is_empty else check_expectations(model, table, spec.expect)
+
+    est_u = np.vstack([e.u for e in prep.estimation])
+    band = excited_band(est_u, prep.sample_time, BAND_POWER_FRACTION)
+    excitation = excitation_report(
+        est_u[: min(est_u.shape[0], 20_000)], prep.sample_time, names=first.input_names, max_order=40,
+        power_fraction=BAND_POWER_FRACTION,
+    )
+
+    drift = None
+    if baseline is not None:
+        from .drift import compare_models
+
+        report("comparing with the baseline", 0.8)
+        base_model = baseline.model
+        if not base_model.is_discrete or abs(base_model.sample_time - model.sample_time) > 1e-6 * model.sample_time:
+            raise IdentError(
+                f"{baseline_path.name}: baseline sample time {base_model.sample_time} s differs from the "
+                f"new model's {model.sample_time:g} s",
+                hint="identify both at the same rate (same [preprocess] decimate)",
+            )
+        val = prep.validation[parts[0]]
+        op = model.operating_point
+        drift = compare_models(
+            base_model, model, thresholds=spec.drift.thresholds, band_hz=band,
+            u=val.u + op.inputs, y=val.y + op.outputs,
+        )
+
+    return {
+        "spec": spec, "logs": logs, "result": result, "validation": validation, "parts": parts,
+        "table": table, "expectations": expectations, "band": band, "excitation": excitation,
+        "drift": drift, "baseline": baseline, "baseline_path": baseline_path,
+        "input_units": input_units, "output_units": output_units,
+    }
+
+
+# --------------------------------------------------------------------------- gates
+
+
+def _fmt_fit(x: float) -> str:
+    return f"{x:.1f} %" if math.isfinite(x) else "diverged"
+
+
+def _gates(state: dict[str, Any]) -> list[Gate]:
+    spec: PipelineSpec = state["spec"]
+    reports = state["validation"]
+    gates = []
+    outs = reports[0].outputs
+    if spec.check.min_fit is not None:
+        worst = [min(float(r.simulation_fit[i]) for r in reports) for i in range(len(outs))]
+        ok = all(v.passed for r in reports for v in r.verdicts if v.test == "min_fit")
+        gates.append(Gate(
+            "minimum fit", "check.min_fit", ok,
+            ", ".join(f"{n} {_fmt_fit(w)}" for n, w in zip(outs, worst, strict=True))
+            + f" (simulation on held-out data; required >= {spec.check.min_fit:g} %)",
+        ))
+    if spec.check.require_white:
+        pvals = [min(float(r.whiteness[i].ljung_box_pvalue) for r in reports) for i in range(len(outs))]
+        ok = all(w.white for r in reports for w in r.whiteness)
+        gates.append(Gate(
+            "white residuals", "check.require_white", ok,
+            ", ".join(f"{n} Ljung-Box p = {p:.3g}" for n, p in zip(outs, pvals, strict=True))
+            + f" (required p >= {1 - spec.check.confidence:.3g})",
+        ))
+    table = state["table"]
+    if spec.modes.fail_on:
+        bad = []
+        for m in table.modes:
+            hit = [f for f in m.flags if f in spec.modes.fail_on]
+            if hit:
+                where = (f"{m.natural_frequency_hz:.4g} Hz" if m.natural_frequency_hz is not None
+                         else f"z = {m.z:.4g}")
+                bad.append(f"mode at {where}: {', '.join(hit)}")
+        gates.append(Gate(
+            "mode flags", "modes.fail_on", not bad,
+            "; ".join(bad) if bad else f"no mode flagged {', '.join(spec.modes.fail_on)}",
+        ))
+    for r in state["expectations"]:
+        gates.append(Gate(f"expected {r.name}", r.key_path, r.met, f"{r.measured}; expected {r.expected}"))
+    drift = state["drift"]
+    if drift is not None:
+        gates.append(Gate(
+            "drift from baseline", "drift", drift.passed,
+            "; ".join(drift.breaches) if drift.breaches else "within the drift thresholds",
+        ))
+    return gates
+
+
+# --------------------------------------------------------------------------- summary
+
+
+def _num(x: Any) -> Any:
+    """JSON-safe numbers (non-finite -> None), recursively."""
+    if isinstance(x, dict):
+        return {str(k): _num(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_num(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return _num(x.tolist())
+    if isinstance(x, (bool, np.bool_)):
+        return bool(x)
+    if isinstance(x, (np.integer,)):
+        return int(x)
+    if isinstance(x, (float, np.floating)):
+        return float(x) if math.isfinite(x) else None
+    if isinstance(x, complex):
+        return [_num(x.real), _num(x.imag)]
+    if isinstance(x, Path):
+        return str(x)
+    return x
+
+
+def _signal_stats(name: str, unit: str, role: str, x: np.ndarray) -> dict[str, Any]:
+    return {
+        "name": name, "unit": unit, "role": role,
+        "min": float(np.min(x)), "max": float(np.max(x)), "mean": float(np.mean(x)), "std": float(np.std(x)),
+    }
+
+
+def _drift_dict(drift: Any, baseline_path: Path, baseline: Any) -> dict[str, Any]:
+    from .drift import drift_report_to_dict
+
+    return {
+        "baseline": {"path": str(baseline_path), "file_name": baseline_path.name,
+                     "sha256": hashlib.sha256(baseline_path.read_bytes()).hexdigest(),
+                     "created_utc": baseline.provenance.get("created_utc")},
+        **drift_report_to_dict(drift),
+    }
+
+
+def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: str,
+             figures: list[dict[str, str]]) -> dict[str, Any]:
+    from .diagnostics import report_to_dict
+    from .modes import mode_table_to_dict
+
+    spec: PipelineSpec = state["spec"]
+    logs = state["logs"]
+    result = state["result"]
+    prep = result.prepared
+    first = logs[0]
+    failed = [g for g in gates if not g.passed]
+    if failed:
+        headline = f"FAILED: {len(failed)} of {len(gates)} gates failed ({', '.join(g.key_path for g in failed)})"
+    else:
+        headline = f"PASSED: all {len(gates)} gates passed"
+    sel = result.selected
+    signals = []
+    for j, name in enumerate(first.input_names):
+        signals.append(_signal_stats(name, state["input_units"][j], "input",
+                                     np.concatenate([lg.u[:, j] for lg in logs])))
+    for i, name in enumerate(first.output_names):
+        signals.append(_signal_stats(name, state["output_units"][i], "output",
+                                     np.concatenate([lg.y[:, i] for lg in logs])))
+    band = state["band"]
+    table = state["table"]
+    modes = mode_table_to_dict(table)
+    units = {"inputs": list(state["input_units"]), "outputs": list(state["output_units"])}
+    validation = []
+    for k, rep in zip(state["parts"], state["validation"], strict=True):
+        d = report_to_dict(rep)
+        d["experiment"] = k + 1
+        d["range"] = list(prep.validation_ranges[k])
+        validation.append(d)
+    summary = {
+        "format": SUMMARY_FORMAT,
+        "schema_version": SUMMARY_SCHEMA_VERSION,
+        "name": spec.name,
+        "notes": spec.notes,
+        "verdict": {
+            "passed": not failed,
+            "headline": headline,
+            "failed_gates": [g.key_path for g in failed],
+        },
+        "gates": [g.as_dict() for g in gates],
+        "run": {"folder": folder_name, "created_utc": stamp},
+        "data": {
+            "logs": [
+                {
+                    "path": lg.source.path, "file_name": lg.source.file_name, "sha256": lg.source.sha256,
+                    "rows": [lg.source.first_row, lg.source.last_row], "n_samples": lg.n_samples,
+                    "sample_time": lg.sample_time, "duration_s": lg.duration_s,
+                    "segments": [list(s) for s in lg.segments], "dropped_rows": lg.dropped_rows,
+                    "jitter_std_s": lg.timing.jitter_std_s, "jitter_max_s": lg.timing.jitter_max_s,
+                    "time_basis": lg.timing.basis,
+                }
+                for lg in logs
+            ],
+            "signals": signals,
+            "excited_band_hz": None if band is None else list(band),
+            "excitation": [
+                {"input": e.name, "persistent_excitation_order": e.pe_order,
+                 "order_is_lower_bound": e.pe_order_is_lower_bound, "band_hz": e.band_hz,
+                 "power_fraction": e.power_fraction}
+                for e in state["excitation"]
+            ],
+            "estimation_ranges": [list(r) for r in prep.estimation_ranges],
+            "validation_ranges": [list(r) for r in prep.validation_ranges],
+            "operating_point": {"inputs": list(prep.operating_point.inputs),
+                                "outputs": list(prep.operating_point.outputs)},
+            "sample_time": prep.sample_time,
+            "decimation": prep.decimation,
+        },
+        "model": {
+            "file": MODEL_FILE,
+            "method": result.method,
+            "order": result.order,
+            "n_states": result.model.n_states,
+            "structure": sel.structure,
+            "n_parameters": sel.n_parameters,
+            "sample_time": result.model.sample_time,
+            "inputs": list(result.model.inputs),
+            "outputs": list(result.model.outputs),
+            "units": units,
+            "validation_fit": dict(zip(prep.output_names, map(float, result.validation_fit), strict=True)),
+            "estimation_fit": dict(zip(prep.output_names, map(float, result.estimation_fit), strict=True)),
+            "selection": {
+                "rule": (
+                    "best mean simulation fit on the held-out data; candidates within "
+                    f"{result.options.tie_tolerance:g} points of the best are tied and the simplest "
+                    "(fewest states, then fewest parameters) wins"
+                ),
+                "candidates": [c.as_dict() for c in result.candidates],
+                "singular_values": None if result.singular_values is None else list(result.singular_values),
+                "suggested_order": result.suggested_order,
+            },
+            "delays": None if result.delay is None else getattr(result.delay, "delays", None),
+            "notes": list(result.notes),
+            "warnings": list(result.warnings),
+        },
+        "validation": validation,
+        "modes": {**modes, "units": units, "fail_on": list(spec.modes.fail_on)},
+        "expectations": [
+            {"name": r.name, "key_path": r.key_path, "met": r.met, "measured": r.measured,
+             "expected": r.expected, "measured_value": r.measured_value}
+            for r in state["expectations"]
+        ],
+        "drift": None if state["drift"] is None
+        else _drift_dict(state["drift"], state["baseline_path"], state["baseline"]),
+        "figures": figures,
+        "warnings": list(state["warnings"]),
+        "provenance": {
+            "tool": "rigfit",
+            "tool_version": __version__,
+            "python": platform.python_version(),
+            "numpy": np.__version__,
+            "pipeline": {"path": None if spec.path is None else str(spec.path),
+                         "file_name": None if spec.path is None else spec.path.name,
+                         "sha256": spec.sha256, "copy": PIPELINE_COPY if spec.path is not None else None},
+            "logs": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in logs],
+            "baseline": None if state["baseline_path"] is None else {
+                "file_name": state["baseline_path"].name,
+                "sha256": hashlib.sha256(state["baseline_path"].read_bytes()).hexdigest(),
+            },
+            "settings": spec.to_dict(),
+        },
+        "safety": SAFETY_CAUTION,
+        "files": {"model": MODEL_FILE, "summary": SUMMARY_FILE, "report": REPORT_FILE},
+    }
+    return _num(summary)
+
+
+# --------------------------------------------------------------------------- figures
+
+
+def _png(fig: Any) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=100, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
+    from .plots.drift import magnitude_overlay
+    from .plots.poles import pole_zero_map
+    from .plots.signals import plot_log
+    from .plots.validation import frequency_comparison, output_comparison, residual_correlations, verdict_card
+
+    out: list[tuple[dict[str, str], bytes]] = []
+
+    def add(file: str, section: str, caption: str, fig: Any) -> None:
+        out.append(({"file": file, "section": section, "caption": caption}, _png(fig)))
+
+    logs = state["logs"]
+    for k, log in enumerate(logs):
+        name = "data.png" if len(logs) == 1 else f"data_{k + 1}.png"
+        add(name, "data", f"Logged signals of {log.source.file_name} (inputs amber, outputs blue).",
+            plot_log(log))
+    rep = state["validation"][0]
+    exp = state["parts"][0] + 1
+    where = f"held-out part of experiment {exp}" if len(state["result"].prepared.validation) > 1 else "held-out data"
+    add("validation_outputs.png", "validation",
+        f"Measured and simulated outputs on the {where} (deviations from the operating point).",
+        output_comparison(rep))
+    add("validation_verdicts.png", "validation", "Fit per output and the validation verdicts.", verdict_card(rep))
+    for i, out_name in enumerate(rep.outputs):
+        add(f"validation_residuals_{i + 1}.png", "validation",
+            f"Residual correlations of {out_name}: autocorrelation and cross-correlation with the inputs, "
+            "with the confidence band.", residual_correlations(rep, output=i))
+    count = 0
+    for i, out_name in enumerate(rep.outputs):
+        for j, in_name in enumerate(rep.inputs):
+            if count >= MAX_FREQUENCY_FIGURES:
+                break
+            count += 1
+            add(f"validation_frequency_{i + 1}_{j + 1}.png", "validation",
+                f"Frequency response {in_name} → {out_name}: model against the estimate from the data, "
+                "with the coherence.", frequency_comparison(rep, output=i, input=j))
+    add("modes_poles.png", "modes", "Poles (crosses; orange when flagged) and zeros (circles) in the z-plane.",
+        pole_zero_map(state["table"]))
+    if state["drift"] is not None:
+        add("drift_magnitude.png", "drift",
+            "Magnitude responses of the baseline and the new model over the excited band.",
+            magnitude_overlay(state["drift"], inputs=state["result"].model.inputs))
+    return out
+
+
+# --------------------------------------------------------------------------- output
+
+
+def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
+    parent.mkdir(parents=True, exist_ok=True)
+    base = f"{stamp}-{digest}"
+    for k in range(1, 1000):
+        folder = parent / (base if k == 1 else f"{base}-{k}")
+        try:
+            folder.mkdir()
+        except FileExistsError:
+            continue
+        return folder
+    raise IdentError(f"{parent}: cannot create a new run folder named {base}")
+
+
+def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[str, str], bytes]],
+           out_dir: Any) -> RunResult:
+    from .io.atomic import write_atomic
+    from .io.modelfile import save_model
+    from .report import render_report
+
+    now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
+    stamp = now.strftime("%Y%m%dT%H%M%SZ")
+    created = now.isoformat().replace("+00:00", "Z")
+    h = hashlib.sha256(spec.sha256.encode())
+    for lg in state["logs"]:
+        h.update(lg.source.sha256.encode())
+    if state["baseline_path"] is not None:
+        h.update(hashlib.sha256(state["baseline_path"].read_bytes()).digest())
+    digest = h.hexdigest()[:8]
+    parent = Path(out_dir) if out_dir is not None else spec.base_dir / "runs"
+    gates = _gates(state)
+    protected = tuple(lg.source.path for lg in state["logs"])
+
+    folder = _new_folder(parent, stamp, digest)
+    summary = _summary(state, gates, created, folder.name, [meta for meta, _ in figures])
+    summary["run"]["inputs_hash"] = digest
+    result = state["result"]
+    prep = result.prepared
+    model_path = save_model(folder / MODEL_FILE, result.model, protected=protected, provenance={
+        "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in state["logs"]],
+                "sample_time": state["logs"][0].sample_time},
+        "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
+                       "method": result.method, "order": result.order, "options": result.options.to_dict(),
+                       "ranges": [list(r) for r in prep.estimation_ranges],
+                       "sample_time": prep.sample_time, "decimation": prep.decimation},
+        "validation": {"ranges": [list(r) for r in prep.validation_ranges],
+                       "fit_percent": summary["model"]["validation_fit"]},
+        "run": {"folder": folder.name, "passed": summary["verdict"]["passed"]},
+    })
+    figure_paths = [write_atomic(folder / meta["file"], data, protected=protected) for meta, data in figures]
+    if spec.path is not None and spec.path.is_file():
+        write_atomic(folder / PIPELINE_COPY, spec.path.read_bytes(), protected=protected)
+    summary_path = write_atomic(
+        folder / SUMMARY_FILE, json.dumps(summary, indent=2, allow_nan=False) + "\n", protected=protected
+    )
+    html = render_report(summary, {meta["file"]: data for meta, data in figures})
+    report_path = write_atomic(folder / REPORT_FILE, html, protected=protected)
+    return RunResult(
+        folder=folder,
+        passed=summary["verdict"]["passed"],
+        gates=tuple(gates),
+        summary=summary,
+        spec=spec,
+        identification=result,
+        validation=state["validation"],
+        modes=state["table"],
+        expectations=tuple(state["expectations"]),
+        drift=state["drift"],
+        model_path=model_path,
+        summary_path=summary_path,
+        report_path=report_path,
+        figure_paths=tuple(figure_paths),
+    )

@@ -1,0 +1,437 @@
+"""Preparing logged data for estimation.
+
+One function, :func:`prepare`, turns raw logged records into what the
+estimators take: deviations from an operating point, optionally detrended and
+decimated, split into an estimation part and a held-out validation part.
+
+Order of the steps, for every experiment (contiguous record) separately:
+
+1. **Split.** The last ``holdout`` fraction of each experiment is held out for
+   validation; the first part is used for estimation. Every experiment
+   contributes to both parts, so a log of several experiments is validated on
+   all of them, and experiments are never joined end to end.
+2. **Operating point.** With ``offset="mean"`` it is the mean of the
+   estimation parts of all experiments (pooled, each sample counting once);
+   with ``offset="initial"`` the mean over the first ``initial_window_s``
+   seconds of each experiment (pooled). It is subtracted from every sample,
+   estimation and validation alike.
+3. **Detrend** (optional). A straight line per channel is fitted by least
+   squares to the estimation part of each experiment, extended over its
+   validation part, and subtracted from both. The held-out data therefore never
+   influences the estimate.
+4. **Decimate** (optional). Each whole experiment is low-pass filtered and
+   down-sampled with :func:`scipy.signal.decimate`, then split at the
+   decimated counterpart of the split point.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, fields
+from typing import Any, Literal
+
+import numpy as np
+from scipy import signal
+
+from ._validate import as_signal, int_in_range, names_tuple, one_of, positive_float
+from .data import Experiment, as_experiments
+from .errors import OptionError, PipelineError
+from .models import OperatingPoint
+
+__all__ = ["OFFSET_METHODS", "PreprocessOptions", "PreparedData", "prepare"]
+
+#: Ways of choosing the operating point that is subtracted from the data.
+OFFSET_METHODS = ("mean", "initial")
+
+#: Largest decimation factor done with the default 8th-order Chebyshev IIR
+#: filter; larger factors use scipy's FIR filter (scipy's own advice).
+_IIR_DECIMATE_LIMIT = 13
+
+#: Fraction of each experiment's estimation part used as the initial window
+#: when ``offset="initial"`` and no ``initial_window_s`` is given.
+_DEFAULT_INITIAL_FRACTION = 0.05
+
+#: Largest decimation factor accepted.
+_MAX_DECIMATION = 1000
+
+
+@dataclass(frozen=True, slots=True, eq=False, kw_only=True)
+class PreprocessOptions:
+    """How raw logged data is turned into estimation and validation data.
+
+    Parameters
+    ----------
+    offset : {"mean", "initial"}
+        Operating point subtracted from the data: the mean of the estimation
+        part (default), or the mean level over an initial window.
+    initial_window_s : float, optional
+        Length in seconds of the initial window for ``offset="initial"``.
+        Default ``None``: the first 5 % of each experiment's estimation part
+        (at least one sample).
+    detrend : bool
+        Remove a straight line fitted to the estimation part of each experiment
+        (default ``False``).
+    decimate : int
+        Decimation factor ``q >= 1`` (default 1, none). The new sample time is
+        ``q`` times the original one.
+    holdout : float
+        Fraction in ``[0, 1)`` of each experiment, at its end, held out for
+        validation (default 0.3). ``0`` keeps everything for estimation.
+    """
+
+    offset: Literal["mean", "initial"] = "mean"
+    initial_window_s: float | None = None
+    detrend: bool = False
+    decimate: int = 1
+    holdout: float = 0.3
+
+    def __post_init__(self) -> None:
+        one_of(self.offset, "offset", OFFSET_METHODS)
+        if self.initial_window_s is not None:
+            object.__setattr__(
+                self, "initial_window_s", positive_float(self.initial_window_s, "initial_window_s")
+            )
+        if not isinstance(self.detrend, (bool, np.bool_)):
+            raise OptionError(f"detrend must be true or false; got {self.detrend!r}")
+        object.__setattr__(self, "detrend", bool(self.detrend))
+        object.__setattr__(self, "decimate", int_in_range(self.decimate, "decimate", 1, _MAX_DECIMATION))
+        try:
+            holdout = float(self.holdout)
+        except (TypeError, ValueError) as exc:
+            raise OptionError(f"holdout must be a number in [0, 1); got {self.holdout!r}") from exc
+        if not (0.0 <= holdout < 1.0):
+            raise OptionError(f"holdout must be a number in [0, 1); got {self.holdout!r}")
+        object.__setattr__(self, "holdout", holdout)
+
+    @classmethod
+    def from_mapping(cls, mapping: Mapping[str, Any], *, key_path: str = "") -> PreprocessOptions:
+        """Build options from a mapping such as a parsed TOML table.
+
+        Parameters
+        ----------
+        mapping : Mapping
+            Keys are the field names; missing keys take their defaults.
+        key_path : str
+            Dotted location of the table, used in error messages.
+
+        Raises
+        ------
+        PipelineError
+            An unknown key, or a value that is not allowed.
+        """
+        return _from_mapping(cls, mapping, key_path)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the options as a plain dict (for provenance records)."""
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
+def _from_mapping(cls: type, mapping: Mapping[str, Any], key_path: str) -> Any:
+    if not isinstance(mapping, Mapping):
+        raise PipelineError(
+            f"expected a table; got {type(mapping).__name__}", key_path=key_path or None
+        )
+    valid = [f.name for f in fields(cls)]
+    for key in mapping:
+        if key not in valid:
+            where = f"{key_path}.{key}" if key_path else str(key)
+            raise PipelineError(
+                f"unknown key; valid keys are {', '.join(valid)}",
+                key_path=where,
+            )
+    try:
+        return cls(**dict(mapping))
+    except OptionError as exc:
+        raise PipelineError(str(exc), key_path=key_path or None, hint=exc.hint) from exc
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class PreparedData:
+    """Data ready for the estimators, with a record of what was done to it.
+
+    Attributes
+    ----------
+    estimation : tuple of Experiment
+        Estimation part of each experiment, as deviations from the operating
+        point (and from the trend, when detrended), at the decimated rate.
+    validation : tuple of Experiment
+        Held-out part of each experiment, treated the same way; empty when
+        ``holdout`` is 0. An experiment whose held-out part is empty is left out.
+    operating_point : OperatingPoint
+        Levels subtracted from the raw data: the mean of the estimation part
+        (``offset="mean"``) or of the initial window (``offset="initial"``).
+    sample_time : float
+        Sample time after decimation, in s.
+    decimation : int
+        Decimation factor applied.
+    estimation_ranges, validation_ranges : tuple of (int, int)
+        Half-open sample index ranges ``(start, stop)`` of each experiment's
+        estimation and validation parts in the original (undecimated) record.
+    trends : numpy.ndarray or None
+        Shape (n_experiments, 2, m + p): intercept and slope per sample (at the
+        original rate, time counted from the experiment's first sample) of the
+        line removed from each input and output column, inputs first; ``None``
+        without detrending.
+    input_names, output_names, input_units, output_units : tuple of str
+        Signal names and units.
+    options : PreprocessOptions
+        The options used.
+    """
+
+    estimation: tuple[Experiment, ...]
+    validation: tuple[Experiment, ...]
+    operating_point: OperatingPoint
+    sample_time: float
+    decimation: int
+    estimation_ranges: tuple[tuple[int, int], ...]
+    validation_ranges: tuple[tuple[int, int], ...]
+    trends: np.ndarray | None
+    input_names: tuple[str, ...]
+    output_names: tuple[str, ...]
+    input_units: tuple[str, ...]
+    output_units: tuple[str, ...]
+    options: PreprocessOptions
+
+    @property
+    def n_inputs(self) -> int:
+        """Number of inputs ``m``."""
+        return self.estimation[0].n_inputs
+
+    @property
+    def n_outputs(self) -> int:
+        """Number of outputs ``p``."""
+        return self.estimation[0].n_outputs
+
+    @property
+    def n_estimation_samples(self) -> int:
+        """Total number of estimation samples (decimated), over all experiments."""
+        return sum(e.n_samples for e in self.estimation)
+
+    @property
+    def n_validation_samples(self) -> int:
+        """Total number of validation samples (decimated), over all experiments."""
+        return sum(e.n_samples for e in self.validation)
+
+
+def _as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
+    """Accept an Experiment, a (u, y) pair of arrays, or a sequence of either."""
+    if isinstance(data, Experiment):
+        return ((data.u, data.y),)
+    if (
+        isinstance(data, tuple)
+        and len(data) == 2
+        and isinstance(data[0], np.ndarray)
+        and isinstance(data[1], np.ndarray)
+    ):
+        data = (data,)
+    try:
+        items = list(data)
+    except TypeError as exc:
+        raise OptionError(
+            "data must be an Experiment, a (u, y) pair or a sequence of them; "
+            f"got {type(data).__name__}"
+        ) from exc
+    records = []
+    for k, item in enumerate(items):
+        if isinstance(item, Experiment):
+            records.append((item.u, item.y))
+            continue
+        try:
+            u, y = item
+        except (TypeError, ValueError) as exc:
+            raise OptionError(
+                f"experiment {k} must be an Experiment or a (u, y) pair; got {type(item).__name__}"
+            ) from exc
+        u = as_signal(u, f"experiment {k} u", ndim=2)
+        y = as_signal(y, f"experiment {k} y", ndim=2)
+        if u.shape[0] != y.shape[0]:
+            raise OptionError(
+                f"experiment {k}: u and y must have the same number of samples; "
+                f"got {u.shape[0]} and {y.shape[0]}"
+            )
+        records.append((u, y))
+    # as_experiments checks count and matching signal counts without copying twice
+    if not records:
+        raise OptionError("at least one experiment is needed; got none")
+    m, p = records[0][0].shape[1], records[0][1].shape[1]
+    for k, (u, y) in enumerate(records[1:], start=1):
+        if (u.shape[1], y.shape[1]) != (m, p):
+            raise OptionError(
+                f"experiment {k} has {u.shape[1]} inputs and {y.shape[1]} outputs; "
+                f"experiment 0 has {m} and {p}"
+            )
+    return tuple(records)
+
+
+def _decimate(x: np.ndarray, q: int) -> np.ndarray:
+    if q == 1:
+        return x
+    ftype = "iir" if q <= _IIR_DECIMATE_LIMIT else "fir"
+    return signal.decimate(x, q, ftype=ftype, axis=0, zero_phase=True)
+
+
+def _min_decimate_length(q: int) -> int:
+    # filtfilt's default pad length is 3 * max(len(a), len(b)); the IIR filter has
+    # order 8 (9 coefficients), the FIR filter 20 q + 1 taps (scipy.signal.decimate).
+    taps = 9 if q <= _IIR_DECIMATE_LIMIT else 20 * q + 1
+    return 3 * taps + 1
+
+
+def prepare(
+    data: Any,
+    sample_time: float,
+    options: PreprocessOptions | None = None,
+    *,
+    input_names: Sequence[str] | None = None,
+    output_names: Sequence[str] | None = None,
+    input_units: Sequence[str] | None = None,
+    output_units: Sequence[str] | None = None,
+    segment_starts: Sequence[int] | None = None,
+) -> PreparedData:
+    """Remove the operating point, detrend, decimate and split logged data.
+
+    Parameters
+    ----------
+    data : Experiment, (u, y) pair, or sequence of them
+        The raw records; each is one contiguous experiment (or a segment of a
+        log between timing gaps). ``u`` has shape (N, m), ``y`` (N, p).
+    sample_time : float
+        Sample time of the raw records, in s.
+    options : PreprocessOptions, optional
+        What to do; default ``PreprocessOptions()``.
+    input_names, output_names : sequence of str, optional
+        Signal names; default ``u1, ...`` and ``y1, ...``.
+    input_units, output_units : sequence of str, optional
+        Signal units; default empty strings.
+    segment_starts : sequence of int, optional
+        Index of each record's first sample in the original log, used for the
+        reported ranges; default: records laid end to end from index 0.
+
+    Returns
+    -------
+    PreparedData
+        Estimation and validation experiments and the record of the steps.
+
+    Raises
+    ------
+    OptionError
+        Inconsistent shapes, non-finite values, or an experiment too short for
+        the split or the decimation asked.
+
+    Notes
+    -----
+    The split point of an experiment with ``N`` raw samples decimated by ``q``
+    is ``s = round((1 - holdout) * ceil(N / q))`` in decimated samples, i.e.
+    ``s * q`` in raw samples; the operating point and trend are computed on the
+    raw samples ``[0, s q)``. See the module docstring for the order of steps.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> u = np.arange(10.0)[:, None]
+    >>> prep = prepare((u, 2 * u), 1.0, PreprocessOptions(holdout=0.3))
+    >>> prep.operating_point.inputs.tolist(), prep.estimation_ranges, prep.validation_ranges
+    ([3.0], ((0, 7),), ((7, 10),))
+    """
+    options = PreprocessOptions() if options is None else options
+    if not isinstance(options, PreprocessOptions):
+        raise OptionError(f"options must be PreprocessOptions; got {type(options).__name__}")
+    sample_time = positive_float(sample_time, "sample_time")
+    records = _as_records(data)
+    m, p = records[0][0].shape[1], records[0][1].shape[1]
+    input_names = names_tuple(input_names, "input_names", m, "u")
+    output_names = names_tuple(output_names, "output_names", p, "y")
+    input_units = names_tuple(("",) * m if input_units is None else input_units, "input_units", m, "")
+    output_units = names_tuple(
+        ("",) * p if output_units is None else output_units, "output_units", p, ""
+    )
+    if segment_starts is None:
+        starts = np.concatenate(([0], np.cumsum([r[0].shape[0] for r in records])[:-1]))
+    else:
+        starts = np.asarray(segment_starts)
+        if starts.shape != (len(records),):
+            raise OptionError(
+                f"segment_starts must hold {len(records)} indices; got {starts.size}"
+            )
+    q = options.decimate
+    holdout = options.holdout
+
+    # 1. split points (raw samples)
+    splits = []
+    for k, (u, _) in enumerate(records):
+        n_raw = u.shape[0]
+        if q > 1 and n_raw < _min_decimate_length(q):
+            raise OptionError(
+                f"experiment {k} has {n_raw} samples; decimation by {q} needs at least "
+                f"{_min_decimate_length(q)}"
+            )
+        n_dec = math.ceil(n_raw / q)
+        s_dec = int(round((1.0 - holdout) * n_dec))
+        if s_dec < 2:
+            raise OptionError(
+                f"experiment {k} has {n_raw} samples; too few to keep an estimation part "
+                f"with holdout {holdout:g} and decimation {q}"
+            )
+        splits.append((s_dec, min(s_dec * q, n_raw)))
+
+    # 2. operating point
+    if options.offset == "mean":
+        total = sum(s_raw for _, s_raw in splits)
+        op_u = sum(r[0][:s_raw].sum(axis=0) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
+        op_y = sum(r[1][:s_raw].sum(axis=0) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
+    else:
+        windows = []
+        for _, s_raw in splits:
+            if options.initial_window_s is None:
+                w = max(1, int(round(_DEFAULT_INITIAL_FRACTION * s_raw)))
+            else:
+                w = max(1, int(round(options.initial_window_s / sample_time)))
+            windows.append(min(w, s_raw))
+        total = sum(windows)
+        op_u = sum(r[0][:w].sum(axis=0) for r, w in zip(records, windows, strict=True)) / total
+        op_y = sum(r[1][:w].sum(axis=0) for r, w in zip(records, windows, strict=True)) / total
+    operating_point = OperatingPoint(inputs=op_u, outputs=op_y)
+    level = np.concatenate((op_u, op_y))
+
+    estimation, validation, est_ranges, val_ranges, trends = [], [], [], [], []
+    for (u, y), (s_dec, s_raw), start in zip(records, splits, starts, strict=True):
+        z = np.hstack((u, y)) - level  # new array: the caller's data is never touched
+        # 3. detrend, fitted on the estimation part only
+        if options.detrend:
+            t_est = np.arange(s_raw, dtype=float)
+            design = np.column_stack((np.ones(s_raw), t_est))
+            coef, *_ = np.linalg.lstsq(design, z[:s_raw], rcond=None)  # (2, m + p)
+            t_all = np.arange(z.shape[0], dtype=float)
+            z -= coef[0] + np.outer(t_all, coef[1])
+            trends.append(coef)
+        # 4. decimate the whole experiment, then split
+        z = _decimate(z, q)
+        est = z[:s_dec]
+        val = z[s_dec:]
+        estimation.append(Experiment(u=est[:, :m], y=est[:, m:]))
+        est_ranges.append((int(start), int(start + s_raw)))
+        n_raw = u.shape[0]
+        if val.shape[0] > 0:
+            validation.append(Experiment(u=val[:, :m], y=val[:, m:]))
+            val_ranges.append((int(start + s_raw), int(start + n_raw)))
+
+    trend_array = None
+    if options.detrend:
+        trend_array = np.array(trends)
+        trend_array.flags.writeable = False
+    return PreparedData(
+        estimation=as_experiments(estimation),
+        validation=tuple(validation),
+        operating_point=operating_point,
+        sample_time=sample_time * q,
+        decimation=q,
+        estimation_ranges=tuple(est_ranges),
+        validation_ranges=tuple(val_ranges),
+        trends=trend_array,
+        input_names=input_names,
+        output_names=output_names,
+        input_units=input_units,
+        output_units=output_units,
+        options=options,
+    )

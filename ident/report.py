@@ -1,0 +1,452 @@
+"""The run report: one self-contained HTML file, readable offline and printable.
+
+:func:`render_report` turns the machine-readable summary of a run (the content
+of ``summary.json``, see :mod:`ident.pipeline`) and the PNG bytes of its figures
+into one HTML document. Figures are embedded as base64 ``data:`` URIs, the
+style sheet is inline and nothing is fetched from anywhere, so the file can be
+mailed, archived or printed as it is.
+
+Order of the sections: headline verdict and gates; data overview; chosen model
+and why (the candidate table); validation; modes in physical units with their
+warnings; expectations; drift from the baseline; provenance; safety caution.
+
+Every string that comes from the user or the data (names, notes, column
+names, file names, units, messages) is passed through :func:`html.escape`.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import json
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any
+
+__all__ = ["render_report"]
+
+
+class _Raw(str):
+    """Markup built here from escaped parts; inserted as is."""
+
+    __slots__ = ()
+
+
+def _e(value: Any) -> str:
+    """Escape any value for HTML text or attribute context."""
+    if isinstance(value, _Raw):
+        return value
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def _num(x: Any, spec: str = ".4g", none: str = "–") -> str:
+    if x is None:
+        return none
+    if isinstance(x, str):
+        return x
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return str(x)
+    if not math.isfinite(v):
+        return none
+    return format(v, spec)
+
+
+def _pct(x: Any) -> str:
+    return _num(x, ".1f", none="diverged") + (" %" if x is not None else "")
+
+
+def _table(headers: Sequence[Any], rows: Iterable[Sequence[Any]], *, cls: str = "") -> _Raw:
+    head = "".join(f"<th>{_e(h)}</th>" for h in headers)
+    body = []
+    for row in rows:
+        cells = []
+        for cell in row:
+            if isinstance(cell, tuple):  # (content, css class)
+                cells.append(f'<td class="{_e(cell[1])}">{_e(cell[0])}</td>')
+            else:
+                cells.append(f"<td>{_e(cell)}</td>")
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    klass = f' class="{_e(cls)}"' if cls else ""
+    return _Raw(f"<table{klass}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>")
+
+
+def _ok(passed: bool, yes: str = "pass", no: str = "FAIL") -> tuple[str, str]:
+    return (yes, "ok") if passed else (no, "bad")
+
+
+def _label(name: Any, unit: Any) -> str:
+    return f"{name} [{unit}]" if unit else str(name)
+
+
+def _figures(summary: Mapping[str, Any], figures: Mapping[str, bytes], section: str) -> _Raw:
+    parts = []
+    for meta in summary.get("figures", []):
+        if meta.get("section") != section or meta.get("file") not in figures:
+            continue
+        data = base64.b64encode(figures[meta["file"]]).decode("ascii")
+        caption = meta.get("caption", "")
+        parts.append(
+            f'<figure><img src="data:image/png;base64,{data}" alt="{_e(caption)}">'
+            f"<figcaption>{_e(caption)} <span class=\"file\">({_e(meta['file'])})</span></figcaption></figure>"
+        )
+    return _Raw("".join(parts))
+
+
+def _section(anchor: str, title: str, *content: Any) -> str:
+    return f'<section id="{anchor}"><h2>{_e(title)}</h2>' + "".join(_e(c) for c in content) + "</section>"
+
+
+def _p(text: Any, cls: str = "") -> _Raw:
+    klass = f' class="{_e(cls)}"' if cls else ""
+    return _Raw(f"<p{klass}>{_e(text)}</p>")
+
+
+def _ul(items: Iterable[Any], cls: str = "") -> _Raw:
+    items = list(items)
+    if not items:
+        return _Raw("")
+    klass = f' class="{_e(cls)}"' if cls else ""
+    return _Raw(f"<ul{klass}>" + "".join(f"<li>{_e(i)}</li>" for i in items) + "</ul>")
+
+
+# --------------------------------------------------------------------------- sections
+
+
+def _verdict(s: Mapping[str, Any]) -> str:
+    v = s["verdict"]
+    gates = s.get("gates", [])
+    cls = "verdict ok" if v["passed"] else "verdict bad"
+    word = "PASSED" if v["passed"] else "FAILED"
+    n_failed = sum(1 for g in gates if not g["passed"])
+    line = (f"all {len(gates)} gates passed" if v["passed"]
+            else f"{n_failed} of {len(gates)} gates failed")
+    model = s.get("model", {})
+    fits = ", ".join(f"{k} {_pct(x)}" for k, x in model.get("validation_fit", {}).items())
+    sub = (f"{model.get('method', '?')} model, {model.get('n_states', '?')} states; "
+           f"validation fit {fits}") if model else ""
+    rows = [(_ok(g["passed"]), g["name"], g["key_path"], g["detail"]) for g in gates]
+    table = _table(("result", "gate", "set by", "measured"), rows, cls="gates") if gates else _p(
+        "No gates were set in the pipeline file.")
+    return (
+        f'<div class="{cls}"><span class="word">{word}</span> <span class="line">{_e(line)}</span>'
+        f'<div class="sub">{_e(sub)}</div></div>' + table
+    )
+
+
+def _data(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
+    d = s["data"]
+    logs = _table(
+        ("file", "rows", "samples", "sample time [s]", "duration [s]", "segments", "dropped rows",
+         "timing jitter max [s]"),
+        [(lg["file_name"], f"{lg['rows'][0]}–{lg['rows'][1]}", lg["n_samples"], _num(lg["sample_time"]),
+          _num(lg["duration_s"]), len(lg["segments"]), lg["dropped_rows"], _num(lg["jitter_max_s"], ".3g"))
+         for lg in d["logs"]],
+    )
+    sig = _table(
+        ("role", "signal", "unit", "min", "max", "mean", "std"),
+        [(x["role"], x["name"], x["unit"], _num(x["min"]), _num(x["max"]), _num(x["mean"]), _num(x["std"]))
+         for x in d["signals"]],
+    )
+    exc = _table(
+        ("input", "90 % power below [Hz]", "persistently exciting of order"),
+        [(x["input"], _num(x["band_hz"]),
+          f"{x['persistent_excitation_order']}" + (" or more" if x["order_is_lower_bound"] else ""))
+         for x in d.get("excitation", [])],
+    )
+    band = d.get("excited_band_hz")
+    band_text = ("The inputs excite the band " f"{_num(band[0])}–{_num(band[1])} Hz; the model is "
+                 "trustworthy only inside it." if band else "The excited band could not be judged.")
+    names = [x for x in d["signals"]]
+    op_in = [f"{x['name']} = {_num(v)} {x['unit']}".rstrip()
+             for x, v in zip([n for n in names if n["role"] == "input"], d["operating_point"]["inputs"], strict=False)]
+    op_out = [f"{x['name']} = {_num(v)} {x['unit']}".rstrip()
+              for x, v in zip([n for n in names if n["role"] == "output"], d["operating_point"]["outputs"],
+                              strict=False)]
+    split = (f"Estimation samples {', '.join(f'{a}–{b}' for a, b in d['estimation_ranges'])}; held out for "
+             f"validation {', '.join(f'{a}–{b}' for a, b in d['validation_ranges'])} (sample indices, "
+             "files laid end to end)."
+             + (f" Decimated by {d['decimation']} to T = {_num(d['sample_time'])} s." if d["decimation"] > 1 else ""))
+    return _section(
+        "data", "Data", logs, sig, _p(band_text), exc,
+        _p("Operating point (subtracted before fitting): " + "; ".join(op_in + op_out) + "."),
+        _p(split), _figures(s, figures, "data"),
+    )
+
+
+def _model(s: Mapping[str, Any]) -> str:
+    m = s["model"]
+    sel = m["selection"]
+    outs = m["outputs"]
+    chosen = next((c for c in sel["candidates"] if c.get("selected")), None)
+    struct = ", ".join(f"{k} = {v}" for k, v in m["structure"].items())
+    lead = (f"Selected: {m['method']} of order {m['order']} ({m['n_states']} states, {m['n_parameters']} "
+            f"parameters; {struct}), sample time {_num(m['sample_time'])} s, chosen from "
+            f"{len(sel['candidates'])} candidates.")
+    why = f"Why: {sel['rule']}."
+    if chosen is not None:
+        best = max((c["mean_fit"] for c in sel["candidates"] if c["mean_fit"] is not None), default=None)
+        why += (f" The selected model's mean fit is {_pct(chosen['mean_fit'])}; the best candidate's "
+                f"{_pct(best)}.")
+    rows = []
+    for c in sel["candidates"]:
+        fits = [_pct(v) for v in c["validation_fit"]]
+        rows.append((
+            ("selected", "ok") if c["selected"] else "",
+            c["method"], c["order"], c["n_states"], c["n_parameters"], *fits, _pct(c["mean_fit"]),
+        ))
+    table = _table(("", "method", "order", "states", "parameters",
+                    *[f"fit {o}" for o in outs], "mean fit"), rows, cls="candidates")
+    fit_rows = [(_label(o, m["units"]["outputs"][i]), _pct(m["validation_fit"].get(o)),
+                 _pct(m["estimation_fit"].get(o))) for i, o in enumerate(outs)]
+    parts = [_p(lead), _p(why), table,
+             _table(("output", "fit on held-out data", "fit on estimation data"), fit_rows)]
+    sv = sel.get("singular_values")
+    if sv:
+        parts.append(_p("Subspace singular values: " + ", ".join(_num(v, ".3g") for v in sv[:12])
+                        + (f" (largest gap after {sel['suggested_order']})" if sel.get("suggested_order") else "")))
+    if m.get("delays") is not None:
+        parts.append(_p(f"Input delays used by ARX [samples]: {m['delays']}"))
+    parts.append(_ul([f"note: {n}" for n in m.get("notes", [])], cls="notes"))
+    parts.append(_ul([f"warning: {w}" for w in m.get("warnings", [])], cls="warnings"))
+    parts.append(_p(f"Model file: {m['file']} (in this run folder).", cls="file"))
+    return _section("model", "Chosen model and why", *parts)
+
+
+def _validation(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
+    parts = []
+    for rep in s.get("validation", []):
+        title = (f"Held-out part of experiment {rep.get('experiment')}, samples "
+                 f"{rep['range'][0]}–{rep['range'][1]} ({rep['n_samples']} samples)")
+        rows = []
+        for o in rep["outputs"]:
+            f = rep["fit"][o]
+            w = rep["whiteness"][o]
+            rows.append((o, _pct(f["simulation_percent"]), _pct(f["prediction_percent"]),
+                         _num(w["ljung_box_pvalue"], ".3g"), _ok(bool(w["white"]), "white", "not white")))
+        parts.append(_Raw(f"<h3>{_e(title)}</h3>"))
+        parts.append(_table(
+            ("output", "simulation fit", f"{rep['prediction_steps']}-step prediction fit", "Ljung-Box p",
+             "residuals"), rows))
+        parts.append(_table(
+            ("", "test", "finding"),
+            [(_ok(v["passed"], "ok", "!"), v["test"], v["message"]) for v in rep["verdicts"]],
+            cls="verdicts"))
+    parts.append(_figures(s, figures, "validation"))
+    return _section("validation", "Validation on held-out data", *parts)
+
+
+def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
+    t = s["modes"]
+    rows = []
+    for m in t["modes"]:
+        kind = "pair" if m["is_pair"] else "real"
+        if m["multiplicity"] > 1:
+            kind += f" ×{m['multiplicity']}"
+        rows.append((kind, _num(m["natural_frequency_hz"]), _num(m["damping_ratio"], ".3g"),
+                     _num(m["time_constant_s"]), _num(m["damped_frequency_hz"]),
+                     (", ".join(m["flags"]) or "–", "bad" if m["flags"] else "")))
+    parts = [
+        _p(f"{t['n_states']} states, sample time {_num(t['sample_time'])} s; poles mapped to continuous "
+           "time by s = ln(z)/T. Flags that fail the run: " + (", ".join(t.get("fail_on", [])) or "none") + "."),
+        _table(("mode", "natural frequency [Hz]", "damping ratio", "time constant [s]", "damped frequency [Hz]",
+                "flags"), rows),
+    ]
+    if t.get("warnings"):
+        parts.append(_Raw("<h3>Warnings</h3>"))
+        parts.append(_ul([f"{k}: {v}" for k, v in t["warnings"].items()], cls="warnings"))
+    units = t.get("units", {})
+    ins, outs = units.get("inputs", []), units.get("outputs", [])
+    in_names = sorted({g["input"] for g in t["dc_gain"]}, key=[g["input"] for g in t["dc_gain"]].index)
+    out_names = sorted({g["output"] for g in t["dc_gain"]}, key=[g["output"] for g in t["dc_gain"]].index)
+    gain_rows = []
+    for g in t["dc_gain"]:
+        iu = ins[in_names.index(g["input"])] if in_names.index(g["input"]) < len(ins) else ""
+        ou = outs[out_names.index(g["output"])] if out_names.index(g["output"]) < len(outs) else ""
+        unit = f"{ou} per {iu}" if (iu or ou) else ""
+        gain_rows.append((g["input"], g["output"], _num(g["gain"]), unit))
+    parts.append(_Raw("<h3>Steady-state (DC) gains</h3>"))
+    parts.append(_table(("input", "output", "gain", "unit"), gain_rows))
+    parts.append(_figures(s, figures, "modes"))
+    return _section("modes", "Modes in physical units", *parts)
+
+
+def _expectations(s: Mapping[str, Any]) -> str:
+    ex = s.get("expectations", [])
+    if not ex:
+        return _section("expectations", "Expectations", _p("No expectations were stated in the pipeline file."))
+    rows = [(_ok(r["met"], "met", "NOT MET"), r["name"], r["key_path"], r["expected"], r["measured"]) for r in ex]
+    met = sum(1 for r in ex if r["met"])
+    return _section("expectations", "Expectations", _p(f"{met} of {len(ex)} expectations met."),
+                    _table(("result", "expectation", "stated at", "expected", "model shows"), rows))
+
+
+def _drift(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
+    d = s.get("drift")
+    if d is None:
+        return _section("drift", "Drift from a baseline",
+                        _p("No baseline model was given ([drift] baseline or --baseline), so nothing was compared."))
+    b = d["baseline"]
+    parts = [_p(f"Baseline: {b['file_name']} (created {b.get('created_utc') or 'unknown'}, "
+                f"sha256 {b['sha256'][:16]}…)."),
+             _p("Verdict: " + ("within the drift thresholds." if d["passed"] else "thresholds breached."),
+                cls="ok" if d["passed"] else "bad")]
+    parts.append(_ul(d["breaches"], cls="warnings"))
+    rows = []
+    for m in d["modes"]:
+        base, new = m["baseline"] or {}, m["new"] or {}
+        outside = not m.get("in_band", True)
+        rows.append((
+            m["status"] + (" (outside the excited band)" if outside else ""),
+            _num(base.get("natural_frequency_hz")), _num(new.get("natural_frequency_hz")),
+            _num(m["frequency_shift_hz"], "+.3g"),
+            _num(m["frequency_shift_percent"], "+.1f") + (" %" if m["frequency_shift_percent"] is not None else ""),
+            _num(base.get("damping_ratio"), ".3g"), _num(new.get("damping_ratio"), ".3g"),
+            _num(m["damping_shift"], "+.3g"), _num(m["z_score"], ".2g"),
+            (", ".join(m["breaches"]) or "–", "bad" if m["breaches"] else ""),
+        ))
+    parts.append(_Raw("<h3>Mode shifts</h3>"))
+    parts.append(_table(("status", "baseline [Hz]", "new [Hz]", "shift [Hz]", "shift", "ζ baseline", "ζ new",
+                         "ζ shift", "z-score", "breach"), rows))
+    parts.append(_Raw("<h3>DC gains</h3>"))
+    parts.append(_table(
+        ("input", "output", "baseline", "new", "change", ""),
+        [(g["input"], g["output"], _num(g["baseline"]), _num(g["new"]),
+          _num(g["change_percent"], "+.1f") + (" %" if g["change_percent"] is not None else ""),
+          _ok(not g["breach"], "", "breach")) for g in d["dc_gains"]]))
+    r = d["response_difference"]
+    parts.append(_p(f"Largest frequency-response difference in {_num(r['band_hz'][0], '.3g')}–"
+                    f"{_num(r['band_hz'][1], '.3g')} Hz: {_num(r['largest_db'], '.1f')} dB at "
+                    f"{_num(r['at_frequency_hz'])} Hz ({r['input']} → {r['output']})."))
+    fits = d.get("fit_on_new_log")
+    if fits:
+        parts.append(_Raw("<h3>How well each model explains the new log (held-out part)</h3>"))
+        parts.append(_table(("output", "baseline model", "new model"),
+                            [(o, _pct(a), _pct(b_)) for o, a, b_ in
+                             zip(fits["outputs"], fits["baseline_model"], fits["new_model"], strict=True)]))
+    parts.append(_figures(s, figures, "drift"))
+    return _section("drift", "Drift from the baseline", *parts)
+
+
+def _provenance(s: Mapping[str, Any]) -> str:
+    p = s["provenance"]
+    rows = [("tool", f"{p['tool']} {p['tool_version']} (Python {p.get('python', '?')}, numpy {p.get('numpy', '?')})"),
+            ("run folder", s["run"]["folder"]), ("created (UTC)", s["run"]["created_utc"])]
+    pl = p["pipeline"]
+    if pl.get("file_name"):
+        rows.append(("pipeline file", f"{pl['file_name']} (copy in this folder: {pl.get('copy')})"))
+    rows.append(("pipeline sha256", pl.get("sha256") or "–"))
+    for lg in p["logs"]:
+        rows.append((f"log {lg['file_name']} sha256", lg["sha256"]))
+    if p.get("baseline"):
+        rows.append((f"baseline {p['baseline']['file_name']} sha256", p["baseline"]["sha256"]))
+    settings = json.dumps(p.get("settings", {}), indent=2, sort_keys=False, allow_nan=False, default=str)
+    return _section(
+        "provenance", "Provenance",
+        _table(("item", "value"), rows, cls="prov"),
+        _Raw(f"<details><summary>Settings as parsed from the pipeline file</summary><pre>{_e(settings)}</pre>"
+             "</details>"),
+    )
+
+
+_CSS = """
+:root { --ink:#1d232b; --muted:#5b6670; --line:#cfd6dc; --ok:#1f6f5c; --bad:#a3361a; --paper:#fbfaf7; }
+* { box-sizing: border-box; }
+body { margin:0; background:var(--paper); color:var(--ink);
+  font: 15px/1.45 Georgia, "Times New Roman", serif; }
+main { max-width: 980px; margin: 0 auto; padding: 28px 28px 60px; }
+header h1 { font-size: 1.6em; margin: 0 0 2px; font-weight: normal; }
+header .meta { color: var(--muted); font: 13px/1.4 "Helvetica Neue", Arial, sans-serif; }
+nav { font: 13px "Helvetica Neue", Arial, sans-serif; margin: 10px 0 18px; border-top: 1px solid var(--line);
+  border-bottom: 1px solid var(--line); padding: 6px 0; }
+nav a { color: var(--ink); margin-right: 14px; text-decoration: none; }
+h2 { font-size: 1.2em; font-weight: normal; border-bottom: 2px solid var(--ink); padding-bottom: 2px;
+  margin-top: 34px; letter-spacing: .02em; }
+h3 { font-size: 1em; margin: 18px 0 6px; }
+.verdict { border-left: 8px solid; padding: 10px 14px; margin: 8px 0 12px; background: #fff; }
+.verdict.ok { border-color: var(--ok); } .verdict.bad { border-color: var(--bad); }
+.verdict .word { font: bold 1.5em "Helvetica Neue", Arial, sans-serif; letter-spacing: .08em; }
+.verdict.ok .word { color: var(--ok); } .verdict.bad .word { color: var(--bad); }
+.verdict .sub { color: var(--muted); margin-top: 2px; }
+table { border-collapse: collapse; margin: 8px 0 12px; font: 13px/1.35 "Helvetica Neue", Arial, sans-serif;
+  background: #fff; }
+th, td { border: 1px solid var(--line); padding: 3px 8px; text-align: left; vertical-align: top; }
+th { background: #eef0ee; font-weight: 600; }
+td.ok { color: var(--ok); font-weight: 600; } td.bad { color: var(--bad); font-weight: 600; }
+p.ok { color: var(--ok); } p.bad { color: var(--bad); font-weight: bold; }
+ul.warnings li { color: var(--bad); } ul.notes li { color: var(--muted); }
+figure { margin: 14px 0; page-break-inside: avoid; break-inside: avoid; }
+figure img { max-width: 100%; border: 1px solid var(--line); background: #fff; }
+figcaption { font: 12px "Helvetica Neue", Arial, sans-serif; color: var(--muted); }
+.file { color: var(--muted); font-size: .9em; }
+pre { font-size: 12px; background: #fff; border: 1px solid var(--line); padding: 8px; overflow-x: auto; }
+.caution { border: 2px solid var(--ink); padding: 10px 14px; margin-top: 30px; background: #fff; }
+.notes-text { white-space: pre-wrap; }
+@media print {
+  body { background: #fff; font-size: 11pt; }
+  main { max-width: none; padding: 0; }
+  nav { display: none; }
+  h2 { page-break-after: avoid; break-after: avoid; }
+  table, .verdict, .caution { page-break-inside: avoid; break-inside: avoid; }
+  details > pre { display: block; }
+  a { color: inherit; text-decoration: none; }
+  * { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+}
+"""
+
+_NAV = (("data", "Data"), ("model", "Model"), ("validation", "Validation"), ("modes", "Modes"),
+        ("expectations", "Expectations"), ("drift", "Drift"), ("provenance", "Provenance"))
+
+
+def render_report(summary: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
+    """Render the HTML report of a run.
+
+    Parameters
+    ----------
+    summary : Mapping
+        The run summary as written to ``summary.json`` by
+        :func:`ident.pipeline.run_pipeline` (keys ``name, notes, verdict, gates,
+        run, data, model, validation, modes, expectations, drift, figures,
+        warnings, provenance, safety``).
+    figures : Mapping of str to bytes
+        PNG bytes by file name; every entry of ``summary["figures"]`` whose
+        file is present is embedded as a ``data:`` URI in its section.
+
+    Returns
+    -------
+    str
+        A complete HTML5 document; every user-supplied string is escaped.
+    """
+    name = summary.get("name", "rigfit run")
+    notes = summary.get("notes", "")
+    verdict = summary["verdict"]
+    nav = "".join(f'<a href="#{a}">{_e(t)}</a>' for a, t in _NAV)
+    warnings_ = summary.get("warnings", [])
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{_e(name)} – {'passed' if verdict['passed'] else 'FAILED'}</title>",
+        f"<style>{_CSS}</style></head><body><main>",
+        f"<header><h1>{_e(name)}</h1><div class=\"meta\">rigfit run {_e(summary['run']['folder'])} · "
+        f"{_e(summary['run']['created_utc'])}</div></header>",
+        f"<nav>{nav}</nav>",
+        _verdict(summary),
+    ]
+    if notes:
+        parts.append(f'<p class="notes-text"><strong>Notes:</strong> {_e(notes)}</p>')
+    if warnings_:
+        parts.append("<h3>Warnings during the run</h3>" + _ul(warnings_, cls="warnings"))
+    parts += [
+        _data(summary, figures),
+        _model(summary),
+        _validation(summary, figures),
+        _modes(summary, figures),
+        _expectations(summary),
+        _drift(summary, figures),
+        _provenance(summary),
+        f'<div class="caution"><strong>Caution.</strong> {_e(summary.get("safety", ""))}</div>',
+        "</main></body></html>",
+    ]
+    return "\n".join(parts) + "\n"

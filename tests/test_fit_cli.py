@@ -1,0 +1,137 @@
+"""End-to-end tests of ``rigfit fit`` on generated CSV logs."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import signal
+
+T = 0.01
+#: Poles of the test plant 0.9 +- 0.2j (chosen, no source).
+POLES = np.array([0.9 - 0.2j, 0.9 + 0.2j])
+
+
+def _write_log(path, n=3000, seed=5, copy_input=False):
+    rng = np.random.default_rng(seed)
+    u = rng.standard_normal(n)
+    y = signal.lfilter([0.0, 0.5, 0.3], np.poly(POLES).real, u) + 0.002 * rng.standard_normal(n)
+    lines = ["time [s],valve [V],flow [l/min],valve_copy [V]"]
+    for k in range(n):
+        lines.append(f"{k * T:.4f},{u[k] + 2.0:.9g},{y[k] + 10.0:.9g},{u[k] + 2.0:.9g}")
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+@pytest.fixture(scope="module")
+def log_file(tmp_path_factory):
+    return _write_log(tmp_path_factory.mktemp("fit") / "rig.csv")
+
+
+def test_fit_json_and_model_file(run_cli, log_file, tmp_path):
+    out = tmp_path / "plant.json"
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--max-order", "4",
+                  "-o", out, "--json", "--quiet")
+    assert res.exit_code == 0, res.output
+    data = json.loads(res.stdout)
+    assert data["method"] in ("arx", "subspace")
+    assert data["order"] == 2 and data["n_states"] == 2
+    assert data["inputs"] == ["valve"] and data["outputs"] == ["flow"]
+    assert set(data["validation_fit"]) == {"flow"}
+    # 0.2 % output noise relative to the input: the fit is close to 100 percent
+    assert data["validation_fit"]["flow"] > 99.0
+    assert len(data["candidates"]) == 8  # ARX and subspace, orders 1..4
+    assert sum(c["selected"] for c in data["candidates"]) == 1
+    for key in ("method", "order", "structure", "n_parameters", "validation_fit", "mean_fit",
+                "criteria"):
+        assert key in data["candidates"][0]
+    assert isinstance(data["warnings"], list) and isinstance(data["flags"], list)
+    assert data["model_file"] == str(out)
+    # the operating point is the estimation mean (70 % of 3000 samples), about 2 and 10
+    assert_allclose(data["operating_point"]["inputs"], [2.0], atol=0.1)
+
+    from ident.io.modelfile import load_model
+
+    loaded = load_model(out)
+    # poles 0.9 +- 0.2j by construction; 0.2 % output noise -> within 5e-3
+    poles = np.sort_complex(loaded.model.poles())
+    assert_allclose(poles, np.sort_complex(POLES), atol=5e-3)
+    prov = loaded.provenance
+    assert prov["log"]["file_name"] == "rig.csv"
+    assert len(prov["log"]["sha256"]) == 64
+    assert prov["estimation"]["method"] == data["method"]
+    assert prov["validation"]["fit_percent"]["flow"] == pytest.approx(
+        data["validation_fit"]["flow"], rel=1e-12)
+    assert "created_utc" in prov and "tool_version" in prov
+    assert loaded.model.operating_point is not None
+    assert loaded.model.output_units == ("l/min",)
+
+
+def test_fit_readable_summary(run_cli, log_file):
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--method", "arx",
+                  "--max-order", "3")
+    assert res.exit_code == 0, res.output
+    assert "validation" in res.stdout and "flow" in res.stdout
+    assert "<- selected" in res.stdout
+    assert "f_n [Hz]" in res.stdout  # the modes in physical units
+    # the pair 0.9 +- 0.2j at T = 0.01 s: f_n = |ln z| / (2 pi T) = 3.713 Hz (closed form)
+    assert "3.71" in res.stdout
+
+
+def test_fixed_order_subspace(run_cli, log_file):
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--method",
+                  "subspace", "--order", "2", "--json")
+    assert res.exit_code == 0, res.output
+    data = json.loads(res.stdout)
+    assert data["method"] == "subspace" and data["order"] == 2
+    assert len(data["candidates"]) == 1
+
+
+def test_refuses_to_overwrite(run_cli, log_file, tmp_path):
+    out = tmp_path / "exists.json"
+    out.write_text("keep me")
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "-o", out)
+    assert res.exit_code == 2
+    assert "already exists" in res.stderr
+    assert out.read_text() == "keep me"
+
+
+def test_refuses_to_write_the_input_log(run_cli, log_file):
+    before = log_file.read_bytes()
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "-o", log_file,
+                  "--force")
+    assert res.exit_code == 2
+    assert "input file" in res.stderr
+    assert log_file.read_bytes() == before
+
+
+def test_missing_column_named(run_cli, log_file):
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "pressure")
+    assert res.exit_code == 2
+    assert "pressure" in res.stderr
+
+
+def test_output_equal_to_input(run_cli, log_file):
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "valve_copy")
+    assert res.exit_code == 2
+    assert "identical to input" in res.stderr
+    # the same column as both input and output is a usage error, also exit 2
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "valve")
+    assert res.exit_code == 2
+
+
+@pytest.mark.parametrize("args", [["--order", "zero"], ["--order", "0"], ["--holdout", "1.5"],
+                                  ["--method", "best"]])
+def test_bad_options_exit_2(run_cli, log_file, args):
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", *args)
+    assert res.exit_code == 2
+
+
+def test_method_choices_match_library():
+    from ident.cli.fit_cmd import fit
+    from ident.identify import METHODS
+
+    choice = next(p for p in fit.params if p.name == "method").type
+    assert tuple(choice.choices) == METHODS
