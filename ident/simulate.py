@@ -1,9 +1,13 @@
 """Time-domain simulation of discrete-time state-space models.
 
-Long logs (millions of samples) are simulated in the model's eigenbasis, where
-every mode is a first-order recursion run by :func:`scipy.signal.lfilter` in
-compiled code. When the eigenvectors are ill conditioned (repeated or nearly
-repeated poles, canonical forms) a plain state recursion is used instead.
+Long logs (millions of samples) are simulated in the complex Schur basis of
+``A`` (``A = Z T Z^H``, ``T`` upper triangular): the last coordinate is a
+first-order recursion driven by the input, and each earlier one is a
+first-order recursion driven by the input and the coordinates after it. Every
+recursion runs in compiled code (:func:`scipy.signal.lfilter`), and the unitary
+change of basis keeps the computation backward stable whatever the poles are,
+repeated or defective included. The samples are processed in chunks, so the
+working memory does not grow with the log.
 """
 
 from __future__ import annotations
@@ -17,8 +21,8 @@ from .models import StateSpaceModel
 
 __all__ = ["simulate", "simulate_states", "estimate_initial_state", "free_response_matrix"]
 
-#: Largest eigenvector condition number for which the modal method is used.
-_MODAL_COND_LIMIT = 1e6
+#: Samples simulated per chunk (bounds the working memory to a few MB per state).
+_CHUNK = 1 << 16
 
 
 def _check(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
@@ -59,38 +63,36 @@ def simulate_states(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None
         States, ``x[0] = x0``.
     """
     u, x0 = _check(model, u, x0)
-    return _states(model.A, model.B, u, x0)
+    out = np.empty((u.shape[0], model.n_states))
+    for k0, k1, x in _chunks(model.A, model.B, u, x0):
+        out[k0:k1] = x
+    return out
 
 
-def _states(A: np.ndarray, B: np.ndarray, u: np.ndarray, x0: np.ndarray) -> np.ndarray:
+def _chunks(A: np.ndarray, B: np.ndarray, u: np.ndarray, x0: np.ndarray):
+    """Yield ``(k0, k1, states[k0:k1])`` chunk by chunk."""
     n = A.shape[0]
     N = u.shape[0]
     if n == 0:
-        return np.zeros((N, 0))
-    w = u @ B.T  # (N, n): B u[k]
-    lam, V = linalg.eig(A)
-    use_modal = np.all(np.isfinite(lam))
-    if use_modal:
-        with np.errstate(all="ignore"):
-            cond = np.linalg.cond(V)
-        use_modal = np.isfinite(cond) and cond < _MODAL_COND_LIMIT
-    if use_modal:
-        Vinv = linalg.inv(V)
-        wm = w @ Vinv.T  # modal inputs
-        zm0 = Vinv @ x0
-        zm = np.empty((N, n), dtype=complex)
-        for i in range(n):
-            zm[:, i], _ = signal.lfilter(
-                [0.0, 1.0], [1.0, -lam[i]], wm[:, i], zi=np.array([zm0[i]], dtype=complex)
-            )
-        return np.real(zm @ V.T)
-    x = np.empty((N, n))
-    xk = x0.copy()
-    At = A.T
-    for k in range(N):
-        x[k] = xk
-        xk = xk @ At + w[k]
-    return x
+        for k0 in range(0, max(N, 1), _CHUNK):
+            k1 = min(N, k0 + _CHUNK)
+            yield k0, k1, np.zeros((k1 - k0, 0))
+        return
+    T, Z = linalg.schur(A, output="complex")  # A = Z T Z^H
+    Bz = Z.conj().T @ B  # inputs in the Schur basis
+    diag = np.diag(T)
+    z = Z.conj().T @ x0.astype(complex)
+    for k0 in range(0, N, _CHUNK):
+        k1 = min(N, k0 + _CHUNK)
+        drive = u[k0:k1] @ Bz.T  # (L, n) complex
+        zs = np.empty((k1 - k0, n), dtype=complex, order="F")  # columns contiguous
+        for i in range(n - 1, -1, -1):
+            d = drive[:, i]
+            if i < n - 1:
+                d = d + zs[:, i + 1:] @ T[i, i + 1:]
+            zs[:, i], _ = signal.lfilter([0.0, 1.0], [1.0, -diag[i]], d, zi=np.array([z[i]]))
+        z = T @ zs[-1] + Bz @ u[k1 - 1]
+        yield k0, k1, np.real(zs @ Z.T)
 
 
 def simulate(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None = None) -> np.ndarray:
@@ -118,8 +120,10 @@ def simulate(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None = None
     [0.0, 1.0, 0.5]
     """
     u, x0 = _check(model, u, x0)
-    x = _states(model.A, model.B, u, x0)
-    return x @ model.C.T + u @ model.D.T
+    y = np.empty((u.shape[0], model.n_outputs))
+    for k0, k1, x in _chunks(model.A, model.B, u, x0):
+        y[k0:k1] = x @ model.C.T + u[k0:k1] @ model.D.T
+    return y
 
 
 def free_response_matrix(model: StateSpaceModel, n_samples: int) -> np.ndarray:
