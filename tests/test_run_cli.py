@@ -60,13 +60,15 @@ def test_run_example_pipeline_exit_0(run_cli, tmp_path):
                     truth["files"]["heated_platen.csv"]["static_gain_k_per_percent"], rtol=0.08)
 
 
-def test_run_gate_failure_exit_3_and_json(run_cli, tmp_path):
+def test_run_gate_failure_exit_3_and_json(run_cli, tmp_path, monkeypatch):
+    # progress is shown only when stderr is a terminal; pretend it is one
+    monkeypatch.setattr("ident.cli.run_cmd.progress_enabled", lambda quiet: not quiet)
     write_log(tmp_path / "rig.csv", noise=0.5)
     pipe = write_pipeline(tmp_path / "job.toml", "rig.csv", "min_fit = 99.5\n")
     result = run_cli("run", pipe, "--json")
     assert result.exit_code == 3
     assert "failed: 1 gate(s) failed: check.min_fit" in result.stderr
-    assert "[" in result.stderr and "validating" in result.stderr  # progress on stderr without --quiet
+    assert "[" in result.stderr and "validating" in result.stderr  # progress on a terminal without --quiet
     data = json.loads(result.stdout)
     assert data["passed"] is False
     assert [g["key_path"] for g in data["gates"] if not g["passed"]] == ["check.min_fit"]
@@ -153,3 +155,10 @@ def test_help_lists_the_options(run_cli, command):
     assert result.exit_code == 0
     for option in ("--out", "--quiet"):
         assert option in result.stdout
+
+
+def test_no_progress_when_stderr_is_not_a_terminal(run_cli, tmp_path):
+    write_log(tmp_path / "rig.csv", noise=0.5)
+    pipe = write_pipeline(tmp_path / "job.toml", "rig.csv", "min_fit = 10\n")
+    result = run_cli("run", pipe)  # CliRunner's stderr is not a terminal
+    assert "[" not in result.stderr

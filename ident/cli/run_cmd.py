@@ -6,12 +6,15 @@ from typing import Any
 
 import click
 
-from ._common import GateFailed, echo_json
+from ._common import GateFailed, echo_json, progress_enabled
 
 
 def progress_printer(quiet: bool, prefix: str = "") -> Any:
-    """Return a ``progress(step, fraction)`` callback printing each new step on stderr (or None)."""
-    if quiet:
+    """Return a ``progress(step, fraction)`` callback printing each new step on stderr.
+
+    ``None`` (no progress) with ``quiet`` or when stderr is not a terminal, as for every command.
+    """
+    if not progress_enabled(quiet):
         return None
     last = [""]
 
