@@ -66,12 +66,16 @@ def as_matrix(x: Any, name: str, shape: tuple[int | None, int | None] | None = N
     return arr
 
 
+def _is_number(value: Any) -> bool:
+    # bool is an int subclass and a string converts with float(); neither is a number here
+    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, (bool, np.bool_))
+
+
 def positive_float(value: Any, name: str) -> float:
-    """Return ``value`` as a finite float > 0."""
-    try:
-        out = float(value)
-    except (TypeError, ValueError) as exc:
-        raise OptionError(f"{name} must be a positive number; got {_short(value)}") from exc
+    """Return ``value`` as a finite float > 0 (booleans and strings are refused)."""
+    if not _is_number(value):
+        raise OptionError(f"{name} must be a positive number; got {_short(value)}")
+    out = float(value)
     if not math.isfinite(out) or out <= 0:
         raise OptionError(f"{name} must be a positive number; got {_short(value)}")
     return out
@@ -102,10 +106,9 @@ def _range(low: int, high: int | None) -> str:
 def fraction(value: Any, name: str, *, low: float = 0.0, high: float = 1.0,
              inclusive: bool = False) -> float:
     """Return ``value`` as a float strictly inside ``(low, high)`` (or closed if inclusive)."""
-    try:
-        out = float(value)
-    except (TypeError, ValueError) as exc:
-        raise OptionError(f"{name} must be a number in ({low}, {high}); got {_short(value)}") from exc
+    if not _is_number(value):
+        raise OptionError(f"{name} must be a number in ({low}, {high}); got {_short(value)}")
+    out = float(value)
     ok = (low <= out <= high) if inclusive else (low < out < high)
     if not ok or not math.isfinite(out):
         brackets = f"[{low}, {high}]" if inclusive else f"({low}, {high})"

@@ -26,7 +26,7 @@ from dataclasses import dataclass, fields
 from typing import Any, Literal
 
 import numpy as np
-from scipy import linalg, signal, stats
+from scipy import linalg
 
 from ._validate import as_signal, fraction, int_in_range, one_of, positive_float
 from .analysis import frequency_response
@@ -178,7 +178,9 @@ class CheckOptions:
             _set(self, "spectral_segment",
                  int_in_range(self.spectral_segment, "spectral_segment", 8))
         if self.min_fit is not None:
-            value = float(self.min_fit)
+            is_number = isinstance(self.min_fit, (int, float, np.integer, np.floating)) and not isinstance(
+                self.min_fit, (bool, np.bool_))
+            value = float(self.min_fit) if is_number else math.nan
             if not math.isfinite(value) or value > 100:
                 raise OptionError(f"min_fit must be a number of at most 100 (%); got {self.min_fit!r}")
             _set(self, "min_fit", value)
@@ -202,6 +204,8 @@ class CheckOptions:
     @property
     def z_value(self) -> float:
         """Two-sided normal quantile of :attr:`confidence` (2.576 for 0.99)."""
+        from scipy import stats
+
         return float(stats.norm.ppf(0.5 + self.confidence / 2.0))
 
 
@@ -593,6 +597,8 @@ def _xcov(a: np.ndarray, b: np.ndarray, max_lag: int) -> np.ndarray:
 
 
 def _band(n_samples: int, confidence: float) -> float:
+    from scipy import stats
+
     return float(stats.norm.ppf(0.5 + confidence / 2.0) / np.sqrt(n_samples))
 
 
@@ -715,6 +721,8 @@ def whiteness(
         N = x.size
         r = acf.values[1:]
         q = float(N * (N + 2) * np.sum(r**2 / (N - np.arange(1, max_lag + 1))))
+        from scipy import stats
+
         pval = float(stats.chi2.sf(q, max_lag))
     return WhitenessResult(str(output), acf, q, pval, bool(pval >= 1.0 - confidence))
 
@@ -794,6 +802,8 @@ def spectral_comparison(
     .. [1] J. S. Bendat and A. G. Piersol, *Random Data: Analysis and
        Measurement Procedures*, 4th ed., Wiley, 2010, sec. 9.2.
     """
+    from scipy import signal
+
     model = _check_model(model)
     u, y = _check_data(model, u, y)
     N = u.shape[0]

@@ -200,15 +200,27 @@ def _damping(mode: Mode) -> float:
 
 
 def _comparable(modes: tuple[Mode, ...]) -> tuple[Mode, ...]:
-    # poles at z = 0 or on the negative real axis have no natural frequency to compare
-    return tuple(m for m in modes if m.natural_frequency_hz is not None)
+    # poles at z = 0 or on (or near) the negative real axis have no continuous-time meaning
+    return tuple(m for m in modes if m.natural_frequency_hz is not None and "negative_real" not in m.flags)
+
+
+#: Added to the matching cost when a complex pair would be paired with a real pole.
+_PAIR_MISMATCH_COST = 10.0
 
 
 def _match(base: tuple[Mode, ...], new: tuple[Mode, ...], limit: float) -> list[tuple[int | None, int | None]]:
     if not base or not new:
         return [(i, None) for i in range(len(base))] + [(None, j) for j in range(len(new))]
     cost = np.array(
-        [[abs(_log_freq(b) - _log_freq(n)) + abs(_damping(b) - _damping(n)) for n in new] for b in base]
+        [
+            [
+                abs(_log_freq(b) - _log_freq(n))
+                + abs(_damping(b) - _damping(n))
+                + (_PAIR_MISMATCH_COST if b.is_pair != n.is_pair else 0.0)
+                for n in new
+            ]
+            for b in base
+        ]
     )
     rows, cols = linear_sum_assignment(cost)
     pairs: list[tuple[int | None, int | None]] = []
@@ -221,6 +233,22 @@ def _match(base: tuple[Mode, ...], new: tuple[Mode, ...], limit: float) -> list[
     pairs += [(i, None) for i in range(len(base)) if i not in used_b]
     pairs += [(None, j) for j in range(len(new)) if j not in used_n]
     return pairs
+
+
+def _breach_text(kind: str, s: ModeShift, th: DriftThresholds) -> str:
+    if kind == "frequency shift":
+        return (
+            f"frequency shift: mode at {s.baseline.natural_frequency_hz:.4g} Hz -> {s.new.natural_frequency_hz:.4g} Hz "
+            f"({s.frequency_shift_percent:+.1f} %, limit {th.frequency_shift_percent:g} %)"
+        )
+    if kind == "damping shift":
+        return (
+            f"damping shift: mode at {s.baseline.natural_frequency_hz:.4g} Hz, damping ratio "
+            f"{_damping(s.baseline):.3g} -> {_damping(s.new):.3g} ({s.damping_shift:+.3g}, "
+            f"limit {th.damping_shift:g})"
+        )
+    m = s.baseline or s.new
+    return f"{kind}: mode at {m.natural_frequency_hz:.4g} Hz"  # type: ignore[union-attr]
 
 
 def _frequency_std(mode: Mode) -> float | None:
@@ -315,8 +343,9 @@ def compare_models(
 
     Notes
     -----
-    Poles at z = 0 or on the negative real axis have no natural frequency and
-    are left out of the mode comparison (the mode table flags them).
+    Poles at z = 0 or on (or near) the negative real axis have no
+    continuous-time meaning and are left out of the mode comparison (the mode
+    table flags them). A complex pair is never paired with a real pole.
     Mode matching minimises the total cost ``|ln(f_new/f_base)| + |zeta_new - zeta_base|``
     over one-to-one pairings (the assignment problem, solved exactly by
     :func:`scipy.optimize.linear_sum_assignment`).
@@ -382,8 +411,7 @@ def compare_models(
     breaches = []
     for s in shifts:
         for b in s.breaches:
-            m = s.baseline or s.new
-            breaches.append(f"{b}: mode at {m.natural_frequency_hz:.4g} Hz")  # type: ignore[union-attr]
+            breaches.append(_breach_text(b, s, th))
     for g in gains:
         if g.breach:
             breaches.append(f"DC gain {g.input} -> {g.output} changed by {g.change_percent:+.1f} %")

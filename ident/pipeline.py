@@ -344,7 +344,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
     return {
         "spec": spec, "logs": logs, "result": result, "validation": validation, "parts": parts,
         "table": table, "expectations": expectations, "band": band, "excitation": excitation,
-        "drift": drift, "baseline": baseline, "baseline_path": baseline_path,
+        "drift": drift, "baseline": baseline, "log_duration_s": duration, "baseline_path": baseline_path,
         "input_units": input_units, "output_units": output_units,
     }
 
@@ -670,7 +670,9 @@ def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[s
     prep = result.prepared
     model_path = save_model(folder / MODEL_FILE, result.model, protected=protected, provenance={
         "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in state["logs"]],
-                "sample_time": state["logs"][0].sample_time},
+                "sample_time": state["logs"][0].sample_time,
+                # longest contiguous segment: what `rigfit modes` judges slow time constants against
+                "duration_s": state["log_duration_s"]},
         "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
                        "method": result.method, "order": result.order, "options": result.options.to_dict(),
                        "ranges": [list(r) for r in prep.estimation_ranges],

@@ -32,9 +32,8 @@ from dataclasses import dataclass, fields
 from typing import Any, Literal
 
 import numpy as np
-from scipy import signal
 
-from ._validate import as_signal, int_in_range, names_tuple, one_of, positive_float
+from ._validate import as_signal, fraction, int_in_range, names_tuple, one_of, positive_float
 from .data import Experiment, as_experiments
 from .errors import OptionError, PipelineError
 from .models import OperatingPoint
@@ -96,11 +95,8 @@ class PreprocessOptions:
             raise OptionError(f"detrend must be true or false; got {self.detrend!r}")
         object.__setattr__(self, "detrend", bool(self.detrend))
         object.__setattr__(self, "decimate", int_in_range(self.decimate, "decimate", 1, _MAX_DECIMATION))
-        try:
-            holdout = float(self.holdout)
-        except (TypeError, ValueError) as exc:
-            raise OptionError(f"holdout must be a number in [0, 1); got {self.holdout!r}") from exc
-        if not (0.0 <= holdout < 1.0):
+        holdout = fraction(self.holdout, "holdout", low=0.0, high=1.0, inclusive=True)
+        if holdout == 1.0:
             raise OptionError(f"holdout must be a number in [0, 1); got {self.holdout!r}")
         object.__setattr__(self, "holdout", holdout)
 
@@ -267,6 +263,8 @@ def _as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
 def _decimate(x: np.ndarray, q: int) -> np.ndarray:
     if q == 1:
         return x
+    from scipy import signal
+
     ftype = "iir" if q <= _IIR_DECIMATE_LIMIT else "fir"
     return signal.decimate(x, q, ftype=ftype, axis=0, zero_phase=True)
 

@@ -79,3 +79,12 @@ def test_internal_error_exit_1_without_traceback(monkeypatch, capsys):
     err = capsys.readouterr().err
     assert status == 1
     assert "internal error" in err and "--debug" in err and "Traceback" not in err
+
+
+def test_usage_errors_are_one_error_line(run_cli):
+    result = run_cli("modes")  # missing argument
+    assert result.exit_code == 2
+    lines = result.stderr.strip().splitlines()
+    assert lines[0] == "error: Missing argument 'MODEL'."
+    assert lines[1:] == ["hint: see 'cli modes --help'"]
+    assert "Usage:" not in result.stderr

@@ -107,3 +107,8 @@ def test_readable_ss_shows_operating_point(run_cli, zoh_example):
     r = run_cli("convert", zoh_example, "--to", "ss")
     assert r.exit_code == 0
     assert "operating point" in r.stdout and "A (2 x 2)" in r.stdout
+
+
+def test_method_refused_where_it_does_not_apply(run_cli, zoh_example):
+    r = run_cli("convert", zoh_example, "--to", "tf", "--method", "tustin")
+    assert r.exit_code == 2 and "--method applies only" in r.stderr

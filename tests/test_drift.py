@@ -113,3 +113,25 @@ def test_report_dict_is_json_ready():
     d = drift_report_to_dict(compare_models(_plant([(30.0, 0.05)]), _plant([(36.0, 0.04)])))
     text = json.dumps(d, allow_nan=False)
     assert '"status": "matched"' in text and d["passed"] is False
+
+
+def test_breach_text_gives_the_amount():
+    report = compare_models(_plant([(30.0, 0.05)]), _plant([(36.0, 0.05)]),
+                            thresholds=DriftThresholds(response_difference_db=100.0))
+    (text,) = report.breaches
+    assert text == "frequency shift: mode at 30 Hz -> 36 Hz (+20.0 %, limit 10 %)"  # closed form: 36/30 - 1
+
+
+def test_negative_real_poles_left_out_and_pairs_never_matched_to_real_poles():
+    base = _plant([(30.0, 0.05)])
+    # add a pole at z = -0.4 (negative real axis: no continuous meaning) to the new model
+    A = np.zeros((base.n_states + 1, base.n_states + 1))
+    A[:-1, :-1] = base.A
+    A[-1, -1] = -0.4
+    new = StateSpaceModel(A, np.vstack([base.B, [[1.0]]]), np.hstack([base.C, [[0.1]]]), base.D,
+                          sample_time=T, inputs=base.inputs, outputs=base.outputs,
+                          operating_point=base.operating_point)
+    report = compare_models(base, new, thresholds=DriftThresholds(response_difference_db=100.0))
+    assert [s.status for s in report.mode_shifts] == ["matched", "matched"]
+    for s in report.mode_shifts:
+        assert s.baseline.is_pair == s.new.is_pair

@@ -138,3 +138,10 @@ def test_written_file_has_umask_mode(model, tmp_path):
         os.umask(mask)
     # a plain open() under umask 022 gives 0644 (POSIX, common practice)
     assert stat.S_IMODE(path.stat().st_mode) == 0o644
+
+
+def test_missing_folder_refused_before_any_work(tmp_path):
+    from ident.io.atomic import check_output_path
+
+    with pytest.raises(Exception, match="does not exist"):
+        check_output_path(tmp_path / "no" / "m.json")

@@ -88,6 +88,10 @@ def test_belt_before_passes_its_gates_and_writes_the_folder(belt_runs):
     pipe_hash = hashlib.sha256((REPO / "pipelines" / "belt_axis_before.toml").read_bytes()).hexdigest()
     assert on_disk["provenance"]["logs"][0]["sha256"] == log_hash
     assert on_disk["provenance"]["pipeline"]["sha256"] == pipe_hash
+    # the model file records the log duration, so `rigfit modes` can judge slow modes later;
+    # 24000 samples at 1 kHz (sample_data/truth.json), counted as 23999 steps
+    file_prov = load_model(before.model_path).provenance
+    assert_allclose(file_prov["log"]["duration_s"], 23.999, rtol=1e-9)
 
 
 def test_belt_resonance_before_matches_the_generator(belt_runs):

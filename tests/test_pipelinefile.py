@@ -192,3 +192,29 @@ def test_strings_are_data_only(tmp_path):
     spec = load_pipeline(write(tmp_path, f'name = "{text}"\n' + MINIMAL))
     assert spec.name == text
     assert (tmp_path / "rig.csv").is_file()
+
+
+@pytest.mark.parametrize(
+    "section, key, value",
+    [
+        ("check", "min_fit", "true"),
+        ("check", "min_fit", '"80"'),
+        ("check", "confidence", '"0.95"'),
+        ("preprocess", "holdout", '"0.3"'),
+        ("drift", "frequency_shift_percent", "true"),
+    ],
+)
+def test_wrong_types_are_refused_with_the_key(tmp_path, section, key, value):
+    from ident.errors import PipelineError
+    from ident.io.pipelinefile import load_pipeline
+
+    log = tmp_path / "rig.csv"
+    log.write_text("time [s],u,y\n0,1,2\n0.1,2,3\n")
+    pipe = tmp_path / "job.toml"
+    pipe.write_text(
+        'name = "t"\n[log]\npaths = ["rig.csv"]\ninputs = ["u"]\noutputs = ["y"]\n'
+        f"[{section}]\n{key} = {value}\n"
+    )
+    with pytest.raises(PipelineError) as info:
+        load_pipeline(pipe)
+    assert info.value.key_path == f"{section}.{key}"

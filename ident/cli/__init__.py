@@ -61,6 +61,10 @@ class _LazyGroup(click.Group):
     def invoke(self, ctx: click.Context):
         try:
             return super().invoke(ctx)
+        except click.UsageError as exc:
+            # one line, like every other bad-input error, instead of click's usage banner
+            where = exc.ctx.command_path if exc.ctx is not None else "rigfit"
+            raise DataError(exc.format_message(), f"see '{where} --help'") from exc
         except IdentError as exc:
             raise DataError(str(exc), getattr(exc, "hint", None)) from exc
         except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:

@@ -68,7 +68,8 @@ def run_guarded(command: click.Command, argv: list[str] | None = None) -> int:
         click.echo("aborted", err=True)
         return EXIT_INTERNAL
     except click.UsageError as exc:
-        exc.show()
+        where = exc.ctx.command_path if exc.ctx is not None else "rigfit"
+        DataError(exc.format_message(), f"see '{where} --help'").show()
         return EXIT_BAD_INPUT
     except click.ClickException as exc:
         exc.show()

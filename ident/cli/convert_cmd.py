@@ -63,6 +63,8 @@ def convert(
 
     loaded = load_model(model_path)
     model = loaded.model
+    if target in ("tf", "ss") and method != "zoh":
+        raise DataError("--method applies only to --to continuous / discrete")
     if prewarp_hz is not None and method != "tustin":
         raise DataError("--prewarp applies only to --method tustin")
     if sample_time is not None and target != "discrete":

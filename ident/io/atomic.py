@@ -47,7 +47,7 @@ def check_output_path(
     OutputExistsError
         ``path`` exists and ``force`` is false.
     IdentError
-        ``path`` is one of ``protected`` or is a directory.
+        ``path`` is one of ``protected``, is a directory, or its folder does not exist.
     """
     target = Path(path)
     for item in protected:
@@ -59,6 +59,9 @@ def check_output_path(
             raise IdentError(f"{target}: refusing to write over the input file {item}")
     if target.is_dir():
         raise IdentError(f"{target}: is a directory, not a file")
+    folder = target.parent if str(target.parent) else Path(".")
+    if not folder.is_dir():
+        raise IdentError(f"{target}: folder {folder} does not exist")
     if target.exists() and not force:
         raise OutputExistsError(target)
     return target
@@ -97,8 +100,6 @@ def write_atomic(
     """
     target = check_output_path(path, force=force, protected=protected)
     folder = target.parent if str(target.parent) else Path(".")
-    if not folder.is_dir():
-        raise IdentError(f"{target}: folder {folder} does not exist")
     payload = data.encode("utf-8") if isinstance(data, str) else data
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
     try:
