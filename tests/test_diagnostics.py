@@ -76,6 +76,19 @@ def test_band_is_2_58_over_sqrt_n(rng):
     assert CheckOptions().z_value == pytest.approx(2.5758293, abs=1e-6)  # scipy.stats.norm.ppf
 
 
+def test_band_holds_99_percent_of_white_noise_lags():
+    # large-sample result (Ljung, System Identification, 2nd ed., sec. 16.6): the sample
+    # autocorrelation of white noise at each lag is ~N(0, 1/N), so about 1 % of the lags fall
+    # outside +-2.58/sqrt(N). Over 20 seeds x 100 lags, a binomial(2000, 0.01) count has mean 20
+    # and std 4.5; [5, 40] is more than 3 std either side.
+    outside = 0
+    for seed in range(20):
+        x = np.random.default_rng(seed).standard_normal(5000)
+        c = correlation(x, 100, confidence=0.99)
+        outside += int(np.sum(np.abs(c.values[1:]) > c.band))
+    assert 5 <= outside <= 40
+
+
 def test_autocorrelation_equals_statsmodels_acf(rng):
     e = signal.lfilter([1.0], [1.0, -0.6], rng.standard_normal(700))
     c = correlation(e, 25)

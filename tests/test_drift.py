@@ -78,6 +78,8 @@ def test_old_model_scored_on_new_log(rng):
     report = compare_models(base, new, u=u, y=y)
     # noise-free data from the new model: it fits exactly (fit percent 100 by definition)
     assert_allclose(report.new_model_fit, [100.0], atol=1e-6)
+    # the baseline's resonance sits 20 % lower: on a white-noise input it must lose a visible share
+    # of the fit (loose bound, common practice, no source)
     assert report.old_model_fit[0] < 95.0
 
 
