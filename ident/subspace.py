@@ -20,17 +20,27 @@ Pipeline
    innovation-form Kalman gain from the state-sequence residuals through the
    discrete Riccati equation.
 
-Performance: on the 2-core development machine (busy with other jobs),
-:func:`fit_subspace` on a 2-input, 2-output log of 1e6 samples, order 4
-(horizon 6), took 1.6-2.5 s with one BLAS thread (0.2 s for 1e5 samples:
-time is linear in N), with about 17 MB of working memory beyond the 32 MB
-log. The work is many small QR updates: when the cores are busy, a
-multi-threaded OpenBLAS can be 50x slower (``OPENBLAS_NUM_THREADS=1`` avoids
-this).
+Performance
+-----------
+One pass over the data in :func:`project` (a Householder QR update per 2000
+block-Hankel rows), then one pass per order in :func:`model_of_order` for
+``B, D`` (``n`` first-order filters run by :func:`scipy.signal.lfilter` on all
+inputs at once, and a QR of ``n m + m + n E + p`` feature columns: ``E``
+experiments). On the shared 2-core development machine (load 3-4 from other
+jobs), 2 inputs, 2 outputs, ``max_order=10`` (horizon 7): :func:`project` takes
+0.09 s for 1e5 samples and 0.9-1.0 s for 1e6 (linear in N);
+:func:`model_of_order` 0.01-0.09 s per order for 1e5 and 0.08 s (order 1) to
+0.3 s (order 5) to 0.5 s (order 8) for 1e6. Working memory beyond the log:
+about 14 MB for :func:`project`, 20 MB for :func:`model_of_order`, whatever N.
+All these QR updates are narrow (tens of columns): a multi-threaded OpenBLAS
+spends more time synchronising than computing on them, and on a busy machine
+was 5-20x slower; the loops therefore run with one BLAS thread (through
+``threadpoolctl``).
 """
 
 from __future__ import annotations
 
+import contextlib
 import math
 import warnings
 from collections.abc import Mapping, Sequence
@@ -52,7 +62,7 @@ from .errors import (
     UnstableModelWarning,
 )
 from .models import StateSpaceModel
-from .simulate import simulate_states
+from .simulate import _chunks as _simulate_chunks
 
 __all__ = [
     "WEIGHTINGS",
@@ -84,7 +94,15 @@ MAX_ORDER_LIMIT = 200
 _CHUNK_COLUMNS = 20_000
 
 #: Samples per chunk of the least-squares problem for B, D and the initial states.
-_BD_CHUNK = 20_000
+_BD_CHUNK = 1 << 15
+
+#: Largest condition number of the eigenvector matrix of ``A`` for which B, D
+#: are fitted in the eigenbasis (fewer features); above it, in the Schur basis.
+_MODAL_COND = 1e6
+
+#: Level (relative to 1 at the start) below which a free modal response is
+#: treated as zero in the B, D fit.
+_FREE_FLOOR = 1e-30
 
 #: Rows absorbed per Householder QR update (small enough to stay in cache).
 _QR_STEP = 2_000
@@ -332,6 +350,26 @@ class SubspaceResult:
 # --------------------------------------------------------------------------- helpers
 
 
+_BLAS_CONTROLLER: Any = None
+
+
+def _one_blas_thread() -> contextlib.AbstractContextManager:
+    """Limit BLAS/LAPACK to one thread for the many small QR updates.
+
+    A multi-threaded OpenBLAS spends more time synchronising than computing
+    on factorisations this narrow, and on a busy machine it can be 5-20x
+    slower. Uses ``threadpoolctl`` when it is installed; else does nothing.
+    """
+    global _BLAS_CONTROLLER
+    if _BLAS_CONTROLLER is None:
+        try:
+            from threadpoolctl import ThreadpoolController
+        except ImportError:  # pragma: no cover - optional dependency
+            return contextlib.nullcontext()
+        _BLAS_CONTROLLER = ThreadpoolController()  # finds the loaded BLAS libraries once
+    return _BLAS_CONTROLLER.limit(limits=1, user_api="blas")
+
+
 def default_horizon(order: int, n_outputs: int) -> int:
     """Horizon chosen when none is given.
 
@@ -571,7 +609,8 @@ def project(
             hint="lower the order, or use a longer log",
         )
 
-    R = _accumulate_r(experiments, i, chunk_columns)
+    with _one_blas_thread():
+        R = _accumulate_r(experiments, i, chunk_columns)
     idx = _index(m, p, i)
     # per-signal RMS from the diagonal of H H^T = R^T R
     energy = np.sum(R * R, axis=0) / n_columns
@@ -696,101 +735,177 @@ def _fit_bd_simulation(
     """B, D and initial states minimising the weighted free-run output error.
 
     ``y[k] = C A^k x0 + sum_t C A^{k-1-t} B u[t] + D u[k]`` is linear in
-    ``(B, D, x0)``. The regressor of ``B[j, l]`` for output ``i`` is the state
-    ``j`` of ``z[k+1] = A^T z[k] + C_i^T u_l[k]``; that of ``x0`` is
-    ``(A^T)^k C_i^T``. The stacked problem is reduced chunk by chunk with QR.
+    ``(B, D, x0)``. Every regressor of every output is a fixed linear
+    combination of a few *features* ``Psi`` (the inputs filtered through the
+    dynamics of ``A``, the inputs themselves, the free responses and the
+    outputs). One pass over the data reduces ``Psi`` (``N`` rows, ``q``
+    columns) to its R factor by chunked Householder QR; since
+    ``||Psi v|| = ||R v||``, the stacked least-squares problem over all outputs
+    then shrinks to ``p q`` rows with the same solution.
     """
     n, p, m, E = A.shape[0], C.shape[0], experiments[0].n_inputs, len(experiments)
-    nb, nd = n * m, p * m
-    width = nb + nd + n * E + 1
-    R = np.zeros((width, width))
     lam, V = linalg.eig(A)
     with np.errstate(all="ignore"):
         cond = np.linalg.cond(V)
-    modal = bool(np.all(np.isfinite(lam)) and np.isfinite(cond) and cond < 1e6)
-    for e, exp in enumerate(experiments):
-        if modal:
-            blocks = _regressors_modal(lam, V, C, exp)
-        else:
-            blocks = _regressors_recursive(A, C, exp)
-        for k0, k1, phi_b, phi_x0 in blocks:
-            L = k1 - k0
-            phi = np.zeros((p, L, width))
-            phi[:, :, :nb] = phi_b
-            for i in range(p):
-                phi[i, :, nb + i * m : nb + (i + 1) * m] = exp.u[k0:k1]
-            phi[:, :, nb + nd + e * n : nb + nd + (e + 1) * n] = phi_x0
-            phi[:, :, -1] = exp.y[k0:k1].T
-            phi *= output_weight[:, None, None]
-            R = _qr_absorb(R, phi.reshape(p * L, width))
-    theta, *_ = linalg.lstsq(R[:-1, :-1], R[:-1, -1], lapack_driver="gelsd")
+    if bool(np.isfinite(cond) and cond < _MODAL_COND and _conjugate_pairs_adjacent(lam)):
+        map_b, map_x0, chunks = _features_modal(lam, V, C, m)
+    else:
+        map_b, map_x0, chunks = _features_schur(A, C, m)
+    # columns of Psi: [filtered inputs, input-major (nf) | u (m) | free (nx0 per experiment) | y (p)]
+    per_input, nx0 = map_b.shape[1], map_x0.shape[1]
+    nf = per_input * m
+    q = nf + m + nx0 * E + p
+    R = np.zeros((q, q))
+    with _one_blas_thread():
+        for e, exp in enumerate(experiments):
+            c0 = nf + m + e * nx0
+            for k0, k1, filtered, free in chunks(exp):
+                psi = np.zeros((k1 - k0, q))
+                psi[:, :nf] = filtered
+                psi[:, nf : nf + m] = exp.u[k0:k1]
+                if free is not None:
+                    psi[:, c0 : c0 + nx0] = free
+                psi[:, q - p :] = exp.y[k0:k1]
+                R = _qr_absorb(R, psi)
+    # the rows of output i in the reduced problem: w_i R (P_i theta - e_{y_i})
+    nb, nd = n * m, p * m
+    width = nb + nd + n * E
+    big = np.zeros((p, q, width))
+    rhs = np.zeros((p, q))
+    for i in range(p):
+        P = np.zeros((q, width))
+        for l_ in range(m):
+            # theta[j * m + l] = B[j, l] (row-major B)
+            P[l_ * per_input : (l_ + 1) * per_input, l_:nb:m] = map_b[i]
+            P[nf + l_, nb + i * m + l_] = 1.0
+        for e in range(E):
+            P[nf + m + e * nx0 : nf + m + (e + 1) * nx0, nb + nd + e * n : nb + nd + (e + 1) * n] = (
+                map_x0[i]
+            )
+        big[i] = output_weight[i] * (R @ P)
+        rhs[i] = output_weight[i] * R[:, q - p + i]
+    theta, *_ = linalg.lstsq(big.reshape(p * q, width), rhs.reshape(-1), lapack_driver="gelsd")
     B = theta[:nb].reshape(n, m)
     D = theta[nb : nb + nd].reshape(p, m)
     x0 = tuple(theta[nb + nd + e * n : nb + nd + (e + 1) * n].copy() for e in range(E))
     return B, D, x0
 
 
-def _regressors_modal(lam: np.ndarray, V: np.ndarray, C: np.ndarray, exp: Experiment):
-    """Chunks of the B and x0 regressors computed in the eigenbasis of ``A``.
+def _conjugate_pairs_adjacent(lam: np.ndarray) -> bool:
+    """Check that every complex eigenvalue is followed by its exact conjugate (LAPACK order)."""
+    if not np.all(np.isfinite(lam)):
+        return False
+    s = 0
+    while s < lam.size:
+        if lam[s].imag == 0.0:
+            s += 1
+        elif s + 1 < lam.size and lam[s].imag > 0 and lam[s + 1] == np.conj(lam[s]):
+            s += 2
+        else:
+            return False
+    return True
 
-    With ``A = V diag(lam) V^{-1}`` and ``f_{l,s}[k+1] = lam_s f_{l,s}[k] + u_l[k]``
+
+def _features_modal(lam: np.ndarray, V: np.ndarray, C: np.ndarray, m: int):
+    """Features of :func:`_fit_bd_simulation` in the eigenbasis of ``A`` (well conditioned).
+
+    With ``A = V diag(lam) V^{-1}`` and ``f_{l,s}[k+1] = lam_s f_{l,s}[k] + u_l[k]``,
     the regressor of ``B[j, l]`` for output ``i`` is
-    ``Re sum_s f_{l,s}[k] (C V)[i, s] V^{-1}[s, j]`` and that of ``x0[j]`` is
-    ``Re sum_s lam_s^k (C V)[i, s] V^{-1}[s, j]``.
+    ``Re sum_s f_{l,s}[k] M_i[s, j]`` with ``M_i[s, j] = (C V)[i, s] V^{-1}[s, j]``,
+    and that of ``x0[j]`` is ``Re sum_s lam_s^k M_i[s, j]``. A conjugate pair
+    needs one complex filter, whose real and imaginary parts are two real
+    features (``f_{s+1} = conj(f_s)``). So there are ``n`` real features per
+    input and ``n`` per experiment, whatever ``p``; each chunk costs one
+    :func:`scipy.signal.lfilter` call per real pole or pair (all inputs at once).
+
+    Returns ``(map_b, map_x0, chunks)``: ``map_b[i]`` (shape (n, n)) maps the
+    features of one input to the regressors of ``B[:, l]`` for output ``i``;
+    ``chunks(exp)`` yields ``(k0, k1, filtered, free)``.
     """
-    n, p, m = lam.size, C.shape[0], exp.n_inputs
-    Vinv = linalg.inv(V)
+    n = lam.size
     CV = C @ V
-    M = CV[:, :, None] * Vinv[None, :, :]  # (p, n, n)
-    zi = np.zeros((m, n), dtype=complex)
-    N = exp.n_samples
-    for k0 in range(0, N, _BD_CHUNK):
-        k1 = min(N, k0 + _BD_CHUNK)
-        L = k1 - k0
-        phi_b = np.empty((p, L, n * m))
-        for l_ in range(m):
-            F = np.empty((L, n), dtype=complex)
-            for s in range(n):
-                F[:, s], zf = signal.lfilter(
-                    [0.0, 1.0], [1.0, -lam[s]], exp.u[k0:k1, l_], zi=zi[l_, s : s + 1]
-                )
-                zi[l_, s] = zf[0]
-            for i in range(p):
-                phi_b[i, :, l_::m] = np.real(F @ M[i])
-        if k0 == 0 or np.max(np.abs(lam)) ** k0 > 1e-300:
-            with np.errstate(under="ignore"):
-                G = lam[None, :] ** np.arange(k0, k1)[:, None]  # (L, n)
-            phi_x0 = np.stack([np.real(G @ M[i]) for i in range(p)])
-        else:  # the free response has decayed below the smallest normal float
-            phi_x0 = np.zeros((p, L, n))
-        yield k0, k1, phi_b, phi_x0
+    Vinv = linalg.inv(V)
+    # f_s = sum_r T[s, r] g_r with g the real features
+    T = np.zeros((n, n), dtype=complex)
+    reps: list[tuple[int, bool]] = []  # (mode, complex pair?)
+    s = 0
+    while s < n:
+        if lam[s].imag == 0.0:
+            T[s, s] = 1.0
+            reps.append((s, False))
+            s += 1
+        else:  # a pair, adjacent, positive imaginary part first (checked by the caller)
+            T[s, s], T[s, s + 1] = 1.0, 1j
+            T[s + 1, s], T[s + 1, s + 1] = 1.0, -1j
+            reps.append((s, True))
+            s += 2
+    maps = np.stack([np.real(T.T @ (CV[i][:, None] * Vinv)) for i in range(C.shape[0])])
+
+    def chunks(exp: Experiment):
+        N = exp.n_samples
+        state = [np.zeros((1, m), dtype=complex if pair else float) for _, pair in reps]
+        # lam^k = exp(k log lam): a zero pole gives log 0 = -inf, exp(-inf) = 0 for k >= 1
+        with np.errstate(under="ignore", divide="ignore", invalid="ignore"):
+            log_lam = np.log(lam)
+            base = np.exp(np.arange(min(N, _BD_CHUNK))[:, None] * log_lam[None, :])
+        base[0] = 1.0
+        decayed = False
+        for k0 in range(0, N, _BD_CHUNK):
+            k1 = min(N, k0 + _BD_CHUNK)
+            filtered = np.empty((k1 - k0, m, n))  # (sample, input, feature)
+            free = None
+            if not decayed:
+                with np.errstate(under="ignore"):
+                    powers = base[: k1 - k0] * lam[None, :] ** k0  # lam^k, 2 roundings
+                free = np.empty((k1 - k0, n))
+                # below 1e-30 of its start the free response adds nothing to R (its
+                # squares are far below rounding): treat it as zero from here on
+                decayed = bool(np.all(np.abs(powers[-1]) < _FREE_FLOOR))
+            for (s, pair), zi in zip(reps, state, strict=True):
+                pole = lam[s] if pair else lam[s].real
+                out, zi[...] = signal.lfilter([0.0, 1.0], [1.0, -pole], exp.u[k0:k1], axis=0, zi=zi)
+                filtered[:, :, s] = out.real
+                if free is not None:
+                    free[:, s] = powers[:, s].real
+                if pair:
+                    filtered[:, :, s + 1] = out.imag
+                    if free is not None:
+                        free[:, s + 1] = powers[:, s].imag
+            yield k0, k1, filtered.reshape(k1 - k0, m * n), free
+
+    return maps, maps, chunks
 
 
-def _regressors_recursive(A: np.ndarray, C: np.ndarray, exp: Experiment):
-    """Compute the regressors of :func:`_regressors_modal` by state recursion (defective A)."""
-    n, p, m = A.shape[0], C.shape[0], exp.n_inputs
-    forced = [
-        StateSpaceModel(A=A.T, B=C[i][:, None], C=np.eye(n), D=np.zeros((n, 1)), sample_time=1.0)
-        for i in range(p)
-    ]
-    z_carry = np.zeros((p, m, n))
-    f_carry = C.copy()
-    N = exp.n_samples
-    for k0 in range(0, N, _BD_CHUNK):
-        k1 = min(N, k0 + _BD_CHUNK)
-        L = k1 - k0
-        phi_b = np.empty((p, L, n * m))
-        phi_x0 = np.empty((p, L, n))
-        zero_in = np.zeros((L, 1))
-        for i in range(p):
-            for l_ in range(m):
-                Z = simulate_states(forced[i], exp.u[k0:k1, l_ : l_ + 1], z_carry[i, l_])
-                z_carry[i, l_] = A.T @ Z[-1] + C[i] * exp.u[k1 - 1, l_]
-                phi_b[i, :, l_::m] = Z
-            F = simulate_states(forced[i], zero_in, f_carry[i])
-            f_carry[i] = A.T @ F[-1]
-            phi_x0[i] = F
-        yield k0, k1, phi_b, phi_x0
+def _features_schur(A: np.ndarray, C: np.ndarray, m: int):
+    """Features of :func:`_fit_bd_simulation` for any ``A`` (defective or nearly so).
+
+    The regressor of ``B[j, l]`` for output ``i`` is state ``j`` of
+    ``z[k+1] = A^T z[k] + C_i^T u_l[k]`` and that of ``x0[j]`` state ``j`` of
+    ``z[k+1] = A^T z[k]``, ``z[0] = C_i^T``. All outputs are simulated at once
+    (``p`` copies of ``A^T`` on the diagonal) by :mod:`ident.simulate`, whose
+    complex Schur basis is stable for repeated poles: ``m + 1`` runs of ``p n``
+    states, ``p n`` features per input and per experiment (not shared by the
+    outputs, unlike the modal features).
+    """
+    n, p = A.shape[0], C.shape[0]
+    big_a = np.kron(np.eye(p), A.T)
+    drive = C.reshape(p * n, 1)  # stacked C_i^T
+    map_ = np.zeros((p, p * n, n))
+    for i in range(p):
+        map_[i, i * n : (i + 1) * n] = np.eye(n)
+
+    def chunks(exp: Experiment):
+        N = exp.n_samples
+        runs = [
+            _simulate_chunks(big_a, drive, exp.u[:, l_ : l_ + 1], np.zeros(p * n))
+            for l_ in range(m)
+        ]
+        runs.append(_simulate_chunks(big_a, drive, np.zeros((N, 1)), drive[:, 0]))
+        for parts in zip(*runs, strict=True):
+            k0, k1 = parts[0][0], parts[0][1]
+            yield k0, k1, np.concatenate([x for _, _, x in parts[:m]], axis=1), parts[m][2]
+
+    return map_, map_, chunks
 
 
 def _state_sequences(
@@ -848,7 +963,7 @@ def model_of_order(
     input_names: Sequence[str] | None = None,
     output_names: Sequence[str] | None = None,
 ) -> SubspaceResult:
-    """Build the model of one order from a projection (cheap: one pass for ``B, D``).
+    """Build the model of one order from a projection (one data pass for ``B, D``).
 
     Parameters
     ----------
@@ -893,8 +1008,16 @@ def model_of_order(
     ``C`` is its first block row and ``A`` solves
     ``Gamma_i[p:] = Gamma_i[:-p] A`` in least squares (shift invariance).
     ``B``, ``D`` and one initial state per experiment minimise the
-    free-run output error, each output weighted by the inverse of its RMS;
-    this problem is linear in them and is reduced chunk by chunk by QR. When
+    free-run output error, each output weighted by the inverse of its RMS.
+    This problem is linear in them: every regressor is a fixed combination of
+    features shared by all outputs (the inputs filtered through the ``n``
+    modes of ``A``, the inputs, the free modal responses; for a defective or
+    nearly defective ``A`` the Schur-basis simulations of
+    :mod:`ident.simulate`), whose R factor is accumulated in one pass; the
+    reduced problem has ``p q`` rows for ``q`` features. The cost is this
+    one pass, about ``2 N q^2`` flops plus ``n`` filters of the inputs
+    (0.1-0.5 s per order for 1e6 samples, 2 inputs and outputs, orders 1-8);
+    the rest is independent of ``N``. When
     ``A`` has a pole on or outside the unit circle (and is not stabilised),
     ``B`` and ``D`` come instead from the state-sequence regression
     ``[X_{i+1}; Y_i] - [A; C] X_i = [B; D] U_i`` [1]_.
