@@ -237,6 +237,21 @@ def _validation(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     return _section("validation", "Validation on held-out data", *parts)
 
 
+def _complex_text(value: Any, *, pair: bool = False) -> str:
+    """``[re, im]`` (as in summary.json) as text; a pair as ``re ± |im|j``."""
+    if isinstance(value, Sequence) and not isinstance(value, str) and len(value) == 2:
+        try:
+            re, im = float(value[0]), float(value[1])
+        except (TypeError, ValueError):
+            return _num(None)
+        if pair:
+            return f"{re:.4f} ± {abs(im):.4f}j"
+        if im == 0.0:
+            return f"{re:.4g}"
+        return f"{re:.4g} {'+' if im >= 0 else '−'} {abs(im):.4g}j"
+    return _num(value)
+
+
 def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     t = s["modes"]
     rows = []
@@ -244,15 +259,20 @@ def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
         kind = "pair" if m["is_pair"] else "real"
         if m["multiplicity"] > 1:
             kind += f" ×{m['multiplicity']}"
-        rows.append((kind, _num(m["natural_frequency_hz"]), _num(m["damping_ratio"], ".3g"),
+        rows.append((kind, _complex_text(m.get("z"), pair=bool(m["is_pair"])),
+                     _num(m["natural_frequency_hz"]), _num(m["damping_ratio"], ".3g"),
                      _num(m["time_constant_s"]), _num(m["damped_frequency_hz"]),
+                     _num(m.get("period_s")),
                      (", ".join(m["flags"]) or "–", "bad" if m["flags"] else "")))
     parts = [
         _p(f"{t['n_states']} states, sample time {_num(t['sample_time'])} s; poles mapped to continuous "
            "time by s = ln(z)/T. Flags that fail the run: " + (", ".join(t.get("fail_on", [])) or "none") + "."),
-        _table(("mode", "natural frequency [Hz]", "damping ratio", "time constant [s]", "damped frequency [Hz]",
-                "flags"), rows),
+        _table(("mode", "pole z", "natural frequency [Hz]", "damping ratio", "time constant [s]",
+                "damped frequency [Hz]", "period [s]", "flags"), rows),
     ]
+    zeros = t.get("zeros") or []
+    zero_text = ", ".join(_complex_text(q) for q in zeros) if zeros else "none"
+    parts.append(_p(f"Transmission zeros (z-plane): {zero_text}."))
     if t.get("warnings"):
         parts.append(_Raw("<h3>Warnings</h3>"))
         parts.append(_ul([f"{k}: {v}" for k, v in t["warnings"].items()], cls="warnings"))

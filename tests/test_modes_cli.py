@@ -180,3 +180,64 @@ def test_plot_function_draws_on_given_axes(resonant_file):
 def test_missing_model_file_exits_2(run_cli, tmp_path):
     result = run_cli("modes", tmp_path / "nope.json")
     assert result.exit_code == 2
+
+
+def test_text_shows_s_and_natural_frequency_in_rad_per_s(run_cli, resonant_file):
+    out = run_cli("modes", resonant_file, "--log-duration", "10").stdout
+    assert "s = ln(z)/T [1/s]" in out and "omega_n [rad/s]" in out
+    lines = out.splitlines()
+    wn = 2 * math.pi * 32.0
+    s = complex(-0.01 * wn, wn * math.sqrt(1 - 0.01**2))  # built from s, closed form
+    pair_row = [ln for ln in lines if "±" in ln and "j" in ln and "near" not in ln][0]
+    assert f"{s.real:.4g} ± {s.imag:.4g}j" in pair_row
+    # the negative real pole -0.6 has no s: shown as "-"
+    neg_row = [ln for ln in lines if "-0.6000" in ln][0]
+    assert neg_row.split()[4] == "-" and "negative_real" in neg_row
+    phys_header = [ln for ln in lines if "omega_n [rad/s]" in ln][0]
+    phys = lines[lines.index(phys_header) + 1:]
+    assert any(f"{wn:.4g}" in ln and "32" in ln for ln in phys)
+    table_lines = lines[lines.index("") + 1: lines.index("DC gain [output unit / input unit]:")]
+    assert max(len(ln) for ln in table_lines) <= 100
+
+
+def test_negative_real_angle_option(run_cli, tmp_path):
+    # pole pair at angle pi - 0.1 rad, radius 0.5: outside the default 0.05 rad, inside 0.2
+    z = 0.5 * cmath.exp(1j * (math.pi - 0.1))
+    path = tmp_path / "neg.json"
+    save_model(path, _model([z, z.conjugate(), 0.9]))
+    assert run_cli("modes", path, "--fail-on", "negative_real").exit_code == 0
+    assert run_cli("modes", path, "--fail-on", "negative_real",
+                   "--negative-real-angle", "0.2").exit_code == 3
+    bad = run_cli("modes", path, "--negative-real-angle", "2.0")
+    assert bad.exit_code == 2 and "negative_real_angle_tolerance_rad" in bad.stderr
+
+
+def test_confidence_level_option(run_cli, tmp_path):
+    # poles 0.99 and 0.5 with std 0.005 per axis: the P = 0.5 region of 0.99 stays inside
+    # |z| = 1, the P = 0.999 one crosses it (chi-square(2) radius sqrt(-2 ln(1 - P)) * 0.005:
+    # 0.0059 and 0.0186; closed form)
+    model = _model([0.99, 0.5])
+    path = tmp_path / "cov.json"
+    cov = [[[2.5e-5, 0.0], [0.0, 2.5e-5]]] * 2
+    save_model(path, model, provenance={"estimation": {"pole_covariance": cov}})
+    args = ("modes", path, "--fail-on", "uncertain_stability", "--log-duration", "100")
+    assert run_cli(*args, "--confidence-level", "0.5").exit_code == 0
+    assert run_cli(*args, "--confidence-level", "0.999").exit_code == 3
+    assert run_cli(*args, "--confidence-level", "1.5").exit_code == 2
+
+
+def test_plot_refuses_existing_file_before_printing(run_cli, resonant_file, tmp_path):
+    png = tmp_path / "poles.png"
+    png.write_bytes(b"keep me")
+    result = run_cli("modes", resonant_file, "--plot", png)
+    assert result.exit_code == 2 and "already exists" in result.stderr
+    assert result.stdout == ""
+    assert png.read_bytes() == b"keep me"
+
+
+def test_unknown_log_duration_is_reported_on_stderr(run_cli, clean_file):
+    result = run_cli("modes", clean_file)
+    assert "slow_for_log not checked: log duration unknown (use --log-duration)" in result.stderr
+    assert "slow_for_log not checked" not in result.stdout
+    known = run_cli("modes", clean_file, "--log-duration", "30")
+    assert "slow_for_log not checked" not in known.stderr

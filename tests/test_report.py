@@ -167,3 +167,28 @@ def test_render_marks_failures_and_skips_missing_figures(run):
     start = text.index('class="verdict bad"')
     assert "FAILED" in text[start:start + 200]
     assert '<td class="bad">FAIL</td>' in text
+
+
+def _modes_section(text: str) -> str:
+    return text[text.index('id="modes"'):text.index('id="expectations"')]
+
+
+def test_mode_table_shows_z_period_and_zeros(run):
+    result, text = run
+    section = _modes_section(text)
+    for header in ("pole z", "period [s]", "Transmission zeros (z-plane):"):
+        assert header in section
+    modes = result.summary["modes"]
+    pair = [m for m in modes["modes"] if m["is_pair"]][0]
+    re, im = pair["z"]
+    assert f"{re:.4f} ± {abs(im):.4f}j" in section
+    assert f"{pair['period_s']:.4g}" in section
+    # zeros written as stored in summary.json; injected values are escaped like any other string
+    summary = copy.deepcopy(result.summary)
+    summary["modes"]["zeros"] = [[0.5, 0.0], [-0.25, 0.125], [-0.25, -0.125]]
+    summary["modes"]["modes"][0]["z"] = ["<b>", 0.0]
+    edited = _modes_section(render_report(summary, {}))
+    assert "Transmission zeros (z-plane): 0.5, -0.25 + 0.125j, -0.25 − 0.125j." in edited
+    assert "<b>" not in edited
+    summary["modes"]["zeros"] = []
+    assert "Transmission zeros (z-plane): none." in _modes_section(render_report(summary, {}))

@@ -266,8 +266,9 @@ def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple) -> 
         for j, iname in enumerate(report.inputs):
             jobs.append((target / f"response_{_safe(iname)}_to_{_safe(oname)}.png",
                          lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j)))
-    for path, _ in jobs:  # refuse before writing anything
-        check_output_path(path, force=force, protected=protected)
+    if target.is_dir():
+        for path, _ in jobs:  # refuse before writing anything
+            check_output_path(path, force=force, protected=protected)
     target.mkdir(parents=True, exist_ok=True)
     written = []
     for path, make in jobs:

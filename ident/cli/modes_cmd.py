@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import click
@@ -47,6 +48,12 @@ _FLAG_CHOICES = (
               help="Flag poles with |z| within this of 1 as marginal (and at z = 1 as integrators).")
 @click.option("--stability-tolerance", type=float, default=1e-6, show_default=True,
               help="Flag poles with |z| > 1 + this as unstable.")
+@click.option("--negative-real-angle", "negative_real_angle_tolerance_rad", type=float, default=0.05,
+              show_default=True, metavar="RAD",
+              help="Flag poles whose angle is within this many radians of pi as negative_real.")
+@click.option("--confidence-level", type=float, default=0.95, show_default=True, metavar="P",
+              help="Probability content of the pole confidence region (used when the model file "
+                   "holds a pole covariance); flag uncertain_stability when it crosses |z| = 1.")
 def modes(
     model_path: str,
     as_json: bool,
@@ -61,6 +68,8 @@ def modes(
     cancellation_distance: float,
     marginal_tolerance: float,
     stability_tolerance: float,
+    negative_real_angle_tolerance_rad: float,
+    confidence_level: float,
 ) -> None:
     """Tabulate the poles of MODEL (a model file) in physical units and flag implausible ones.
 
@@ -70,6 +79,7 @@ def modes(
 
     Exit status: 0 ok; 2 bad input; 3 an expectation failed or a --fail-on flag is present.
     """
+    # An existing --plot file is refused (below) before anything is printed.
     from ..io.atomic import check_output_path
     from ..io.modelfile import load_model
     from ..modes import ModeThresholds, mode_table, mode_table_to_dict
@@ -90,9 +100,13 @@ def modes(
         nyquist_fraction=nyquist_fraction,
         log_duration_fraction=log_duration_fraction,
         cancellation_distance=cancellation_distance,
+        negative_real_angle_tolerance_rad=negative_real_angle_tolerance_rad,
+        confidence_level=confidence_level,
     )
     if log_duration_s is None:
         log_duration_s = log_duration_from_provenance(loaded.provenance, model.sample_time)
+    if log_duration_s is None:
+        click.echo("slow_for_log not checked: log duration unknown (use --log-duration)", err=True)
     covariance = pole_covariance_from_provenance(loaded.provenance, model.n_states)
     table = mode_table(
         model, thresholds=thresholds, log_duration_s=log_duration_s, pole_covariance=covariance
@@ -213,6 +227,56 @@ def _z_text(z: complex, is_pair: bool) -> str:
     return f"{z.real:.4f}"
 
 
+def _s_text(s: complex | None, is_pair: bool) -> str:
+    if s is None:
+        return "-"
+    if is_pair:
+        return f"{s.real:.4g} ± {abs(s.imag):.4g}j"
+    return f"{s.real:.4g}"
+
+
+def _columns(header: tuple[str, ...], rows: list[tuple[str, ...]], right: set[int]) -> list[str]:
+    widths = [max(len(r[i]) for r in [header, *rows]) for i in range(len(header))]
+    out = []
+    for r in [header, *rows]:
+        cells = [c.rjust(w) if i in right else c.ljust(w)
+                 for i, (c, w) in enumerate(zip(r, widths, strict=True))]
+        out.append("  ".join(cells).rstrip())
+    return out
+
+
+def _pole_block(table) -> list[str]:
+    """Poles: z, |z|, the continuous-time equivalent s = ln(z)/T, and the flags."""
+    header = ("", "#", "z", "|z|", "s = ln(z)/T [1/s]", "flags")
+    rows = []
+    for k, m in enumerate(table.modes, start=1):
+        z_text = _z_text(m.z, m.is_pair)
+        if m.multiplicity > 1:
+            z_text += f" (x{m.multiplicity})"
+        rows.append(("!" if m.flags else "", str(k), z_text, f"{abs(m.z):.4f}",
+                     _s_text(m.s, m.is_pair), ", ".join(m.flags)))
+    return _columns(header, rows, right={1, 3})
+
+
+def _physical_block(table) -> list[str]:
+    """Modes in physical units: natural frequency (rad/s and Hz), damping, time constant, period."""
+    header = ("", "#", "omega_n [rad/s]", "f_n [Hz]", "zeta [-]", "tau [s]", "f_d [Hz]", "period [s]")
+    rows = []
+    for k, m in enumerate(table.modes, start=1):
+        std_hz = m.natural_frequency_std_hz
+        rows.append((
+            "!" if m.flags else "",
+            str(k),
+            _num(m.natural_frequency_rad_s) + _pm(None if std_hz is None else 2 * math.pi * std_hz, ".2g"),
+            _num(m.natural_frequency_hz) + _pm(std_hz, ".2g"),
+            _num(m.damping_ratio, ".3g") + _pm(m.damping_ratio_std, ".2g"),
+            _num(m.time_constant_s),
+            _num(m.damped_frequency_hz),
+            _num(m.period_s),
+        ))
+    return _columns(header, rows, right={1, 2, 3, 4, 5, 6, 7})
+
+
 def modes_text(table, *, model_path: str | None = None, units=None) -> str:
     """Format the mode table as text: header, one row per mode, DC gain, zeros, warnings."""
     T = table.sample_time
@@ -223,30 +287,10 @@ def modes_text(table, *, model_path: str | None = None, units=None) -> str:
     if table.log_duration_s is not None:
         lines.append(f"log duration {table.log_duration_s:.4g} s")
     lines.append("")
-    header = ("", "#", "z", "|z|", "f_n [Hz]", "zeta [-]", "tau [s]", "f_d [Hz]", "period [s]", "flags")
-    rows = []
-    for k, m in enumerate(table.modes, start=1):
-        z_text = _z_text(m.z, m.is_pair)
-        if m.multiplicity > 1:
-            z_text += f" (x{m.multiplicity})"
-        rows.append((
-            "!" if m.flags else "",
-            str(k),
-            z_text,
-            f"{abs(m.z):.4f}",
-            _num(m.natural_frequency_hz) + _pm(m.natural_frequency_std_hz, ".2g"),
-            _num(m.damping_ratio, ".3g") + _pm(m.damping_ratio_std, ".2g"),
-            _num(m.time_constant_s),
-            _num(m.damped_frequency_hz),
-            _num(m.period_s),
-            ", ".join(m.flags),
-        ))
-    if rows:
-        widths = [max(len(r[i]) for r in [header, *rows]) for i in range(len(header))]
-        right = {1, 3, 4, 5, 6, 7, 8}
-        for r in [header, *rows]:
-            cells = [c.rjust(w) if i in right else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths, strict=True))]
-            lines.append("  ".join(cells).rstrip())
+    if table.modes:
+        lines.extend(_pole_block(table))
+        lines.append("")
+        lines.extend(_physical_block(table))
     else:
         lines.append("(no poles: a static gain)")
     lines.append("")

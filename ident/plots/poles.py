@@ -19,6 +19,8 @@ _ZERO = "#3d5a80"
 _OUTSIDE = "#fbeee6"
 _DAMPING_GRID = (0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9)
 _FREQ_FRACTIONS = tuple(k / 10 for k in range(1, 11))
+#: Half-width of the largest view [z-plane units]; zeros beyond it are listed in text.
+_MAX_REACH = 2.0
 
 
 def _damping_curve(zeta: float) -> np.ndarray:
@@ -78,7 +80,7 @@ def pole_zero_map(
     from matplotlib.patches import Circle
 
     if ax is None:
-        fig = Figure(figsize=(6.4, 6.4), dpi=100)
+        fig = Figure(figsize=(6.4, 6.4), dpi=100, layout="constrained")
         ax = fig.add_subplot(1, 1, 1)
     else:
         fig = ax.figure
@@ -86,8 +88,10 @@ def pole_zero_map(
     nyquist_hz = 0.5 / T
 
     all_pts = [m.z for m in table.modes] + [complex(q) for q in table.zeros]
-    reach = max([1.15] + [abs(p) * 1.1 for p in all_pts if np.isfinite(p)])
-    reach = min(reach, 3.0)
+    shown = [p for p in all_pts if np.isfinite(p) and abs(p) <= _MAX_REACH / 1.1]
+    reach = max([1.15] + [abs(p) * 1.1 for p in shown])
+    far_zeros = [complex(q) for q in table.zeros
+                 if not (np.isfinite(q) and abs(complex(q)) * 1.1 <= reach)]
     ax.set_facecolor(_OUTSIDE)
     ax.add_patch(Circle((0, 0), 1.0, facecolor="white", edgecolor="none", zorder=0))
 
@@ -103,8 +107,10 @@ def pole_zero_map(
         for sign in (1, -1):
             ax.plot(c.real, sign * c.imag, color=_GRID, lw=0.6, zorder=1)
         end = c[0]
-        ax.annotate(f"{frac * nyquist_hz:.3g} Hz", (end.real * 1.06, end.imag * 1.06), fontsize=6,
-                    color="#7b8a97", ha="center", va="center", zorder=2)
+        # Outside the circle, aligned away from it so the text never crosses the line.
+        ha = "right" if end.real < -0.3 else ("left" if end.real > 0.3 else "center")
+        ax.annotate(f"{frac * nyquist_hz:.3g} Hz", (end.real * 1.03, end.imag * 1.03 + 0.01),
+                    fontsize=6, color="#7b8a97", ha=ha, va="bottom", zorder=2)
     theta = np.linspace(0, 2 * math.pi, 400)
     ax.plot(np.cos(theta), np.sin(theta), color=_INK, lw=1.6, zorder=3)
     ax.axhline(0.0, color=_GRID, lw=0.6, zorder=1)
@@ -116,6 +122,7 @@ def pole_zero_map(
         ax.scatter(zr.real, zr.imag, s=46, facecolors="none", edgecolors=_ZERO, linewidths=1.4,
                    zorder=5, label="zero")
     drew = {"clean": False, "flagged": False}
+    placed: list[complex] = []
     for m in table.modes:
         colour = _FLAGGED if m.flags else _CLEAN
         kind = "flagged" if m.flags else "clean"
@@ -135,9 +142,15 @@ def pole_zero_map(
             text = f"{m.natural_frequency_hz:.3g} Hz"
             if m.is_pair and m.damping_ratio is not None:
                 text += f", ζ {m.damping_ratio:.2g}"
+            # Labels of poles close together are stacked instead of drawn over each other.
+            # Text runs towards the centre so it stays inside the axes near z = 1.
+            leftward = m.z.real > 0.5 * reach
+            crowd = sum(1 for q in placed
+                        if abs(q.imag - m.z.imag) < 0.08 * reach and abs(q.real - m.z.real) < 0.35 * reach)
+            placed.append(m.z)
             ax.annotate(text, (m.z.real, m.z.imag),
-                        xytext=(6, 6), textcoords="offset points", fontsize=7, color=colour,
-                        zorder=7)
+                        xytext=(-6 if leftward else 6, 6 + 9 * crowd), textcoords="offset points",
+                        ha="right" if leftward else "left", fontsize=7, color=colour, zorder=7)
 
     ax.set_xlim(-reach, reach)
     ax.set_ylim(-reach, reach)
@@ -154,4 +167,10 @@ def pole_zero_map(
     ax.set_title(title, fontsize=9, color=_INK, loc="left")
     if table.modes or table.zeros.size:
         ax.legend(loc="lower left", fontsize=7, frameon=False)
+    if far_zeros:
+        listed = ", ".join(f"{q.real:.3g}" if abs(q.imag) < 1e-12 else f"{q.real:.3g}{q.imag:+.3g}j"
+                           for q in far_zeros[:6])
+        more = f" (+{len(far_zeros) - 6} more)" if len(far_zeros) > 6 else ""
+        ax.text(0.99, 0.01, f"{len(far_zeros)} zero(s) outside the view: {listed}{more}",
+                transform=ax.transAxes, ha="right", va="bottom", fontsize=7, color=_ZERO)
     return fig

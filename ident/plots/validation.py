@@ -7,6 +7,7 @@ returns the figure. Nothing here changes global matplotlib state.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from typing import Any
 
@@ -19,6 +20,7 @@ __all__ = [
     "residual_correlations",
     "frequency_comparison",
     "verdict_card",
+    "MAX_VERDICTS",
     "FIGURES",
 ]
 
@@ -227,14 +229,41 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
     return fig
 
 
-def verdict_card(report: ValidationReport, *, ax: Any | None = None) -> Any:
+#: Largest number of verdicts listed on :func:`verdict_card`; the rest are counted.
+MAX_VERDICTS = 16
+#: Characters per line of a verdict before it wraps.
+_WRAP = 105
+#: Vertical space of one text line and the gap between verdicts [inch].
+_LINE_IN = 0.145
+_GAP_IN = 0.07
+_HEADER_IN = 0.42
+
+
+def _pick_verdicts(verdicts: Sequence[Any], limit: int) -> tuple[list[Any], int]:
+    """Choose the verdicts to list (failures first when too many) and count the rest."""
+    items = list(verdicts)
+    if len(items) <= limit:
+        return items, 0
+    failed = [i for i, v in enumerate(items) if not v.passed]
+    passed = [i for i, v in enumerate(items) if v.passed]
+    keep = sorted((failed + passed)[:limit])
+    return [items[i] for i in keep], len(items) - limit
+
+
+def verdict_card(report: ValidationReport, *, ax: Any | None = None,
+                 max_verdicts: int = MAX_VERDICTS) -> Any:
     """One-glance summary: fit bars per output beside the verdicts in plain words.
 
     Parameters
     ----------
     report : ValidationReport
     ax : matplotlib.axes.Axes, optional
-        Axes for the fit bars; the verdict text goes into the figure beside it.
+        Axes for the fit bars; the verdict text goes into the figure to its
+        right (leave room there). A new figure, sized to hold every listed
+        line, when omitted.
+    max_verdicts : int, default :data:`MAX_VERDICTS`
+        Verdicts listed at most; failed ones are kept first and the number left
+        out is written as "+N more".
 
     Returns
     -------
@@ -242,50 +271,90 @@ def verdict_card(report: ValidationReport, *, ax: Any | None = None) -> Any:
     """
     import textwrap
 
+    from matplotlib.transforms import ScaledTranslation, blended_transform_factory
+
     from ..diagnostics import DATA_TESTS
 
-    items = list(report.verdicts)[:16]
+    items, hidden = _pick_verdicts(report.verdicts, max_verdicts)
     wrapped = [
-        textwrap.fill(f"{_mark(v, DATA_TESTS)} {v.test}: {v.message}", 100) for v in items
+        textwrap.fill(f"{_mark(v, DATA_TESTS)} {v.test}: {v.message}", _WRAP,
+                      subsequent_indent="   ")
+        for v in items
     ]
-    rows = sum(1 + t.count("\n") for t in wrapped)
-    height = max(3.0, 0.9 + 0.16 * rows + 0.08 * len(items))
+    p = len(report.outputs)
+    n_lines = sum(1 + t.count("\n") for t in wrapped) + (1 if hidden else 0)
+    text_height = 0.2 + _HEADER_IN + _LINE_IN * n_lines + _GAP_IN * (len(items) + 1)
+    bar_height = 1.5 + 0.55 * p
     if ax is None:
         from matplotlib.figure import Figure
 
-        fig = Figure(figsize=(11.0, height), dpi=100)
-        ax = fig.add_axes((0.06, 0.6 / height, 0.24, 1.0 - 1.2 / height))
+        # Rounded up to a tenth of an inch so the pixel size is exact at any whole dpi.
+        height = math.ceil(10.0 * max(3.0, text_height, bar_height)) / 10.0
+        fig = Figure(figsize=(11.0, height), dpi=100,
+                     layout="constrained")
+        ax, text_ax = fig.subplots(1, 2, gridspec_kw={"width_ratios": (1.0, 2.9)})
+        text_ax.set_axis_off()
+        # x from the text column, y from the top of the figure (level with the legend).
+        anchor = blended_transform_factory(text_ax.transAxes, fig.transFigure)
+        x0, y0 = 0.0, 1.0
+        pad_in = 0.08
     else:
         fig = ax.figure
-        height = fig.get_figheight()
-    p = len(report.outputs)
+        anchor = ax.transAxes
+        x0, y0 = 1.12, 1.0
+        pad_in = 0.0
     y = np.arange(p)
     sim = np.clip(report.simulation_fit, -20, 100)
     pred = np.clip(report.prediction_fit, -20, 100)
     ax.barh(y + 0.2, sim, height=0.38, color=_SIM, label="simulation")
     ax.barh(y - 0.2, pred, height=0.38, color=_PRED,
             label=f"{report.prediction_steps}-step prediction")
+    for yy, vals, raw in ((y + 0.2, sim, report.simulation_fit),
+                          (y - 0.2, pred, report.prediction_fit)):
+        for yi, v, r in zip(yy, vals, raw, strict=True):
+            inside = v > 25
+            ax.text(v - 1.5 if inside else max(v, 0.0) + 1.5, yi, f"{r:.1f} %", fontsize=7,
+                    va="center", ha="right" if inside else "left",
+                    color="white" if inside else _INK)
     if report.options.min_fit is not None:
-        ax.axvline(report.options.min_fit, color=_BAD, lw=1.0, ls="--", label="required")
+        ax.axvline(report.options.min_fit, color=_BAD, lw=1.0, ls="--",
+                   label=f"required ({report.options.min_fit:g} %)")
     ax.set_yticks(y, list(report.outputs), fontsize=8)
+    ax.set_ylim(-0.7, p - 0.3)
     ax.set_xlim(min(0.0, float(min(sim.min(), pred.min()))), 100)
     ax.set_xlabel("fit [%]", fontsize=8)
-    ax.legend(fontsize=7, frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.16),
-              ncol=3)
+    # Above the bars, inside the figure: constrained layout makes room for it.
+    handles, labels = ax.get_legend_handles_labels()
+    order = sorted(range(len(labels)), key=lambda i: labels[i].startswith("required"))
+    ax.legend([handles[i] for i in order], [labels[i] for i in order], fontsize=7,
+              frameon=False, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=1,
+              borderaxespad=0.2)
     _style(ax)
+    ax.grid(False, axis="y")
+
     model_failed = sum(1 for v in report.verdicts if not v.passed and v.test not in DATA_TESTS)
     verdict = f"{model_failed} model test(s) failed" if model_failed else "model tests passed"
     if report.options.min_fit is not None or report.options.require_white:
         verdict += "; gates " + ("passed" if report.passed else "FAILED")
     good = report.passed and not model_failed
-    top = height - 0.35
-    fig.text(0.36, top / height, f"{report.n_samples} samples — {verdict}", fontsize=11,
-             color=_GOOD if good else _BAD, weight="bold", va="top")
-    top -= 0.45
+
+    def place(text: str, offset_in: float, **kw: Any) -> Any:
+        shift = ScaledTranslation(0.0, -(offset_in + pad_in), fig.dpi_scale_trans)
+        art = fig.text(x0, y0, text, transform=anchor + shift, va="top", ha="left", **kw)
+        art.set_in_layout(False)
+        return art
+
+    place(f"{report.n_samples} samples — {verdict}", 0.0, fontsize=11,
+          color=_GOOD if good else _BAD, weight="bold")
+    top = _HEADER_IN
     for v, text in zip(items, wrapped, strict=True):
         colour = _GOOD if v.passed else ("#9a6b00" if v.test in DATA_TESTS else _BAD)
-        fig.text(0.36, top / height, text, fontsize=7.5, va="top", color=colour)
-        top -= 0.16 * (1 + text.count("\n")) + 0.08
+        place(text, top, fontsize=7.5, color=colour)
+        top += _LINE_IN * (1 + text.count("\n")) + _GAP_IN
+    if hidden:
+        place(f"+{hidden} more verdict(s) not listed (passed ones first left out; "
+              "all are in the report and in --json)", top, fontsize=7.5, color=_INK,
+              style="italic")
     return fig
 
 
