@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import itertools
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, fields
 from typing import TYPE_CHECKING
 
@@ -36,7 +36,7 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 from scipy import linalg
 
-from ._validate import int_in_range, names_tuple, positive_float
+from ._validate import as_signal, int_in_range, names_tuple, positive_float
 from .data import Experiment, as_experiments
 
 if TYPE_CHECKING:
@@ -57,6 +57,8 @@ __all__ = [
     "ArxCandidate",
     "ArxSweep",
     "fit_arx",
+    "fit_arx_candidates",
+    "iter_arx_candidates",
     "sweep_arx",
     "arx_regressors",
     "arx_state_space",
@@ -75,8 +77,9 @@ _WARN_TOL = 1e-7
 #: over outputs) is a numerically exact fit; criteria use this floor instead,
 #: so exact fits tie and the tie goes to the model with fewer parameters.
 _EXACT_FIT_LOSS = 1e-20
-#: Target number of float64 values in one block of regression rows.
-_BLOCK_VALUES = 1 << 20
+#: Target number of float64 values in one block of regression rows (1 MiB: a
+#: block stays in a core's L2 cache while LAPACK factorises it).
+_BLOCK_VALUES = 1 << 17
 
 
 # --------------------------------------------------------------------------- options
@@ -216,6 +219,40 @@ class ArxResult:
     n_parameters: int
     criteria: Criteria
     delay: DelayEstimate | None = None
+
+    def simulate(self, u: np.ndarray, x0: np.ndarray | None = None) -> np.ndarray:
+        """Free-run output of the model driven by ``u``, by its difference equations.
+
+        Parameters
+        ----------
+        u : array_like, shape (N, m)
+            Input deviations from the operating point.
+        x0 : array_like, shape (n,), optional
+            Initial state in the coordinates of :attr:`model` (the observer
+            form of :func:`arx_state_space`); zero by default.
+
+        Returns
+        -------
+        numpy.ndarray, shape (N, p)
+            The same as ``ident.simulate.simulate(self.model, u, x0)`` up to
+            rounding, computed from the difference equations in real
+            arithmetic, ``O(N n)`` (a convolution and a banded triangular
+            solve per output), which is the fastest way to score a candidate
+            on a long log.
+        """
+        u = as_signal(u, "u", ndim=2)
+        m = len(self.nk)
+        if u.shape[1] != m:
+            raise OptionError(f"u must have {m} column(s) to match the model's inputs; "
+                              f"got {u.shape[1]}")
+        n = self.model.n_states
+        if x0 is None:
+            x0 = np.zeros(n)
+        else:
+            x0 = np.asarray(x0, dtype=float).ravel()
+            if x0.shape != (n,):
+                raise OptionError(f"x0 must have {n} entries; got {x0.size}")
+        return _arx_simulate(self.a, self.b, self.nk, u, x0)
 
     def transfer_function(self) -> TransferFunctionModel:
         """Return the p x m transfer-function matrix in descending powers of z.
@@ -365,11 +402,15 @@ def _accumulate_r(experiments: Sequence[Experiment], blocks: Sequence[_Block],
     """R factor (c x c) of the regression rows with targets; and the row count.
 
     With ``max_rows``, only the first ``max_rows`` rows (in experiment order) are used.
+    Each block of rows is written under the R factor so far into one
+    Fortran-ordered buffer, which LAPACK ``geqrf`` factorises in place (no
+    copies, no full-size triangular extraction).
     """
     c = sum(b.width for b in blocks)
-    chunk = max(4 * c, _BLOCK_VALUES // max(c, 1))
+    chunk = max(8 * c, _BLOCK_VALUES // max(c, 1))
     R = np.zeros((c, c))
-    buf = np.empty((c + chunk, c), order="F")
+    (geqrf,) = linalg.get_lapack_funcs(("geqrf",), (R,))
+    buf = np.empty((0, c), order="F")
     have = 0  # rows currently represented by R (capped at c)
     total = 0
     for exp in experiments:
@@ -381,13 +422,16 @@ def _accumulate_r(experiments: Sequence[Experiment], blocks: Sequence[_Block],
                 if k1 <= k0:
                     break
             rows = k1 - k0
+            if buf.shape[0] != have + rows:
+                buf = np.empty((have + rows, c), order="F")
             buf[:have] = R[:have]
-            _fill(buf[have:have + rows], exp, blocks, max_lag, k0, k1)
-            (r_new,) = linalg.qr(buf[:have + rows], mode="r", overwrite_a=True,
-                                 check_finite=False)
+            _fill(buf[have:], exp, blocks, max_lag, k0, k1)
+            qr, _, _, info = geqrf(buf, overwrite_a=True)
+            if info != 0:  # pragma: no cover - LAPACK argument errors cannot happen here
+                raise IdentificationError(f"QR factorisation failed (LAPACK info {info})")
             have = min(c, have + rows)
             R = np.zeros((c, c))
-            R[:have] = r_new[:have]
+            R[:have] = np.triu(qr[:have])
             total += rows
     return R, total
 
@@ -703,36 +747,233 @@ def fit_arx(data: Experiment | Sequence[Experiment], sample_time: float,
         options = ArxOptions()
     if not isinstance(options, ArxOptions):
         raise OptionError(f"options must be ArxOptions; got {type(options).__name__}")
+    (result,) = fit_arx_candidates(experiments, sample_time, (options,),
+                                   input_names=input_names, output_names=output_names)
+    return result
+
+
+def fit_arx_candidates(data: Experiment | Sequence[Experiment], sample_time: float,
+                       structures: Sequence[ArxOptions], *,
+                       input_names: Sequence[str] | None = None,
+                       output_names: Sequence[str] | None = None) -> tuple[ArxResult, ...]:
+    """Fit several ARX structures to the same data from one pass over the data.
+
+    Parameters
+    ----------
+    data : Experiment or sequence of Experiment
+        Input and output deviations from the operating point.
+    sample_time : float
+        Sample time in seconds.
+    structures : sequence of ArxOptions
+        The candidate structures. Those with ``nk=None`` share one delay
+        estimate (:func:`ident.delay.estimate_delay`, the smallest delay over
+        the outputs, as in :func:`fit_arx`).
+    input_names, output_names : sequence of str, optional
+        Signal names for the models and for messages.
+
+    Returns
+    -------
+    tuple of ArxResult
+        One per structure, in order; each equal (up to rounding) to
+        :func:`fit_arx` of that structure alone: same regression rows,
+        parameters, covariance, standard errors, loss and criteria.
+
+    Raises
+    ------
+    OptionError, IdentificationError
+        As :func:`fit_arx`, for the first structure that cannot be fitted.
+
+    Warns
+    -----
+    IllConditionedWarning, UnstableModelWarning
+        As :func:`fit_arx`, per structure.
+
+    See Also
+    --------
+    iter_arx_candidates : the same, one candidate at a time.
+
+    Notes
+    -----
+    The regressor columns of every structure (with its targets) are a subset
+    of one union matrix: input lags ``min(nk_j) .. max(nk_j + nb_j - 1)`` of
+    every input, output lags ``1 .. max(na)`` and the targets. That matrix is
+    factorised once, block by block, into a small R factor over the rows from
+    the largest lag ``L`` of all structures on. A structure with a smaller
+    largest lag ``L_s`` also owns the rows ``L_s .. L - 1`` of each
+    experiment: its own columns of the union R are stacked with those few rows
+    and re-factorised, which gives the R factor of exactly its own regression
+    (a QR factor is determined by the Gram matrix of the rows, up to row
+    signs). Every quantity of :func:`fit_arx` then follows from that small
+    factor, so a sweep over orders costs one pass over the data plus work
+    independent of the log length.
+
+    References
+    ----------
+    .. [1] L. Ljung, *System Identification: Theory for the User*, 2nd ed.,
+       Prentice Hall, 1999, sec. 10.1 (QR solution of linear regressions) and
+       sec. 16.4 (choice of model structure).
+    """
+    return tuple(iter_arx_candidates(data, sample_time, structures,
+                                     input_names=input_names, output_names=output_names))
+
+
+def iter_arx_candidates(data: Experiment | Sequence[Experiment], sample_time: float,
+                        structures: Sequence[ArxOptions], *,
+                        input_names: Sequence[str] | None = None,
+                        output_names: Sequence[str] | None = None) -> Iterator[ArxResult]:
+    """Fit several ARX structures from one pass over the data, one result at a time.
+
+    Arguments are validated (and a shared delay estimated) at the call; the
+    data are factorised when the first result is asked for, and each further
+    step solves one structure from the small factor. A structure that cannot
+    be fitted raises its :class:`OptionError` or :class:`IdentificationError`
+    at its own step, which ends the iteration; the warnings of a structure are
+    issued during its step, so a caller can record them per candidate.
+
+    Parameters and results are those of :func:`fit_arx_candidates`.
+
+    Returns
+    -------
+    iterator of ArxResult
+    """
+    experiments = as_experiments(data)
+    sample_time = positive_float(sample_time, "sample_time")
+    if isinstance(structures, ArxOptions):
+        structures = (structures,)
+    try:
+        structures = tuple(structures)
+    except TypeError:
+        raise OptionError(
+            f"structures must be a sequence of ArxOptions; got {type(structures).__name__}"
+        ) from None
+    if not structures:
+        raise OptionError("structures must hold at least one ArxOptions; got none")
+    for k, item in enumerate(structures):
+        if not isinstance(item, ArxOptions):
+            raise OptionError(f"structures[{k}] must be ArxOptions; got {type(item).__name__}")
     m, p = experiments[0].n_inputs, experiments[0].n_outputs
     in_names = names_tuple(input_names, "input_names", m, "u")
     out_names = names_tuple(output_names, "output_names", p, "y")
-    na = options.na
-    nb, nk = options.resolve(m)
+    resolved = [opt.resolve(m) for opt in structures]
     _check_outputs_are_not_inputs(experiments, in_names, out_names)
     delay = None
-    if nk is None:
+    estimated_nk = None
+    if any(nk is None for _, nk in resolved):
         from .delay import estimate_delay
 
         delay = estimate_delay(experiments)
-        nk = tuple(int(v) for v in delay.delays.min(axis=0))
-    d_out = na + sum(nb)
-    label = f"ARX(na={na}, nb={list(nb)}, nk={list(nk)})"
-    if d_out == 0:
-        raise OptionError(f"{label} has no parameters; set na > 0 or some nb > 0")
-    L = _max_lag(na, nb, nk)
-    n_rows = _rows_available(experiments, L)
-    if n_rows <= d_out:
-        total = sum(e.n_samples for e in experiments)
-        raise OptionError(
-            f"{label} has {d_out} parameters per output but the data give only {n_rows} "
-            f"regression rows ({total} samples minus the largest lag {L} per experiment); "
-            f"need more than {d_out}",
-            hint="lower na/nb/nk or use a longer log",
-        )
-    blocks = _blocks_for(na, nb, nk, range(p), u_first=True)
-    index = _layout(blocks)
-    R, n_rows = _accumulate_r(experiments, blocks, L)
+        estimated_nk = tuple(int(v) for v in delay.delays.min(axis=0))
+    plans = []
+    for opt, (nb, nk) in zip(structures, resolved, strict=True):
+        plans.append(_plan(experiments, opt, nb, estimated_nk if nk is None else nk,
+                           None if nk is not None else delay))
+    return _candidates(experiments, sample_time, plans, p, in_names, out_names)
 
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Plan:
+    """One structure to fit: resolved orders, its largest lag, and why it cannot be fitted."""
+
+    options: ArxOptions
+    na: int
+    nb: tuple[int, ...]
+    nk: tuple[int, ...]
+    max_lag: int
+    delay: DelayEstimate | None
+    error: OptionError | None
+
+
+def _plan(experiments: Sequence[Experiment], options: ArxOptions, nb: tuple[int, ...],
+          nk: tuple[int, ...], delay: DelayEstimate | None) -> _Plan:
+    na = options.na
+    d_out = na + sum(nb)
+    label = _label(na, nb, nk)
+    L = _max_lag(na, nb, nk)
+    error = None
+    if d_out == 0:
+        error = OptionError(f"{label} has no parameters; set na > 0 or some nb > 0")
+    else:
+        n_rows = _rows_available(experiments, L)
+        if n_rows <= d_out:
+            total = sum(e.n_samples for e in experiments)
+            error = OptionError(
+                f"{label} has {d_out} parameters per output but the data give only {n_rows} "
+                f"regression rows ({total} samples minus the largest lag {L} per experiment); "
+                f"need more than {d_out}",
+                hint="lower na/nb/nk or use a longer log",
+            )
+    return _Plan(options, na, nb, nk, L, delay, error)
+
+
+def _label(na: int, nb: Sequence[int], nk: Sequence[int]) -> str:
+    return f"ARX(na={na}, nb={list(nb)}, nk={list(nk)})"
+
+
+def _union_blocks(plans: Sequence[_Plan], m: int, p: int) -> tuple[list[_Block], int]:
+    """Blocks holding every column of every plan (inputs, outputs, targets); the largest lag."""
+    blocks = []
+    for j in range(m):
+        used = [pl for pl in plans if pl.nb[j] > 0]
+        if used:
+            blocks.append(_Block("u", j, min(pl.nk[j] for pl in used),
+                                 max(pl.nk[j] + pl.nb[j] - 1 for pl in used)))
+    na_max = max(pl.na for pl in plans)
+    if na_max > 0:
+        blocks += [_Block("y", i, 1, na_max) for i in range(p)]
+    blocks += [_Block("t", i, 0, 0) for i in range(p)]
+    return blocks, max(pl.max_lag for pl in plans)
+
+
+def _candidates(experiments, sample_time, plans, p, in_names, out_names) -> Iterator[ArxResult]:
+    union = None
+    for k, plan in enumerate(plans):
+        if plan.error is not None:
+            raise plan.error
+        if union is None:
+            # the plans up to the first one that cannot be fitted (iteration stops there)
+            reach = next((q for q in range(k, len(plans)) if plans[q].error is not None),
+                         len(plans))
+            blocks, L = _union_blocks(plans[k:reach], experiments[0].n_inputs, p)
+            index = _layout(blocks)
+            R, n_rows = _accumulate_r(experiments, blocks, L)
+            union = (R, index, n_rows, L)
+        R_s, index_s, rows_s = _restrict(union, experiments, plan, p)
+        yield _result_from_r(R_s, index_s, rows_s, plan, sample_time, in_names, out_names)
+
+
+def _restrict(union, experiments: Sequence[Experiment], plan: _Plan,
+              p: int) -> tuple[np.ndarray, dict[tuple[str, int, int], int], int]:
+    """R factor of one plan's own regression (its columns, from its own largest lag on)."""
+    R, index, n_rows, L = union
+    blocks = _blocks_for(plan.na, plan.nb, plan.nk, range(p), u_first=True)
+    own = _layout(blocks)
+    cols = [index[key] for key in sorted(own, key=own.__getitem__)]
+    extra = []
+    for exp in experiments:
+        k1 = min(exp.n_samples, L)
+        if k1 > plan.max_lag:  # rows this plan has but the union does not
+            rows = np.empty((k1 - plan.max_lag, len(cols)))
+            _fill(rows, exp, blocks, plan.max_lag, plan.max_lag, k1)
+            extra.append(rows)
+    if not extra and cols == list(range(R.shape[1])):
+        return R, own, n_rows
+    Z = np.vstack([R[:, cols], *extra])
+    (r,) = linalg.qr(Z, mode="r", check_finite=False)
+    c = len(cols)
+    R_s = np.zeros((c, c))
+    k = min(c, Z.shape[0])
+    R_s[:k] = np.triu(r[:k, :c])
+    return R_s, own, n_rows + sum(x.shape[0] for x in extra)
+
+
+def _result_from_r(R: np.ndarray, index: dict[tuple[str, int, int], int], n_rows: int,
+                   plan: _Plan, sample_time: float, in_names: Sequence[str],
+                   out_names: Sequence[str]) -> ArxResult:
+    """Every quantity of an ARX fit from the R factor of its regression (with targets)."""
+    na, nb, nk = plan.na, plan.nb, plan.nk
+    m, p = len(nb), len(out_names)
+    d_out = na + sum(nb)
+    label = _label(na, nb, nk)
     thetas, covs, ses, resid, s2 = [], [], [], [], np.empty(p)
     worst: tuple[float, str] | None = None
     for i in range(p):
@@ -773,7 +1014,7 @@ def fit_arx(data: Experiment | Sequence[Experiment], sample_time: float,
         warnings.warn(
             f"{label}: the regression is ill conditioned at {worst[1]} (sine of angle "
             f"{worst[0]:.1e}); parameters and standard errors are unreliable",
-            IllConditionedWarning, stacklevel=2,
+            IllConditionedWarning, stacklevel=4,
         )
     E = np.column_stack(resid)
     tnorm2 = np.array([np.sum(R[:, index[("t", i, 0)]] ** 2) for i in range(p)])
@@ -786,17 +1027,75 @@ def fit_arx(data: Experiment | Sequence[Experiment], sample_time: float,
         if radius > 1.0:
             warnings.warn(
                 f"{label}: the model of output {out_names[i]!r} is unstable (pole of "
-                f"magnitude {radius:.4g} > 1)", UnstableModelWarning, stacklevel=2,
+                f"magnitude {radius:.4g} > 1)", UnstableModelWarning, stacklevel=4,
             )
     model = arx_state_space(a, b, nk, sample_time, input_names=in_names, output_names=out_names)
     for arr in (*thetas, *covs, *ses, s2, *a, *(x for row in b for x in row)):
         arr.flags.writeable = False
     return ArxResult(
-        model=model, options=options, na=na, nb=nb, nk=nk, a=a, b=b,
+        model=model, options=plan.options, na=na, nb=nb, nk=nk, a=a, b=b,
         parameters=tuple(thetas), std_errors=tuple(ses), covariance=tuple(covs),
         residual_variance=s2, loss=loss, n_samples=n_rows, n_parameters=n_par,
-        criteria=criteria, delay=delay,
+        criteria=criteria, delay=plan.delay,
     )
+
+
+def _arx_simulate(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
+                  nk: Sequence[int], u: np.ndarray, x0: np.ndarray) -> np.ndarray:
+    """Free-run output of an ARX model from the state ``x0`` of :func:`arx_state_space`.
+
+    Output ``i`` with ``n`` states obeys ``A_i(q) y[k] = r[k]`` with
+    ``r[k] = sum_j B_ij(q) q^-nk_j u_j[k] + x0_i[k]`` (``x0_i[k] = 0`` for
+    ``k >= n``): the observer-form state is the transposed direct form II state
+    of the difference equation, whose ``k``-th entry enters equation ``k``.
+    ``r`` is a convolution (:func:`numpy.convolve`); the recursion in ``A_i``
+    is a unit lower-triangular banded Toeplitz solve (LAPACK ``tbtrs``), done
+    block by block.
+    """
+    N, m = u.shape
+    y = np.empty((N, len(a)))
+    offset = 0
+    for i, (ai, bi) in enumerate(zip(a, b, strict=True)):
+        na = ai.size - 1
+        n = max([na] + [nk[j] + bi[j].size - 1 for j in range(m) if bi[j].size])
+        r = np.zeros(N)
+        for j in range(m):
+            if bi[j].size:
+                beta = np.zeros(n + 1)
+                beta[nk[j]:nk[j] + bi[j].size] = bi[j]
+                r += np.convolve(u[:, j], beta)[:N]
+        k = min(n, N)
+        r[:k] += x0[offset:offset + k]
+        offset += n
+        y[:, i] = _all_pole(np.asarray(ai, dtype=float), r)
+    return y
+
+
+#: Samples per block in :func:`_all_pole` (bounds the band matrix to a few MB).
+_POLE_BLOCK = 1 << 14
+
+
+def _all_pole(a: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Solve ``y[k] + a_1 y[k-1] + ... + a_na y[k-na] = r[k]`` from rest (``a[0] = 1``)."""
+    na = a.size - 1
+    if na == 0:
+        return r.copy()
+    N = r.size
+    block = min(N, max(_POLE_BLOCK, 4 * na))
+    (tbtrs,) = linalg.get_lapack_funcs(("tbtrs",), (r,))
+    band = np.asfortranarray(np.repeat(a[:, None], block, axis=1))  # band[l, k] = a_l
+    y = np.empty(N)
+    for k0 in range(0, N, block):
+        k1 = min(N, k0 + block)
+        rhs = r[k0:k1].copy()
+        for lag in range(1, min(na, k0) + 1):  # terms of the previous block's outputs
+            w = min(lag, k1 - k0)
+            rhs[:w] -= a[lag] * y[k0 - lag:k0 - lag + w]
+        x, info = tbtrs(band[:, :k1 - k0], rhs[:, None], uplo="L", trans="N", diag="U")
+        if info != 0:  # pragma: no cover - a unit diagonal is never singular
+            raise IdentificationError(f"ARX simulation failed (LAPACK info {info})")
+        y[k0:k1] = x[:, 0]
+    return y
 
 
 # --------------------------------------------------------------------------- sweep
@@ -809,9 +1108,10 @@ def _values(values: Sequence[object], name: str) -> tuple[int, ...]:
     return tuple(sorted(set(vals)))
 
 
-def _validation_fit(model: StateSpaceModel, validation: Sequence[Experiment]) -> np.ndarray:
+def _validation_fit(a, b, nk, model: StateSpaceModel,
+                    validation: Sequence[Experiment]) -> np.ndarray:
     from .diagnostics import fit_percent
-    from .simulate import estimate_initial_state, simulate
+    from .simulate import estimate_initial_state
 
     ys, yhats = [], []
     diverged = np.full(validation[0].n_outputs, -np.inf)
@@ -819,7 +1119,7 @@ def _validation_fit(model: StateSpaceModel, validation: Sequence[Experiment]) ->
         for exp in validation:
             try:
                 x0 = estimate_initial_state(model, exp.u, exp.y)
-                yhat = simulate(model, exp.u, x0)
+                yhat = _arx_simulate(a, b, nk, exp.u, x0)
             except ValueError:  # non-finite values from a diverging (unstable) simulation
                 return diverged
             if not np.all(np.isfinite(yhat)):
@@ -967,7 +1267,7 @@ def sweep_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
         if val_exps is not None:
             a, b = _coefficients(thetas, na, nb)
             model = arx_state_space(a, b, nk, sample_time)
-            vfit = _validation_fit(model, val_exps)
+            vfit = _validation_fit(a, b, nk, model, val_exps)
             vfit.flags.writeable = False
         rows.append(ArxCandidate(na=na, nb=nb, nk=nk, loss=loss, n_parameters=p * d_out,
                                  aic=crit.aic, bic=crit.bic, fpe=crit.fpe,

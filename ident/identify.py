@@ -6,13 +6,15 @@ by its fit on the held-out validation data:
 
 - **ARX** candidates ``na = nb = n`` for ``n = 1 .. max_order``, with the input
   delays estimated from the data (:func:`ident.delay.estimate_delay`) unless
-  given, one MISO ARX model per output (:func:`ident.arx.fit_arx`);
+  given, one MISO ARX model per output, all orders from one pass over the
+  data (:func:`ident.arx.iter_arx_candidates`);
 - **subspace** candidates of ``n = 1 .. max_order`` states, all from one
   projection of the data (:func:`ident.subspace.project` then
   :func:`ident.subspace.model_of_order`).
 
 Every candidate is simulated on the validation data from an initial state
-fitted to its first samples, and scored by its fit percent
+fitted to its first samples (ARX candidates by their difference equations,
+the others by :func:`ident.simulate.simulate`), and scored by its fit percent
 (:func:`ident.diagnostics.fit_percent`), averaged over the outputs. The
 candidate with the best mean fit wins; candidates within
 :data:`TIE_TOLERANCE` percentage points of the best count as tied, and among
@@ -46,7 +48,7 @@ from .errors import (
 from .models import StateSpaceModel
 from .order import Criteria
 from .preprocess import PreparedData, PreprocessOptions, _from_mapping, prepare
-from .simulate import estimate_initial_state, simulate, simulate_states
+from .simulate import estimate_initial_state, simulate
 
 __all__ = [
     "METHODS",
@@ -79,10 +81,6 @@ SAMPLES_PER_PARAMETER = 10
 #: At most this many samples per experiment are used for the excitation and
 #: collinearity checks (the checks are about the signal's content, not its length).
 _CHECK_SAMPLES = 200_000
-
-#: Samples simulated at a time when scoring a candidate (bounds the memory of the
-#: state trajectories on long logs).
-_SIM_CHUNK = 1 << 16
 
 #: Two inputs whose correlation exceeds this in magnitude are collinear (error).
 _COLLINEAR_LIMIT = 1.0 - 1e-9
@@ -455,53 +453,28 @@ def _samples_needed(order: int, m: int, p: int) -> int:
 # --------------------------------------------------------------------------- scoring
 
 
-def _for_simulation(model: StateSpaceModel) -> StateSpaceModel:
-    """Return the model in real modal form when it has one, else unchanged.
+def _free_run(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray, arx: Any = None) -> np.ndarray:
+    """Free-run output of a candidate: by its difference equations when it is ARX."""
+    if arx is not None:
+        return arx.simulate(u, x0)
+    return simulate(model, u, x0)
 
-    Canonical forms (as ARX models come) have badly conditioned eigenvectors,
-    which sends :func:`ident.simulate.simulate` to its sample-by-sample
-    recursion; the block-diagonal modal form simulates mode by mode in compiled
-    code. The input-output behaviour is the same up to rounding amplified by
-    the transformation's condition number, far below what fit percent resolves.
+
+def _validation_fit(model: StateSpaceModel, parts: Sequence[Experiment], arx: Any = None) -> np.ndarray:
+    """Fit percent of a free-run simulation on ``parts`` (pooled), per output.
+
+    ``arx`` is the candidate's ``ArxResult`` when it is an ARX model: it then
+    runs as difference equations (:meth:`ident.arx.ArxResult.simulate`), the
+    cheapest exact simulation; other models go through
+    :func:`ident.simulate.simulate`. The initial state is fitted to the first
+    samples of each part in either case.
     """
-    from .errors import ModelError
-    from .realization import modal_form
-
-    if model.n_states == 0:
-        return model
-    try:
-        return modal_form(model)
-    except (ModelError, np.linalg.LinAlgError, ValueError):
-        return model
-
-
-def _simulate_chunked(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray) -> np.ndarray:
-    """Free-run output, simulated :data:`_SIM_CHUNK` samples at a time to bound memory."""
-    N = u.shape[0]
-    if N <= _SIM_CHUNK or model.n_states == 0:
-        return simulate(model, u, x0)
-    out = np.empty((N, model.n_outputs))
-    x = np.asarray(x0, dtype=float)
-    for k0 in range(0, N, _SIM_CHUNK):
-        k1 = min(N, k0 + _SIM_CHUNK)
-        states = simulate_states(model, u[k0:k1], x)
-        out[k0:k1] = states @ model.C.T + u[k0:k1] @ model.D.T
-        x = model.A @ states[-1] + model.B @ u[k1 - 1]
-        if not np.all(np.isfinite(x)):
-            out[k1:] = np.nan
-            break
-    return out
-
-
-def _validation_fit(model: StateSpaceModel, parts: Sequence[Experiment]) -> np.ndarray:
-    """Fit percent of a free-run simulation on ``parts`` (pooled), per output."""
-    model = _for_simulation(model)
     ys, yhats = [], []
     with np.errstate(all="ignore"):
         for part in parts:
             try:
                 x0 = estimate_initial_state(model, part.u, part.y)
-                y_hat = _simulate_chunked(model, part.u, x0)
+                y_hat = _free_run(model, part.u, x0, arx)
             except (np.linalg.LinAlgError, ValueError, FloatingPointError):
                 return np.full(model.n_outputs, -np.inf)
             if not np.all(np.isfinite(y_hat)):
@@ -712,7 +685,7 @@ def _identify(
     names = {"input_names": prep.input_names, "output_names": prep.output_names}
 
     if do_arx:
-        from .arx import ArxOptions, fit_arx
+        from .arx import ArxOptions, iter_arx_candidates
 
         if options.delay is not None:
             nk: Any = options.delay
@@ -733,21 +706,25 @@ def _identify(
                 # one delay per input, shared by the outputs' MISO models: the smallest
                 # seen from that input, so that no output loses its earliest response
                 nk = tuple(int(v) for v in delays.min(axis=0))
+        # every order from one pass over the data (one accumulated R factor)
+        arx_fits = iter_arx_candidates(
+            prep.estimation, prep.sample_time, [ArxOptions(na=n, nb=n, nk=nk) for n in orders],
+            **names,
+        )
         for n in orders:
-            report(f"ARX order {n}", step / n_steps)
+            report("ARX factorisation" if n == orders[0] else f"ARX order {n}", step / n_steps)
             step += 1
             try:
                 with warnings.catch_warnings(record=True) as caught:
                     warnings.simplefilter("always")
-                    res = fit_arx(prep.estimation, prep.sample_time,
-                                  ArxOptions(na=n, nb=n, nk=nk), **names)
+                    res = next(arx_fits)
             except (IdentificationError, OptionError) as exc:
                 if fixed is not None or n == orders[0]:
                     raise
                 notes.append(f"ARX orders from {n} up were not fitted: {exc}")
                 break
             model = res.model
-            vfit = _validation_fit(model, prep.validation)
+            vfit = _validation_fit(model, prep.validation, res)
             candidates.append(
                 Candidate(
                     method="arx",
@@ -828,7 +805,8 @@ def _identify(
         output_units=prep.output_units,
         operating_point=prep.operating_point,
     )
-    estimation_fit = _validation_fit(model, prep.estimation)
+    estimation_fit = _validation_fit(model, prep.estimation,
+                                     raw if best.method == "arx" else None)
     if best.method == "subspace" and raw.stabilized:
         notes.append("unstable subspace poles were reflected into the unit circle "
                      "(stabilize=True)")

@@ -16,6 +16,8 @@ from ident.arx import (
     arx_regressors,
     arx_state_space,
     fit_arx,
+    fit_arx_candidates,
+    iter_arx_candidates,
     sweep_arx,
 )
 from ident.data import Experiment
@@ -385,3 +387,131 @@ def test_estimated_delay_evidence_kept(rng):
     assert res.nk == (NK_TRUE,) and res.options.nk is None
     given = fit_arx(Experiment(u, y), 1.0, ArxOptions(na=2, nb=2, nk=2))
     assert given.delay is None
+
+
+# --------------------------------------------------------------------------- candidates
+
+
+def _two_by_two_experiments(rng):
+    """Two experiments (one shorter than the largest lag of the grid) of a 2x2 plant."""
+    exps = []
+    for N in (900, 6):
+        u = rng.standard_normal((N, 2))
+        y1 = signal.lfilter([0, 0.8, 0.3], A_TRUE, u[:, 0]) + signal.lfilter(
+            [0, 0, 0.5], A_TRUE, u[:, 1]) + 0.1 * rng.standard_normal(N)
+        y2 = signal.lfilter([0, 0, 0.4], [1.0, -0.6], u[:, 1]) + signal.lfilter(
+            [0, 0.2], [1.0, -0.6], u[:, 0]) + 0.1 * rng.standard_normal(N)
+        exps.append(Experiment(u, np.column_stack((y1, y2))))
+    return exps
+
+
+def test_candidates_equal_single_fits(rng):
+    exps = _two_by_two_experiments(rng)
+    structures = [ArxOptions(na=n, nb=n, nk=(1, 2)) for n in range(1, 6)]
+    structures += [ArxOptions(na=0, nb=(2, 1), nk=(0, 3)), ArxOptions(na=2, nb=(1, 0), nk=1)]
+    many = fit_arx_candidates(exps, 0.1, structures, output_names=["p", "q"])
+    assert len(many) == len(structures)
+    for opts, res in zip(structures, many, strict=True):
+        one = fit_arx(exps, 0.1, opts, output_names=["p", "q"])
+        # the same regression solved from the union R factor instead of its own: rounding
+        # only (regressor condition number ~ 10), hence 1e-10
+        assert res.n_samples == one.n_samples
+        assert (res.na, res.nb, res.nk) == (one.na, one.nb, one.nk)
+        for i in range(2):
+            assert_allclose(res.parameters[i], one.parameters[i], rtol=1e-10, atol=1e-12)
+            assert_allclose(res.std_errors[i], one.std_errors[i], rtol=1e-10)
+            assert_allclose(res.covariance[i], one.covariance[i], rtol=1e-10, atol=1e-16)
+        assert_allclose(res.residual_variance, one.residual_variance, rtol=1e-10)
+        assert_allclose(res.loss, one.loss, rtol=1e-10)
+        assert_allclose([res.criteria.aic, res.criteria.bic, res.criteria.fpe],
+                        [one.criteria.aic, one.criteria.bic, one.criteria.fpe], rtol=1e-10)
+        assert_allclose(res.model.A, one.model.A, rtol=1e-10, atol=1e-12)
+        assert_allclose(res.model.B, one.model.B, rtol=1e-10, atol=1e-12)
+    # and an outside reference for one candidate of the shared factor: statsmodels OLS on
+    # explicit rows of both experiments (the short one contributes rows 3..5 for na = 3)
+    X = np.vstack([_regressors(e.u, e.y[:, 0], 3, (3, 3), (1, 2), start=4)[0] for e in exps])
+    t = np.concatenate([_regressors(e.u, e.y[:, 0], 3, (3, 3), (1, 2), start=4)[1]
+                        for e in exps])
+    ols = sm.OLS(t, X).fit()
+    assert many[2].n_samples == 896 + 2
+    assert_allclose(many[2].parameters[0], ols.params, rtol=1e-8)  # rounding, cond ~ 10
+    assert_allclose(many[2].std_errors[0], ols.bse, rtol=1e-8)
+
+
+def test_candidates_share_one_delay_estimate(rng):
+    u = rng.standard_normal(800)
+    y = _arx_output(u, 0.1 * rng.standard_normal(800))
+    res = fit_arx_candidates(Experiment(u, y), 1.0,
+                             [ArxOptions(na=2, nb=2), ArxOptions(na=3, nb=3, nk=1)])
+    assert res[0].nk == (NK_TRUE,) and res[0].delay is not None  # closed form: delay 2
+    assert res[1].nk == (1,) and res[1].delay is None
+    single = fit_arx(Experiment(u, y), 1.0, ArxOptions(na=2, nb=2))
+    assert_allclose(res[0].parameters[0], single.parameters[0], rtol=1e-10)  # rounding only
+
+
+def test_iter_candidates_stops_at_the_first_unfittable_structure(rng):
+    u = rng.standard_normal(40)
+    y = _arx_output(u, 0.1 * rng.standard_normal(40))
+    it = iter_arx_candidates(Experiment(u, y), 1.0,
+                             [ArxOptions(na=1, nb=1, nk=1), ArxOptions(na=20, nb=20, nk=1),
+                              ArxOptions(na=2, nb=2, nk=1)])
+    first = next(it)
+    assert first.na == 1
+    # 40 samples minus lag 20 leave 20 rows for 40 parameters (closed form)
+    with pytest.raises(OptionError, match=r"ARX\(na=20.*has 40 parameters per output but the "
+                                          r"data give only 20 regression rows"):
+        next(it)
+    with pytest.raises(StopIteration):
+        next(it)
+    with pytest.raises(OptionError, match="structures must hold at least one"):
+        fit_arx_candidates(Experiment(u, y), 1.0, [])
+    with pytest.raises(OptionError, match=r"structures\[1\] must be ArxOptions; got dict"):
+        fit_arx_candidates(Experiment(u, y), 1.0, [ArxOptions(), {"na": 1}])
+    with pytest.raises(IdentificationError, match="regressor .* is a linear combination"):
+        fit_arx_candidates(Experiment(u, signal.lfilter([0, 1.0], [1, -0.5], u)), 1.0,
+                           [ArxOptions(na=1, nb=1, nk=1), ArxOptions(na=3, nb=3, nk=1)])
+
+
+def test_arx_simulate_equals_dlsim_of_the_realisation(rng):
+    exps = _two_by_two_experiments(rng)
+    res = fit_arx(exps[0], 0.1, ArxOptions(na=3, nb=(2, 1), nk=(1, 3)))
+    u = rng.standard_normal((500, 2))
+    x0 = rng.standard_normal(res.model.n_states)
+    M = res.model
+    # scipy.signal.dlsim of the state-space realisation from the same state: the
+    # difference equations are the same recursion, so rounding only
+    _, y_ref, _ = signal.dlsim((M.A, M.B, M.C, M.D, 0.1), u, x0=x0)
+    assert_allclose(res.simulate(u, x0), y_ref, rtol=1e-9, atol=1e-10)
+    assert_allclose(res.simulate(u), signal.dlsim((M.A, M.B, M.C, M.D, 0.1), u)[1],
+                    rtol=1e-9, atol=1e-10)
+    # direct feed-through and a static model (no states): y = D u (closed form)
+    fir = fit_arx(exps[0], 0.1, ArxOptions(na=0, nb=(2, 1), nk=(0, 0)))
+    _, y_fir, _ = signal.dlsim((fir.model.A, fir.model.B, fir.model.C, fir.model.D, 0.1), u)
+    assert_allclose(fir.simulate(u), y_fir, rtol=1e-9, atol=1e-10)
+    static = fit_arx(exps[0], 0.1, ArxOptions(na=0, nb=1, nk=0))
+    assert_allclose(static.simulate(u), u @ static.model.D.T, rtol=1e-12)
+    # 3 states per output: max(na, nk_j + nb_j - 1) = 3 (closed form)
+    with pytest.raises(OptionError, match="x0 must have 6 entries; got 2"):
+        res.simulate(u, [0.0, 1.0])
+    with pytest.raises(OptionError, match=r"u must have 2 column\(s\)"):
+        res.simulate(u[:, 0])
+
+
+def test_arx_simulate_across_blocks_equals_lfilter(rng, monkeypatch):
+    import ident.arx as arx_module
+
+    monkeypatch.setattr(arx_module, "_POLE_BLOCK", 5)  # many blocks, each shorter than 4 na
+    exps = _two_by_two_experiments(rng)
+    res = fit_arx(exps[0], 0.1, ArxOptions(na=4, nb=(2, 3), nk=(1, 0)))
+    u = rng.standard_normal((203, 2))
+    x0 = rng.standard_normal(res.model.n_states)
+    # reference: scipy.signal.lfilter per input, the output block of x0 as the initial
+    # condition of the first filter (transposed direct form II = observer form); rounding
+    want = np.empty((203, 2))
+    for i in range(2):
+        n = 4
+        num = [np.r_[np.zeros(1), res.b[i][0], np.zeros(n - 2)],
+               np.r_[res.b[i][1], np.zeros(n - 2)]]
+        want[:, i] = (signal.lfilter(num[0], res.a[i], u[:, 0], zi=x0[n * i:n * (i + 1)])[0]
+                      + signal.lfilter(num[1], res.a[i], u[:, 1]))
+    assert_allclose(res.simulate(u, x0), want, rtol=1e-9, atol=1e-10)

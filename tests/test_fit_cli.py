@@ -135,3 +135,47 @@ def test_method_choices_match_library():
 
     choice = next(p for p in fit.params if p.name == "method").type
     assert tuple(choice.choices) == METHODS
+
+
+def test_fresh_fit_process_loads_no_plotting_or_statistics_package(log_file):
+    import subprocess
+    import sys
+
+    code = (
+        "import os, sys\n"
+        "from ident.cli import main\n"
+        "try:\n"
+        f"    main(['fit', {str(log_file)!r}, '--input', 'valve', '--output', 'flow',\n"
+        "          '--method', 'arx', '--max-order', '3', '--json', '--quiet'])\n"
+        "except SystemExit as exc:\n"
+        "    assert exc.code in (0, None), exc.code\n"
+        "heavy = [m for m in ('statsmodels', 'matplotlib') if m in sys.modules]\n"
+        "print('HEAVY', heavy, 'THREADS', os.environ.get('OPENBLAS_NUM_THREADS'), file=sys.stderr)\n"
+    )
+    env = {k: v for k, v in __import__("os").environ.items()
+           if k not in ("OPENBLAS_NUM_THREADS", "GOTO_NUM_THREADS", "OMP_NUM_THREADS",
+                        "MKL_NUM_THREADS")}
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env=env, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    # fitting needs numpy, scipy and pandas only; the statistics and plotting packages load
+    # with the commands that use them
+    assert "HEAVY [] " in proc.stderr
+    # a fresh process asks for one BLAS thread when the user did not choose a count
+    assert "THREADS 1" in proc.stderr
+
+
+def test_blas_thread_choice_of_the_user_is_kept(monkeypatch):
+    import os
+    import sys
+
+    from ident.cli.fit_cmd import _single_blas_thread
+
+    monkeypatch.delitem(sys.modules, "numpy")  # as in a fresh process (restored after)
+    monkeypatch.setenv("OMP_NUM_THREADS", "2")
+    monkeypatch.delenv("OPENBLAS_NUM_THREADS", raising=False)
+    _single_blas_thread()
+    assert "OPENBLAS_NUM_THREADS" not in os.environ
+    monkeypatch.delenv("OMP_NUM_THREADS")
+    _single_blas_thread()
+    assert os.environ["OPENBLAS_NUM_THREADS"] == "1"

@@ -275,17 +275,28 @@ def test_hair_dryer_beats_low_order_arx_baseline(shared_dataset):
 
 
 def test_chunked_scoring_simulation_matches_dlsim(rng):
-    from ident.identify import _SIM_CHUNK, _simulate_chunked
+    from ident.arx import ArxOptions, fit_arx
+    from ident.data import Experiment
+    from ident.identify import _free_run
     from ident.models import StateSpaceModel
+    from ident.simulate import _CHUNK
 
     A = np.array([[0.9, 0.2], [-0.2, 0.9]])
     B = np.array([[1.0], [0.5]])
     C = np.array([[1.0, -1.0]])
     D = np.array([[0.1]])
     model = StateSpaceModel(A, B, C, D, sample_time=T)
-    u = rng.standard_normal((_SIM_CHUNK + 1234, 1))
+    u = rng.standard_normal((_CHUNK + 1234, 1))
     x0 = np.array([0.3, -0.7])
     # reference: scipy.signal.dlsim with the same initial state; stable model, so
     # rounding does not grow: 1e-9 relative
     _, y_ref, _ = signal.dlsim((A, B, C, D, T), u, x0=x0)
-    assert_allclose(_simulate_chunked(model, u, x0), y_ref, rtol=1e-9, atol=1e-9)
+    assert_allclose(_free_run(model, u, x0), y_ref, rtol=1e-9, atol=1e-9)
+    # an ARX candidate is scored by its difference equations: same output as dlsim of
+    # its realisation (rounding only)
+    y = signal.lfilter([0.0, 0.5, 0.2], [1.0, -1.2, 0.5], u[:, 0]) + 0.01 * rng.standard_normal(u.shape[0])
+    arx = fit_arx(Experiment(u[:2000], y[:2000]), T, ArxOptions(na=2, nb=2, nk=1))
+    M = arx.model
+    x0 = np.array([0.4, -0.1])
+    _, y_ref, _ = signal.dlsim((M.A, M.B, M.C, M.D, T), u, x0=x0)
+    assert_allclose(_free_run(M, u, x0, arx), y_ref, rtol=1e-9, atol=1e-9)

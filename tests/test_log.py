@@ -109,6 +109,26 @@ def test_sha256_and_file_untouched(tmp_path):
     assert open(path, "rb").read() == before and os.stat(path).st_mtime_ns == mtime
 
 
+@pytest.mark.parametrize(
+    ("text", "kwargs"),
+    [
+        # comments, a BOM and CRLF before the data; the checksum is taken while parsing
+        ("\ufeff# rig 7\r\n# run 3\r\ntime;u;y\r\n0;1,5;2\r\n1;2;3\r\n2;3;5\r\n", {}),
+        # a bad cell dropped on request: the slow text parse; the checksum still covers
+        # every byte of the file
+        ("time,u,y\n0,1,2\n1,2,3\n2,3,5\n3,x,6\n", {"drop_bad_rows": True}),
+        # a file bigger than the 1 MiB read buffer
+        ("time,u,y\n" + "".join(f"{k},{k % 7}.25,{k % 5}.5\n" for k in range(80_000)), {}),
+    ],
+)
+def test_sha256_covers_the_whole_file_in_one_pass(tmp_path, text, kwargs):
+    path = tmp_path / "log.csv"
+    path.write_bytes(text.encode("utf-8"))
+    log = read_log(str(path), "u", "y", split_at_gaps=True, **kwargs)
+    # reference: hashlib over the file's bytes
+    assert log.source.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+
+
 def test_log_arrays_are_read_only(tmp_path):
     path = _write(tmp_path, "time,u,y\n0,1,2\n1,2,3\n2,3,5\n")
     log = read_log(path, "u", "y")

@@ -14,6 +14,28 @@ from ._common import echo_json, progress_enabled
 _METHOD_CHOICES = ("arx", "subspace", "auto")
 
 
+#: Environment variables through which a user chooses the BLAS thread count.
+_THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "GOTO_NUM_THREADS", "OMP_NUM_THREADS",
+                     "MKL_NUM_THREADS")
+
+
+def _single_blas_thread() -> None:
+    """Ask for one BLAS thread, unless numpy is loaded already or the user chose a count.
+
+    The fit's numerical work is QR factorisations of tall, narrow blocks and
+    first-order recursions: memory-bound work split into many small BLAS
+    calls. Threaded OpenBLAS gains little there on an idle machine and, when
+    other processes share the cores, its spinning threads made ``rigfit fit``
+    two to three times slower end to end (measured on the 2-core benchmark
+    machine; see benchmarks/README.md). The variable must be set before numpy
+    loads, so it only applies to a fresh ``rigfit`` process.
+    """
+    import sys
+
+    if "numpy" not in sys.modules and not any(v in os.environ for v in _THREAD_VARIABLES):
+        os.environ["OPENBLAS_NUM_THREADS"] = "1"
+
+
 def _parse_order(value: str) -> int | None:
     if value == "auto":
         return None
@@ -87,6 +109,7 @@ def fit(
     """
     import warnings
 
+    _single_blas_thread()
     from ..identify import IdentifyOptions, identify
     from ..io.atomic import check_output_path
     from ..io.log import read_log

@@ -706,11 +706,16 @@ def _sha256(path: str) -> str:
 
 
 def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_rows: bool) -> Table:
-    sha = _sha256(path)
+    sha = None
     if header.kind == "parquet":
         arrays, first_line, lines, dropped = _parquet_columns(path, header, indices, drop_bad_rows)
     else:
-        arrays, first_line, lines, dropped = _csv_columns(path, header, indices, drop_bad_rows)
+        digest = hashlib.sha256()
+        arrays, first_line, lines, dropped, hashed = _csv_columns(
+            path, header, indices, drop_bad_rows, digest
+        )
+        if hashed:  # the parse read every byte once, and hashed it on the way
+            sha = digest.hexdigest()
     n = arrays[0].shape[0] if arrays else 0
     if n == 0:
         raise LogFormatError("no data rows after the header", path=path,
@@ -718,6 +723,8 @@ def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_ro
     last_line = int(lines[-1]) if lines is not None else first_line + n - 1
     if lines is not None:
         first_line = int(lines[0])
+    if sha is None:
+        sha = _sha256(path)
     source = LogSource(path, os.path.basename(path), sha, first_line, last_line)
     columns = tuple(
         Column(header.names[k], header.units[k], _readonly(a))
@@ -726,7 +733,12 @@ def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_ro
     return Table(columns, source, dropped, None if lines is None else _readonly(lines))
 
 
-def _csv_columns(path, header: _Header, indices, drop_bad_rows):
+def _csv_columns(path, header: _Header, indices, drop_bad_rows, digest=None):
+    """Parse the used columns; the last item returned says whether ``digest`` saw every byte.
+
+    The fast parse streams the file through ``digest`` (see :func:`_data_stream`),
+    so the checksum costs no second pass over the file when that parse succeeds.
+    """
     import pandas as pd
 
     first_line = header.header_line + 1
@@ -742,9 +754,11 @@ def _csv_columns(path, header: _Header, indices, drop_bad_rows):
         encoding=header.encoding, index_col=False, skip_blank_lines=False, quotechar='"',
     )
     arrays = None
+    hashed = False
     try:
-        with _data_stream(path, header) as stream:
+        with _data_stream(path, header, digest) as stream:
             frame = pd.read_csv(stream, dtype=np.float64, **common)
+            hashed = digest is not None and stream.raw.at_end
         arrays = [frame[k].to_numpy(dtype=np.float64, copy=False)[1:] for k in indices]
         extra = frame[width].to_numpy(dtype=np.float64, copy=False)[1:]
         del frame
@@ -760,7 +774,7 @@ def _csv_columns(path, header: _Header, indices, drop_bad_rows):
         if end < n:
             arrays = [a[:end] for a in arrays]
         if all(np.isfinite(a).all() for a in arrays):
-            return arrays, first_line, None, 0
+            return arrays, first_line, None, 0, hashed
     # slow path: read the text of the used columns to find (or drop) the bad cells
     try:
         with _data_stream(path, header) as stream:
@@ -791,7 +805,7 @@ def _csv_columns(path, header: _Header, indices, drop_bad_rows):
     for v in values:
         bad |= ~np.isfinite(v)
     if not bad.any():
-        return values, first_line, None, 0
+        return values, first_line, None, 0, hashed
     if not drop_bad_rows:
         i = int(np.argmax(bad))
         for k, v, t in zip(indices, values, texts, strict=True):
@@ -803,16 +817,22 @@ def _csv_columns(path, header: _Header, indices, drop_bad_rows):
                 )
     keep = ~bad
     lines = np.flatnonzero(keep) + first_line
-    return [v[keep] for v in values], first_line, lines, int(bad.sum())
+    return [v[keep] for v in values], first_line, lines, int(bad.sum()), hashed
 
 
 class _PrefixedStream(io.RawIOBase):
-    """Bytes of ``prefix`` followed by the rest of an open binary file."""
+    """Bytes of ``prefix`` followed by the rest of an open binary file.
 
-    def __init__(self, prefix: bytes, fh) -> None:
+    With a ``digest``, every byte read from the file goes through
+    ``digest.update`` too; ``at_end`` turns true once the file is exhausted.
+    """
+
+    def __init__(self, prefix: bytes, fh, digest=None) -> None:
         super().__init__()
         self._prefix = prefix
         self._fh = fh
+        self._digest = digest
+        self.at_end = False
 
     def readable(self) -> bool:
         return True
@@ -823,18 +843,33 @@ class _PrefixedStream(io.RawIOBase):
             buffer[:n] = self._prefix[:n]
             self._prefix = self._prefix[n:]
             return n
-        return self._fh.readinto(buffer)
+        n = self._fh.readinto(buffer)
+        if self._digest is not None:
+            if n:
+                self._digest.update(memoryview(buffer)[:n])
+            else:
+                self.at_end = True
+        return n
 
     def close(self) -> None:
         self._fh.close()
         super().close()
 
 
-def _data_stream(path: str, header: _Header) -> io.BufferedReader:
+def _data_stream(path: str, header: _Header, digest=None) -> io.BufferedReader:
+    """Open the data lines of a CSV log behind a synthetic first row (see :func:`_csv_columns`).
+
+    With a ``digest``, the bytes before the data (comments, header) are hashed
+    here and the data bytes as they are read, so the digest covers the whole file.
+    """
     fh = open(path, "rb")  # closed by the stream
-    fh.seek(header.data_offset)
+    if digest is None:
+        fh.seek(header.data_offset)
+    else:
+        head = fh.read(header.data_offset)
+        digest.update(head)
     prefix = (header.sep.join(["0"] * (len(header.raw) + 1)) + "\n").encode("ascii")
-    return io.BufferedReader(_PrefixedStream(prefix, fh), buffer_size=1 << 20)
+    return io.BufferedReader(_PrefixedStream(prefix, fh, digest), buffer_size=1 << 20)
 
 
 def _trailing_blank_start(arrays, n: int) -> int:
