@@ -49,6 +49,7 @@ from .errors import (
 )
 from .models import StateSpaceModel, TransferFunctionModel
 from .order import CRITERIA, Criteria, best_index, information_criteria
+from .simulate import all_pole_filter
 
 __all__ = [
     "SELECTION_RULES",
@@ -1067,34 +1068,7 @@ def _arx_simulate(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
         k = min(n, N)
         r[:k] += x0[offset:offset + k]
         offset += n
-        y[:, i] = _all_pole(np.asarray(ai, dtype=float), r)
-    return y
-
-
-#: Samples per block in :func:`_all_pole` (bounds the band matrix to a few MB).
-_POLE_BLOCK = 1 << 14
-
-
-def _all_pole(a: np.ndarray, r: np.ndarray) -> np.ndarray:
-    """Solve ``y[k] + a_1 y[k-1] + ... + a_na y[k-na] = r[k]`` from rest (``a[0] = 1``)."""
-    na = a.size - 1
-    if na == 0:
-        return r.copy()
-    N = r.size
-    block = min(N, max(_POLE_BLOCK, 4 * na))
-    (tbtrs,) = linalg.get_lapack_funcs(("tbtrs",), (r,))
-    band = np.asfortranarray(np.repeat(a[:, None], block, axis=1))  # band[l, k] = a_l
-    y = np.empty(N)
-    for k0 in range(0, N, block):
-        k1 = min(N, k0 + block)
-        rhs = r[k0:k1].copy()
-        for lag in range(1, min(na, k0) + 1):  # terms of the previous block's outputs
-            w = min(lag, k1 - k0)
-            rhs[:w] -= a[lag] * y[k0 - lag:k0 - lag + w]
-        x, info = tbtrs(band[:, :k1 - k0], rhs[:, None], uplo="L", trans="N", diag="U")
-        if info != 0:  # pragma: no cover - a unit diagonal is never singular
-            raise IdentificationError(f"ARX simulation failed (LAPACK info {info})")
-        y[k0:k1] = x[:, 0]
+        y[:, i] = all_pole_filter(np.asarray(ai, dtype=float), r)
     return y
 
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 from typing import Any, Literal
 
 import numpy as np
-from scipy import linalg, signal
+from scipy import linalg
 
 from ._validate import names_tuple, one_of
 from .analysis import _meta, _require_ss, _siso_zeros_gain, _system_tol
@@ -217,6 +217,8 @@ def to_scipy(model: StateSpaceModel | TransferFunctionModel) -> Any:
         Discrete (``dt = sample_time``) or continuous. Names, units and the
         operating point have no place in scipy's objects and are not kept.
     """
+    from scipy import signal
+
     dt = {} if model.sample_time is None else {"dt": model.sample_time}
     if isinstance(model, StateSpaceModel):
         return signal.StateSpace(
@@ -260,6 +262,8 @@ def ss_from_scipy(
     -------
     StateSpaceModel
     """
+    from scipy import signal
+
     if not isinstance(system, (signal.lti, signal.dlti)):
         raise OptionError(f"system must be a scipy.signal LTI object; got {type(system).__name__}")
     ss = system.to_ss()
@@ -293,6 +297,8 @@ def tf_from_scipy(
     -------
     TransferFunctionModel
     """
+    from scipy import signal
+
     if not isinstance(system, signal.TransferFunction):
         raise OptionError(
             f"system must be a scipy.signal.TransferFunction; got {type(system).__name__}"
@@ -319,6 +325,8 @@ def from_scipy(
     ``ZerosPolesGain``) gives a :class:`StateSpaceModel`
     (:func:`ss_from_scipy`). Prefer those two when the result type matters.
     """
+    from scipy import signal
+
     if isinstance(system, signal.TransferFunction):
         return tf_from_scipy(system, inputs=inputs, outputs=outputs)
     return ss_from_scipy(system, inputs=inputs, outputs=outputs)

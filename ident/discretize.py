@@ -13,7 +13,7 @@ import math
 from typing import Any, Literal
 
 import numpy as np
-from scipy import linalg, signal
+from scipy import linalg
 
 from ._validate import one_of, optional_positive_float, positive_float
 from .analysis import _meta, _require_ss, _siso_zeros_gain, _system_tol
@@ -204,7 +204,9 @@ def to_discrete(
         E = linalg.expm(M * T)
         return _new(model, E[:n, :n], E[:n, n:], C, D, T)
     if method == "foh":
-        Ad, Bd, Cd, Dd, _ = signal.cont2discrete((A, B, C, D), T, method="foh")
+        from scipy.signal import cont2discrete
+
+        Ad, Bd, Cd, Dd, _ = cont2discrete((A, B, C, D), T, method="foh")
         return _new(model, Ad, Bd, Cd, Dd, T)
     if method == "tustin":
         k = _tustin_constant(T, prewarp_hz)

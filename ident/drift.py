@@ -316,6 +316,8 @@ def compare_models(
     u: np.ndarray | None = None,
     y: np.ndarray | None = None,
     n_points: int = 400,
+    baseline_pole_covariance: np.ndarray | None = None,
+    new_pole_covariance: np.ndarray | None = None,
 ) -> DriftReport:
     """Compare a new model with a baseline of the same rig.
 
@@ -335,6 +337,11 @@ def compare_models(
         operating point, and both are scored on it by simulation fit percent.
     n_points : int
         Frequencies (log-spaced) in the band.
+    baseline_pole_covariance, new_pole_covariance : array_like, shape (n, 2, 2), optional
+        Covariance of ``(Re z, Im z)`` of each pole of each model, in
+        ``model.poles()`` order (see :func:`ident.modes.mode_table`; nan blocks
+        mean unknown). When both are known, each matched mode gets the
+        ``z_score`` of its frequency shift.
 
     Returns
     -------
@@ -375,8 +382,8 @@ def compare_models(
         fraction(hi / nyquist, "band_hz[1] / Nyquist", low=0.0, high=1.0, inclusive=True)
         band_hz = (lo, hi)
 
-    base_modes = _comparable(mode_table(baseline).modes)
-    new_modes = _comparable(mode_table(new).modes)
+    base_modes = _comparable(mode_table(baseline, pole_covariance=baseline_pole_covariance).modes)
+    new_modes = _comparable(mode_table(new, pole_covariance=new_pole_covariance).modes)
     shifts = tuple(
         _mode_shift(None if i is None else base_modes[i], None if j is None else new_modes[j], th, band_hz)
         for i, j in _match(base_modes, new_modes, th.match_cost_limit)
@@ -440,6 +447,8 @@ def _mode_dict(mode: Mode | None) -> dict | None:
         "damping_ratio": mode.damping_ratio,
         "time_constant_s": mode.time_constant_s,
         "is_pair": mode.is_pair,
+        "natural_frequency_std_hz": mode.natural_frequency_std_hz,
+        "damping_ratio_std": mode.damping_ratio_std,
     }
 
 

@@ -29,8 +29,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal as _signal
-from scipy.integrate import cumulative_trapezoid
 
 from ._validate import as_signal, fraction, int_in_range, names_tuple, positive_float
 from .errors import OptionError
@@ -257,7 +255,10 @@ def _fraction_arg(value) -> float:
 def _band_hz(x: np.ndarray, sample_time: float, share: float) -> float | None:
     if x.shape[0] < 4 or not np.ptp(x) > 0:
         return None
-    f, pxx = _signal.welch(x, fs=1.0 / sample_time, nperseg=min(1024, x.shape[0]))
+    from scipy.integrate import cumulative_trapezoid
+    from scipy.signal import welch
+
+    f, pxx = welch(x, fs=1.0 / sample_time, nperseg=min(1024, x.shape[0]))
     cum = cumulative_trapezoid(pxx, f, initial=0.0)
     total = cum[-1]
     if not total > 0:

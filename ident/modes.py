@@ -389,7 +389,7 @@ def _group_poles(
             p = complex(p.real, 0.0)
         elif p.imag < 0:
             continue  # the conjugate with positive imaginary part represents the pair
-        c = None if cov is None else cov[i]
+        c = None if cov is None or not np.all(np.isfinite(cov[i])) else cov[i]
         for k, (q, mult, qc) in enumerate(out):
             if abs(p - q) <= _REPEAT_RTOL * scale:
                 out[k] = (q, mult + 1, qc)
@@ -434,7 +434,8 @@ def mode_table(
     pole_covariance : array_like, shape (n, 2, 2), optional
         Covariance of ``(Re z, Im z)`` of each pole, in the order of
         ``model.poles()``; gives each mode a confidence region and the
-        ``uncertain_stability`` flag.
+        ``uncertain_stability`` flag. A block holding nan means "unknown" for
+        that pole (its mode gets no uncertainty figures).
 
     Returns
     -------
@@ -497,9 +498,11 @@ def mode_table(
     cov = None
     if pole_covariance is not None:
         cov = np.asarray(pole_covariance, dtype=float)
-        if cov.shape != (n, 2, 2) or not np.all(np.isfinite(cov)):
+        # nan marks a pole whose covariance is unknown (e.g. a repeated root); inf is an error
+        if cov.shape != (n, 2, 2) or np.any(np.isinf(cov)):
             raise OptionError(
-                f"pole_covariance must be a finite array of shape ({n}, 2, 2); got {cov.shape}"
+                f"pole_covariance must be an array of shape ({n}, 2, 2) of finite numbers or nan; "
+                f"got shape {cov.shape}"
             )
 
     zeros = np.asarray(transmission_zeros(model), dtype=complex).ravel()

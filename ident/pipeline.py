@@ -8,9 +8,13 @@
 3. **validation** of the selected model on every held-out part with
    :func:`ident.diagnostics.validate_model`;
 4. **modes and expectations** (:func:`ident.modes.mode_table`,
-   :func:`ident.expectations.check_expectations`);
+   :func:`ident.expectations.check_expectations`); an ARX model's poles get
+   confidence regions from its parameter covariance
+   (:func:`ident.uncertainty.arx_pole_covariance`), stored in the model file as
+   ``provenance["estimation"]["pole_covariance"]``;
 5. **drift** against a baseline model file, when one is given
-   (:func:`ident.drift.compare_models`);
+   (:func:`ident.drift.compare_models`; frequency shifts get a z-score when
+   both models carry a pole covariance);
 
 then evaluates the gates and writes a NEW folder ``<UTC time>-<hash>`` (under
 ``runs/`` next to the pipeline file unless told otherwise) holding the model
@@ -291,6 +295,12 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
     )
     model = result.model
     prep = result.prepared
+    pole_cov = None
+    if result.arx is not None:
+        from .uncertainty import arx_pole_covariance
+
+        # first-order pole covariance from the ARX parameter covariance, in model.poles() order
+        pole_cov = arx_pole_covariance(result.arx, model=model)
 
     report("validating", 0.68)
     need = max(32, 4 * spec.check.max_lag)
@@ -312,7 +322,8 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
     duration = max(
         (b - a - 1) * log.sample_time for log in logs for a, b in log.segments
     ) or None
-    table = mode_table(model, thresholds=spec.modes.thresholds, log_duration_s=duration)
+    table = mode_table(model, thresholds=spec.modes.thresholds, log_duration_s=duration,
+                       pole_covariance=pole_cov)
     expectations = () if spec.expect.is_empty else check_expectations(model, table, spec.expect)
 
     est_u = np.vstack([e.u for e in prep.estimation])
@@ -339,14 +350,25 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
         drift = compare_models(
             base_model, model, thresholds=spec.drift.thresholds, band_hz=band,
             u=val.u + op.inputs, y=val.y + op.outputs,
+            baseline_pole_covariance=_stored_pole_covariance(baseline.provenance, base_model.n_states),
+            new_pole_covariance=pole_cov,
         )
 
     return {
         "spec": spec, "logs": logs, "result": result, "validation": validation, "parts": parts,
         "table": table, "expectations": expectations, "band": band, "excitation": excitation,
         "drift": drift, "baseline": baseline, "log_duration_s": duration, "baseline_path": baseline_path,
-        "input_units": input_units, "output_units": output_units,
+        "input_units": input_units, "output_units": output_units, "pole_covariance": pole_cov,
     }
+
+
+def _stored_pole_covariance(provenance: Any, n_states: int) -> np.ndarray | None:
+    """Pole covariance a model file carries in ``estimation.pole_covariance``, or None."""
+    from .uncertainty import pole_covariance_from_list
+
+    block = provenance.get("estimation") if isinstance(provenance, dict) else None
+    raw = block.get("pole_covariance") if isinstance(block, dict) else None
+    return pole_covariance_from_list(raw, n_states)
 
 
 # --------------------------------------------------------------------------- gates
@@ -631,6 +653,15 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
 # --------------------------------------------------------------------------- output
 
 
+def _pole_covariance_entry(cov: np.ndarray | None) -> dict[str, Any]:
+    """``{"pole_covariance": [...]}`` for the model file's estimation provenance, or nothing."""
+    if cov is None:
+        return {}
+    from .uncertainty import pole_covariance_to_list
+
+    return {"pole_covariance": pole_covariance_to_list(cov)}
+
+
 def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
     parent.mkdir(parents=True, exist_ok=True)
     base = f"{stamp}-{digest}"
@@ -676,7 +707,8 @@ def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[s
         "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
                        "method": result.method, "order": result.order, "options": result.options.to_dict(),
                        "ranges": [list(r) for r in prep.estimation_ranges],
-                       "sample_time": prep.sample_time, "decimation": prep.decimation},
+                       "sample_time": prep.sample_time, "decimation": prep.decimation,
+                       **_pole_covariance_entry(state["pole_covariance"])},
         "validation": {"ranges": [list(r) for r in prep.validation_ranges],
                        "fit_percent": summary["model"]["validation_fit"]},
         "run": {"folder": folder.name, "passed": summary["verdict"]["passed"]},

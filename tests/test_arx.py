@@ -498,9 +498,9 @@ def test_arx_simulate_equals_dlsim_of_the_realisation(rng):
 
 
 def test_arx_simulate_across_blocks_equals_lfilter(rng, monkeypatch):
-    import ident.arx as arx_module
+    import ident.simulate as simulate_module
 
-    monkeypatch.setattr(arx_module, "_POLE_BLOCK", 5)  # many blocks, each shorter than 4 na
+    monkeypatch.setattr(simulate_module, "_POLE_BLOCK", 5)  # many blocks, each shorter than 4 na
     exps = _two_by_two_experiments(rng)
     res = fit_arx(exps[0], 0.1, ArxOptions(na=4, nb=(2, 3), nk=(1, 0)))
     u = rng.standard_normal((203, 2))

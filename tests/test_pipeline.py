@@ -214,3 +214,93 @@ def test_excited_band_of_white_noise():
     assert_allclose(high, 45.0, rtol=0.03)
     assert_allclose(low, 0.05, rtol=1e-12)  # 1e-3 Nyquist, by definition
     assert excited_band(np.ones((100, 1)), 0.01) is None
+
+
+# ------------------------------------------------------------------------------ pole uncertainty (ARX)
+
+
+ARX_FIT = """
+    [fit]
+    method = "arx"
+    order = 2
+    [check]
+    max_lag = 20
+    """
+
+
+def _arx_pipeline(folder: Path, extra: str = "") -> Path:
+    path = folder / "job.toml"
+    path.write_text(textwrap.dedent("""
+        name = "synthetic rig, ARX"
+        [log]
+        paths = ["rig.csv"]
+        inputs = ["u"]
+        outputs = ["y"]
+        """) + textwrap.dedent(ARX_FIT) + textwrap.dedent(extra), encoding="utf-8")
+    return path
+
+
+@pytest.fixture(scope="module")
+def arx_runs(tmp_path_factory):
+    """Two ARX runs of an invented resonance, 2.0 Hz then 2.3 Hz (a stiffer part fitted)."""
+    before_dir = tmp_path_factory.mktemp("arx_before")
+    after_dir = tmp_path_factory.mktemp("arx_after")
+    write_resonant_log(before_dir / "rig.csv", f_hz=2.0, zeta=0.1, n=3000, seed=21, noise=0.02)
+    write_resonant_log(after_dir / "rig.csv", f_hz=2.3, zeta=0.1, n=3000, seed=22, noise=0.02)
+    before = run_pipeline(_arx_pipeline(before_dir), out_dir=before_dir / "runs")
+    after = run_pipeline(_arx_pipeline(after_dir), out_dir=after_dir / "runs", baseline=before.model_path)
+    return before, after
+
+
+def test_arx_run_gives_pole_uncertainty_in_summary_and_model_file(arx_runs):
+    from ident.uncertainty import arx_pole_covariance, pole_covariance_from_list
+
+    before, _ = arx_runs
+    assert before.summary["model"]["method"] == "arx"
+    pairs = [m for m in before.summary["modes"]["modes"] if m["is_pair"]]
+    assert len(pairs) == 1
+    mode = pairs[0]
+    # the resonance of the generator (closed form: wn = 2 pi 2.0 rad/s, zeta 0.1) within a few sigma
+    assert mode["z_std"] is not None and mode["confidence_radius"] > 0
+    assert abs(mode["natural_frequency_hz"] - 2.0) < max(5 * mode["natural_frequency_std_hz"], 0.02)
+    # the model file holds the same covariance, JSON-safe, in model.poles() order
+    loaded = load_model(before.model_path)
+    stored = pole_covariance_from_list(loaded.provenance["estimation"]["pole_covariance"], loaded.model.n_states)
+    direct = arx_pole_covariance(before.identification.arx, model=loaded.model)
+    # the JSON round trip of floats is exact (repr), the eigenvalues of the reloaded A are the same
+    assert_allclose(stored, direct, rtol=1e-9, atol=0)
+    k = int(np.argmax(loaded.model.poles().imag))
+    assert_allclose(mode["z_std"], np.sqrt(np.diag(stored[k])), rtol=1e-12)
+
+
+def test_modes_command_shows_the_confidence_of_an_arx_model(arx_runs, run_cli):
+    before, _ = arx_runs
+    res = run_cli("modes", before.model_path, "--json")
+    assert res.exit_code == 0, res.output
+    modes = json.loads(res.stdout)["modes"]
+    pair = [m for m in modes if m["is_pair"]][0]
+    expected = [m for m in before.summary["modes"]["modes"] if m["is_pair"]][0]
+    assert_allclose(pair["z_std"], expected["z_std"], rtol=1e-9)
+    text = run_cli("modes", before.model_path)
+    assert text.exit_code == 0
+    assert "±" in text.stdout
+
+
+def test_drift_between_arx_models_reports_a_z_score(arx_runs, run_cli):
+    before, after = arx_runs
+    matched = [m for m in after.summary["drift"]["modes"] if m["status"] == "matched" and m["baseline"]["is_pair"]]
+    assert len(matched) == 1
+    m = matched[0]
+    # the resonance moved by +15 % (2.0 -> 2.3 Hz, invented); with these noise levels that is
+    # several standard uncertainties (about 4 measured), so the shift is significant: z > 2
+    assert m["frequency_shift_percent"] == pytest.approx(15.0, abs=2.0)
+    assert m["z_score"] is not None and m["z_score"] > 2
+    sb, sn = m["baseline"]["natural_frequency_std_hz"], m["new"]["natural_frequency_std_hz"]
+    assert_allclose(m["z_score"], m["frequency_shift_hz"] / np.hypot(sb, sn), rtol=1e-12)
+    # the stand-alone command reads both model files' covariances and gives the same z-score
+    res = run_cli("drift", before.model_path, after.model_path, "--json")
+    assert res.exit_code in (0, 3), res.output
+    cli_m = [s for s in json.loads(res.stdout)["modes"] if s["status"] == "matched" and s["baseline"]["is_pair"]][0]
+    assert_allclose(cli_m["z_score"], m["z_score"], rtol=1e-9)
+    text = run_cli("drift", before.model_path, after.model_path)
+    assert "z-score" in text.stdout

@@ -66,3 +66,14 @@ def test_simulate_rejects_bad_input():
     cont = model.with_changes(sample_time=None)
     with pytest.raises(ModelError, match="discrete"):
         simulate(cont, np.zeros((10, 1)))
+
+
+@pytest.mark.parametrize("a", [[1.0, -0.9], [1.0, -1.5, 0.7], [1.0, -(0.8 + 0.3j)]])
+def test_all_pole_filter_equals_lfilter(a, rng, monkeypatch):
+    import ident.simulate as simulate_module
+    from ident.simulate import all_pole_filter
+
+    monkeypatch.setattr(simulate_module, "_POLE_BLOCK", 7)  # many blocks, carry-over between them
+    r = rng.standard_normal(500) + (1j * rng.standard_normal(500) if np.iscomplexobj(np.array(a)) else 0)
+    # reference: scipy.signal.lfilter([1], a, r) runs the same recursion; rounding only
+    assert_allclose(all_pole_filter(np.array(a), r), signal.lfilter([1.0], a, r), rtol=1e-12, atol=1e-12)

@@ -48,8 +48,11 @@ def drift(
     from ..drift import DriftThresholds, compare_models, drift_report_to_dict
     from ..io.modelfile import load_model
 
-    baseline = load_model(baseline_path).model
-    new = load_model(new_path).model
+    baseline_file = load_model(baseline_path)
+    new_file = load_model(new_path)
+    baseline, new = baseline_file.model, new_file.model
+    baseline_cov = stored_pole_covariance(baseline_file.provenance, baseline.n_states)
+    new_cov = stored_pole_covariance(new_file.provenance, new.n_states)
     thresholds = DriftThresholds(
         frequency_shift_percent=frequency_shift_percent,
         damping_shift=damping_shift,
@@ -66,7 +69,8 @@ def drift(
         u, y = log.u, log.y
         if band_hz is None:
             band_hz = excited_band(u, new.sample_time)
-    report = compare_models(baseline, new, thresholds=thresholds, band_hz=band_hz, u=u, y=y)
+    report = compare_models(baseline, new, thresholds=thresholds, band_hz=band_hz, u=u, y=y,
+                            baseline_pole_covariance=baseline_cov, new_pole_covariance=new_cov)
     if as_json:
         echo_json(drift_report_to_dict(report))
     else:
@@ -75,19 +79,32 @@ def drift(
         raise GateFailed("; ".join(report.breaches))
 
 
+def stored_pole_covariance(provenance, n_states: int):
+    """Pole covariance ``(n, 2, 2)`` from a model file's ``estimation.pole_covariance``, or None."""
+    from ..uncertainty import pole_covariance_from_list
+
+    block = provenance.get("estimation") if isinstance(provenance, dict) else None
+    raw = block.get("pole_covariance") if isinstance(block, dict) else None
+    return pole_covariance_from_list(raw, n_states)
+
+
 def drift_text(report) -> str:
     """Readable drift summary."""
     lines = ["modes (baseline -> new)"]
     lines.append(f"  {'status':<9}{'f base [Hz]':>13}{'f new [Hz]':>13}{'shift [%]':>11}"
-                 f"{'zeta base':>11}{'zeta new':>10}  note")
+                 f"{'z-score':>9}{'zeta base':>11}{'zeta new':>10}  note")
     for s in report.mode_shifts:
         fb = f"{s.baseline.natural_frequency_hz:.4g}" if s.baseline else "-"
         fn = f"{s.new.natural_frequency_hz:.4g}" if s.new else "-"
         zb = f"{s.baseline.damping_ratio:.3f}" if s.baseline else "-"
         zn = f"{s.new.damping_ratio:.3f}" if s.new else "-"
         shift = f"{s.frequency_shift_percent:+.1f}" if s.frequency_shift_percent is not None else "-"
+        zscore = f"{s.z_score:+.2g}" if s.z_score is not None else "-"
         note = ", ".join(s.breaches) + (" !" if s.breaches else "") + ("" if s.in_band else "outside the band")
-        lines.append(f"  {s.status:<9}{fb:>13}{fn:>13}{shift:>11}{zb:>11}{zn:>10}  {note}".rstrip())
+        lines.append(f"  {s.status:<9}{fb:>13}{fn:>13}{shift:>11}{zscore:>9}{zb:>11}{zn:>10}  {note}".rstrip())
+    if any(s.z_score is not None for s in report.mode_shifts):
+        lines.append("  z-score: frequency shift / its standard uncertainty from both models' pole "
+                     "covariances; beyond +-2 the shift is significant at about 95 %")
     lines.append("")
     lines.append("DC gains")
     for g in report.gain_changes:
