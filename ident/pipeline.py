@@ -350,7 +350,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
         drift = compare_models(
             base_model, model, thresholds=spec.drift.thresholds, band_hz=band,
             u=val.u + op.inputs, y=val.y + op.outputs,
-            baseline_pole_covariance=_stored_pole_covariance(baseline.provenance, base_model.n_states),
+            baseline_pole_covariance=baseline.pole_covariance(),
             new_pole_covariance=pole_cov,
         )
 
@@ -360,18 +360,6 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
         "drift": drift, "baseline": baseline, "log_duration_s": duration, "baseline_path": baseline_path,
         "input_units": input_units, "output_units": output_units, "pole_covariance": pole_cov,
     }
-
-
-def _stored_pole_covariance(provenance: Any, n_states: int) -> np.ndarray | None:
-    """Pole covariance a model file carries in ``estimation.pole_covariance``, or None."""
-    from .uncertainty import pole_covariance_from_list
-
-    block = provenance.get("estimation") if isinstance(provenance, dict) else None
-    raw = block.get("pole_covariance") if isinstance(block, dict) else None
-    return pole_covariance_from_list(raw, n_states)
-
-
-# --------------------------------------------------------------------------- gates
 
 
 def _fmt_fit(x: float) -> str:

@@ -179,3 +179,27 @@ def test_blas_thread_choice_of_the_user_is_kept(monkeypatch):
     monkeypatch.delenv("OMP_NUM_THREADS")
     _single_blas_thread()
     assert os.environ["OPENBLAS_NUM_THREADS"] == "1"
+
+
+def test_arx_model_file_carries_pole_covariance(run_cli, tmp_path):
+    import numpy as np
+    import pandas as pd
+    from scipy import signal
+
+    from ident.io.modelfile import load_model
+
+    rng = np.random.default_rng(11)
+    u = rng.standard_normal(3000)
+    # ARX data: y = B/A u + e/A (the noise enters through the ARX equation; scipy.signal.lfilter)
+    den = [1.0, -1.5, 0.7]
+    y = signal.lfilter([0.0, 1.0, 0.5], den, u) + signal.lfilter([1.0], den, 0.05 * rng.standard_normal(3000))
+    log = tmp_path / "arx.csv"
+    pd.DataFrame({"time [s]": np.arange(3000) * 0.01, "u": u, "y": y}).to_csv(log, index=False)
+    out = tmp_path / "m.json"
+    r = run_cli("fit", log, "--input", "u", "--output", "y", "--method", "arx", "--order", "2", "-o", out)
+    assert r.exit_code == 0, r.stderr
+    cov = load_model(out).pole_covariance()
+    assert cov is not None and cov.shape == (load_model(out).model.n_states, 2, 2)
+    m = run_cli("modes", out, "--json")
+    pair = [x for x in __import__("json").loads(m.stdout)["modes"] if x["z"][1] > 0][0]
+    assert pair["natural_frequency_std_hz"] > 0

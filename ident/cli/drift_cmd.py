@@ -51,8 +51,8 @@ def drift(
     baseline_file = load_model(baseline_path)
     new_file = load_model(new_path)
     baseline, new = baseline_file.model, new_file.model
-    baseline_cov = stored_pole_covariance(baseline_file.provenance, baseline.n_states)
-    new_cov = stored_pole_covariance(new_file.provenance, new.n_states)
+    baseline_cov = baseline_file.pole_covariance()
+    new_cov = new_file.pole_covariance()
     thresholds = DriftThresholds(
         frequency_shift_percent=frequency_shift_percent,
         damping_shift=damping_shift,
@@ -77,15 +77,6 @@ def drift(
         click.echo(drift_text(report))
     if not report.passed:
         raise GateFailed("; ".join(report.breaches))
-
-
-def stored_pole_covariance(provenance, n_states: int):
-    """Pole covariance ``(n, 2, 2)`` from a model file's ``estimation.pole_covariance``, or None."""
-    from ..uncertainty import pole_covariance_from_list
-
-    block = provenance.get("estimation") if isinstance(provenance, dict) else None
-    raw = block.get("pole_covariance") if isinstance(block, dict) else None
-    return pole_covariance_from_list(raw, n_states)
 
 
 def drift_text(report) -> str:

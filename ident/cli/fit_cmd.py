@@ -169,13 +169,18 @@ def fit(
 
     from ..modes import mode_table
 
-    table = mode_table(result.model, log_duration_s=log.duration_s or None)
+    pole_cov = None
+    if result.arx is not None:
+        from ..uncertainty import arx_pole_covariance
+
+        pole_cov = arx_pole_covariance(result.arx, model=result.model)
+    table = mode_table(result.model, log_duration_s=log.duration_s or None, pole_covariance=pole_cov)
     written = None
     if model_out is not None:
         from ..io.modelfile import save_model
 
         written = save_model(
-            model_out, result.model, provenance=_provenance(log, result),
+            model_out, result.model, provenance=_provenance(log, result, pole_cov),
             force=force, protected=(log_path,),
         )
     for text in messages:
@@ -190,9 +195,9 @@ def _fit_dict(names, values) -> dict[str, float]:
     return {name: float(v) for name, v in zip(names, values, strict=True)}
 
 
-def _provenance(log, result) -> dict[str, Any]:
+def _provenance(log, result, pole_cov=None) -> dict[str, Any]:
     prep = result.prepared
-    return {
+    prov = {
         "log": {
             "file_name": log.source.file_name,
             "sha256": log.source.sha256,
@@ -223,6 +228,11 @@ def _provenance(log, result) -> dict[str, Any]:
             "estimation_fit_percent": _fit_dict(prep.output_names, result.estimation_fit),
         },
     }
+    if pole_cov is not None:
+        from ..uncertainty import pole_covariance_to_list
+
+        prov["estimation"]["pole_covariance"] = pole_covariance_to_list(pole_cov)
+    return prov
 
 
 def _summary(log, result, table, messages, written) -> dict[str, Any]:

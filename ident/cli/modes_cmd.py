@@ -107,7 +107,7 @@ def modes(
         log_duration_s = log_duration_from_provenance(loaded.provenance, model.sample_time)
     if log_duration_s is None:
         click.echo("slow_for_log not checked: log duration unknown (use --log-duration)", err=True)
-    covariance = pole_covariance_from_provenance(loaded.provenance, model.n_states)
+    covariance = loaded.pole_covariance()
     table = mode_table(
         model, thresholds=thresholds, log_duration_s=log_duration_s, pole_covariance=covariance
     )
@@ -168,23 +168,6 @@ def log_duration_from_provenance(provenance: dict, sample_time: float | None) ->
         if n is not None and sample_time:
             return n * sample_time
     return None
-
-
-def pole_covariance_from_provenance(provenance: dict, n_states: int):
-    """Pole covariance ``(n, 2, 2)`` from ``estimation.pole_covariance``, or None."""
-    import numpy as np
-
-    block = provenance.get("estimation") if isinstance(provenance, dict) else None
-    raw = block.get("pole_covariance") if isinstance(block, dict) else None
-    if raw is None:
-        return None
-    try:
-        cov = np.asarray(raw, dtype=float)
-    except (TypeError, ValueError):
-        return None
-    if cov.shape != (n_states, 2, 2) or not np.all(np.isfinite(cov)):
-        return None
-    return cov
 
 
 def _write_plot(table, path: str, *, force: bool, protected: tuple[str, ...]) -> None:

@@ -72,6 +72,19 @@ class ModelFile:
     provenance: dict = field(default_factory=dict)
     path: str | None = None
 
+    def pole_covariance(self) -> np.ndarray | None:
+        """Return the stored pole covariance ``(n, 2, 2)`` (``provenance.estimation.pole_covariance``).
+
+        A nan block means the uncertainty of that pole is unknown; ``None`` means
+        the file holds no usable covariance (see
+        :func:`ident.uncertainty.pole_covariance_from_list`).
+        """
+        from ..uncertainty import pole_covariance_from_list
+
+        block = self.provenance.get("estimation") if isinstance(self.provenance, dict) else None
+        raw = block.get("pole_covariance") if isinstance(block, dict) else None
+        return pole_covariance_from_list(raw, self.model.n_states)
+
 
 def _matrix(arr: np.ndarray) -> list[list[float]]:
     return [[float(v) for v in row] for row in np.asarray(arr, dtype=float)]
