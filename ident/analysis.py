@@ -21,6 +21,7 @@ from .models import StateSpaceModel
 __all__ = [
     "TimeResponse",
     "transmission_zeros",
+    "channel_zeros",
     "dc_gain",
     "frequency_response",
     "step_response",
@@ -297,6 +298,42 @@ def dc_gain(model: StateSpaceModel) -> np.ndarray:
         for j in range(model.n_inputs):
             out[i, j] = _channel_dc_gain(poles, A, B[:, j], C[i], D[i, j], z0, near, tol)
     return out
+
+
+def channel_zeros(model: StateSpaceModel) -> tuple[tuple[np.ndarray | None, ...], ...]:
+    """Finite zeros of every single channel ``G_ij``, as ``zeros[i][j]`` (complex arrays).
+
+    Parameters
+    ----------
+    model : StateSpaceModel
+        Discrete or continuous model.
+
+    Returns
+    -------
+    tuple of tuple of (numpy.ndarray or None)
+        ``p x m`` nested tuples; ``None`` for a channel that is identically zero
+        (its zeros are undefined).
+
+    Notes
+    -----
+    Unlike the transmission zeros of a non-square system (which are usually
+    none), channel zeros show a mode that one channel does not see: a zero of
+    ``G_ij`` on top of a pole cancels it in that channel. Computed with the same
+    orthogonal deflation as :func:`transmission_zeros`, never by expanding
+    polynomials.
+    """
+    if not isinstance(model, StateSpaceModel):
+        raise OptionError(f"model must be a StateSpaceModel; got {type(model).__name__}")
+    A, B, C, D = model.A, model.B, model.C, model.D
+    tol = _system_tol(A, B, C, D)
+    out = []
+    for i in range(model.n_outputs):
+        row = []
+        for j in range(model.n_inputs):
+            zeros, gain = _siso_zeros_gain(A, B[:, j], C[i], D[i, j], tol)
+            row.append(np.asarray(zeros, dtype=complex) if gain != 0.0 else None)
+        out.append(tuple(row))
+    return tuple(out)
 
 
 def _channel_dc_gain(poles, A, b, c, d, z0, near, tol) -> float:

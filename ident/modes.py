@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 
 from ._validate import fraction, positive_float
-from .analysis import dc_gain, transmission_zeros
+from .analysis import channel_zeros, dc_gain, transmission_zeros
 from .discretize import poles_to_continuous
 from .errors import ModelError, OptionError
 from .models import StateSpaceModel
@@ -89,10 +89,12 @@ class ModeThresholds:
         flagged ``slow_for_log``: the log shows too little of its settling to
         pin it down. Applied only when the log duration is known.
     cancellation_distance : float, default 0.01
-        A pole and a transmission zero closer than this, relative to the larger
-        of their magnitudes (``|p - q| <= d max(|p|, |q|)``), are flagged
-        ``near_cancellation``: the mode hardly shows in the response and the
-        order is probably too high.
+        A pole closer than this to a transmission zero, or to a zero of every
+        channel that responds at all (so that it cancels everywhere, as in a
+        model with more outputs than inputs, which has no transmission zeros),
+        relative to the larger of their magnitudes (``|p - q| <= d max(|p|, |q|)``),
+        is flagged ``near_cancellation``: the mode hardly shows in the response
+        and the order is probably too high.
     negative_real_angle_tolerance_rad : float, default 0.05
         A pole whose angle is within this many radians of pi (about 2.9 degrees
         by default) is flagged ``negative_real``. A real pole on the negative
@@ -507,13 +509,15 @@ def mode_table(
 
     zeros = np.asarray(transmission_zeros(model), dtype=complex).ravel()
     gain = np.asarray(dc_gain(model), dtype=float)
+    # zeros of every channel that responds at all: a mode cancelled in each of them hardly shows
+    live_channels = tuple(z for row in channel_zeros(model) for z in row if z is not None)
 
     groups = _group_poles(poles, cov)
     s_all = np.asarray(
         poles_to_continuous(np.array([g[0] for g in groups], dtype=complex), T), dtype=complex
     ).reshape(-1)
     modes = [
-        _make_mode(z, mult, c, s_all[i], T, zeros, th, log_duration_s)
+        _make_mode(z, mult, c, s_all[i], T, zeros, live_channels, th, log_duration_s)
         for i, (z, mult, c) in enumerate(groups)
     ]
     modes.sort(key=lambda m: (m.natural_frequency_rad_s is None, m.natural_frequency_rad_s or 0.0,
@@ -554,6 +558,14 @@ def _gradients(z: complex, T: float) -> tuple[np.ndarray | None, np.ndarray | No
     return g_mag / T, g_zeta
 
 
+def _near_zero(p: complex, zeros: np.ndarray, th: ModeThresholds) -> bool:
+    if zeros.size == 0:
+        return False
+    dist = np.abs(zeros - p)
+    scale = np.maximum(np.abs(zeros), abs(p))
+    return bool(np.any(dist <= th.cancellation_distance * scale))
+
+
 def _make_mode(
     z: complex,
     mult: int,
@@ -561,6 +573,7 @@ def _make_mode(
     s: complex,
     T: float,
     zeros: np.ndarray,
+    live_channels: tuple[np.ndarray, ...],
     th: ModeThresholds,
     log_duration_s: float | None,
 ) -> Mode:
@@ -594,14 +607,12 @@ def _make_mode(
         flags.append("near_nyquist")
     if log_duration_s is not None and tau is not None and tau > th.log_duration_fraction * log_duration_s:
         flags.append("slow_for_log")
-    if zeros.size:
-        members = (z, z.conjugate()) if is_pair else (z,)
-        for p in members:
-            dist = np.abs(zeros - p)
-            scale = np.maximum(np.abs(zeros), abs(p))
-            if np.any(dist <= th.cancellation_distance * scale):
-                flags.append("near_cancellation")
-                break
+    members = (z, z.conjugate()) if is_pair else (z,)
+    near = any(_near_zero(p, zeros, th) for p in members) or (
+        bool(live_channels) and all(any(_near_zero(p, zc, th) for p in members) for zc in live_channels)
+    )
+    if near:
+        flags.append("near_cancellation")
     z_std = radius = wn_std_hz = zeta_std = None
     if cov is not None and r > 0:
         grad_wn, grad_zeta = _gradients(z, T)

@@ -255,3 +255,17 @@ def test_time_response_options_are_checked():
         step_response(model, n_samples=1)
     # duration 1 s at T = 0.1 s: samples 0 .. 10 (closed form)
     assert step_response(model, duration_s=1.0).time.size == 11
+
+
+def test_channel_zeros_equal_scipy_ss2zpk():
+    from ident.analysis import channel_zeros
+
+    model = random_stable(7, 4, 2, 3, 0.1)
+    zeros = channel_zeros(model)
+    for j in range(2):
+        for i in range(3):
+            # reference: scipy.signal.ss2zpk on the single channel (i, j)
+            want, _, _ = signal.ss2zpk(model.A, model.B[:, j:j + 1], model.C[i:i + 1], model.D[i:i + 1, j:j + 1])
+            assert_same_roots(zeros[i][j], np.sort_complex(want), rtol=1e-7)
+    silent = model.with_changes(C=np.zeros((3, 4)), D=np.zeros((3, 2)))
+    assert channel_zeros(silent)[0][0] is None  # identically zero channel: zeros undefined

@@ -301,3 +301,22 @@ def test_frequency_and_damping_std_follow_the_delta_method(z):
     # positive real pole, whose damping ratio is 1 whatever z is (std 0 up to round-off)
     assert_allclose(mode.natural_frequency_std_hz, math.sqrt(var[0]), rtol=1e-5)
     assert_allclose(mode.damping_ratio_std, math.sqrt(var[1]), rtol=1e-5, atol=1e-9)
+
+
+def test_near_cancellation_on_a_model_with_more_outputs_than_inputs():
+    # the 0.3 pole is barely excited (B entry 1e-4): with one input and two outputs there are no
+    # transmission zeros, but each channel has a zero next to 0.3 (closed form: a mode the input
+    # hardly reaches cancels in every output)
+    from ident.analysis import transmission_zeros
+
+    A = np.diag([0.9, 0.5, 0.3])
+    B = np.array([[1.0], [1.0], [1e-4]])
+    C = np.array([[1.0, 1.0, 1.0], [1.0, -1.0, 2.0]])
+    model = StateSpaceModel(A, B, C, np.zeros((2, 1)), sample_time=0.01)
+    assert transmission_zeros(model).size == 0
+    table = mode_table(model)
+    flagged = [m for m in table.modes if "near_cancellation" in m.flags]
+    assert len(flagged) == 1 and abs(flagged[0].z - 0.3) < 1e-12
+    # fully excited: silent
+    clean = mode_table(model.with_changes(B=np.array([[1.0], [1.0], [1.0]])))
+    assert not any("near_cancellation" in m.flags for m in clean.modes)
