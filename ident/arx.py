@@ -61,6 +61,8 @@ __all__ = [
     "fit_arx_candidates",
     "iter_arx_candidates",
     "sweep_arx",
+    "grid_search_arx",
+    "shortlist",
     "arx_regressors",
     "arx_state_space",
 ]
@@ -1199,6 +1201,125 @@ def sweep_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
             f"outputs; estimation data have {m} and {p}"
         )
 
+    sweep, _ = _grid(experiments, sample_time, na_vals, nb_vals, nk_vecs, val_exps, delay)
+    return sweep
+
+
+def shortlist(sweep: ArxSweep, per_criterion: int = 3) -> tuple[int, ...]:
+    """Rows of a sweep worth validating: the best few by each information criterion.
+
+    Parameters
+    ----------
+    sweep : ArxSweep
+    per_criterion : int, default 3
+        How many rows each of AIC, BIC/MDL and FPE contributes (its best
+        ``per_criterion``, smallest value first, ties to fewer parameters).
+        Rank-deficient rows are skipped.
+
+    Returns
+    -------
+    tuple of int
+        Row indices into ``sweep.rows``, without repeats, in row order.
+    """
+    per_criterion = int_in_range(per_criterion, "per_criterion", 1)
+    usable = [k for k, r in enumerate(sweep.rows) if not r.rank_deficient]
+    picked: set[int] = set()
+    for name in CRITERIA:
+        ranked = sorted(usable, key=lambda k: (getattr(sweep.rows[k], name),
+                                               sweep.rows[k].n_parameters, k))
+        picked.update(ranked[:per_criterion])
+    return tuple(sorted(picked))
+
+
+def grid_search_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
+                    na_values: Sequence[int], nb_values: Sequence[int],
+                    nk_values: Sequence[Sequence[int]], per_criterion: int = 3,
+                    input_names: Sequence[str] | None = None,
+                    output_names: Sequence[str] | None = None,
+                    ) -> tuple[ArxSweep, tuple[int, ...], Iterator[tuple[int, ArxResult | Exception]]]:
+    """Rank a grid of ARX structures by AIC, BIC/MDL and FPE, then fit the best few.
+
+    Parameters
+    ----------
+    data : Experiment or sequence of Experiment
+        Estimation data (deviations from the operating point).
+    sample_time : float
+        Seconds.
+    na_values, nb_values : sequence of int
+        Output-lag and input orders of the grid (the same ``nb`` for every input).
+    nk_values : sequence of sequence of int
+        Delay vectors of the grid, one entry per input each.
+    per_criterion : int, default 3
+        Rows each criterion contributes to the shortlist (see :func:`shortlist`).
+    input_names, output_names : sequence of str, optional
+        Signal names for the models and for messages.
+
+    Returns
+    -------
+    sweep : ArxSweep
+        Every grid point with its loss and criteria (on the grid's common rows).
+    picks : tuple of int
+        The shortlisted rows of ``sweep``.
+    results : iterator of (int, ArxResult or Exception)
+        For each pick, in order, its full fit (as :func:`fit_arx` of that
+        structure alone), or the :class:`IdentificationError` /
+        :class:`OptionError` that structure raised. Warnings of a structure
+        are issued during its step.
+
+    Notes
+    -----
+    One R factor of the union regressor matrix serves everything: the
+    criteria of every grid point (a tiny QR per point and output, as in
+    :func:`sweep_arx`) and the full fits of the shortlisted points (as in
+    :func:`fit_arx_candidates`). The data are read once.
+
+    References
+    ----------
+    .. [1] L. Ljung, *System Identification: Theory for the User*, 2nd ed.,
+       Prentice Hall, 1999, sec. 16.4 (choice of model structure).
+    """
+    experiments = as_experiments(data)
+    sample_time = positive_float(sample_time, "sample_time")
+    m, p = experiments[0].n_inputs, experiments[0].n_outputs
+    in_names = names_tuple(input_names, "input_names", m, "u")
+    out_names = names_tuple(output_names, "output_names", p, "y")
+    na_vals = _values(na_values, "na_values")
+    nb_vals = _values(nb_values, "nb_values")
+    items = list(nk_values)
+    if not items:
+        raise OptionError("nk_values must hold at least one delay vector")
+    nk_vecs = tuple(dict.fromkeys(
+        _per_input(_order_spec(list(v) if isinstance(v, (list, tuple)) else v,
+                               f"nk_values[{k}]"), "nk_values entry", m)
+        for k, v in enumerate(items)
+    ))
+    _check_outputs_are_not_inputs(experiments, in_names, out_names)
+    sweep, union = _grid(experiments, sample_time, na_vals, nb_vals, nk_vecs, None, None)
+    picks = shortlist(sweep, per_criterion)
+
+    def results() -> Iterator[tuple[int, ArxResult | Exception]]:
+        for k in picks:
+            row = sweep.rows[k]
+            opts = row.options()
+            plan = _plan(experiments, opts, row.nb, row.nk, None)
+            if plan.error is not None:
+                yield k, plan.error
+                continue
+            try:
+                R_s, index_s, rows_s = _restrict(union, experiments, plan, p)
+                yield k, _result_from_r(R_s, index_s, rows_s, plan, sample_time,
+                                        in_names, out_names)
+            except (IdentificationError, OptionError) as exc:
+                yield k, exc
+
+    return sweep, picks, results()
+
+
+def _grid(experiments: Sequence[Experiment], sample_time: float, na_vals: tuple[int, ...],
+          nb_vals: tuple[int, ...], nk_vecs: tuple[tuple[int, ...], ...],
+          val_exps: Sequence[Experiment] | None, delay: DelayEstimate | None):
+    """Criteria of every grid point from one R factor; the sweep and that union factor."""
+    m, p = experiments[0].n_inputs, experiments[0].n_outputs
     lo = [min(v[j] for v in nk_vecs) for j in range(m)]
     hi = [max(v[j] for v in nk_vecs) + max(nb_vals) - 1 for j in range(m)]
     na_max = max(na_vals)
@@ -1253,4 +1374,5 @@ def sweep_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
     if val_exps is not None:
         best["validation_fit"] = best_index([float(np.mean(r.validation_fit)) for r in rows],
                                             counts, larger_is_better=True)
-    return ArxSweep(rows=tuple(rows), best=best, n_samples=n_rows, delay=delay)
+    union = (R, index, n_rows, L)
+    return ArxSweep(rows=tuple(rows), best=best, n_samples=n_rows, delay=delay), union

@@ -4,10 +4,13 @@
 support the models asked for, fits a family of candidate models and picks one
 by its fit on the held-out validation data:
 
-- **ARX** candidates ``na = nb = n`` for ``n = 1 .. max_order``, with the input
-  delays estimated from the data (:func:`ident.delay.estimate_delay`) unless
-  given, one MISO ARX model per output, all orders from one pass over the
-  data (:func:`ident.arx.iter_arx_candidates`);
+- **ARX**: a grid of structures ``na`` and ``nb`` in ``1 .. max_order`` with
+  the input delays estimated from the data (:func:`ident.delay.estimate_delay`)
+  and their neighbours ``nk - 1 .. nk + 1`` (or the given delay), one MISO
+  ARX model per output, every structure ranked by AIC, BIC/MDL and FPE from
+  one accumulated R factor; the best :data:`PER_CRITERION` structures by each
+  criterion become candidates (:func:`ident.arx.grid_search_arx`). With a
+  fixed order the one structure ``na = nb = order`` is the candidate;
 - **subspace** candidates of ``n = 1 .. max_order`` states, all from one
   projection of the data (:func:`ident.subspace.project` then
   :func:`ident.subspace.model_of_order`).
@@ -53,6 +56,7 @@ from .simulate import estimate_initial_state, simulate
 __all__ = [
     "METHODS",
     "TIE_TOLERANCE",
+    "PER_CRITERION",
     "IdentifyOptions",
     "Candidate",
     "Identification",
@@ -70,6 +74,13 @@ WEIGHTINGS = ("n4sid", "moesp", "cva")
 #: Two candidates whose mean validation fits differ by at most this many
 #: percentage points are tied; the simpler one is chosen.
 TIE_TOLERANCE = 0.5
+
+#: Delay shifts tried around the estimated delays in an automatic ARX search
+#: (all inputs shifted together; negative delays are clipped to 0).
+_DELAY_SHIFTS = (-1, 0, 1)
+
+#: Default of :attr:`IdentifyOptions.per_criterion`.
+PER_CRITERION = 3
 
 #: Largest order accepted for ``order`` and ``max_order``.
 MAX_ORDER = 40
@@ -103,9 +114,14 @@ class IdentifyOptions:
         with the best validation fit.
     order : int, optional
         Fixed model order; ``None`` (default) selects it. For subspace it is
-        the number of states; for ARX ``na = nb = order``.
+        the number of states; for ARX ``na = nb = order`` (delays estimated
+        unless ``delay`` is given).
     max_order : int
-        Largest order tried when ``order`` is ``None`` (default 10).
+        Largest order tried when ``order`` is ``None`` (default 10): subspace
+        orders ``1 .. max_order``; for ARX the grid ``na, nb`` in
+        ``1 .. max_order`` with the delays estimated and their neighbours
+        ``nk - 1 .. nk + 1`` (all inputs shifted together, at least 0), or
+        the given ``delay`` alone.
     delay : int, optional
         Input delay ``nk`` in samples, the same for every input, for ARX;
         ``None`` (default) estimates the delays from the data.
@@ -120,6 +136,10 @@ class IdentifyOptions:
     tie_tolerance : float
         Mean validation fits within this many percentage points of the best
         are tied (default :data:`TIE_TOLERANCE`, 0.5).
+    per_criterion : int
+        In an automatic ARX search, how many of the best grid structures by
+        each of AIC, BIC/MDL and FPE go on to the validation stage (default
+        :data:`PER_CRITERION`, 3; at most ``3 * per_criterion`` candidates).
     preprocess : PreprocessOptions
         Operating point, detrending, decimation and hold-out.
     """
@@ -132,6 +152,7 @@ class IdentifyOptions:
     horizon: int | None = None
     stabilize: bool = False
     tie_tolerance: float = TIE_TOLERANCE
+    per_criterion: int = PER_CRITERION
     preprocess: PreprocessOptions = field(default_factory=PreprocessOptions)
 
     def __post_init__(self) -> None:
@@ -154,6 +175,8 @@ class IdentifyOptions:
         if not (tol >= 0 and math.isfinite(tol)):
             raise OptionError(f"tie_tolerance must be a number >= 0; got {self.tie_tolerance!r}")
         object.__setattr__(self, "tie_tolerance", tol)
+        object.__setattr__(self, "per_criterion",
+                           int_in_range(self.per_criterion, "per_criterion", 1, 100))
         if isinstance(self.preprocess, Mapping):
             object.__setattr__(self, "preprocess", PreprocessOptions(**self.preprocess))
         if not isinstance(self.preprocess, PreprocessOptions):
@@ -196,7 +219,7 @@ class Candidate:
     method : {"arx", "subspace"}
         Model family.
     order : int
-        ``na = nb`` for ARX, the number of states for subspace.
+        ``max(na, nb)`` for ARX, the number of states for subspace.
     structure : dict
         ``{"na", "nb", "nk"}`` (lists per input for ``nb`` and ``nk``) for ARX,
         ``{"n", "weighting", "horizon"}`` for subspace.
@@ -212,8 +235,9 @@ class Candidate:
         Mean of ``validation_fit`` over the outputs (the selection score).
     criteria : Criteria or None
         AIC, BIC and FPE on the estimation data for ARX candidates (prediction
-        errors); ``None`` for subspace candidates, whose evidence is the
-        singular values.
+        errors; in an automatic search the values of the grid, on the rows all
+        grid structures share, so they rank like the whole grid); ``None`` for
+        subspace candidates, whose evidence is the singular values.
     selected : bool
         True for the chosen candidate.
     """
@@ -255,10 +279,10 @@ class Identification:
     method : {"arx", "subspace"}
         Family of the selected model.
     order : int
-        Its order (``na = nb`` for ARX, states for subspace).
+        Its order (``max(na, nb)`` for ARX, states for subspace).
     candidates : tuple of Candidate
-        Every candidate fitted, ARX first, by increasing order; exactly one
-        has ``selected=True``.
+        Every candidate validated, ARX first (in grid order: delay, na, nb),
+        then subspace by increasing order; exactly one has ``selected=True``.
     validation_fit : numpy.ndarray, shape (p,)
         Fit percent per output of ``model`` on the held-out data.
     estimation_fit : numpy.ndarray, shape (p,)
@@ -282,6 +306,13 @@ class Identification:
         Informational remarks (orders skipped and why, selection rule).
     options : IdentifyOptions
         The options used.
+    best_by : dict
+        Information criterion (``"aic"``, ``"bic"``, ``"fpe"``) -> index into
+        ``candidates`` of the ARX candidate it prefers (smallest value, ties
+        to fewer parameters); empty without ARX candidates.
+    arx_sweep : ArxSweep or None
+        The whole ARX grid with the criteria of every structure (automatic
+        ARX search only).
     """
 
     model: StateSpaceModel
@@ -299,6 +330,8 @@ class Identification:
     warnings: tuple[str, ...]
     notes: tuple[str, ...]
     options: IdentifyOptions
+    best_by: dict[str, int] = field(default_factory=dict)
+    arx_sweep: Any = None
 
     @property
     def selected(self) -> Candidate:
@@ -440,6 +473,30 @@ def _check_signals(prep: PreparedData) -> list[str]:
                 hint="drop an input that is a combination of the others",
             )
     return out
+
+
+def _fixed_order_arx(prep: PreparedData, nk: Any, order: int, names: dict[str, Any]):
+    """Yield ``(None, ArxResult or Exception)`` for the one fixed-order ARX candidate."""
+    from .arx import ArxOptions, iter_arx_candidates
+
+    try:
+        yield None, next(iter_arx_candidates(
+            prep.estimation, prep.sample_time, [ArxOptions(na=order, nb=order, nk=nk)], **names,
+        ))
+    except (IdentificationError, OptionError) as exc:
+        yield None, exc
+
+
+def _best_by(candidates: Sequence[Candidate]) -> dict[str, int]:
+    """Criterion -> index of the ARX candidate it prefers."""
+    from .order import CRITERIA, best_index
+
+    arx = [k for k, c in enumerate(candidates) if c.criteria is not None]
+    if not arx:
+        return {}
+    counts = [candidates[k].n_parameters for k in arx]
+    return {name: arx[best_index([candidates[k].criteria.get(name) for k in arx], counts)]
+            for name in CRITERIA}
 
 
 def _samples_needed(order: int, m: int, p: int) -> int:
@@ -676,16 +733,18 @@ def _identify(
     candidates: list[Candidate] = []
     fitted: list[Any] = []  # (model, raw result) per candidate
     arx_delay = None
+    arx_sweep = None
     singular_values = None
     suggested = None
     do_arx = options.method in ("arx", "auto")
     do_sub = options.method in ("subspace", "auto")
-    n_steps = (len(orders) if do_arx else 0) + (len(orders) + 1 if do_sub else 0) + 1
+    n_arx = 3 * options.per_criterion if fixed is None else 1
+    n_steps = (n_arx + 1 if do_arx else 0) + (len(orders) + 1 if do_sub else 0) + 1
     step = 0
     names = {"input_names": prep.input_names, "output_names": prep.output_names}
 
     if do_arx:
-        from .arx import ArxOptions, iter_arx_candidates
+        from .arx import grid_search_arx
 
         if options.delay is not None:
             nk: Any = options.delay
@@ -706,39 +765,66 @@ def _identify(
                 # one delay per input, shared by the outputs' MISO models: the smallest
                 # seen from that input, so that no output loses its earliest response
                 nk = tuple(int(v) for v in delays.min(axis=0))
-        # every order from one pass over the data (one accumulated R factor)
-        arx_fits = iter_arx_candidates(
-            prep.estimation, prep.sample_time, [ArxOptions(na=n, nb=n, nk=nk) for n in orders],
-            **names,
-        )
-        for n in orders:
-            report("ARX factorisation" if n == orders[0] else f"ARX order {n}", step / n_steps)
-            step += 1
+        if fixed is not None:
+            arx_steps = _fixed_order_arx(prep, nk, fixed, names)
+        else:
+            report("ARX structure grid", step / n_steps)
+            nk_base = (nk,) * m if isinstance(nk, int) else tuple(nk)
+            shifts = (0,) if options.delay is not None else _DELAY_SHIFTS
+            nk_grid = list(dict.fromkeys(
+                tuple(max(0, v + d) for v in nk_base) for d in shifts
+            ))
+            arx_sweep, _, arx_steps = grid_search_arx(
+                prep.estimation, prep.sample_time, na_values=orders, nb_values=orders,
+                nk_values=nk_grid, per_criterion=options.per_criterion, **names,
+            )
+            notes.append(
+                f"ARX grid: na, nb in 1..{max(orders)}, nk in "
+                + ", ".join(str(list(v)) for v in nk_grid)
+                + f" ({len(arx_sweep.rows)} structures from one R factor); the best "
+                f"{options.per_criterion} by each of AIC, BIC and FPE were validated"
+            )
+        first = True
+        while True:
             try:
                 with warnings.catch_warnings(record=True) as caught:
                     warnings.simplefilter("always")
-                    res = next(arx_fits)
-            except (IdentificationError, OptionError) as exc:
-                if fixed is not None or n == orders[0]:
-                    raise
-                notes.append(f"ARX orders from {n} up were not fitted: {exc}")
+                    k_grid, res = next(arx_steps)
+            except StopIteration:
                 break
+            step += 1
+            report("ARX candidates", min(step, n_steps - 1) / n_steps)
+            if isinstance(res, Exception):
+                if fixed is not None:
+                    raise res
+                notes.append(f"ARX candidate skipped: {res}")
+                continue
+            first = False
             model = res.model
             vfit = _validation_fit(model, prep.validation, res)
+            crit = res.criteria
+            if arx_sweep is not None:  # rank on the grid's common rows, like the whole grid
+                row = arx_sweep.rows[k_grid]
+                crit = Criteria(aic=row.aic, bic=row.bic, fpe=row.fpe)
             candidates.append(
                 Candidate(
                     method="arx",
-                    order=n,
+                    order=max(int(res.na), *(int(v) for v in res.nb)),
                     structure={"na": int(res.na), "nb": [int(v) for v in res.nb],
                                "nk": [int(v) for v in res.nk]},
                     n_states=model.n_states,
                     n_parameters=int(res.n_parameters),
                     validation_fit=vfit,
                     mean_fit=_mean(vfit),
-                    criteria=res.criteria,
+                    criteria=crit,
                 )
             )
             fitted.append((model, res, caught))
+        if first:
+            raise IdentificationError(
+                "no ARX candidate of the grid could be fitted",
+                hint="fix a low --order or check the inputs",
+            )
 
     if do_sub:
         from .subspace import SubspaceOptions, model_of_order, project, suggest_order
@@ -841,4 +927,6 @@ def _identify(
         warnings=(),
         notes=tuple(notes),
         options=options,
+        best_by=_best_by(candidates),
+        arx_sweep=arx_sweep,
     )

@@ -132,3 +132,34 @@ def test_plot_writes_pngs_and_refuses_overwrite(run_cli, files):
     forced = run_cli("check", files["log"], files["model"], "--plot", out, "--force")
     assert forced.exit_code == 0, forced.output
     assert not list(out.glob(".*.tmp"))  # no temporary files left behind
+
+
+def test_split_at_gaps_validates_on_the_longest_segment(run_cli, files, tmp_path):
+    lines = files["log"].read_text().splitlines()
+    del lines[501:511]  # ten samples missing before file line 502: segments of 500 and 2490
+    gappy = tmp_path / "gappy.csv"
+    gappy.write_text("\n".join(lines) + "\n")
+    res = run_cli("check", gappy, files["model"])
+    assert res.exit_code == 2 and "row 502" in res.stderr and "--split-at-gaps" in res.stderr
+    res = run_cli("check", gappy, files["model"], "--split-at-gaps")
+    assert res.exit_code == 0, res.output
+    assert "validated on the longest of 2 segments: samples 500..2989" in res.stdout
+    data = json.loads(run_cli("check", gappy, files["model"], "--split-at-gaps", "--json").stdout)
+    assert data["segment"] == {"start": 500, "stop": 2990, "n_segments": 2, "dropped_rows": 0}
+    assert data["n_samples"] == 2490  # the longest segment only (3000 - 10 - 500)
+    # the same figures as validating a log holding that stretch alone
+    alone = tmp_path / "alone.csv"
+    alone.write_text("\n".join([lines[0], *lines[501:]]) + "\n")
+    direct = json.loads(run_cli("check", alone, files["model"], "--json").stdout)
+    assert direct["n_samples"] == 2490
+    assert direct["fit"] == data["fit"]  # identical input data and code path
+
+
+def test_dropped_rows_reported(run_cli, files, tmp_path):
+    lines = files["log"].read_text().splitlines()
+    lines[2999] = lines[2999].rsplit(",", 1)[0] + ",bad"  # the second-to-last data row
+    broken = tmp_path / "broken.csv"
+    broken.write_text("\n".join(lines) + "\n")
+    res = run_cli("check", broken, files["model"], "--drop-bad-rows", "--split-at-gaps")
+    assert res.exit_code == 0, res.output
+    assert "1 bad rows dropped" in res.stdout

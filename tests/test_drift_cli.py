@@ -61,3 +61,21 @@ def test_drift_bad_model_file_exit_2(run_cli, pair, tmp_path):
     bad.write_text("[]")
     r = run_cli("drift", base, bad)
     assert r.exit_code == 2 and r.stderr.startswith("error: bad.json")
+
+
+def test_drift_log_accepts_the_shared_log_options(run_cli, pair, tmp_path):
+    base, new, log = pair
+    lines = log.read_text().splitlines()
+    lines[3001] = lines[3001].rsplit(",", 1)[0] + ",nan"  # one bad cell at file line 3002
+    broken = tmp_path / "broken.csv"
+    broken.write_text("\n".join(lines) + "\n")
+    r = run_cli("drift", base, new, "--log", broken, "--json")
+    assert r.exit_code == 2 and "row 3002" in r.stderr
+    r = run_cli("drift", base, new, "--log", broken, "--drop-bad-rows", "--split-at-gaps",
+                "--jitter-tolerance", "0.05", "--json")
+    assert r.exit_code == 3, r.stderr  # the same breach as on the intact log
+    assert "longest of 2 segments (samples 0..2999)" in r.stderr
+    assert "1 bad rows dropped" in r.stderr
+    data = json.loads(r.stdout)
+    # noise-free log of the new model, scored on an unbroken segment: fit 100 % by definition
+    assert_allclose(data["fit_on_new_log"]["new_model"], [100.0], atol=1e-6)

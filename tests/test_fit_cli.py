@@ -42,7 +42,11 @@ def test_fit_json_and_model_file(run_cli, log_file, tmp_path):
     assert set(data["validation_fit"]) == {"flow"}
     # 0.2 % output noise relative to the input: the fit is close to 100 percent
     assert data["validation_fit"]["flow"] > 99.0
-    assert len(data["candidates"]) == 8  # ARX and subspace, orders 1..4
+    # subspace orders 1..4, then the ARX grid's best 3 per criterion (at most 9, at least 1)
+    methods = [c["method"] for c in data["candidates"]]
+    assert methods.count("subspace") == 4 and 1 <= methods.count("arx") <= 9
+    assert set(data["best_by"]) == {"aic", "bic", "fpe"}
+    assert data["arx_grid"]["n_structures"] == 4 * 4 * 3  # na, nb in 1..4, nk 0..2
     assert sum(c["selected"] for c in data["candidates"]) == 1
     for key in ("method", "order", "structure", "n_parameters", "validation_fit", "mean_fit",
                 "criteria"):
@@ -78,6 +82,112 @@ def test_fit_readable_summary(run_cli, log_file):
     assert "f_n [Hz]" in res.stdout  # the modes in physical units
     # the pair 0.9 +- 0.2j at T = 0.01 s: f_n = |ln z| / (2 pi T) = 3.713 Hz (closed form)
     assert "3.71" in res.stdout
+
+
+def test_fit_reports_criteria_table_and_delay_evidence(run_cli, log_file):
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--method", "arx",
+                  "--max-order", "3")
+    assert res.exit_code == 0, res.output
+    out = res.stdout
+    header = next(line for line in out.splitlines() if "AIC" in line)
+    assert "BIC" in header and "FPE" in header and "fit %" in header
+    assert "preferred: AIC -> #" in out and "BIC -> #" in out and "FPE -> #" in out
+    # the plant has one sample of delay (numerator [0, 0.5, 0.3], by construction)
+    assert "valve -> flow: 1 sample;" in out and "t-ratios at lags 0..3" in out
+    assert "|t| > 3" in out  # the threshold of the delay test (ident.delay default)
+
+    data = json.loads(run_cli("fit", log_file, "--input", "valve", "--output", "flow",
+                              "--method", "arx", "--max-order", "3", "--json").stdout)
+    cands = data["candidates"]
+    for name in ("aic", "bic", "fpe"):
+        k = data["best_by"][name]
+        # best_by points at the smallest value of that criterion among the ARX candidates
+        assert cands[k]["criteria"][name] == min(c["criteria"][name] for c in cands)
+        # ... which is also the grid's best structure by that criterion
+        row = data["arx_grid"]["rows"][data["arx_grid"]["best"][name]]
+        assert cands[k]["structure"] == {"na": row["na"], "nb": row["nb"], "nk": row["nk"]}
+    ev = data["delay_evidence"]
+    assert ev["threshold"] == 3.0 and ev["method"]
+    (ch,) = ev["channels"]
+    assert (ch["input"], ch["output"], ch["delay"], ch["detected"]) == ("valve", "flow", 1, True)
+    # t-ratio = |coefficient| / standard error (definition)
+    assert_allclose(ch["t_ratios"], np.abs(ch["coefficients"]) / np.array(ch["std_errors"]),
+                    rtol=1e-12)
+    # lag 1 carries b_1 = 0.5 (by construction); estimated within a few standard errors
+    assert abs(ch["coefficients"][1] - 0.5) < 5 * ch["std_errors"][1]
+    assert abs(ch["t_ratios"][0]) < 3.0 < abs(ch["t_ratios"][1])
+
+
+def _log_with_bad_row(tmp_path, *, time_column):
+    rng = np.random.default_rng(12)
+    n = 2000
+    u = rng.standard_normal(n)
+    y = signal.lfilter([0.0, 0.5, 0.3], np.poly(POLES).real, u) + 0.002 * rng.standard_normal(n)
+    lines = [("time [s]," if time_column else "") + "valve [V],flow [l/min]"]
+    for k in range(n):
+        lines.append((f"{k * T:.4f}," if time_column else "") + f"{u[k]:.9g},{y[k]:.9g}")
+    lines[1201] = lines[1201].rsplit(",", 1)[0] + ",n/a"  # file line 1202 (sample 1200)
+    path = tmp_path / ("timed.csv" if time_column else "rate.csv")
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+@pytest.mark.parametrize("time_column", [True, False])
+def test_dropped_rows_are_gaps_that_need_split_at_gaps(run_cli, tmp_path, time_column):
+    path = _log_with_bad_row(tmp_path, time_column=time_column)
+    base = ["fit", path, "--input", "valve", "--output", "flow", "--max-order", "2",
+            "--method", "arx", "--quiet"]
+    if not time_column:
+        base += ["--sample-rate", "100"]
+    res = run_cli(*base)
+    assert res.exit_code == 2 and "row 1202" in res.stderr  # the bad cell, named
+    res = run_cli(*base, "--drop-bad-rows")
+    # the dropped row is a gap: refused without --split-at-gaps, naming the row after it
+    assert res.exit_code == 2 and "row 1203" in res.stderr and "--split-at-gaps" in res.stderr
+    res = run_cli(*base, "--drop-bad-rows", "--split-at-gaps")
+    assert res.exit_code == 0, res.output
+    assert "1999 samples, 2 segments" in res.stdout  # 2000 rows less one (closed form)
+    assert "1 bad rows dropped" in res.stdout
+    data = json.loads(run_cli(*base, "--drop-bad-rows", "--split-at-gaps", "--json").stdout)
+    assert data["log"]["segments"] == [[0, 1200], [1200, 1999]]
+    assert data["log"]["dropped_rows"] == 1
+
+
+def test_gap_in_time_column_needs_split_at_gaps(run_cli, tmp_path):
+    path = _write_log(tmp_path / "gap.csv", n=1500)
+    lines = path.read_text().splitlines()
+    del lines[801:811]  # ten samples missing before file line 802
+    path.write_text("\n".join(lines) + "\n")
+    args = ["fit", path, "--input", "valve", "--output", "flow", "--max-order", "2", "--quiet"]
+    res = run_cli(*args)
+    assert res.exit_code == 2 and "row 802" in res.stderr and "gap" in res.stderr
+    res = run_cli(*args, "--split-at-gaps")
+    assert res.exit_code == 0, res.output
+    assert "2 segments" in res.stdout
+
+
+def test_log_options_are_shared_by_every_log_command():
+    from ident.cli.check_cmd import check
+    from ident.cli.drift_cmd import drift
+    from ident.cli.fit_cmd import fit
+    from ident.cli.inspect_cmd import inspect
+
+    wanted = ("--time", "--sample-rate", "--drop-bad-rows", "--split-at-gaps",
+              "--jitter-tolerance")
+
+    def spec(command):
+        out = {}
+        for param in command.params:
+            for opt in getattr(param, "opts", []):
+                if opt in wanted:
+                    out[opt] = (param.name, param.is_flag, param.default, param.help,
+                                getattr(param.type, "name", None))
+        return out
+
+    ref = spec(fit)
+    assert set(ref) == set(wanted)
+    for command in (inspect, check, drift):
+        assert spec(command) == ref, command.name
 
 
 def test_fixed_order_subspace(run_cli, log_file):

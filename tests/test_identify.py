@@ -74,7 +74,52 @@ def test_auto_order_arx_data(rng):
     # tolerance is many standard errors wide for this noise level and length
     assert_allclose(_sorted(res.model.poles()), _sorted(POLES_2), atol=0.01)
     assert sum(c.selected for c in res.candidates) == 1
-    assert [c.order for c in res.candidates] == list(range(1, 7))
+    # the grid: na, nb in 1..6, delays 0..2 around the estimated 1 (6 * 6 * 3 structures)
+    grid = res.arx_sweep
+    assert len(grid.rows) == 108
+    assert {r.nk for r in grid.rows} == {(0,), (1,), (2,)}
+    # every criterion's best grid structure is among the candidates, and best_by points at it
+    for name in ("aic", "bic", "fpe"):
+        row = grid.rows[grid.best[name]]
+        cand = res.candidates[res.best_by[name]]
+        assert (cand.structure["na"], cand.structure["nb"], cand.structure["nk"]) == (
+            row.na, list(row.nb), list(row.nk))
+        assert cand.criteria.get(name) == getattr(row, name)
+    # at most 3 per criterion are validated
+    assert 1 <= len(res.candidates) <= 9
+    # BIC prefers the true structure na = nb = 2, nk = 1 (common practice: BIC is
+    # consistent for the order when the true model is in the set; Ljung 1999, sec. 16.4)
+    assert res.candidates[res.best_by["bic"]].structure == {"na": 2, "nb": [2], "nk": [1]}
+
+
+def test_grid_criteria_match_statsmodels(rng):
+    # the grid's criteria come from residuals equal to OLS residuals on the common rows
+    import statsmodels.api as sm
+
+    from ident.arx import arx_regressors, fit_arx, grid_search_arx
+    from ident.data import Experiment
+
+    n = 3000
+    u = rng.standard_normal(n)
+    y = signal.lfilter([0.0, 0.4], [1.0, -0.6], u) + 0.1 * rng.standard_normal(n)
+    sweep, picks, steps = grid_search_arx(Experiment(u, y), T, na_values=[1, 2],
+                                          nb_values=[1, 2], nk_values=[(1,), (2,)])
+    L = 3  # largest lag of the grid: nk = 2, nb = 2 (closed form)
+    for row in sweep.rows:
+        phi, target = arx_regressors(Experiment(u, y), row.na, row.nb, row.nk)
+        lag = max(row.na, row.nk[0] + row.nb[0] - 1)
+        ols = sm.OLS(target[L - lag:], phi[L - lag:]).fit()
+        # same least-squares problem, two algorithms: agreement to rounding
+        assert_allclose(row.loss, ols.ssr / ols.nobs, rtol=1e-9)
+    results = dict(steps)
+    assert set(results) == set(picks)
+    for k, fitted in results.items():
+        row = sweep.rows[k]
+        assert (fitted.na, fitted.nb, fitted.nk) == (row.na, row.nb, row.nk)
+        alone = fit_arx(Experiment(u, y), T, row.options())
+        # one shared R factor vs the structure's own factorisation: equal to rounding
+        assert_allclose(fitted.parameters[0], alone.parameters[0], rtol=1e-9)
+        assert_allclose(fitted.std_errors[0], alone.std_errors[0], rtol=1e-9)
 
 
 def test_auto_order_subspace_data(rng):
@@ -194,7 +239,8 @@ def test_sine_input_not_exciting_enough_for_fixed_order():
         res = identify((u, y), T, IdentifyOptions(method="arx", max_order=4))
     assert any(issubclass(w.category, PoorExcitationWarning) and "orders above 1" in str(w.message)
                for w in caught)
-    assert [c.order for c in res.candidates] == [1]
+    # only na = nb = 1 structures (the grid keeps the delay neighbours)
+    assert {(c.structure["na"], *c.structure["nb"]) for c in res.candidates} == {(1, 1)}
     assert any("orders above 1" in w for w in res.warnings)
 
 

@@ -121,6 +121,23 @@ def test_bad_cell_and_drop_bad_rows(run_cli, tmp_path):
     assert "1 bad rows dropped" in text and "segments   2 (split at gaps)" in text
 
 
+def test_dropped_row_splits_a_sample_rate_log(run_cli, tmp_path):
+    rows = ["u [V],y [V]"] + [f"{k},{2 * k}" for k in range(30)]
+    rows[10] = "9,inf"  # file line 11
+    path = tmp_path / "rate.csv"
+    path.write_text("\n".join(rows) + "\n")
+    result = run_cli("inspect", path, "--sample-rate", "10", "--drop-bad-rows")
+    assert result.exit_code == 2 and "row 12" in result.stderr  # the row after the dropped one
+    result = run_cli("inspect", path, "--sample-rate", "10", "--drop-bad-rows",
+                     "--split-at-gaps", "--json")
+    assert result.exit_code == 0, result.stderr
+    data = json.loads(result.stdout)
+    # as with a time column: segments between the dropped row (file lines 2-10 and 12-31)
+    assert [(s["first_row"], s["last_row"]) for s in data["segments"]] == [(2, 10), (12, 31)]
+    # the duration counts the missing sample: 30 samples at 10 Hz span 2.9 s (closed form)
+    assert data["duration_s"] == pytest.approx(2.9, rel=1e-12)
+
+
 def test_no_time_column(run_cli, tmp_path):
     path = tmp_path / "rate.csv"
     pd.DataFrame({"u": np.arange(10.0), "y": np.arange(10.0) ** 2}).to_csv(path, index=False)

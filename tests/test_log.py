@@ -276,6 +276,28 @@ def test_drop_bad_rows_reports_count_and_keeps_line_numbers(tmp_path):
     assert [table.line_of(i) for i in range(3)] == [2, 3, 6]
 
 
+def test_drop_bad_rows_with_sample_rate_splits_at_the_dropped_rows(tmp_path):
+    lines = ["u,y"] + [f"{k},{10 * k}" for k in range(10)]
+    lines[3] = "x,20"  # file line 4 (sample 2)
+    lines[7] = "6,inf"  # file line 8 (sample 6)
+    path = _write(tmp_path, "\n".join(lines) + "\n")
+    # a dropped row is a gap in the sample sequence: refused without split_at_gaps
+    with pytest.raises(LogFormatError, match=r"row 5: 1 dropped row") as info:
+        read_log(path, "u", "y", sample_rate=100.0, drop_bad_rows=True)
+    assert "--split-at-gaps" in info.value.hint
+    log = read_log(path, "u", "y", sample_rate=100.0, drop_bad_rows=True, split_at_gaps=True)
+    assert log.dropped_rows == 2
+    assert_array_equal(log.u[:, 0], [0, 1, 3, 4, 5, 7, 8, 9])
+    # kept samples 0-1 | 3-5 | 7-9 (closed form: breaks where the file lines jump)
+    assert log.segments == ((0, 2), (2, 5), (5, 8))
+    # the stamps count the missing samples (T = 0.01 s, closed form)
+    assert_allclose(log.time, np.array([0, 1, 3, 4, 5, 7, 8, 9]) * 0.01, rtol=1e-12,
+                    atol=0)  # exact arithmetic up to rounding
+    # without dropped rows the sample-rate log stays one segment
+    clean = _write(tmp_path, "u,y\n1,2\n2,3\n3,4\n", name="clean.csv")
+    assert read_log(clean, "u", "y", sample_rate=10.0, drop_bad_rows=True).segments == ((0, 3),)
+
+
 def test_blank_line_inside_the_data_is_an_empty_row(tmp_path):
     path = _write(tmp_path, "time,u,y\n0,1,2\n\n1,2,3\n")
     with pytest.raises(LogFormatError, match=r"row 3, column 'time': empty cell"):

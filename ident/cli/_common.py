@@ -149,3 +149,47 @@ def progress_step(label: str, enabled: bool, length: int = 1) -> Iterator[Any]:
 def reraise_as_data_error(exc: IdentError) -> DataError:
     """Convert a library error into the CLI's exit-2 error."""
     return DataError(str(exc), getattr(exc, "hint", None))
+
+
+#: Keyword arguments of :func:`ident.io.log.read_log` set by :func:`log_options`,
+#: by the parameter name click passes to the command.
+LOG_OPTION_NAMES = ("time_column", "sample_rate", "drop_bad_rows", "split_at_gaps",
+                    "jitter_tolerance")
+
+
+def log_options(command: Any) -> Any:
+    """Add the options every log-reading command shares (one spelling everywhere).
+
+    ``--time NAME``, ``--sample-rate HZ``, ``--drop-bad-rows``,
+    ``--split-at-gaps`` and ``--jitter-tolerance FRACTION``; the command
+    receives them as ``time_column``, ``sample_rate``, ``drop_bad_rows``,
+    ``split_at_gaps`` and ``jitter_tolerance`` (see :func:`read_log_kwargs`).
+    """
+    decorators = [
+        click.option("--time", "time_column", default=None, metavar="NAME",
+                     help="Time column [s] (default: a column named 'time' or 't')."),
+        click.option("--sample-rate", "sample_rate", type=float, default=None, metavar="HZ",
+                     help="Sample rate for a log without a time column."),
+        click.option("--drop-bad-rows", is_flag=True,
+                     help="Drop rows with a non-numeric, empty, NaN or inf cell (count "
+                          "reported) instead of refusing the log; a dropped row is a gap."),
+        click.option("--split-at-gaps", is_flag=True,
+                     help="Split the log into segments at time gaps (and dropped rows) "
+                          "instead of refusing it."),
+        click.option("--jitter-tolerance", type=float, default=0.1, show_default=True,
+                     metavar="FRACTION", help="Largest accepted |dt - T| / T."),
+    ]
+    for deco in reversed(decorators):
+        command = deco(command)
+    return command
+
+
+def read_log_kwargs(params: dict[str, Any]) -> dict[str, Any]:
+    """Keyword arguments for :func:`ident.io.log.read_log` from :func:`log_options` values."""
+    return {
+        "time": params["time_column"],
+        "sample_rate": params["sample_rate"],
+        "drop_bad_rows": params["drop_bad_rows"],
+        "split_at_gaps": params["split_at_gaps"],
+        "jitter_tolerance": params["jitter_tolerance"],
+    }

@@ -7,7 +7,7 @@ from typing import Any
 
 import click
 
-from ._common import GateFailed, echo_json
+from ._common import GateFailed, echo_json, log_options, read_log_kwargs
 
 
 @click.command()
@@ -19,10 +19,7 @@ from ._common import GateFailed, echo_json
 @click.option("--output", "output_columns", multiple=True, metavar="NAME",
               help="Log column for each model output, in the model's output order "
                    "(repeatable; default: the model's output names).")
-@click.option("--time", "time_column", default=None, metavar="NAME",
-              help="Time column of the log (default: a column named time or t).")
-@click.option("--sample-rate", type=float, default=None, metavar="HZ",
-              help="Sample rate of a log without a time column [Hz].")
+@log_options
 @click.option("--min-fit", type=float, default=None, metavar="PCT",
               help="Gate: every output's simulation fit must reach PCT percent (exit 3 if not).")
 @click.option("--require-white", is_flag=True,
@@ -42,6 +39,9 @@ def check(
     output_columns: tuple[str, ...],
     time_column: str | None,
     sample_rate: float | None,
+    drop_bad_rows: bool,
+    split_at_gaps: bool,
+    jitter_tolerance: float,
     min_fit: float | None,
     require_white: bool,
     prediction_steps: int,
@@ -83,10 +83,20 @@ def check(
         )
     inputs = _columns(input_columns, model.inputs, "--input", "inputs")
     outputs = _columns(output_columns, model.outputs, "--output", "outputs")
-    log = _read(log_path, inputs, outputs, time_column, sample_rate)
+    log = _read(log_path, inputs, outputs, read_log_kwargs(locals()))
     _check_sample_time(log.sample_time, model.sample_time, log_path, model_path)
 
-    u, y = np.array(log.u, dtype=float), np.array(log.y, dtype=float)
+    # with --split-at-gaps the model is validated on the longest segment (a
+    # simulation cannot run across a gap)
+    start, stop = max(log.segments, key=lambda seg: seg[1] - seg[0])
+    segment_note = None
+    if len(log.segments) > 1:
+        segment_note = (
+            f"validated on the longest of {len(log.segments)} segments: samples "
+            f"{start}..{stop - 1} ({stop - start} of {log.n_samples})"
+        )
+    u = np.array(log.u[start:stop], dtype=float)
+    y = np.array(log.y[start:stop], dtype=float)
     op = model.operating_point
     if op is None:
         warnings.warn(
@@ -110,9 +120,15 @@ def check(
         payload["model"] = model_path
         payload["columns"] = {"inputs": list(inputs), "outputs": list(outputs)}
         payload["figures"] = written
+        payload["segment"] = {"start": start, "stop": stop, "n_segments": len(log.segments),
+                              "dropped_rows": log.dropped_rows}
         echo_json(payload)
     else:
         click.echo(report_text(report, log_path=log_path, model_path=model_path))
+        if segment_note is not None:
+            click.echo(f"note: {segment_note}")
+        if log.dropped_rows:
+            click.echo(f"note: {log.dropped_rows} bad rows dropped")
         for path in written:
             click.echo(f"wrote {path}", err=True)
     failures = report.gate_failures
@@ -133,13 +149,12 @@ def _columns(given: tuple[str, ...], names: tuple[str, ...], option: str, what: 
     return tuple(given)
 
 
-def _read(path: str, inputs: tuple, outputs: tuple, time: str | None,
-          sample_rate: float | None) -> Any:
+def _read(path: str, inputs: tuple, outputs: tuple, log_kwargs: dict[str, Any]) -> Any:
     from ..errors import LogFormatError
     from ..io.log import read_log
 
     try:
-        return read_log(path, inputs, outputs, time=time, sample_rate=sample_rate)
+        return read_log(path, inputs, outputs, **log_kwargs)
     except LogFormatError as exc:
         if not exc.reason.startswith("no column named"):
             raise

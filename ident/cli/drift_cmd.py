@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from ._common import GateFailed, echo_json
+from ._common import GateFailed, echo_json, log_options, read_log_kwargs
 
 
 @click.command()
@@ -12,8 +12,7 @@ from ._common import GateFailed, echo_json
 @click.argument("new_path", metavar="NEW", type=click.Path(dir_okay=False))
 @click.option("--log", "log_path", type=click.Path(dir_okay=False), default=None,
               help="A log of the rig after the change: both models are scored on it.")
-@click.option("--time", "time_column", default=None, help="Time column of --log (default: auto-detect time/t).")
-@click.option("--sample-rate", "sample_rate", type=float, default=None, help="Sample rate of --log [Hz].")
+@log_options
 @click.option("--band", "band_hz", type=(float, float), default=None, metavar="LOW HIGH",
               help="Band [Hz] for the frequency-response comparison (default: the log's excited band, "
                    "else 0.001 to 0.8 Nyquist).")
@@ -33,6 +32,9 @@ def drift(
     log_path: str | None,
     time_column: str | None,
     sample_rate: float | None,
+    drop_bad_rows: bool,
+    split_at_gaps: bool,
+    jitter_tolerance: float,
     band_hz: tuple[float, float] | None,
     frequency_shift_percent: float,
     damping_shift: float,
@@ -60,13 +62,21 @@ def drift(
         response_difference_db=response_difference_db,
         new_modes_allowed=not no_new_modes,
     )
+    log_kwargs = read_log_kwargs(locals())
     u = y = None
     if log_path is not None:
         from ..excitation import excited_band
         from ..io.log import read_log
 
-        log = read_log(log_path, list(new.inputs), list(new.outputs), time=time_column, sample_rate=sample_rate)
-        u, y = log.u, log.y
+        log = read_log(log_path, list(new.inputs), list(new.outputs), **log_kwargs)
+        # with --split-at-gaps both models are scored on the longest segment
+        start, stop = max(log.segments, key=lambda seg: seg[1] - seg[0])
+        if len(log.segments) > 1:
+            click.echo(f"note: --log scored on the longest of {len(log.segments)} segments "
+                       f"(samples {start}..{stop - 1})", err=True)
+        if log.dropped_rows:
+            click.echo(f"note: {log.dropped_rows} bad rows dropped from --log", err=True)
+        u, y = log.u[start:stop], log.y[start:stop]
         if band_hz is None:
             band_hz = excited_band(u, new.sample_time)
     report = compare_models(baseline, new, thresholds=thresholds, band_hz=band_hz, u=u, y=y,

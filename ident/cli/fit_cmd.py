@@ -7,7 +7,7 @@ from typing import Any
 
 import click
 
-from ._common import echo_json, progress_enabled
+from ._common import echo_json, log_options, progress_enabled, read_log_kwargs
 
 # Kept equal to ident.identify.METHODS (a test checks it); spelled out here so
 # that ``rigfit fit --help`` does not import numpy.
@@ -54,10 +54,7 @@ def _parse_order(value: str) -> int | None:
               help="Input column (repeatable; the order is kept).")
 @click.option("--output", "outputs", multiple=True, required=True, metavar="NAME",
               help="Output column (repeatable; the order is kept).")
-@click.option("--time", "time_column", default=None, metavar="NAME",
-              help="Time column [s]. Default: a column named 'time' or 't'.")
-@click.option("--sample-rate", type=float, default=None, metavar="HZ",
-              help="Sample rate for a log without a time column.")
+@log_options
 @click.option("--method", type=click.Choice(_METHOD_CHOICES), default="auto", show_default=True,
               help="Model family; 'auto' fits both and keeps the best on validation data.")
 @click.option("--order", "order_text", default="auto", show_default=True, metavar="N|auto",
@@ -71,8 +68,6 @@ def _parse_order(value: str) -> int | None:
 @click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part.")
 @click.option("--decimate", type=int, default=1, show_default=True, metavar="Q",
               help="Low-pass filter and keep every Q-th sample before fitting.")
-@click.option("--drop-bad-rows", is_flag=True,
-              help="Drop rows with a non-numeric or missing cell instead of refusing the log.")
 @click.option("-o", "--model-out", "model_out", type=click.Path(dir_okay=False), default=None,
               metavar="PATH", help="Write the selected model to this model file.")
 @click.option("--force", is_flag=True, help="Replace an existing --model-out file.")
@@ -84,6 +79,9 @@ def fit(
     outputs: tuple[str, ...],
     time_column: str | None,
     sample_rate: float | None,
+    drop_bad_rows: bool,
+    split_at_gaps: bool,
+    jitter_tolerance: float,
     method: str,
     order_text: str,
     max_order: int,
@@ -91,7 +89,6 @@ def fit(
     holdout: float,
     detrend: bool,
     decimate: int,
-    drop_bad_rows: bool,
     model_out: str | None,
     force: bool,
     as_json: bool,
@@ -99,16 +96,20 @@ def fit(
 ) -> None:
     """Identify a linear model of the OUTPUTs driven by the INPUTs in LOG.
 
-    The last --holdout fraction of the log is held out; ARX models (na = nb =
-    1 .. --max-order, delays estimated) and subspace models (1 .. --max-order
-    states) are fitted on the rest, and the one with the best fit on the
-    held-out part is kept (within 0.5 points, the simpler model wins).
+    The last --holdout fraction of the log is held out. ARX structures (na and
+    nb in 1 .. --max-order, delays estimated and their neighbours) are ranked
+    by AIC, BIC and FPE from one factorisation and the best 3 by each are
+    validated, with subspace models (1 .. --max-order states); the candidate
+    with the best fit on the held-out part is kept (within 0.5 points, the
+    simpler model wins).
 
-    Exit status: 0 ok; 2 bad input (unreadable log, missing column, output
-    equal to an input, collinear or non-exciting inputs, order too high).
+    Exit status: 0 ok; 2 bad input (unreadable log, missing column, a gap or
+    dropped row without --split-at-gaps, output equal to an input, collinear
+    or non-exciting inputs, order too high).
     """
     import warnings
 
+    log_kwargs = read_log_kwargs(locals())
     _single_blas_thread()
     from ..identify import IdentifyOptions, identify
     from ..io.atomic import check_output_path
@@ -136,10 +137,7 @@ def fit(
         warnings.simplefilter("always")
         if show_progress:
             click.echo(f"reading {os.path.basename(log_path)} ...", err=True)
-        log = read_log(
-            log_path, list(inputs), list(outputs), time=time_column, sample_rate=sample_rate,
-            drop_bad_rows=drop_bad_rows, split_at_gaps=True,
-        )
+        log = read_log(log_path, list(inputs), list(outputs), **log_kwargs)
         segments = [(log.u[a:b], log.y[a:b]) for a, b in log.segments]
         starts = [a for a, _ in log.segments]
         kwargs: dict[str, Any] = {
@@ -189,6 +187,12 @@ def fit(
         echo_json(_summary(log, result, table, messages, written))
     else:
         click.echo(_text(log, result, table, written))
+
+
+def _short(values) -> str:
+    """Format a per-input list: the single value when all are equal."""
+    vals = [int(v) for v in values]
+    return str(vals[0]) if len(set(vals)) == 1 else ",".join(map(str, vals))
 
 
 def _fit_dict(names, values) -> dict[str, float]:
@@ -260,9 +264,17 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
         "mean_validation_fit": float(result.selected.mean_fit),
         "estimation_fit": _fit_dict(prep.output_names, result.estimation_fit),
         "candidates": [c.as_dict() for c in result.candidates],
+        "best_by": dict(result.best_by),
+        "arx_grid": None if result.arx_sweep is None else {
+            "n_structures": len(result.arx_sweep.rows),
+            "n_samples": result.arx_sweep.n_samples,
+            "best": dict(result.arx_sweep.best),
+            "rows": result.arx_sweep.as_records(),
+        },
         "singular_values": None if result.singular_values is None else result.singular_values,
         "suggested_subspace_order": result.suggested_order,
         "delays": None if result.delay is None else result.delay.delays,
+        "delay_evidence": _delay_evidence(result.delay, prep.input_names, prep.output_names),
         "operating_point": {
             "inputs": prep.operating_point.inputs,
             "outputs": prep.operating_point.outputs,
@@ -279,6 +291,53 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
     }
 
 
+def _delay_evidence(delay, input_names, output_names) -> dict[str, Any] | None:
+    """Return the delay estimate and its evidence per channel (None without one)."""
+    if delay is None:
+        return None
+    channels = []
+    for i, out in enumerate(output_names):
+        for j, inp in enumerate(input_names):
+            channels.append({
+                "input": inp,
+                "output": out,
+                "delay": int(delay.delays[i, j]),
+                "detected": bool(delay.detected[i, j]),
+                "coefficients": [float(v) for v in delay.coefficients[i, j]],
+                "std_errors": [float(v) for v in delay.std_errors[i, j]],
+                "t_ratios": [float(v) for v in delay.t_ratios[i, j]],
+            })
+    return {
+        "method": delay.method,
+        "threshold": float(delay.threshold),
+        "ar_order": int(delay.ar_order),
+        "fir_order": int(delay.fir_order),
+        "channels": channels,
+    }
+
+
+def _delay_lines(result) -> list[str]:
+    """One readable line per input/output channel: the delay and its t-ratios."""
+    prep = result.prepared
+    delay = result.delay
+    if delay is None:
+        if result.options.delay is not None and any(c.method == "arx" for c in result.candidates):
+            d = result.options.delay
+            return [f"delays: fixed at {d} sample{'' if d == 1 else 's'} (--delay)"]
+        return []
+    lines = [f"delays ({delay.method}; a lag counts when |t| > {delay.threshold:g}):"]
+    for i, out in enumerate(prep.output_names):
+        for j, inp in enumerate(prep.input_names):
+            d = int(delay.delays[i, j])
+            shown = delay.t_ratios[i, j][: max(d + 3, 4)]
+            ratios = ", ".join(f"{v:.1f}" for v in shown)
+            verdict = "" if delay.detected[i, j] else " (no lag significant: largest t-ratio)"
+            unit = "sample" if d == 1 else "samples"
+            lines.append(f"  {inp} -> {out}: {d} {unit}{verdict}; t-ratios at lags "
+                         f"0..{len(shown) - 1}: {ratios}")
+    return lines
+
+
 def _fmt_fit(value: float) -> str:
     return f"{value:7.2f} %" if value > -1e6 else "   diverged"
 
@@ -291,6 +350,7 @@ def _text(log, result, table, written) -> str:
         f"{log.source.file_name}: {log.n_samples} samples{seg}, T = {log.sample_time:g} s"
         + (f", decimated by {prep.decimation} to T = {prep.sample_time:g} s"
            if prep.decimation > 1 else "")
+        + (f", {log.dropped_rows} bad rows dropped" if log.dropped_rows else "")
     )
     sel = result.selected
     if result.method == "arx":
@@ -311,17 +371,42 @@ def _text(log, result, table, written) -> str:
         lines.append(f"  {label:<16}{_fmt_fit(result.validation_fit[k]):>12}"
                      f"{_fmt_fit(result.estimation_fit[k]):>20}")
     lines.append("")
-    lines.append("candidates (mean validation fit):")
-    lines.append("  method    order  states  params   fit %")
-    for c in result.candidates:
+    lines.append("candidates (criteria on the estimation data, smaller is better; fit on the "
+                 "validation data):")
+    lines.append(f"  {'#':>3}  {'method':<9}{'na':>4}{'nb':>4}{'nk':>4}{'':6}{'states':>7}"
+                 f"{'params':>8}{'AIC':>12}{'BIC':>12}{'FPE':>13}{'fit %':>9}")
+    for k, c in enumerate(result.candidates):
         mark = "  <- selected" if c.selected else ""
         fit_text = f"{c.mean_fit:7.2f}" if c.mean_fit > -1e6 else "diverged"
-        lines.append(f"  {c.method:<9}{c.order:>6}{c.n_states:>8}{c.n_parameters:>8}"
-                     f"{fit_text:>9}{mark}")
+        if c.method == "arx":
+            st = c.structure
+            shape = f"{st['na']:>4}{_short(st['nb']):>4}{_short(st['nk']):>4}      "
+        else:
+            shape = f"{'n = ' + str(c.order):>18}"
+        if c.criteria is not None:
+            crit = (f"{c.criteria.aic:>12.5g}{c.criteria.bic:>12.5g}"
+                    f"{c.criteria.fpe:>13.5g}")
+        else:
+            crit = f"{'-':>12}{'-':>12}{'-':>13}"
+        lines.append(f"  {k:>3}  {c.method:<9}{shape}{c.n_states:>7}{c.n_parameters:>8}"
+                     f"{crit}{fit_text:>9}{mark}")
+    chosen = next(k for k, c in enumerate(result.candidates) if c.selected)
+    if result.best_by:
+        prefs = ", ".join(f"{name.upper()} -> #{k}" for name, k in result.best_by.items())
+        lines.append(f"  preferred: {prefs}, validation fit -> #{chosen}")
+    grid = result.arx_sweep
+    if grid is not None:
+        lines.append(f"  ({len(grid.rows)} ARX structures ranked on {grid.n_samples} rows; the "
+                     f"best {result.options.per_criterion} by each criterion validated; "
+                     "--json lists them all)")
     if result.singular_values is not None:
         sv = ", ".join(f"{v:.3g}" for v in result.singular_values[: result.options.max_order + 1])
         lines.append(f"subspace singular values: {sv} (largest gap after "
                      f"{result.suggested_order})")
+    delay_lines = _delay_lines(result)
+    if delay_lines:
+        lines.append("")
+        lines += delay_lines
     lines.append("")
     lines.append("modes:")
     try:

@@ -6,7 +6,7 @@ from typing import Any
 
 import click
 
-from ._common import echo_json
+from ._common import echo_json, log_options
 
 
 @click.command()
@@ -15,16 +15,7 @@ from ._common import echo_json
               help="An input column; its excitation is checked (repeatable).")
 @click.option("--output", "outputs", multiple=True, metavar="NAME",
               help="An output column, drawn below the inputs with --plot (repeatable).")
-@click.option("--time", "time_column", default=None, metavar="NAME",
-              help="Time column (default: a column named 'time' or 't').")
-@click.option("--sample-rate", type=float, default=None, metavar="HZ",
-              help="Sample rate for logs without a time column.")
-@click.option("--drop-bad-rows", is_flag=True,
-              help="Drop rows with non-numeric, empty, NaN or inf cells (count reported).")
-@click.option("--split-at-gaps", is_flag=True,
-              help="Report segments between time gaps instead of refusing the log.")
-@click.option("--jitter-tolerance", type=float, default=0.1, show_default=True,
-              help="Largest accepted |dt - T| / T.")
+@log_options
 @click.option("--json", "as_json", is_flag=True, help="Print machine-readable JSON on stdout.")
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
               metavar="FILE.png", help="Draw the signals into this PNG file.")

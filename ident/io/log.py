@@ -418,6 +418,10 @@ def time_base(
     The sample time is the median of the positive intervals, which a few
     gaps or outliers do not move. An interval ``dt`` is a gap when
     ``dt > (1 + tol) T`` and irregular when ``dt < (1 - tol) T``.
+    With a sample rate, rows dropped by ``drop_bad_rows`` are gaps: the kept
+    rows' file line numbers show where rows are missing, the stamps count the
+    missing rows, and each break starts a segment (an error unless
+    ``split_at_gaps``).
     """
     _check_time_args(time, sample_rate, jitter_tolerance)
     n = table.n_rows
@@ -429,9 +433,11 @@ def time_base(
     if sample_rate is not None:
         rate = float(sample_rate)
         t_s = 1.0 / rate
-        stamps = np.arange(n, dtype=float) * t_s
         stats = TimingStats(t_s, 0.0, 0.0, 0.0, "sample rate")
-        return TimeBase(_readonly(stamps), None, stats, ((0, n),))
+        if table.line_numbers is None:
+            stamps = np.arange(n, dtype=float) * t_s
+            return TimeBase(_readonly(stamps), None, stats, ((0, n),))
+        return _rate_segments(table, t_s, stats, split_at_gaps)
     if time is None:
         names = [c.name for c in table.columns]
         auto = _auto_time_index(names)
@@ -983,6 +989,32 @@ def _parquet_columns(path, header: _Header, indices, drop_bad_rows):
 
 
 # --------------------------------------------------------------------------- timing
+
+
+def _rate_segments(table: Table, t_s: float, stats: TimingStats, split: bool) -> TimeBase:
+    """Time base from a sample rate when rows were dropped: a dropped row is a gap.
+
+    The kept rows' file lines say where rows are missing; the stamps count the
+    missing rows too, and every break in the line numbers starts a segment
+    (or is an error naming the row, without ``split``), as a gap in a time
+    column would.
+    """
+    lines = np.asarray(table.line_numbers, dtype=np.int64)
+    steps = np.diff(lines)
+    breaks = np.flatnonzero(steps > 1)
+    if breaks.size and not split:
+        i = int(breaks[0]) + 1
+        missing = int(steps[i - 1]) - 1
+        raise LogFormatError(
+            f"{missing} dropped row(s) just before this row break the sample sequence "
+            f"(sample rate {_fmt(1.0 / t_s)} Hz)",
+            path=table.source.path, row=table.line_of(i),
+            hint="split the log at gaps (--split-at-gaps / split_at_gaps=True)",
+        )
+    stamps = (lines - lines[0]).astype(float) * t_s
+    starts = [0, *(int(g) + 1 for g in breaks)]
+    stops = [*(int(g) + 1 for g in breaks), lines.shape[0]]
+    return TimeBase(_readonly(stamps), None, stats, tuple(zip(starts, stops, strict=True)))
 
 
 def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol: float) -> TimeBase:
