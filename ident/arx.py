@@ -1206,7 +1206,13 @@ def sweep_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
 
 
 def shortlist(sweep: ArxSweep, per_criterion: int = 3) -> tuple[int, ...]:
-    """Rows of a sweep worth validating: the best few by each information criterion.
+    """Rows of a sweep worth validating: the best few by each criterion, and the best of each order.
+
+    On long logs every information criterion tends to favour the largest
+    structures of the grid, so the shortlist also holds, for every order
+    ``max(na, nb)`` in the grid, the row that BIC prefers among those of that
+    order: the validation stage can then find a simpler model that does as well
+    (ties go to the simpler model there).
 
     Parameters
     ----------
@@ -1228,6 +1234,14 @@ def shortlist(sweep: ArxSweep, per_criterion: int = 3) -> tuple[int, ...]:
         ranked = sorted(usable, key=lambda k: (getattr(sweep.rows[k], name),
                                                sweep.rows[k].n_parameters, k))
         picked.update(ranked[:per_criterion])
+    best_of_order: dict[int, int] = {}
+    for k in usable:
+        row = sweep.rows[k]
+        order = max(row.na, max(row.nb, default=0))
+        j = best_of_order.get(order)
+        if j is None or (row.bic, row.n_parameters, k) < (sweep.rows[j].bic, sweep.rows[j].n_parameters, j):
+            best_of_order[order] = k
+    picked.update(best_of_order.values())
     return tuple(sorted(picked))
 
 

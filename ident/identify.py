@@ -139,7 +139,8 @@ class IdentifyOptions:
     per_criterion : int
         In an automatic ARX search, how many of the best grid structures by
         each of AIC, BIC/MDL and FPE go on to the validation stage (default
-        :data:`PER_CRITERION`, 3; at most ``3 * per_criterion`` candidates).
+        :data:`PER_CRITERION`, 3), together with the BIC-best structure of
+        every order (see :func:`ident.arx.shortlist`).
     preprocess : PreprocessOptions
         Operating point, detrending, decimation and hold-out.
     """
@@ -738,7 +739,7 @@ def _identify(
     suggested = None
     do_arx = options.method in ("arx", "auto")
     do_sub = options.method in ("subspace", "auto")
-    n_arx = 3 * options.per_criterion if fixed is None else 1
+    n_arx = 3 * options.per_criterion + len(orders) if fixed is None else 1  # progress steps (upper bound)
     n_steps = (n_arx + 1 if do_arx else 0) + (len(orders) + 1 if do_sub else 0) + 1
     step = 0
     names = {"input_names": prep.input_names, "output_names": prep.output_names}
@@ -782,7 +783,7 @@ def _identify(
                 f"ARX grid: na, nb in 1..{max(orders)}, nk in "
                 + ", ".join(str(list(v)) for v in nk_grid)
                 + f" ({len(arx_sweep.rows)} structures from one R factor); the best "
-                f"{options.per_criterion} by each of AIC, BIC and FPE were validated"
+                f"{options.per_criterion} by each of AIC, BIC and FPE and the BIC-best of each order were validated"
             )
         first = True
         while True:

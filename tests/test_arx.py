@@ -515,3 +515,18 @@ def test_arx_simulate_across_blocks_equals_lfilter(rng, monkeypatch):
         want[:, i] = (signal.lfilter(num[0], res.a[i], u[:, 0], zi=x0[n * i:n * (i + 1)])[0]
                       + signal.lfilter(num[1], res.a[i], u[:, 1]))
     assert_allclose(res.simulate(u, x0), want, rtol=1e-9, atol=1e-10)
+
+
+def test_shortlist_holds_the_best_of_each_order(rng):
+    from ident.arx import shortlist, sweep_arx
+
+    u = rng.standard_normal(3000)
+    # second-order ARX data (scipy.signal.lfilter); a 1..4 grid
+    y = signal.lfilter([0.0, 1.0, 0.5], [1.0, -1.5, 0.7], u) + 0.05 * rng.standard_normal(3000)
+    sweep = sweep_arx(Experiment(u[:, None], y[:, None]), 0.01, na_values=[1, 2, 3, 4], nb_values=[1, 2, 3, 4],
+                      nk_values=[1])
+    picks = shortlist(sweep, per_criterion=1)
+    orders = {max(sweep.rows[k].na, max(sweep.rows[k].nb)) for k in picks}
+    assert orders == {1, 2, 3, 4}  # every order represented (definition of the shortlist)
+    for name in ("aic", "bic", "fpe"):
+        assert sweep.best[name] in picks

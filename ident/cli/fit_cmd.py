@@ -98,8 +98,8 @@ def fit(
 
     The last --holdout fraction of the log is held out. ARX structures (na and
     nb in 1 .. --max-order, delays estimated and their neighbours) are ranked
-    by AIC, BIC and FPE from one factorisation and the best 3 by each are
-    validated, with subspace models (1 .. --max-order states); the candidate
+    by AIC, BIC and FPE from one factorisation; the best 3 by each, and the
+    BIC-best of each order, are validated with subspace models (1 .. --max-order states); the candidate
     with the best fit on the held-out part is kept (within 0.5 points, the
     simpler model wins).
 
@@ -397,7 +397,7 @@ def _text(log, result, table, written) -> str:
     grid = result.arx_sweep
     if grid is not None:
         lines.append(f"  ({len(grid.rows)} ARX structures ranked on {grid.n_samples} rows; the "
-                     f"best {result.options.per_criterion} by each criterion validated; "
+                     f"best {result.options.per_criterion} by each criterion and the BIC-best of each order validated; "
                      "--json lists them all)")
     if result.singular_values is not None:
         sv = ", ".join(f"{v:.3g}" for v in result.singular_values[: result.options.max_order + 1])
