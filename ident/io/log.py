@@ -75,7 +75,7 @@ _PREVIEW_BYTES = 1 << 16
 _SNIFF_ROWS = 50
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\))\s*$")
 _DECIMAL_COMMA_RE = re.compile(r"^\s*[-+]?\d*,\d+(?:[eE][-+]?\d+)?\s*$")
-_INSTALL_PARQUET = "pip install 'rigfit[parquet]'"
+_INSTALL_PARQUET = "pip install pyarrow (from a rigfit checkout: pip install '.[parquet]')"
 
 
 # --------------------------------------------------------------------------- records
