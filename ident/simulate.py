@@ -26,6 +26,8 @@ __all__ = [
     "estimate_initial_state",
     "free_response_matrix",
     "all_pole_filter",
+    "first_order_recursion",
+    "state_chunks",
 ]
 
 #: Samples simulated per chunk (bounds the working memory to a few MB per state).
@@ -104,6 +106,42 @@ def all_pole_filter(a: np.ndarray, r: np.ndarray) -> np.ndarray:
     return y
 
 
+def first_order_recursion(pole: complex, drive: np.ndarray, start: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Run ``x[k+1] = pole x[k] + drive[k]`` from ``x[0] = start``, column by column.
+
+    Parameters
+    ----------
+    pole : complex or float
+        The recursion's pole.
+    drive : array_like, shape (L,) or (L, c)
+        Driving signal(s).
+    start : array_like, shape () or (c,)
+        ``x[0]`` of each column.
+
+    Returns
+    -------
+    x : numpy.ndarray, shape of ``drive``
+        ``x[0] .. x[L-1]``.
+    next_start : numpy.ndarray, shape of ``start``
+        ``x[L]``, to continue with the next chunk.
+
+    Notes
+    -----
+    The same numbers as :func:`scipy.signal.lfilter` ``([0, 1], [1, -pole], drive, zi=start)``,
+    computed with :func:`all_pole_filter` on ``[start, drive[:-1]]``.
+    """
+    drive = np.asarray(drive)
+    dtype = np.result_type(drive, np.asarray(start), np.asarray(pole), np.float64)
+    cols = drive.reshape(drive.shape[0], -1)
+    starts = np.asarray(start, dtype=dtype).reshape(-1)
+    a = np.array([1.0, -pole], dtype=dtype)
+    out = np.empty(cols.shape, dtype=dtype)
+    for j in range(cols.shape[1]):
+        out[:, j] = all_pole_filter(a, np.concatenate(([starts[j]], cols[:-1, j])))
+    nxt = pole * out[-1] + cols[-1] if cols.shape[0] else starts
+    return out.reshape(drive.shape), np.asarray(nxt, dtype=dtype).reshape(np.shape(start))
+
+
 def simulate_states(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None = None) -> np.ndarray:
     """State trajectory ``x[k]`` for k = 0 .. N-1 of a discrete-time model.
 
@@ -123,13 +161,27 @@ def simulate_states(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None
     """
     u, x0 = _check(model, u, x0)
     out = np.empty((u.shape[0], model.n_states))
-    for k0, k1, x in _chunks(model.A, model.B, u, x0):
+    for k0, k1, x in state_chunks(model.A, model.B, u, x0):
         out[k0:k1] = x
     return out
 
 
-def _chunks(A: np.ndarray, B: np.ndarray, u: np.ndarray, x0: np.ndarray):
-    """Yield ``(k0, k1, states[k0:k1])`` chunk by chunk."""
+def state_chunks(A: np.ndarray, B: np.ndarray, u: np.ndarray, x0: np.ndarray):
+    """Yield ``(k0, k1, states[k0:k1])`` of ``x[k+1] = A x[k] + B u[k]``, chunk by chunk.
+
+    Parameters
+    ----------
+    A : numpy.ndarray, shape (n, n)
+    B : numpy.ndarray, shape (n, m)
+    u : numpy.ndarray, shape (N, m)
+    x0 : numpy.ndarray, shape (n,)
+
+    Yields
+    ------
+    (int, int, numpy.ndarray)
+        Sample range and the states over it, ``(k1 - k0, n)``; the working memory
+        is bounded by the chunk length whatever ``N`` is.
+    """
     n = A.shape[0]
     N = u.shape[0]
     if n == 0:
@@ -149,8 +201,7 @@ def _chunks(A: np.ndarray, B: np.ndarray, u: np.ndarray, x0: np.ndarray):
             d = drive[:, i]
             if i < n - 1:
                 d = d + zs[:, i + 1:] @ T[i, i + 1:]
-            # z_i[k+1] = T_ii z_i[k] + d[k], z_i[k0] known: an all-pole recursion on [z_i[k0], d[:-1]]
-            zs[:, i] = all_pole_filter(np.array([1.0, -diag[i]]), np.concatenate(([z[i]], d[:-1])))
+            zs[:, i], _ = first_order_recursion(diag[i], d, z[i])
         z = T @ zs[-1] + Bz @ u[k1 - 1]
         yield k0, k1, np.real(zs @ Z.T)
 
@@ -181,7 +232,7 @@ def simulate(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None = None
     """
     u, x0 = _check(model, u, x0)
     y = np.empty((u.shape[0], model.n_outputs))
-    for k0, k1, x in _chunks(model.A, model.B, u, x0):
+    for k0, k1, x in state_chunks(model.A, model.B, u, x0):
         y[k0:k1] = x @ model.C.T + u[k0:k1] @ model.D.T
     return y
 

@@ -24,7 +24,7 @@ Performance
 -----------
 One pass over the data in :func:`project` (a Householder QR update per 2000
 block-Hankel rows), then one pass per order in :func:`model_of_order` for
-``B, D`` (``n`` first-order filters run by :func:`scipy.signal.lfilter` on all
+``B, D`` (``n`` first-order recursions, :func:`ident.simulate.first_order_recursion`, on all
 inputs at once, and a QR of ``n m + m + n E + p`` feature columns: ``E``
 experiments). On the shared 2-core development machine (load 3-4 from other
 jobs), 2 inputs, 2 outputs, ``max_order=10`` (horizon 7): :func:`project` takes
@@ -49,7 +49,7 @@ from typing import Any, Literal
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy import linalg, signal
+from scipy import linalg
 from scipy.linalg import lapack
 
 from ._validate import int_in_range, one_of, positive_float
@@ -62,7 +62,7 @@ from .errors import (
     UnstableModelWarning,
 )
 from .models import StateSpaceModel
-from .simulate import _chunks as _simulate_chunks
+from .simulate import first_order_recursion, state_chunks
 
 __all__ = [
     "WEIGHTINGS",
@@ -816,7 +816,7 @@ def _features_modal(lam: np.ndarray, V: np.ndarray, C: np.ndarray, m: int):
     needs one complex filter, whose real and imaginary parts are two real
     features (``f_{s+1} = conj(f_s)``). So there are ``n`` real features per
     input and ``n`` per experiment, whatever ``p``; each chunk costs one
-    :func:`scipy.signal.lfilter` call per real pole or pair (all inputs at once).
+    :func:`ident.simulate.first_order_recursion` call per real pole or pair (all inputs at once).
 
     Returns ``(map_b, map_x0, chunks)``: ``map_b[i]`` (shape (n, n)) maps the
     features of one input to the regressors of ``B[:, l]`` for output ``i``;
@@ -863,7 +863,7 @@ def _features_modal(lam: np.ndarray, V: np.ndarray, C: np.ndarray, m: int):
                 decayed = bool(np.all(np.abs(powers[-1]) < _FREE_FLOOR))
             for (s, pair), zi in zip(reps, state, strict=True):
                 pole = lam[s] if pair else lam[s].real
-                out, zi[...] = signal.lfilter([0.0, 1.0], [1.0, -pole], exp.u[k0:k1], axis=0, zi=zi)
+                out, zi[...] = first_order_recursion(pole, exp.u[k0:k1], zi[0])
                 filtered[:, :, s] = out.real
                 if free is not None:
                     free[:, s] = powers[:, s].real
@@ -897,10 +897,10 @@ def _features_schur(A: np.ndarray, C: np.ndarray, m: int):
     def chunks(exp: Experiment):
         N = exp.n_samples
         runs = [
-            _simulate_chunks(big_a, drive, exp.u[:, l_ : l_ + 1], np.zeros(p * n))
+            state_chunks(big_a, drive, exp.u[:, l_ : l_ + 1], np.zeros(p * n))
             for l_ in range(m)
         ]
-        runs.append(_simulate_chunks(big_a, drive, np.zeros((N, 1)), drive[:, 0]))
+        runs.append(state_chunks(big_a, drive, np.zeros((N, 1)), drive[:, 0]))
         for parts in zip(*runs, strict=True):
             k0, k1 = parts[0][0], parts[0][1]
             yield k0, k1, np.concatenate([x for _, _, x in parts[:m]], axis=1), parts[m][2]

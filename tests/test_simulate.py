@@ -77,3 +77,16 @@ def test_all_pole_filter_equals_lfilter(a, rng, monkeypatch):
     r = rng.standard_normal(500) + (1j * rng.standard_normal(500) if np.iscomplexobj(np.array(a)) else 0)
     # reference: scipy.signal.lfilter([1], a, r) runs the same recursion; rounding only
     assert_allclose(all_pole_filter(np.array(a), r), signal.lfilter([1.0], a, r), rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("pole", [0.9, -0.5, 0.7 + 0.4j, 0.0])
+def test_first_order_recursion_equals_lfilter(pole, rng):
+    from ident.simulate import first_order_recursion
+
+    drive = rng.standard_normal((300, 3))
+    start = rng.standard_normal(3)
+    x, nxt = first_order_recursion(pole, drive, start)
+    # reference: scipy.signal.lfilter([0, 1], [1, -pole], drive, axis=0, zi=start), same recursion
+    want, zf = signal.lfilter([0.0, 1.0], [1.0, -pole], drive, axis=0, zi=start[None, :].astype(complex))
+    assert_allclose(x, want if np.iscomplexobj(np.array(pole)) else want.real, rtol=1e-12, atol=1e-12)
+    assert_allclose(nxt, zf[0] if np.iscomplexobj(np.array(pole)) else zf[0].real, rtol=1e-12, atol=1e-12)
