@@ -256,10 +256,10 @@ def test_fresh_fit_process_loads_no_plotting_or_statistics_package(log_file):
         "from ident.cli import main\n"
         "try:\n"
         f"    main(['fit', {str(log_file)!r}, '--input', 'valve', '--output', 'flow',\n"
-        "          '--method', 'arx', '--max-order', '3', '--json', '--quiet'])\n"
+        "          '--method', 'auto', '--max-order', '3', '--json', '--quiet'])\n"
         "except SystemExit as exc:\n"
         "    assert exc.code in (0, None), exc.code\n"
-        "heavy = [m for m in ('statsmodels', 'matplotlib') if m in sys.modules]\n"
+        "heavy = [m for m in ('statsmodels', 'matplotlib', 'scipy.signal', 'scipy.stats') if m in sys.modules]\n"
         "print('HEAVY', heavy, 'THREADS', os.environ.get('OPENBLAS_NUM_THREADS'), file=sys.stderr)\n"
     )
     env = {k: v for k, v in __import__("os").environ.items()
