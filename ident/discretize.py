@@ -17,6 +17,7 @@ from scipy import linalg
 
 from ._validate import one_of, optional_positive_float, positive_float
 from .analysis import _meta, _require_ss, _siso_zeros_gain, _system_tol
+from .choices import DISCRETIZE_METHODS
 from .errors import ModelError
 from .models import StateSpaceModel
 
@@ -29,7 +30,6 @@ __all__ = [
 ]
 
 #: Discretisation methods, for both directions.
-DISCRETIZE_METHODS = ("zoh", "foh", "tustin", "matched")
 DiscretizeMethod = Literal["zoh", "foh", "tustin", "matched"]
 
 _CAUSES = (

@@ -39,6 +39,7 @@ from typing import Any, Literal
 import numpy as np
 
 from ._validate import int_in_range, one_of
+from .choices import METHODS, WEIGHTINGS  # METHODS: "auto" tries both and keeps the best
 from .data import Experiment
 from .diagnostics import fit_percent
 from .errors import (
@@ -64,12 +65,6 @@ __all__ = [
     "select_candidate",
     "excitation_order",
 ]
-
-#: Identification methods; ``"auto"`` tries both and keeps the best.
-METHODS = ("arx", "subspace", "auto")
-
-#: Subspace weightings accepted (kept equal to ``ident.subspace.WEIGHTINGS``).
-WEIGHTINGS = ("n4sid", "moesp", "cva")
 
 #: Two candidates whose mean validation fits differ by at most this many
 #: percentage points are tied; the simpler one is chosen.

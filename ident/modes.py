@@ -21,6 +21,7 @@ import numpy as np
 
 from ._validate import fraction, positive_float
 from .analysis import channel_zeros, dc_gain, transmission_zeros
+from .choices import FLAGS
 from .discretize import poles_to_continuous
 from .errors import ModelError, OptionError
 from .models import StateSpaceModel
@@ -35,18 +36,6 @@ __all__ = [
     "flag_explanation",
 ]
 
-#: Every flag a mode can carry, in the order they are reported.
-FLAGS: tuple[str, ...] = (
-    "unstable",
-    "marginal",
-    "integrator",
-    "lightly_damped",
-    "negative_real",
-    "near_nyquist",
-    "slow_for_log",
-    "near_cancellation",
-    "uncertain_stability",
-)
 
 #: Poles whose imaginary part is below this fraction of ``max(1, |z|)`` are real.
 #: A repeated real pole comes out of the eigenvalue solver split by about the

@@ -16,6 +16,7 @@ from scipy import linalg
 
 from ._validate import as_matrix, one_of
 from .analysis import _controllable_staircase, _meta, _require_ss
+from .choices import REALIZATIONS
 from .errors import ModelError, OptionError
 from .models import StateSpaceModel
 
@@ -33,7 +34,6 @@ __all__ = [
 ]
 
 #: State-space forms understood by :func:`realize`.
-REALIZATIONS = ("controllable", "observable", "modal", "balanced")
 Realization = Literal["controllable", "observable", "modal", "balanced"]
 
 #: Largest condition number of the eigenvector basis accepted by :func:`modal_form`.

@@ -53,6 +53,7 @@ from scipy import linalg
 from scipy.linalg import lapack
 
 from ._validate import int_in_range, one_of, positive_float
+from .choices import WEIGHTINGS
 from .data import Experiment, as_experiments
 from .errors import (
     IdentificationError,
@@ -79,7 +80,6 @@ __all__ = [
 ]
 
 #: Weightings of the oblique projection before the SVD.
-WEIGHTINGS = ("n4sid", "moesp", "cva")
 Weighting = Literal["n4sid", "moesp", "cva"]
 
 #: How ``B`` and ``D`` were estimated: least squares on the simulated output

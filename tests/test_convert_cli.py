@@ -5,7 +5,6 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from ident.cli.convert_cmd import METHOD_CHOICES, REALIZATION_CHOICES
 from ident.io.modelfile import load_model, save_model
 from ident.models import OperatingPoint, StateSpaceModel
 
@@ -21,11 +20,13 @@ def zoh_example(tmp_path):
 
 
 def test_choice_sets_match_core():
+    from ident.cli.convert_cmd import convert
     from ident.discretize import DISCRETIZE_METHODS
     from ident.realization import REALIZATIONS
 
-    assert METHOD_CHOICES == DISCRETIZE_METHODS
-    assert REALIZATION_CHOICES == REALIZATIONS
+    choices = {p.name: tuple(p.type.choices) for p in convert.params if hasattr(p.type, "choices")}
+    assert choices["method"] == DISCRETIZE_METHODS
+    assert choices["realization"] == REALIZATIONS
 
 
 def test_tf_json_matches_textbook(run_cli, zoh_example):

@@ -52,9 +52,10 @@ def resonant_file(tmp_path):
 
 
 def test_flag_choices_match_the_core():
-    from ident.cli.modes_cmd import _FLAG_CHOICES
+    from ident.cli.modes_cmd import modes
 
-    assert _FLAG_CHOICES == FLAGS
+    (fail_on,) = [p for p in modes.params if p.name == "fail_on"]
+    assert tuple(fail_on.type.choices) == FLAGS
 
 
 def test_text_table_has_units_and_no_warnings_when_clean(run_cli, clean_file):

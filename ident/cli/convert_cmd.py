@@ -4,13 +4,10 @@ from __future__ import annotations
 
 import click
 
+from ..choices import DISCRETIZE_METHODS, REALIZATIONS
 from ._common import DataError, echo_json
 
 TARGETS = ("tf", "ss", "continuous", "discrete")
-#: Same spelling as ident.discretize.DISCRETIZE_METHODS (checked by a test).
-METHOD_CHOICES = ("zoh", "foh", "tustin", "matched")
-#: Same spelling as ident.realization.REALIZATIONS (checked by a test).
-REALIZATION_CHOICES = ("controllable", "observable", "modal", "balanced")
 
 
 @click.command()
@@ -18,7 +15,7 @@ REALIZATION_CHOICES = ("controllable", "observable", "modal", "balanced")
 @click.option("--to", "target", type=click.Choice(TARGETS), required=True, help="Form to convert to.")
 @click.option(
     "--method",
-    type=click.Choice(METHOD_CHOICES),
+    type=click.Choice(DISCRETIZE_METHODS),
     default="zoh",
     show_default=True,
     help="Discretisation method for --to continuous / discrete.",
@@ -29,7 +26,7 @@ REALIZATION_CHOICES = ("controllable", "observable", "modal", "balanced")
 )
 @click.option(
     "--realization",
-    type=click.Choice(REALIZATION_CHOICES),
+    type=click.Choice(REALIZATIONS),
     default=None,
     help="State coordinates for --to ss (default: keep the model's own).",
 )

@@ -7,12 +7,8 @@ from typing import Any
 
 import click
 
+from ..choices import METHODS
 from ._common import echo_json, log_options, progress_enabled, read_log_kwargs
-
-# Kept equal to ident.identify.METHODS (a test checks it); spelled out here so
-# that ``rigfit fit --help`` does not import numpy.
-_METHOD_CHOICES = ("arx", "subspace", "auto")
-
 
 #: Environment variables through which a user chooses the BLAS thread count.
 _THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "GOTO_NUM_THREADS", "OMP_NUM_THREADS",
@@ -55,7 +51,7 @@ def _parse_order(value: str) -> int | None:
 @click.option("--output", "outputs", multiple=True, required=True, metavar="NAME",
               help="Output column (repeatable; the order is kept).")
 @log_options
-@click.option("--method", type=click.Choice(_METHOD_CHOICES), default="auto", show_default=True,
+@click.option("--method", type=click.Choice(METHODS), default="auto", show_default=True,
               help="Model family; 'auto' fits both and keeps the best on validation data.")
 @click.option("--order", "order_text", default="auto", show_default=True, metavar="N|auto",
               help="Model order (ARX: na = nb = N; subspace: N states), or 'auto' to select.")

@@ -7,21 +7,8 @@ from typing import Any
 
 import click
 
+from ..choices import FLAGS
 from ._common import GateFailed, echo_json
-
-# Kept in step with ident.modes.FLAGS (a test checks it); spelled out here so
-# that ``rigfit modes --help`` does not import numpy.
-_FLAG_CHOICES = (
-    "unstable",
-    "marginal",
-    "integrator",
-    "lightly_damped",
-    "negative_real",
-    "near_nyquist",
-    "slow_for_log",
-    "near_cancellation",
-    "uncertain_stability",
-)
 
 
 @click.command()
@@ -29,7 +16,7 @@ _FLAG_CHOICES = (
 @click.option("--json", "as_json", is_flag=True, help="Print machine-readable JSON on stdout.")
 @click.option("--expect", "expect_path", type=click.Path(dir_okay=False), default=None,
               help="TOML file with an [expect] table; each expectation is checked (exit 3 if one fails).")
-@click.option("--fail-on", "fail_on", multiple=True, type=click.Choice(_FLAG_CHOICES),
+@click.option("--fail-on", "fail_on", multiple=True, type=click.Choice(FLAGS),
               help="Exit with status 3 when any mode carries this flag (repeatable).")
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
               help="Write a pole-zero map to this PNG file.")
@@ -117,7 +104,7 @@ def modes(
 
         results = check_expectations(model, table, expectations)
     present = table.flags()
-    tripped = [f for f in _FLAG_CHOICES if f in fail_on and f in present]
+    tripped = [f for f in FLAGS if f in fail_on and f in present]
 
     if plot_path is not None:
         _write_plot(table, plot_path, force=force, protected=(model_path,))

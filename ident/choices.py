@@ -1,0 +1,35 @@
+"""Every fixed set of choices, defined once.
+
+The numeric core validates against these tuples and the command line offers
+them as ``click.Choice``; this module imports nothing, so the CLI can use it
+without loading numpy.
+"""
+
+from __future__ import annotations
+
+__all__ = ["METHODS", "WEIGHTINGS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
+
+#: Model families of ``identify`` / ``rigfit fit --method``.
+METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
+
+#: Subspace weightings (``ident.subspace``).
+WEIGHTINGS: tuple[str, ...] = ("n4sid", "moesp", "cva")
+
+#: Discretisation methods, both directions (``rigfit convert --method``).
+DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")
+
+#: State coordinates offered by ``ident.realization.realize`` (``rigfit convert --realization``).
+REALIZATIONS: tuple[str, ...] = ("controllable", "observable", "modal", "balanced")
+
+#: Every plausibility flag a mode can carry, in the order they are reported.
+FLAGS: tuple[str, ...] = (
+    "unstable",
+    "marginal",
+    "integrator",
+    "lightly_damped",
+    "negative_real",
+    "near_nyquist",
+    "slow_for_log",
+    "near_cancellation",
+    "uncertain_stability",
+)
