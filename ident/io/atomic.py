@@ -109,9 +109,20 @@ def write_atomic(
             fh.write(payload)
             fh.flush()
             os.fsync(fh.fileno())
-        if not force and target.exists():
-            raise OutputExistsError(target)
-        os.replace(tmp, target)
+        if force:
+            os.replace(tmp, target)
+        else:
+            # a hard link never replaces an existing file: the refusal is atomic too
+            try:
+                os.link(tmp, target)
+            except FileExistsError:
+                raise OutputExistsError(target) from None
+            except OSError:  # a file system without hard links: check, then rename
+                if target.exists():
+                    raise OutputExistsError(target) from None
+                os.replace(tmp, target)
+            else:
+                os.unlink(tmp)
     except BaseException:
         if os.path.exists(tmp):
             os.unlink(tmp)
