@@ -106,12 +106,12 @@ def _range(low: int, high: int | None) -> str:
 def fraction(value: Any, name: str, *, low: float = 0.0, high: float = 1.0,
              inclusive: bool = False) -> float:
     """Return ``value`` as a float strictly inside ``(low, high)`` (or closed if inclusive)."""
+    brackets = f"[{low}, {high}]" if inclusive else f"({low}, {high})"
     if not _is_number(value):
-        raise OptionError(f"{name} must be a number in ({low}, {high}); got {_short(value)}")
+        raise OptionError(f"{name} must be a number in {brackets}; got {_short(value)}")
     out = float(value)
     ok = (low <= out <= high) if inclusive else (low < out < high)
     if not ok or not math.isfinite(out):
-        brackets = f"[{low}, {high}]" if inclusive else f"({low}, {high})"
         raise OptionError(f"{name} must be a number in {brackets}; got {_short(value)}")
     return out
 

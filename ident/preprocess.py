@@ -33,7 +33,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from ._validate import as_signal, fraction, int_in_range, names_tuple, one_of, positive_float
+from ._validate import as_signal, int_in_range, names_tuple, one_of, positive_float
 from .data import Experiment, as_experiments
 from .errors import OptionError, PipelineError
 from .models import OperatingPoint
@@ -95,9 +95,10 @@ class PreprocessOptions:
             raise OptionError(f"detrend must be true or false; got {self.detrend!r}")
         object.__setattr__(self, "detrend", bool(self.detrend))
         object.__setattr__(self, "decimate", int_in_range(self.decimate, "decimate", 1, _MAX_DECIMATION))
-        holdout = fraction(self.holdout, "holdout", low=0.0, high=1.0, inclusive=True)
-        if holdout == 1.0:
+        if not (isinstance(self.holdout, (int, float, np.integer, np.floating))
+                and not isinstance(self.holdout, (bool, np.bool_)) and 0.0 <= self.holdout < 1.0):
             raise OptionError(f"holdout must be a number in [0, 1); got {self.holdout!r}")
+        holdout = float(self.holdout)
         object.__setattr__(self, "holdout", holdout)
 
     @classmethod

@@ -145,3 +145,10 @@ def test_missing_folder_refused_before_any_work(tmp_path):
 
     with pytest.raises(Exception, match="does not exist"):
         check_output_path(tmp_path / "no" / "m.json")
+
+
+def test_name_list_mismatch_is_named(model):
+    data = json.loads(dumps_model(model))
+    data["inputs"] = ["torque"]  # the model has two inputs
+    with pytest.raises(ModelFileError, match=r"inputs lists 1 name\(s\) and outputs 2, but state_space.D is 2 x 2"):
+        model_from_dict(data, path="m.json")

@@ -220,6 +220,13 @@ def model_from_dict(data: Any, *, path: str | os.PathLike | None = None) -> Mode
     if not (isinstance(outputs, list) and all(isinstance(s, str) for s in outputs)):
         raise ModelFileError("outputs must be a list of names", path=where)
     m, p = len(inputs), len(outputs)
+    D_raw = _as_matrix(_require(ss, "D", where), "state_space.D", None, None, where)
+    if D_raw.shape != (p, m):
+        raise ModelFileError(
+            f"inputs lists {m} name(s) and outputs {p}, but state_space.D is {D_raw.shape[0]} x "
+            f"{D_raw.shape[1]} (outputs x inputs)",
+            path=where,
+        )
     A = _as_matrix(_require(ss, "A", where), "state_space.A", None, None, where)
     n = A.shape[0]
     if A.shape != (n, n):
