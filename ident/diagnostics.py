@@ -28,6 +28,7 @@ from typing import Any, Literal
 import numpy as np
 from scipy import linalg
 
+from ._json import json_ready
 from ._validate import as_signal, fraction, int_in_range, one_of, positive_float
 from .analysis import frequency_response
 from .errors import ModelError, OptionError, UnstableModelWarning
@@ -1227,33 +1228,18 @@ def _verdicts(
 # --------------------------------------------------------------------------------------------
 
 
-def _finite(x: Any) -> Any:
-    if isinstance(x, np.ndarray):
-        return [_finite(v) for v in x.tolist()] if x.ndim else _finite(x.item())
-    if isinstance(x, (list, tuple)):
-        return [_finite(v) for v in x]
-    if isinstance(x, (float, np.floating)):
-        v = float(x)
-        return v if math.isfinite(v) else None
-    if isinstance(x, (np.integer,)):
-        return int(x)
-    if isinstance(x, (bool, np.bool_)):
-        return bool(x)
-    return x
-
-
 def _corr_dict(c: Correlation) -> dict:
     return {
-        "lags": _finite(c.lags),
-        "values": _finite(c.values),
-        "band": _finite(c.band),
+        "lags": json_ready(c.lags),
+        "values": json_ready(c.values),
+        "band": json_ready(c.band),
         "significant_lags": list(c.significant_lags),
     }
 
 
 def _band_dict(b: FrequencyBand) -> dict:
     return {"output": b.output, "input": b.input, "low_hz": b.low_hz, "high_hz": b.high_hz,
-            "worst": _finite(b.worst)}
+            "worst": json_ready(b.worst)}
 
 
 def report_to_dict(report: ValidationReport, *, include_signals: bool = False) -> dict:
@@ -1280,21 +1266,21 @@ def report_to_dict(report: ValidationReport, *, include_signals: bool = False) -
         "sample_time": report.sample_time,
         "inputs": list(ins),
         "outputs": list(outs),
-        "options": {f.name: _finite(getattr(opts, f.name)) for f in fields(opts)},
+        "options": {f.name: json_ready(getattr(opts, f.name)) for f in fields(opts)},
         "initial_state": report.initial_state,
-        "x0": _finite(report.x0),
+        "x0": json_ready(report.x0),
         "prediction_steps": report.prediction_steps,
         "fit": {
             name: {
-                "simulation_percent": _finite(report.simulation_fit[i]),
-                "prediction_percent": _finite(report.prediction_fit[i]),
+                "simulation_percent": json_ready(report.simulation_fit[i]),
+                "prediction_percent": json_ready(report.prediction_fit[i]),
             }
             for i, name in enumerate(outs)
         },
         "whiteness": {
             w.output: {
-                "ljung_box_statistic": _finite(w.ljung_box_statistic),
-                "ljung_box_pvalue": _finite(w.ljung_box_pvalue),
+                "ljung_box_statistic": json_ready(w.ljung_box_statistic),
+                "ljung_box_pvalue": json_ready(w.ljung_box_pvalue),
                 "white": w.white,
                 "autocorrelation": _corr_dict(w.autocorrelation),
             }
@@ -1306,23 +1292,23 @@ def report_to_dict(report: ValidationReport, *, include_signals: bool = False) -
         },
         "normality": {
             name: {
-                "jarque_bera": _finite(report.normality.statistic[i]),
-                "pvalue": _finite(report.normality.pvalue[i]),
-                "skewness": _finite(report.normality.skewness[i]),
-                "kurtosis": _finite(report.normality.kurtosis[i]),
+                "jarque_bera": json_ready(report.normality.statistic[i]),
+                "pvalue": json_ready(report.normality.pvalue[i]),
+                "skewness": json_ready(report.normality.skewness[i]),
+                "kurtosis": json_ready(report.normality.kurtosis[i]),
             }
             for i, name in enumerate(outs)
         },
         "spectral": {
-            "frequencies_hz": _finite(sp.frequencies_hz),
+            "frequencies_hz": json_ready(sp.frequencies_hz),
             "segment_length": sp.segment_length,
             "n_segments": sp.n_segments,
-            "model_magnitude": _finite(np.abs(sp.model_response)),
-            "model_phase_deg": _finite(np.degrees(np.angle(sp.model_response))),
-            "estimate_magnitude": _finite(np.abs(sp.estimate)),
-            "estimate_phase_deg": _finite(np.degrees(np.angle(sp.estimate))),
-            "coherence": _finite(sp.coherence),
-            "multiple_coherence": _finite(sp.multiple_coherence),
+            "model_magnitude": json_ready(np.abs(sp.model_response)),
+            "model_phase_deg": json_ready(np.degrees(np.angle(sp.model_response))),
+            "estimate_magnitude": json_ready(np.abs(sp.estimate)),
+            "estimate_phase_deg": json_ready(np.degrees(np.angle(sp.estimate))),
+            "coherence": json_ready(sp.coherence),
+            "multiple_coherence": json_ready(sp.multiple_coherence),
             "low_coherence_bands": [_band_dict(b) for b in sp.low_coherence_bands],
             "mismatch_bands": [_band_dict(b) for b in sp.mismatch_bands],
         },
@@ -1338,10 +1324,10 @@ def report_to_dict(report: ValidationReport, *, include_signals: bool = False) -
     }
     if include_signals:
         d["signals"] = {
-            "measured": _finite(report.measured),
-            "simulated": _finite(report.simulated),
-            "predicted": _finite(report.predicted),
-            "residuals": _finite(report.residuals),
+            "measured": json_ready(report.measured),
+            "simulated": json_ready(report.simulated),
+            "predicted": json_ready(report.predicted),
+            "residuals": json_ready(report.residuals),
         }
     return d
 

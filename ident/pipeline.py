@@ -47,6 +47,7 @@ from typing import Any
 
 import numpy as np
 
+from ._json import json_ready
 from ._version import __version__
 from .errors import IdentError, IdentWarning, PipelineError
 from .io.pipelinefile import PipelineSpec, load_pipeline
@@ -414,27 +415,6 @@ def _gates(state: dict[str, Any]) -> list[Gate]:
 # --------------------------------------------------------------------------- summary
 
 
-def _num(x: Any) -> Any:
-    """JSON-safe numbers (non-finite -> None), recursively."""
-    if isinstance(x, dict):
-        return {str(k): _num(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_num(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return _num(x.tolist())
-    if isinstance(x, (bool, np.bool_)):
-        return bool(x)
-    if isinstance(x, (np.integer,)):
-        return int(x)
-    if isinstance(x, (float, np.floating)):
-        return float(x) if math.isfinite(x) else None
-    if isinstance(x, complex):
-        return [_num(x.real), _num(x.imag)]
-    if isinstance(x, Path):
-        return str(x)
-    return x
-
-
 def _signal_stats(name: str, unit: str, role: str, x: np.ndarray) -> dict[str, Any]:
     return {
         "name": name, "unit": unit, "role": role,
@@ -581,7 +561,7 @@ def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: 
         "safety": SAFETY_CAUTION,
         "files": {"model": MODEL_FILE, "summary": SUMMARY_FILE, "report": REPORT_FILE},
     }
-    return _num(summary)
+    return json_ready(summary)
 
 
 # --------------------------------------------------------------------------- figures

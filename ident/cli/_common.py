@@ -98,33 +98,11 @@ def run_guarded(command: click.Command, argv: list[str] | None = None) -> int:
 
 def echo_json(payload: Any) -> None:
     """Print ``payload`` as JSON on stdout (NaN and inf become null)."""
-    click.echo(json.dumps(_json_safe(payload), indent=2, allow_nan=False))
+    from .._json import json_ready  # numpy: imported only when output is written
+
+    click.echo(json.dumps(json_ready(payload), indent=2, allow_nan=False))
 
 
-def _json_safe(obj: Any) -> Any:
-    import math
-
-    import numpy as np
-
-    if isinstance(obj, dict):
-        return {str(k): _json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_json_safe(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _json_safe(obj.tolist())
-    if isinstance(obj, (np.floating, float)):
-        value = float(obj)
-        return value if math.isfinite(value) else None
-    if isinstance(obj, np.integer):
-        return int(obj)
-    if isinstance(obj, np.bool_):
-        return bool(obj)
-    if isinstance(obj, complex):
-        return [_json_safe(obj.real), _json_safe(obj.imag)]
-    return obj
-
-
-json_safe = _json_safe
 
 
 def progress_enabled(quiet: bool) -> bool:

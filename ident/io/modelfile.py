@@ -33,6 +33,7 @@ from typing import Any
 
 import numpy as np
 
+from .._json import json_ready
 from .._version import __version__
 from ..errors import IdentError, ModelFileError
 from ..models import OperatingPoint, StateSpaceModel
@@ -90,28 +91,6 @@ def _matrix(arr: np.ndarray) -> list[list[float]]:
     return [[float(v) for v in row] for row in np.asarray(arr, dtype=float)]
 
 
-def _finite_json(obj: Any) -> Any:
-    """Make provenance JSON-safe: numpy to builtins, non-finite floats to None."""
-    if isinstance(obj, dict):
-        return {str(k): _finite_json(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_finite_json(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _finite_json(obj.tolist())
-    if isinstance(obj, (np.floating, float)):
-        value = float(obj)
-        return value if math.isfinite(value) else None
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, np.bool_):
-        return bool(obj)
-    if isinstance(obj, complex):
-        return [_finite_json(obj.real), _finite_json(obj.imag)]
-    if isinstance(obj, Path):
-        return str(obj)
-    return obj
-
-
 def default_provenance() -> dict:
     """Tool name, version and the current UTC time, the base of every provenance record."""
     now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
@@ -137,7 +116,7 @@ def model_to_dict(model: StateSpaceModel, provenance: dict | None = None) -> dic
         raise IdentError(f"model must be a StateSpaceModel; got {type(model).__name__}")
     prov = default_provenance()
     if provenance:
-        prov.update(_finite_json(provenance))
+        prov.update(json_ready(provenance))
     op = model.operating_point
     return {
         "format": FORMAT_NAME,
