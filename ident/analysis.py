@@ -324,16 +324,20 @@ def channel_zeros(model: StateSpaceModel) -> tuple[tuple[np.ndarray | None, ...]
     """
     if not isinstance(model, StateSpaceModel):
         raise OptionError(f"model must be a StateSpaceModel; got {type(model).__name__}")
+    return tuple(
+        tuple(np.asarray(zeros, dtype=complex) if gain != 0.0 else None for zeros, gain in row)
+        for row in _channel_zeros_gains(model)
+    )
+
+
+def _channel_zeros_gains(model: StateSpaceModel) -> list[list[tuple[np.ndarray, float]]]:
+    """``(zeros, gain)`` of every channel ``G_ij`` (see :func:`_siso_zeros_gain`), as ``[i][j]``."""
     A, B, C, D = model.A, model.B, model.C, model.D
     tol = _system_tol(A, B, C, D)
-    out = []
-    for i in range(model.n_outputs):
-        row = []
-        for j in range(model.n_inputs):
-            zeros, gain = _siso_zeros_gain(A, B[:, j], C[i], D[i, j], tol)
-            row.append(np.asarray(zeros, dtype=complex) if gain != 0.0 else None)
-        out.append(tuple(row))
-    return tuple(out)
+    return [
+        [_siso_zeros_gain(A, B[:, j], C[i], D[i, j], tol) for j in range(model.n_inputs)]
+        for i in range(model.n_outputs)
+    ]
 
 
 def _channel_dc_gain(poles, A, b, c, d, z0, near, tol) -> float:

@@ -1077,6 +1077,18 @@ def _arx_simulate(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
 # --------------------------------------------------------------------------- sweep
 
 
+def _delay_vectors(nk_values: Sequence[object], m: int) -> tuple[tuple[int, ...], ...]:
+    """Distinct per-input delay vectors from ``nk_values`` (ints or per-input sequences)."""
+    items = list(nk_values)
+    if not items:
+        raise OptionError("nk_values must hold at least one delay (an int or one per input)")
+    return tuple(dict.fromkeys(
+        _per_input(_order_spec(list(v) if isinstance(v, (list, tuple)) else v,
+                               f"nk_values[{k}]"), "nk_values entry", m)
+        for k, v in enumerate(items)
+    ))
+
+
 def _values(values: Sequence[object], name: str) -> tuple[int, ...]:
     vals = tuple(_order(v, f"{name}[{k}]") for k, v in enumerate(values))
     if not vals:
@@ -1186,14 +1198,7 @@ def sweep_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
         delay = estimate_delay(experiments)
         nk_vecs = (tuple(int(v) for v in delay.delays.min(axis=0)),)
     else:
-        items = list(nk_values)
-        if not items:
-            raise OptionError("nk_values must hold at least one value")
-        nk_vecs = tuple(dict.fromkeys(
-            _per_input(_order_spec(list(v) if isinstance(v, (list, tuple)) else v,
-                                   f"nk_values[{k}]"), "nk_values entry", m)
-            for k, v in enumerate(items)
-        ))
+        nk_vecs = _delay_vectors(nk_values, m)
     val_exps = None if validation is None else as_experiments(validation)
     if val_exps is not None and (val_exps[0].n_inputs, val_exps[0].n_outputs) != (m, p):
         raise OptionError(
@@ -1299,14 +1304,7 @@ def grid_search_arx(data: Experiment | Sequence[Experiment], sample_time: float,
     out_names = names_tuple(output_names, "output_names", p, "y")
     na_vals = _values(na_values, "na_values")
     nb_vals = _values(nb_values, "nb_values")
-    items = list(nk_values)
-    if not items:
-        raise OptionError("nk_values must hold at least one delay vector")
-    nk_vecs = tuple(dict.fromkeys(
-        _per_input(_order_spec(list(v) if isinstance(v, (list, tuple)) else v,
-                               f"nk_values[{k}]"), "nk_values entry", m)
-        for k, v in enumerate(items)
-    ))
+    nk_vecs = _delay_vectors(nk_values, m)
     _check_outputs_are_not_inputs(experiments, in_names, out_names)
     sweep, union = _grid(experiments, sample_time, na_vals, nb_vals, nk_vecs, None, None)
     picks = shortlist(sweep, per_criterion)

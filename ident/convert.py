@@ -13,7 +13,7 @@ import numpy as np
 from scipy import linalg
 
 from ._validate import names_tuple, one_of
-from .analysis import _meta, _require_ss, _siso_zeros_gain, _system_tol
+from .analysis import _channel_zeros_gains, _meta, _require_ss
 from .errors import ModelError, OptionError
 from .models import StateSpaceModel, TransferFunctionModel
 from .realization import _canonical, minimal_realization
@@ -85,15 +85,11 @@ def ss_to_tf(model: StateSpaceModel) -> TransferFunctionModel:
     ([1.0, 1.5], [1.0, -0.5])
     """
     _require_ss(model)
-    A, B, C, D = model.A, model.B, model.C, model.D
-    n = model.n_states
-    den = _poly_from_roots(linalg.eigvals(A)) if n else np.ones(1)
-    tol = _system_tol(A, B, C, D)
+    den = _poly_from_roots(linalg.eigvals(model.A)) if model.n_states else np.ones(1)
     nums, dens = [], []
-    for i in range(model.n_outputs):
+    for channels in _channel_zeros_gains(model):
         nrow, drow = [], []
-        for j in range(model.n_inputs):
-            zeros, gain = _siso_zeros_gain(A, B[:, j], C[i], D[i, j], tol)
+        for zeros, gain in channels:
             if gain == 0.0:
                 num = np.zeros(1)
             else:

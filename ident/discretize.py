@@ -16,7 +16,7 @@ import numpy as np
 from scipy import linalg
 
 from ._validate import one_of, optional_positive_float, positive_float
-from .analysis import _meta, _require_ss, _siso_zeros_gain, _system_tol
+from .analysis import _channel_zeros_gains, _meta, _require_ss
 from .choices import DISCRETIZE_METHODS
 from .errors import ModelError
 from .models import StateSpaceModel
@@ -355,15 +355,11 @@ def _matched(model: StateSpaceModel, T: float, *, to_discrete: bool) -> StateSpa
     from .convert import tf_to_ss
     from .models import TransferFunctionModel
 
-    A, B, C, D = model.A, model.B, model.C, model.D
-    n = model.n_states
-    poles = np.linalg.eigvals(A) if n else np.zeros(0, dtype=complex)
-    tol = _system_tol(A, B, C, D)
+    poles = np.linalg.eigvals(model.A) if model.n_states else np.zeros(0, dtype=complex)
     nums, dens = [], []
-    for i in range(model.n_outputs):
+    for channels in _channel_zeros_gains(model):
         nrow, drow = [], []
-        for j in range(model.n_inputs):
-            zeros, gain = _siso_zeros_gain(A, B[:, j], C[i], D[i, j], tol)
+        for zeros, gain in channels:
             num, den = _matched_channel(poles, zeros, gain, T, to_discrete)
             nrow.append(num)
             drow.append(den)
