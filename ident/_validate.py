@@ -6,6 +6,7 @@ and raises :class:`ident.errors.OptionError` (a ``ValueError``).
 
 from __future__ import annotations
 
+import difflib
 import math
 from collections.abc import Iterable, Sequence
 from typing import Any
@@ -23,6 +24,7 @@ __all__ = [
     "fraction",
     "one_of",
     "names_tuple",
+    "did_you_mean",
 ]
 
 
@@ -131,3 +133,9 @@ def names_tuple(names: Iterable[str] | None, name: str, count: int, prefix: str)
     if len(out) != count:
         raise OptionError(f"{name} must hold {count} names; got {len(out)}")
     return out
+
+
+def did_you_mean(value: str, valid: Sequence[str]) -> str | None:
+    """Return the hint ``"did you mean 'x'?"`` for the valid word nearest ``value``, or None."""
+    close = difflib.get_close_matches(str(value), list(valid), n=1, cutoff=0.5)
+    return f"did you mean {close[0]!r}?" if close else None

@@ -31,7 +31,6 @@ nearest valid key.
 
 from __future__ import annotations
 
-import difflib
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -39,6 +38,7 @@ from typing import Any
 
 import numpy as np
 
+from ._validate import did_you_mean
 from .errors import OptionError, PipelineError
 from .models import StateSpaceModel
 from .modes import ModeTable
@@ -245,12 +245,11 @@ def _table(mapping: Any, key_path: str, source: str | None, valid: tuple[str, ..
         _fail("must be a table", key_path, source, mapping)
     for key in mapping:
         if key not in valid:
-            close = difflib.get_close_matches(str(key), valid, n=1, cutoff=0.5)
             _fail(
                 f"unknown key {key!r} (valid: {', '.join(valid)})",
                 f"{key_path}.{key}",
                 source,
-                hint=f"did you mean {close[0]!r}?" if close else None,
+                hint=did_you_mean(key, valid),
             )
     return mapping
 
@@ -316,13 +315,12 @@ def _parse_gain(item: Any, key_path: str, source: str | None) -> DcGainExpectati
         names[key] = value
     sign = table.get("sign")
     if sign is not None and sign not in SIGNS:
-        close = difflib.get_close_matches(str(sign), SIGNS, n=1, cutoff=0.5)
         _fail(
             f"must be one of {', '.join(map(repr, SIGNS))}",
             f"{key_path}.sign",
             source,
             sign,
-            hint=f"did you mean {close[0]!r}?" if close else None,
+            hint=did_you_mean(sign, SIGNS),
         )
     rng = table.get("range")
     if rng is not None:
@@ -499,12 +497,11 @@ def _pick(name: str | None, names: tuple[str, ...], what: str, key_path: str, so
             )
         return 0
     if name not in names:
-        close = difflib.get_close_matches(name, names, n=1, cutoff=0.5)
         _fail(
             f"the model has no {what} {name!r} (it has {', '.join(names)})",
             f"{key_path}.{what}",
             source,
-            hint=f"did you mean {close[0]!r}?" if close else None,
+            hint=did_you_mean(name, names),
         )
     return names.index(name)
 

@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from ._validate import fraction, positive_float
+from ._validate import did_you_mean, fraction, positive_float
 from .analysis import channel_zeros, dc_gain, transmission_zeros
 from .choices import FLAGS
 from .discretize import poles_to_continuous
@@ -175,7 +175,7 @@ class ModeThresholds:
                     f"unknown key {key!r}; valid keys: {', '.join(valid)}",
                     path=source,
                     key_path=f"{key_path}.{key}",
-                    hint=_nearest_hint(str(key), valid),
+                    hint=did_you_mean(key, valid),
                 )
         for key, value in mapping.items():
             if isinstance(value, bool) or not isinstance(value, (int, float)):
@@ -186,13 +186,6 @@ class ModeThresholds:
             return cls(**dict(mapping))
         except OptionError as exc:
             raise PipelineError(str(exc), path=source, key_path=key_path) from exc
-
-
-def _nearest_hint(key: str, valid: tuple[str, ...]) -> str | None:
-    import difflib
-
-    close = difflib.get_close_matches(key, valid, n=1, cutoff=0.5)
-    return f"did you mean {close[0]!r}?" if close else None
 
 
 @dataclass(frozen=True, slots=True, eq=False)

@@ -33,7 +33,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from ._validate import as_signal, int_in_range, names_tuple, one_of, positive_float
+from ._validate import as_signal, did_you_mean, int_in_range, names_tuple, one_of, positive_float
 from .data import Experiment, as_experiments
 from .errors import OptionError, PipelineError
 from .models import OperatingPoint
@@ -136,6 +136,7 @@ def _from_mapping(cls: type, mapping: Mapping[str, Any], key_path: str) -> Any:
             raise PipelineError(
                 f"unknown key; valid keys are {', '.join(valid)}",
                 key_path=where,
+                hint=did_you_mean(key, valid),
             )
     try:
         return cls(**dict(mapping))

@@ -6,6 +6,7 @@ import os
 import tomllib
 from pathlib import Path
 
+from .._validate import did_you_mean
 from ..errors import PipelineError
 from ..expectations import Expectations
 
@@ -43,14 +44,11 @@ def load_expectations(path: str | os.PathLike) -> Expectations:
         raise PipelineError(f"not valid TOML: {exc}", path=source) from exc
     for key in data:
         if key != "expect":
-            import difflib
-
-            close = difflib.get_close_matches(str(key), ["expect"], n=1, cutoff=0.5)
             raise PipelineError(
                 f"unknown key {key!r}; an expectations file holds one table, [expect]",
                 path=source,
                 key_path=str(key),
-                hint="did you mean 'expect'?" if close else None,
+                hint=did_you_mean(key, ["expect"]),
             )
     if "expect" not in data:
         raise PipelineError("no [expect] table", path=source, hint="start the file with [expect]")

@@ -40,7 +40,6 @@ nearest valid key.
 from __future__ import annotations
 
 import dataclasses
-import difflib
 import glob
 import hashlib
 import math
@@ -51,6 +50,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from .._validate import did_you_mean
 from ..diagnostics import CheckOptions
 from ..drift import DriftThresholds
 from ..errors import IdentError, PipelineError
@@ -329,11 +329,6 @@ def parse_pipeline(
 # --------------------------------------------------------------------------- helpers
 
 
-def _nearest(key: str, valid: tuple[str, ...]) -> str | None:
-    close = difflib.get_close_matches(key, valid, n=1, cutoff=0.5)
-    return f"did you mean {close[0]!r}?" if close else None
-
-
 def _join(prefix: str, key: str) -> str:
     return f"{prefix}.{key}" if prefix else key
 
@@ -346,7 +341,7 @@ def _check_keys(table: Any, key_path: str, valid: tuple[str, ...], src: Path | N
         if key not in valid:
             raise PipelineError(
                 f"unknown key; valid keys are {', '.join(valid)}",
-                path=src, key_path=_join(key_path, str(key)), hint=_nearest(str(key), valid),
+                path=src, key_path=_join(key_path, str(key)), hint=did_you_mean(str(key), valid),
             )
 
 
@@ -484,7 +479,7 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
         if key.lower() not in known:
             raise PipelineError(
                 "names no input or output column", path=src, key_path=f"log.units.{key}",
-                hint=_nearest(key, tuple(known.values())),
+                hint=did_you_mean(key, tuple(known.values())),
             )
     return LogSpec(
         patterns=patterns,
@@ -524,7 +519,7 @@ def _parse_modes(table: Mapping[str, Any], src: Path | None) -> ModesSpec:
         if flag not in FLAGS:
             raise PipelineError(
                 f"unknown flag {flag!r}; flags are {', '.join(FLAGS)}", path=src,
-                key_path="modes.fail_on", hint=_nearest(flag, FLAGS),
+                key_path="modes.fail_on", hint=did_you_mean(flag, FLAGS),
             )
     return ModesSpec(thresholds=thresholds, fail_on=tuple(dict.fromkeys(fail_on)))
 
