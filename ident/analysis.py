@@ -12,7 +12,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import linalg
 
 from ._validate import as_signal, int_in_range, optional_positive_float
 from .errors import OptionError
@@ -86,7 +85,7 @@ def _controllable_staircase(
     nc = 0
     Bk = B.copy()
     while nc < n and Bk.size:
-        U, s, _ = linalg.svd(Bk, full_matrices=True)
+        U, s, _ = np.linalg.svd(Bk, full_matrices=True)
         r = int(np.sum(s > tol))
         if r == 0:
             break
@@ -101,7 +100,7 @@ def _controllable_staircase(
 def _unobservable_eigenvalues(A: np.ndarray, C: np.ndarray, tol: float) -> np.ndarray:
     Q, no = _controllable_staircase(A.T, C.T, tol)
     Au = (Q.T @ A.T @ Q)[no:, no:]
-    return linalg.eigvals(Au) if Au.size else np.zeros(0, dtype=complex)
+    return np.linalg.eigvals(Au) if Au.size else np.zeros(0, dtype=complex)
 
 
 def _invariant_zeros(
@@ -123,7 +122,7 @@ def _invariant_zeros(
     while True:
         n = A.shape[0]
         if D.size:
-            U, s, Vt = linalg.svd(D, full_matrices=True)
+            U, s, Vt = np.linalg.svd(D, full_matrices=True)
             r = int(np.sum(s > tol))
         else:
             r = 0
@@ -139,9 +138,9 @@ def _invariant_zeros(
             return np.zeros(0, dtype=complex)
         if m == 0:
             if p == 0:
-                return linalg.eigvals(A)
+                return np.linalg.eigvals(A)
             return _unobservable_eigenvalues(A, C, tol)
-        U, s, Vt = linalg.svd(B, full_matrices=True)
+        U, s, Vt = np.linalg.svd(B, full_matrices=True)
         k = int(np.sum(s > tol))
         if k == 0:
             return _unobservable_eigenvalues(A, C, tol)
@@ -174,7 +173,7 @@ def _siso_zeros_gain(
         if abs(d) > tol:
             if n == 0:
                 return np.zeros(0, dtype=complex), gain * d
-            return linalg.eigvals(A - np.outer(b, c) / d), gain * d
+            return np.linalg.eigvals(A - np.outer(b, c) / d), gain * d
         if n == 0:
             return np.zeros(0, dtype=complex), 0.0
         beta = float(np.linalg.norm(b))
@@ -288,10 +287,10 @@ def dc_gain(model: StateSpaceModel) -> np.ndarray:
     n = model.n_states
     if n == 0:
         return D.copy()
-    poles = linalg.eigvals(A)
+    poles = np.linalg.eigvals(A)
     near = 1e-10 * max(1.0, float(np.linalg.norm(A, 2)))
     if not np.any(np.abs(poles - z0) <= near):
-        return (C @ linalg.solve(z0.real * np.eye(n) - A, B) + D).real
+        return (C @ np.linalg.solve(z0.real * np.eye(n) - A, B) + D).real
     tol = _system_tol(A, B, C, D)
     out = np.empty(D.shape)
     for i in range(model.n_outputs):
@@ -437,6 +436,8 @@ def frequency_response(model: StateSpaceModel, frequencies_hz: Any) -> np.ndarra
     out[:] = model.D
     if n == 0 or f.size == 0:
         return out
+    from scipy import linalg  # the mode table and fit path need no scipy; imported here only
+
     H, Q = linalg.hessenberg(model.A, calc_q=True)
     H = np.triu(H, -1)
     Bq = Q.T @ model.B
@@ -524,6 +525,8 @@ def _sampled(model: StateSpaceModel, dt: float) -> StateSpaceModel:
     M = np.zeros((n + m, n + m))
     M[:n, :n] = model.A
     M[:n, n:] = model.B
+    from scipy import linalg
+
     E = linalg.expm(M * dt)
     return StateSpaceModel(A=E[:n, :n], B=E[:n, n:], C=model.C, D=model.D, sample_time=dt)
 
@@ -612,6 +615,8 @@ def impulse_response(
     if n == 0:
         values[:] = 0.0
         return TimeResponse(time=time, values=values)
+    from scipy import linalg
+
     Phi = linalg.expm(model.A * dt)
     X = model.B.copy()
     for k in range(N):

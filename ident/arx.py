@@ -14,7 +14,7 @@ The regression rows of every experiment (rows never straddle two experiments)
 are written, block by block, into one float64 buffer from
 :func:`numpy.lib.stride_tricks.sliding_window_view` views of the signals, with
 the targets ``y_i[k]`` as extra columns. Each block is stacked under the R
-factor so far and re-factorised (:func:`scipy.linalg.qr`, R only), so memory
+factor so far and re-factorised (:func:`numpy.linalg.qr`, R only), so memory
 stays bounded on long logs and the data are touched once. Every quantity of
 every candidate model then comes from this small R factor: a model whose
 regressors are a subset ``S`` of the columns solves
@@ -34,8 +34,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy import linalg
 
+from ._linalg import block_diag, solve_upper
 from ._validate import as_signal, int_in_range, names_tuple, positive_float
 from .data import Experiment, as_experiments
 
@@ -405,38 +405,76 @@ def _accumulate_r(experiments: Sequence[Experiment], blocks: Sequence[_Block],
     """R factor (c x c) of the regression rows with targets; and the row count.
 
     With ``max_rows``, only the first ``max_rows`` rows (in experiment order) are used.
-    Each block of rows is written under the R factor so far into one
-    Fortran-ordered buffer, which LAPACK ``geqrf`` factorises in place (no
-    copies, no full-size triangular extraction).
+    Each block of rows is written under the R factor so far into one buffer,
+    which is factorised (Householder QR, R only); the working memory is one
+    block whatever the length of the log. Long logs are split into two halves
+    factorised in two threads (LAPACK runs without the interpreter lock), and
+    the two R factors are combined by one more QR of the two stacked: a
+    tall-skinny QR, exact in the same sense as the sequential one.
+
+    References
+    ----------
+    .. [1] J. Demmel, L. Grigori, M. Hoemmen and J. Langou, "Communication-optimal
+       parallel and sequential QR and LU factorizations", *SIAM J. Sci. Comput.*
+       34(1), 2012 (TSQR).
     """
     c = sum(b.width for b in blocks)
     chunk = max(8 * c, _BLOCK_VALUES // max(c, 1))
-    R = np.zeros((c, c))
-    (geqrf,) = linalg.get_lapack_funcs(("geqrf",), (R,))
-    buf = np.empty((0, c), order="F")
-    have = 0  # rows currently represented by R (capped at c)
+    tasks: list[tuple[Experiment, int, int]] = []
     total = 0
     for exp in experiments:
-        N = exp.n_samples
-        for k0 in range(max_lag, N, chunk):
-            k1 = min(N, k0 + chunk)
+        for k0 in range(max_lag, exp.n_samples, chunk):
+            k1 = min(exp.n_samples, k0 + chunk)
             if max_rows is not None:
                 k1 = min(k1, k0 + max_rows - total)
                 if k1 <= k0:
                     break
-            rows = k1 - k0
-            if buf.shape[0] != have + rows:
-                buf = np.empty((have + rows, c), order="F")
-            buf[:have] = R[:have]
-            _fill(buf[have:], exp, blocks, max_lag, k0, k1)
-            qr, _, _, info = geqrf(buf, overwrite_a=True)
-            if info != 0:  # pragma: no cover - LAPACK argument errors cannot happen here
-                raise IdentificationError(f"QR factorisation failed (LAPACK info {info})")
-            have = min(c, have + rows)
-            R = np.zeros((c, c))
-            R[:have] = np.triu(qr[:have])
-            total += rows
-    return R, total
+            tasks.append((exp, k0, k1))
+            total += k1 - k0
+    if total >= _PARALLEL_ROWS and len(tasks) >= 4:
+        import threading
+
+        half = len(tasks) // 2
+        parts: list[np.ndarray | BaseException] = [np.zeros((0, c)), np.zeros((0, c))]
+
+        def work(slot: int, todo: list) -> None:
+            try:
+                parts[slot] = _absorb_rows(todo, blocks, max_lag, c)
+            except BaseException as exc:  # pragma: no cover - re-raised below
+                parts[slot] = exc
+
+        helper = threading.Thread(target=work, args=(1, tasks[half:]), daemon=True)
+        helper.start()
+        work(0, tasks[:half])
+        helper.join()
+        for part in parts:
+            if isinstance(part, BaseException):  # pragma: no cover - LAPACK does not fail here
+                raise part
+        R = np.linalg.qr(np.vstack(parts), mode="r")
+    else:
+        R = _absorb_rows(tasks, blocks, max_lag, c)
+    out = np.zeros((c, c))
+    out[:R.shape[0]] = R
+    return out, total
+
+
+#: Regression rows from which :func:`_accumulate_r` factorises two halves in two threads.
+_PARALLEL_ROWS = 200_000
+
+
+def _absorb_rows(tasks: Sequence[tuple[Experiment, int, int]], blocks: Sequence[_Block],
+                 max_lag: int, c: int) -> np.ndarray:
+    """R factor (at most c x c) of the rows of ``tasks`` (experiment, first row, end row)."""
+    R = np.zeros((0, c))
+    buf = np.empty((0, c))
+    for exp, k0, k1 in tasks:
+        have = R.shape[0]
+        if buf.shape[0] != have + k1 - k0:
+            buf = np.empty((have + k1 - k0, c))
+        buf[:have] = R
+        _fill(buf[have:], exp, blocks, max_lag, k0, k1)
+        R = np.linalg.qr(buf, mode="r")  # min(c, rows so far) x c, upper triangular
+    return R
 
 
 def arx_regressors(data: Experiment | Sequence[Experiment], na: int, nb: Sequence[int],
@@ -516,20 +554,20 @@ def _solve_subset(R: np.ndarray, cols: Sequence[int], target: int, *,
     r = R[:, target]
     if M.shape[1] == 0:
         return _Solution(np.zeros(0), r.copy(), np.zeros((0, 0)), np.ones(0))
-    Qs, Rs = linalg.qr(M, mode="economic", check_finite=False)
+    Qs, Rs = np.linalg.qr(M, mode="reduced")
     norms = np.linalg.norm(M, axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
         sines = np.where(norms > 0, np.abs(np.diag(Rs)) / norms, 0.0)
     if np.min(sines) < _RANK_TOL:
-        theta, *_ = linalg.lstsq(M, r, lapack_driver="gelsd", check_finite=False)
+        theta, *_ = np.linalg.lstsq(M, r, rcond=None)  # LAPACK gelsd, minimum norm
         rinv = None
     else:
         if covariance:
-            rinv = linalg.solve_triangular(Rs, np.eye(Rs.shape[0]), check_finite=False)
-            theta = linalg.solve_triangular(Rs, Qs.T @ r, check_finite=False)
+            rinv = solve_upper(Rs, np.eye(Rs.shape[0]))
+            theta = solve_upper(Rs, Qs.T @ r)
         else:
             rinv = np.zeros((0, 0))  # not asked for; not None means "full rank"
-            theta = linalg.solve_triangular(Rs, Qs.T @ r, check_finite=False)
+            theta = solve_upper(Rs, Qs.T @ r)
     return _Solution(theta, r - M @ theta, rinv, sines)
 
 
@@ -649,9 +687,9 @@ def arx_state_space(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
             Ci[0, 0] = 1.0
         blocks_C.append(Ci)
         D[i] = beta[0]
-    A = linalg.block_diag(*blocks_A) if sum(x.shape[0] for x in blocks_A) else np.zeros((0, 0))
+    A = block_diag(blocks_A) if sum(x.shape[0] for x in blocks_A) else np.zeros((0, 0))
     B = np.vstack(blocks_B) if blocks_B else np.zeros((0, m))
-    C = linalg.block_diag(*blocks_C)
+    C = block_diag(blocks_C)
     C = C.reshape(p, A.shape[0])
     return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=sample_time,
                            inputs=input_names, outputs=output_names)
@@ -961,7 +999,7 @@ def _restrict(union, experiments: Sequence[Experiment], plan: _Plan,
     if not extra and cols == list(range(R.shape[1])):
         return R, own, n_rows
     Z = np.vstack([R[:, cols], *extra])
-    (r,) = linalg.qr(Z, mode="r", check_finite=False)
+    r = np.linalg.qr(Z, mode="r")
     c = len(cols)
     R_s = np.zeros((c, c))
     k = min(c, Z.shape[0])

@@ -26,7 +26,6 @@ from dataclasses import dataclass, fields
 from typing import Any, Literal
 
 import numpy as np
-from scipy import linalg
 
 from ._json import json_ready
 from ._validate import as_signal, fraction, int_in_range, one_of, positive_float
@@ -909,6 +908,8 @@ def _fir_estimate(u: np.ndarray, y: np.ndarray, length: int) -> np.ndarray:
     Phi = np.empty((rows, length * m))
     for k in range(length):
         Phi[:, k * m:(k + 1) * m] = uu[length - 1 - k: N - k]
+    from scipy import linalg
+
     theta, *_ = linalg.lstsq(Phi, yy[length - 1:], lapack_driver="gelsy")
     return theta.reshape(length, m, -1).transpose(0, 2, 1)
 

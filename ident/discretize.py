@@ -13,7 +13,6 @@ import math
 from typing import Any, Literal
 
 import numpy as np
-from scipy import linalg
 
 from ._validate import one_of, optional_positive_float, positive_float
 from .analysis import _channel_zeros_gains, _meta, _require_ss
@@ -195,6 +194,8 @@ def to_discrete(
         )
     if prewarp_hz is not None and method != "tustin":
         raise ModelError(f"prewarp_hz applies to method 'tustin' only; method is {method!r}")
+    from scipy import linalg  # here, not at the top: the fit path maps poles without scipy
+
     A, B, C, D = model.A, model.B, model.C, model.D
     n, m = model.n_states, model.n_inputs
     if method == "zoh":
@@ -295,6 +296,8 @@ def to_continuous(
                 f"pole z={_fmt(bad[0])} has no Tustin continuous-time equivalent "
                 "(it maps to s = infinity); " + _CAUSES
             )
+        from scipy import linalg
+
         lu = linalg.lu_factor(A + np.eye(n))
         Ac = k * linalg.lu_solve(lu, A - np.eye(n))
         Bc = k * linalg.lu_solve(lu, B)
@@ -319,6 +322,8 @@ def to_continuous(
     E[:n, :n] = Ac * T
     E[:n, n : 2 * n] = np.eye(n) * T
     E[n : 2 * n, 2 * n :] = np.eye(n)
+    from scipy import linalg
+
     S = linalg.expm(E)
     G1 = S[:n, n : 2 * n]
     G2 = S[:n, 2 * n :]
@@ -341,6 +346,8 @@ def _refuse_negative_real(model: StateSpaceModel, method: str) -> None:
 
 
 def _real_logm(M: np.ndarray) -> np.ndarray:
+    from scipy import linalg
+
     L = linalg.logm(M)
     L = np.asarray(L)
     if np.iscomplexobj(L):

@@ -19,7 +19,6 @@ import math
 from typing import Any
 
 import numpy as np
-from scipy.optimize import linear_sum_assignment
 
 from ._validate import as_matrix
 from .errors import OptionError
@@ -201,8 +200,9 @@ def arx_pole_covariance(result: Any, *, model: StateSpaceModel | None = None) ->
     (its ``a_1..a_na`` block); the ``n_i - na`` extra roots are at ``z = 0``.
     The outputs are fitted separately, so no covariance between the poles of
     different outputs is stated (the mode table needs none). Roots and model
-    poles are paired by a minimum-distance assignment
-    (:func:`scipy.optimize.linear_sum_assignment`).
+    poles are paired nearest first (the realisation is exact, so every pole has
+    its root within round-off and nearest-first pairing is the minimum-distance
+    assignment).
 
     References
     ----------
@@ -236,7 +236,7 @@ def arx_pole_covariance(result: Any, *, model: StateSpaceModel | None = None) ->
         return np.zeros((0, 2, 2))
     cz = np.asarray(cand_z, dtype=complex)
     dist = np.abs(poles[:, None] - cz[None, :])
-    rows, cols = linear_sum_assignment(dist)
+    rows, cols = _nearest_pairs(dist)
     # the realisation is exact: eigenvalues and polynomial roots agree to round-off,
     # except near repeated roots (split by ~sqrt(eps)), which carry nan anyway
     worst = float(np.max(dist[rows, cols]))
@@ -309,3 +309,22 @@ def pole_covariance_from_list(raw: Any, n_poles: int) -> np.ndarray | None:
         return None
     cov[bad] = np.nan
     return cov
+
+
+def _nearest_pairs(dist: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pair rows and columns of a square distance matrix, nearest pair first."""
+    n = dist.shape[0]
+    order = np.argsort(dist, axis=None, kind="stable")
+    row_free = np.ones(n, dtype=bool)
+    col_free = np.ones(dist.shape[1], dtype=bool)
+    rows, cols = [], []
+    for flat in order:
+        r, c = divmod(int(flat), dist.shape[1])
+        if row_free[r] and col_free[c]:
+            row_free[r] = col_free[c] = False
+            rows.append(r)
+            cols.append(c)
+            if len(rows) == n:
+                break
+    rank = np.argsort(rows)
+    return np.asarray(rows)[rank], np.asarray(cols)[rank]

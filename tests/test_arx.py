@@ -124,6 +124,26 @@ def test_parameters_and_std_errors_equal_statsmodels_ols(rng):
     assert_allclose(t, target, rtol=0, atol=0)
 
 
+@pytest.mark.parametrize("threads", [False, True])
+def test_parameters_equal_statsmodels_ols_with_the_two_thread_factorisation(rng, monkeypatch, threads):
+    # the two-thread (TSQR) accumulation gives the same least squares as statsmodels OLS
+    import ident.arx as arx_module
+
+    monkeypatch.setattr(arx_module, "_PARALLEL_ROWS", 100 if threads else 10**12)
+    monkeypatch.setattr(arx_module, "_BLOCK_VALUES", 2000)  # many small blocks, two experiments
+    N = 3000
+    u = rng.standard_normal((N, 1))
+    y = signal.lfilter([0, 0.8, 0.3], A_TRUE, u[:, 0]) + 0.1 * rng.standard_normal(N)
+    halves = [Experiment(u[:1700], y[:1700]), Experiment(u[1700:], y[1700:])]
+    res = fit_arx(halves, 0.1, ArxOptions(na=3, nb=(2,), nk=(1,)))
+    X1, t1 = _regressors(u[:1700], y[:1700], 3, (2,), (1,), start=3)
+    X2, t2 = _regressors(u[1700:], y[1700:], 3, (2,), (1,), start=3)
+    ols = sm.OLS(np.concatenate([t1, t2]), np.vstack([X1, X2])).fit()
+    # statsmodels OLS on the stacked rows is the reference; cond(X) ~ 10
+    assert_allclose(res.parameters[0], ols.params, rtol=1e-9)
+    assert_allclose(res.std_errors[0], ols.bse, rtol=1e-9)
+
+
 def test_two_experiments_equal_stacked_regression(rng):
     u1, u2 = rng.standard_normal(400), rng.standard_normal(250)
     y1 = _arx_output(u1, 0.1 * rng.standard_normal(400))

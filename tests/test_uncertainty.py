@@ -220,3 +220,17 @@ def test_compare_models_z_score_from_both_pole_covariances():
     # one side unknown: no z-score
     one = compare_models(base.model, new.model, new_pole_covariance=arx_pole_covariance(new))
     assert all(s.z_score is None for s in one.mode_shifts)
+
+
+def test_nearest_pairs_equals_optimal_assignment_for_roundoff_matches(rng):
+    # scipy.optimize.linear_sum_assignment is the reference; with every pole matched
+    # within round-off (as for an exact realisation) nearest-first pairing is optimal
+    from ident.uncertainty import _nearest_pairs
+
+    z = rng.uniform(-1, 1, 12) + 1j * rng.uniform(-1, 1, 12)
+    perm = rng.permutation(12)
+    dist = np.abs(z[:, None] - (z[perm] + 1e-13)[None, :])
+    rows, cols = _nearest_pairs(dist)
+    ref_rows, ref_cols = linear_sum_assignment(dist)
+    np.testing.assert_array_equal(rows, ref_rows)
+    np.testing.assert_array_equal(cols, ref_cols)

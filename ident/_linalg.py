@@ -1,0 +1,62 @@
+"""Small dense linear-algebra helpers that numpy lacks, so the fit path needs no scipy.
+
+``rigfit fit`` imports numpy only (importing :mod:`scipy.linalg` costs about a
+quarter of a second, a large share of a whole fit of a million samples). The
+helpers here are the few pieces of :mod:`scipy.linalg` the fit path used;
+``tests/test_linalg_helpers.py`` checks them against scipy.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+__all__ = ["solve_upper", "block_diag"]
+
+
+def solve_upper(R: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Solve ``R x = b`` for upper-triangular ``R`` by back substitution.
+
+    Parameters
+    ----------
+    R : numpy.ndarray, shape (k, k)
+        Upper triangular, non-singular (only the upper triangle is read).
+    b : numpy.ndarray, shape (k,) or (k, c)
+
+    Returns
+    -------
+    numpy.ndarray
+        ``x``, shape of ``b``.
+
+    Notes
+    -----
+    Row-oriented back substitution, as :func:`scipy.linalg.solve_triangular`
+    (LAPACK ``trtrs``) computes it; backward stable (Higham, *Accuracy and
+    Stability of Numerical Algorithms*, 2nd ed., sec. 8.1).
+    """
+    R = np.asarray(R)
+    x = np.array(b, dtype=np.result_type(R, b, np.float64), copy=True)
+    k = R.shape[0]
+    for i in range(k - 1, -1, -1):
+        if i + 1 < k:
+            x[i] -= R[i, i + 1:] @ x[i + 1:]
+        x[i] /= R[i, i]
+    return x
+
+
+def block_diag(blocks: Sequence[np.ndarray]) -> np.ndarray:
+    """Block-diagonal matrix of 2-D ``blocks`` (blocks with a zero dimension allowed).
+
+    Same result as :func:`scipy.linalg.block_diag` for 2-D blocks.
+    """
+    blocks = [np.atleast_2d(np.asarray(b, dtype=float)) for b in blocks]
+    rows = sum(b.shape[0] for b in blocks)
+    cols = sum(b.shape[1] for b in blocks)
+    out = np.zeros((rows, cols))
+    r = c = 0
+    for b in blocks:
+        out[r:r + b.shape[0], c:c + b.shape[1]] = b
+        r += b.shape[0]
+        c += b.shape[1]
+    return out
