@@ -1,6 +1,10 @@
 import hashlib
+import importlib.util
 import os
+import subprocess
 import sys
+import textwrap
+import threading
 
 import numpy as np
 import pandas as pd
@@ -9,8 +13,37 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose, assert_array_equal
 
-from ident.errors import LogFormatError, OptionError
+import ident.io.log as log_module
+from ident.errors import IdentError, LogFormatError, OptionError
 from ident.io.log import Log, read_log, read_table, time_base
+
+_HAVE_PYARROW = importlib.util.find_spec("pyarrow") is not None
+
+
+def pytest_generate_tests(metafunc):
+    # every test runs with the pyarrow CSV path on and off; tests about the pyarrow path
+    # itself (decorated with pyarrow_path) run once, and only when pyarrow is installed
+    if "csv_parser" in metafunc.fixturenames:
+        if getattr(metafunc.function, "pyarrow_path", False):
+            params = ["pyarrow"]
+        else:
+            params = ["pyarrow", "pandas"]
+        metafunc.parametrize("csv_parser", params, indirect=True)
+
+
+@pytest.fixture(autouse=True)
+def csv_parser(request, monkeypatch):
+    """Switch the pyarrow CSV path on or off (``_FAST_CSV``) for one test."""
+    if request.param == "pyarrow" and not _HAVE_PYARROW:
+        pytest.skip("pyarrow is not installed")
+    monkeypatch.setattr(log_module, "_FAST_CSV", request.param == "pyarrow")
+    return request.param
+
+
+def pyarrow_path(test):
+    """Mark a test about the pyarrow path itself (it switches the paths as it needs)."""
+    test.pyarrow_path = True
+    return test
 
 # Values written into the small hand-made logs below (closed form: what the file says).
 T3 = np.array([0.0, 0.001, 0.002])
@@ -208,6 +241,14 @@ def test_decimal_comma_in_a_comma_separated_file_is_not_misread(tmp_path):
         read_log(path, "u", "y")
     assert str(info.value) == "log.csv, row 3: 4 fields but the header has 3"
     assert "a decimal comma needs ';' or tab" in info.value.hint
+
+
+def test_bare_carriage_return_line_ends_are_refused(tmp_path):
+    path = _write(tmp_path, "time,u,y\n0,1,2\n1,2,3\n", newline="\r")
+    with pytest.raises(LogFormatError) as info:
+        read_log(path, "u", "y")
+    assert str(info.value) == "log.csv, row 1: lines end in a bare carriage return (CR)"
+    assert info.value.hint == "save the log with LF or CRLF line ends"
 
 
 def test_decimal_comma_found_after_integer_rows(tmp_path):
@@ -515,3 +556,251 @@ def test_memory_one_extra_copy(tmp_path):
     # for one-column temporaries (time differences); an object-dtype copy would be ~7x
     assert peak <= 2.25 * data_bytes
     assert held <= 1.1 * data_bytes  # only the Log's arrays survive
+
+
+
+# --------------------------------------------------------------------------- pyarrow CSV path
+
+
+def _outcome(path, fast: bool, monkeypatch, reader, **kwargs):
+    """Everything a caller can see of one read: values bit for bit, provenance, or the error."""
+    monkeypatch.setattr(log_module, "_FAST_CSV", fast)
+    try:
+        t = reader(path, **kwargs)
+    except IdentError as exc:
+        return ("error", type(exc).__name__, str(exc), exc.hint)
+    if isinstance(t, Log):
+        arrays = [t.time, t.u, t.y]
+        extra = (t.segments, t.input_units, t.output_units)
+    else:
+        arrays = [c.values for c in t.columns]
+        extra = (t.names, None if t.line_numbers is None else t.line_numbers.tolist())
+    return ("ok", [a.view(np.uint64).tolist() for a in arrays], t.source.sha256,
+            t.source.first_row, t.source.last_row, t.dropped_rows, extra)
+
+
+def _pyarrow_answers(path) -> bool:
+    header = log_module._read_header(str(path))
+    arrays, scan = log_module._arrow_csv_columns(str(path), header,
+                                                 list(range(len(header.names))))
+    if scan is not None:
+        scan.sha256()  # join the background scan
+    return arrays is not None
+
+
+# (file bytes, whether the pyarrow path answers); what answers is our design: pyarrow only
+# for well-formed files, the pandas path for everything else
+_DIALECT_CASES = {
+    "clean": (b"time,u,y\n0,1.5,2\n1,2,3\n", True),
+    "no final line end": (b"time,u,y\n0,1.5,2\n1,2,3", True),
+    "blank lines at the end": (b"time,u,y\n0,1.5,2\n1,2,3\n\n\n", True),
+    "CRLF, blank lines at the end": (b"time,u,y\r\n0,1.5,2\r\n1,2,3\r\n\r\n\r\n", True),
+    "trailing empty columns": (b"time,u,y,,\n0,1.5,2,,\n1,2,3,,\n", True),
+    "trailing empty header fields only": (b"time,u,y,,\n0,1.5,2\n1,2,3\n", True),
+    "spaces around numbers": (b"time,u,y\n0, 1.5 ,2\n1,2,3\n", True),
+    "quoted numbers": (b'time,u,y\n0,"1.5",2\n1,"2",3\n', True),
+    "signs, bare points, exponents": (b"time,u,y\n0,+1.5,+2E3\n1,.5,5.\n2,-0,1e-5\n", True),
+    "semicolon, decimal comma": (b"time;u;y\n0;1,5;2\n1;2,25;3\n", True),
+    "semicolon, decimal point": (b"time;u;y\n0;1.5;2\n1;2.25;3\n", True),
+    "tab, decimal comma": (b"time\tu\ty\n0\t1,5\t2\n1\t2,25\t3\n", True),
+    "BOM and comments": ("\ufeff# rig 2\ntime,u,y\n0,1.5,2\n1,2,3\n".encode(), True),
+    "a 30-digit integer": (b"time,u,y\n0,123456789012345678901234567890,2\n1,2,3\n", True),
+    "blank line inside": (b"time,u,y\n0,1.5,2\n\n1,2,3\n", False),
+    "CRLF blank line inside": (b"time,u,y\r\n0,1.5,2\r\n\r\n1,2,3\r\n", False),
+    "blank-looking line at the end": (b"time,u,y\n0,1.5,2\n1,2,3\n   \n", False),
+    "stray CR inside a line": (b"time,u,y\n0,1.5,2\r1,2,3\n2,3,4\n", False),
+    "extra field with a value": (b"time,u,y\n0,1.5,2\n1,2,3,8\n", False),
+    "extra fields on every row": (b"time,u,y\n0,1.5,2,7\n1,2,3,8\n", False),
+    "extra empty field on one row": (b"time,u,y\n0,1.5,2\n1,2,3,\n", False),
+    "short row": (b"time,u,y\n0,1.5,2\n1,2\n", False),
+    "short first row": (b"time,u,y\n0,1.5\n1,2,3\n", False),
+    "empty cell": (b"time,u,y\n0,,2\n1,2,3\n", False),
+    "quoted empty cell": (b'time,u,y\n0,"",2\n1,2,3\n', False),
+    "blank cell": (b"time,u,y\n0, ,2\n1,2,3\n", False),
+    "nan": (b"time,u,y\n0,nan,2\n1,2,3\n", False),
+    "NA": (b"time,u,y\n0,NA,2\n1,2,3\n", False),
+    "inf": (b"time,u,y\n0,-inf,2\n1,2,3\n", False),
+    "overflow to inf": (b"time,u,y\n0,1e400,2\n1,2,3\n", False),
+    "text": (b"time,u,y\n0,abc,2\n1,2,3\n", False),
+    "hex": (b"time,u,y\n0,0x10,2\n1,2,3\n", False),
+    "digit separator": (b"time,u,y\n0,1_000,2\n1,2,3\n", False),
+    "unicode minus": ("time,u,y\n0,\u22121.5,2\n1,2,3\n".encode(), False),
+    "quoted separator": (b'time,u,y\n0,"1,5",2\n1,2,3\n', False),
+    "quoted line end": (b'time,u,y\n0,"1\n5",2\n1,2,3\n', False),
+    "decimal comma cell with a point": (b"time;u;y\n0;1,5;2\n1;1,2.3;3\n", False),
+    "decimal point in a decimal-comma log": (b"time;u;y\n0;1,5;2\n1;2.25;3\n", False),
+    "comment line inside": (b"time,u,y\n0,1.5,2\n#1,2,3\n", False),
+    "Latin-1 byte in a used cell": (b"time,u,y\n0,1.5,2\n1,2\xe9,3\n", False),
+    "NUL byte after the preview": (b"time,u,y\n" + b"0,1,2\n" * 12000 + b"3,\x00,5\n", False),
+}
+
+
+@pyarrow_path
+@pytest.mark.parametrize("name", sorted(_DIALECT_CASES))
+def test_pyarrow_and_pandas_paths_agree(tmp_path, monkeypatch, name):
+    data, answers = _DIALECT_CASES[name]
+    path = tmp_path / "log.csv"
+    path.write_bytes(data)
+    assert _pyarrow_answers(path) is answers
+    for reader, kwargs in [
+        (read_table, {}),
+        (read_table, {"drop_bad_rows": True}),
+        (read_log, {"inputs": "u", "outputs": "y", "split_at_gaps": True}),
+        (read_log, {"inputs": "u", "outputs": "y", "drop_bad_rows": True, "split_at_gaps": True}),
+    ]:
+        fast = _outcome(path, True, monkeypatch, reader, **kwargs)
+        slow = _outcome(path, False, monkeypatch, reader, **kwargs)
+        assert fast == slow, (reader.__name__, kwargs)
+
+
+@pyarrow_path
+def test_pyarrow_path_ignores_text_in_unused_columns(tmp_path, monkeypatch):
+    path = tmp_path / "log.csv"
+    path.write_bytes("time,u,note,y\n0,1,café,2\n1,2,fault,3\n2,3,,4\n".encode())
+    kwargs = {"inputs": "u", "outputs": "y"}
+    assert _outcome(path, True, monkeypatch, read_log, **kwargs) == _outcome(
+        path, False, monkeypatch, read_log, **kwargs)
+    # and read_table, which parses the text column, gets the pandas path's error
+    fast = _outcome(path, True, monkeypatch, read_table)
+    assert fast == _outcome(path, False, monkeypatch, read_table)
+    assert fast[2] == "log.csv, row 2, column 'note': not a number ('café')"
+
+
+def _varied_number_strings(rng, n):
+    """Decimal strings with up to 25 significant digits, exponents, signs, negative zero."""
+    digits = rng.integers(0, 10, size=(n, 25))
+    lengths = rng.integers(1, 26, size=n)
+    points = rng.integers(0, 26, size=n)
+    out = []
+    for row, length, point in zip(digits, lengths, points, strict=True):
+        body = "".join(map(str, row[:length]))
+        point = min(point, length)
+        text = (body[:point] or "0") + "." + (body[point:] or "0")
+        r = rng.random()
+        if r < 0.3:
+            text += f"e{rng.integers(-20, 21):+d}"
+        elif r < 0.4:
+            text += f"E{rng.integers(-280, 280)}"
+        if rng.random() < 0.4:
+            text = "-" + text
+        out.append(text)
+    out[:6] = ["-0", "-0.0", "0", "-0e5", "4.9406564584124654e-324", "1.7976931348623157e308"]
+    return out
+
+
+@pyarrow_path
+@pytest.mark.parametrize("dialect", ["comma", "semicolon-decimal-comma"])
+def test_pyarrow_values_bit_identical_to_pandas_and_to_python(tmp_path, monkeypatch,
+                                                              dialect):
+    rng = np.random.default_rng(20261202)
+    n = 3000
+    u_text = _varied_number_strings(rng, n)
+    y_text = _varied_number_strings(rng, n)
+    sep, comma = (",", False) if dialect == "comma" else (";", True)
+    lines = [f"u{sep}y"] + [f"{a}{sep}{b}" for a, b in zip(u_text, y_text, strict=True)]
+    text = "\n".join(lines) + "\n"
+    if comma:
+        text = text.replace(".", ",")
+    path = tmp_path / "digits.csv"
+    path.write_text(text, encoding="utf-8")
+    assert _pyarrow_answers(path)
+    fast = _outcome(path, True, monkeypatch, read_table)
+    slow = _outcome(path, False, monkeypatch, read_table)
+    assert fast == slow
+    # oracle: Python's float() rounds decimal strings correctly (IEEE 754 round-half-even)
+    table = read_table(path)
+    for name, strings in (("u", u_text), ("y", y_text)):
+        expected = np.array([float(s) for s in strings])
+        assert_array_equal(table.column(name).values.view(np.uint64), expected.view(np.uint64))
+    assert np.signbit(table.column("u").values[0])  # "-0" stays negative zero
+
+
+@pyarrow_path
+def test_clean_csv_does_not_use_the_pandas_path(tmp_path, monkeypatch):
+    path = tmp_path / "log.csv"
+    path.write_text("time,u,y\n" + "".join(f"{k * 0.01:.2f},{k % 7}.5,{k % 5}\n"
+                                            for k in range(5000)))
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("the pandas path ran on a clean file")
+
+    monkeypatch.setattr(log_module, "_csv_columns", refuse)
+    log = read_log(path, "u", "y")
+    assert log.n_samples == 5000
+    assert log.source.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()  # hashlib oracle
+
+
+@pyarrow_path
+def test_clean_csv_read_without_importing_pandas(tmp_path):
+    path = tmp_path / "log.csv"
+    path.write_text("time [s],u [V],y [m]\n0,1,2\n0.5,2,3\n1.0,3,5\n")
+    code = textwrap.dedent(f"""
+        import sys
+        from ident.io.log import read_log
+        log = read_log({str(path)!r}, "u", "y")
+        assert log.y.tolist() == [[2.0], [3.0], [5.0]], log.y
+        print(sorted(m for m in ("pandas", "pyarrow.csv") if m in sys.modules))
+    """)
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout
+    assert out.strip() == "['pyarrow.csv']"
+
+
+@pytest.mark.parametrize("text", ["time,u,y\n0,1,2\n1,2,3\n", "time,u,y\n0,x,2\n1,2,3\n"])
+def test_no_scan_thread_left_running(tmp_path, text):
+    path = tmp_path / "log.csv"
+    path.write_text(text)
+    try:
+        read_log(path, "u", "y")
+    except LogFormatError:
+        pass
+    assert not [t for t in threading.enumerate() if t.name == "rigfit-scan" and t.is_alive()]
+
+
+@pyarrow_path
+def test_pyarrow_memory_bounded_by_blocks_not_by_file(tmp_path, monkeypatch):
+
+    n = 400_000
+    k = np.arange(n)
+    path = tmp_path / "long.csv"
+    path.write_text("time,u,y\n" + "\n".join(map("{0},{1}.125,{2}.5".format, k, k % 1000,
+                                                  k % 777)) + "\n")
+    block = 1 << 16
+    monkeypatch.setattr(log_module, "_ARROW_BLOCK", block)
+    pools = []
+
+    def proxy_pool(pa_module):
+        pools.append(pa_module.proxy_memory_pool(pa_module.default_memory_pool()))
+        return pools[-1]
+
+    monkeypatch.setattr(log_module, "_arrow_memory_pool", proxy_pool)
+    table = read_table(path)
+    assert table.n_rows == n and len(pools) == 1
+    # closed form: the values written above
+    assert_array_equal(table.column("y").values, (k % 777) + 0.5)
+    pool = pools[0]
+    assert pool.bytes_allocated() == 0  # Arrow keeps nothing once the columns are copied
+    # pyarrow reads up to 32 blocks ahead, plus blocks being parsed: about 40 blocks measured;
+    # 64 blocks (4 MiB) is well under the file (about 7 MB) and the float64 data (9.6 MB),
+    # so a parser that held the whole table in Arrow memory would fail here
+    assert pool.max_memory() <= 64 * block
+    assert pool.max_memory() < 0.5 * os.path.getsize(path)
+    keep_alive.append(pool)  # Arrow pools must outlive every buffer; keep it to the end
+
+
+keep_alive: list = []
+
+
+def test_csv_without_pyarrow_uses_pandas(tmp_path, monkeypatch):
+    path = tmp_path / "log.csv"
+    path.write_text("time,u,y\n0,1.5,2\n1,2,3\n2,3,5\n")
+    monkeypatch.setitem(sys.modules, "pyarrow", None)  # makes "import pyarrow" fail
+    monkeypatch.setitem(sys.modules, "pyarrow.csv", None)
+    calls = []
+    pandas_path = log_module._csv_columns
+    monkeypatch.setattr(log_module, "_csv_columns",
+                        lambda *a, **k: calls.append(1) or pandas_path(*a, **k))
+    log = read_log(path, "u", "y")
+    assert calls == [1]
+    assert_array_equal(log.y[:, 0], [2.0, 3.0, 5.0])  # the values in the file
+    assert log.source.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()  # hashlib oracle

@@ -16,10 +16,14 @@ preceded by any number of ``#`` comment lines. The reader
   (median interval) and refuses non-monotonic stamps and gaps, or splits the log
   into segments at gaps on request.
 
-Memory: the happy path parses with the pandas C engine straight into float64
-columns of the requested columns only, and the ``u``/``y`` matrices are the one
-extra copy; object-dtype text is read only to locate a bad cell after the fast
-parse has failed.
+Speed and memory: with pyarrow installed, a well-formed UTF-8 CSV log is parsed
+by ``pyarrow.csv`` in parallel, streamed batch by batch into float64 columns of
+the requested columns only, without importing pandas; a background thread hashes
+the file meanwhile. Any file that is not clean (a bad or empty cell, a ragged row,
+a blank line inside the data, another encoding) goes to the pandas C engine path,
+which gives the same values and the precise error; object-dtype text is read only
+to locate a bad cell after that parse has failed. Either way the ``u``/``y``
+matrices are the one extra copy of the parsed columns.
 """
 
 from __future__ import annotations
@@ -76,6 +80,12 @@ _SNIFF_ROWS = 50
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\))\s*$")
 _DECIMAL_COMMA_RE = re.compile(r"^\s*[-+]?\d*,\d+(?:[eE][-+]?\d+)?\s*$")
 _INSTALL_PARQUET = "pip install pyarrow (from a rigfit checkout: pip install '.[parquet]')"
+_SCAN_CHUNK = 1 << 20
+# pyarrow reads up to 32 blocks ahead of the parser: 256 KiB blocks bound that to 8 MiB
+_ARROW_BLOCK = 1 << 18
+#: Parse clean UTF-8 CSV logs with ``pyarrow.csv`` when pyarrow is installed (no pandas
+#: import); ``False`` forces the pandas path (tests run every file through both).
+_FAST_CSV = True
 
 
 # --------------------------------------------------------------------------- records
@@ -619,6 +629,11 @@ def _read_header(path: str) -> _Header:
         raise LogFormatError("no header line found (only comments or blank lines)", path=path)
     data_offset = bom + sum(len(ln) + 1 for ln in raw_lines[: h + 1])
     header_text = lines[h]
+    if "\r" in header_text:
+        raise LogFormatError(
+            "lines end in a bare carriage return (CR)", path=path, row=h + 1,
+            hint="save the log with LF or CRLF line ends",
+        )
     data_lines = [ln for ln in lines[h + 1 : h + 1 + _SNIFF_ROWS] if ln.strip()]
     sep = _sniff_separator(header_text, data_lines)
     decimal = "."
@@ -716,12 +731,24 @@ def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_ro
     if header.kind == "parquet":
         arrays, first_line, lines, dropped = _parquet_columns(path, header, indices, drop_bad_rows)
     else:
-        digest = hashlib.sha256()
-        arrays, first_line, lines, dropped, hashed = _csv_columns(
-            path, header, indices, drop_bad_rows, digest
-        )
-        if hashed:  # the parse read every byte once, and hashed it on the way
-            sha = digest.hexdigest()
+        arrays, scan = _arrow_csv_columns(path, header, indices)
+        if arrays is not None:
+            first_line, lines, dropped = header.header_line + 1, None, 0
+            sha = scan.sha256()
+        elif scan is not None:  # the fast parse gave up; the scan still hashes the file
+            try:
+                arrays, first_line, lines, dropped, _ = _csv_columns(
+                    path, header, indices, drop_bad_rows
+                )
+            finally:
+                sha = scan.sha256()  # also joins the scan thread when the parse raised
+        else:
+            digest = hashlib.sha256()
+            arrays, first_line, lines, dropped, hashed = _csv_columns(
+                path, header, indices, drop_bad_rows, digest
+            )
+            if hashed:  # the parse read every byte once, and hashed it on the way
+                sha = digest.hexdigest()
     n = arrays[0].shape[0] if arrays else 0
     if n == 0:
         raise LogFormatError("no data rows after the header", path=path,
@@ -737,6 +764,178 @@ def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_ro
         for k, a in zip(indices, arrays, strict=True)
     )
     return Table(columns, source, dropped, None if lines is None else _readonly(lines))
+
+
+class _FileScan:
+    """Line-feed count and SHA-256 of a file, computed in a background thread.
+
+    Two passes over the file in 1 MiB chunks (the second one comes from the page
+    cache): first the line feeds at or after ``data_offset``, which the parser
+    needs early to size its output, then the SHA-256 of every byte. File reads
+    and ``hashlib`` release the GIL on such buffers, so the scan runs beside the
+    pyarrow parse (which releases it too) at almost no wall-time cost on two cores.
+    """
+
+    def __init__(self, path: str, data_offset: int) -> None:
+        import threading
+
+        self._path = path
+        self._offset = data_offset
+        self._counted = threading.Event()
+        self._feeds: int | None = None
+        self._sha256: str | None = None
+        self._thread = threading.Thread(target=self._run, name="rigfit-scan", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            with open(self._path, "rb", buffering=0) as fh:
+                fh.seek(self._offset)
+                feeds = 0
+                while chunk := fh.read(_SCAN_CHUNK):
+                    feeds += chunk.count(b"\n")
+                self._feeds = feeds
+                self._counted.set()
+                fh.seek(0)
+                digest = hashlib.sha256()
+                while chunk := fh.read(_SCAN_CHUNK):
+                    digest.update(chunk)
+                self._sha256 = digest.hexdigest()
+        except OSError:
+            pass  # both results stay None; the caller falls back and reports the error
+        finally:
+            self._counted.set()
+
+    def line_feeds(self) -> int | None:
+        """Wait for the count of line-feed bytes after the header (``None`` if unreadable)."""
+        self._counted.wait()
+        return self._feeds
+
+    def sha256(self) -> str | None:
+        """Wait for the hex SHA-256 of the whole file (``None`` if unreadable)."""
+        self._thread.join()
+        return self._sha256
+
+
+def _arrow_csv_columns(path: str, header: _Header, indices: list[int]):
+    """Parse the used columns with ``pyarrow.csv``; ``(None, scan)`` when not clean.
+
+    Returns ``(arrays, scan)``: the float64 columns (``None`` when this path gives
+    up) and the background :class:`_FileScan` that hashes the file (``None`` when
+    the path gave up before starting it: pyarrow missing, ``_FAST_CSV`` off, not
+    UTF-8, not a regular file, a short first row).
+
+    The pandas path stays the reference: this path answers only when every used
+    cell parsed to a finite number, every row has as many fields as the first
+    data row (no more than the header's, apart from empty trailing fields), and
+    pyarrow found exactly one row per line of the file. Anything else (empty or
+    non-numeric cells, NaN, inf, blank lines inside the data, ragged rows, any
+    pyarrow error) gives up, and the pandas path produces the values or the
+    precise error, so messages and row numbers never depend on pyarrow. Blank
+    lines at the end are skipped by both. pyarrow and the pandas C parser both
+    round decimal strings correctly, so the values are bit-identical.
+    """
+    if not _FAST_CSV or header.encoding != "utf-8" or not os.path.isfile(path):
+        return None, None
+    try:
+        import pyarrow as pa
+        import pyarrow.csv as pacsv
+    except ImportError:
+        return None, None
+    start = header.data_offset
+    with open(path, "rb") as fh:
+        size = os.fstat(fh.fileno()).st_size
+        # line ends at the end of the file: blank lines there are not rows (nor errors)
+        tail_start = max(start, size - _SCAN_CHUNK)
+        fh.seek(tail_start)
+        tail = fh.read()
+        kept = tail.rstrip(b"\r\n")
+        if not kept:
+            return None, None  # no data, or more than 1 MiB of blank lines: not the usual
+        cut_feeds = tail.count(b"\n", len(kept))
+        fh.seek(start)
+        first = fh.read(_PREVIEW_BYTES)
+    line_end = first.find(b"\n")
+    if line_end < 0 and size - start > len(first):
+        return None, None  # a first row longer than the preview: not the usual
+    try:
+        text = (first if line_end < 0 else first[:line_end]).rstrip(b"\r").decode("utf-8")
+        n_fields = len(next(csv.reader([text], delimiter=header.sep, quotechar='"'), []))
+    except (UnicodeDecodeError, csv.Error):  # a stray CR, a bad byte: the pandas path decides
+        return None, None
+    if n_fields < len(header.raw):
+        return None, None
+    scan = _FileScan(path, start)
+    try:
+        arrays = _arrow_stream(pa, pacsv, path, header, indices, n_fields, scan, cut_feeds)
+    except (pa.ArrowException, OSError, ValueError):
+        arrays = None
+    if arrays is None or scan.sha256() is None:
+        return None, scan
+    return arrays, scan
+
+
+def _arrow_stream(pa, pacsv, path, header: _Header, indices, n_fields, scan, cut_feeds):
+    """Stream record batches into preallocated float64 columns (``None``: give up).
+
+    Arrow holds only the batches in flight; the output arrays, sized from the
+    scan's line count, are the one full copy of the data.
+    """
+    width = len(header.raw)
+    names = [f"f{k}" for k in range(n_fields)]
+    used = [names[k] for k in indices]
+    extra = names[width:]  # must be empty on every row, as the pandas path's sentinel
+    read_options = pacsv.ReadOptions(column_names=names, use_threads=True,
+                                     block_size=_ARROW_BLOCK)
+    parse_options = pacsv.ParseOptions(
+        delimiter=header.sep, quote_char='"', double_quote=True, escape_char=False,
+        newlines_in_values=False, ignore_empty_lines=True,
+    )
+    convert_options = pacsv.ConvertOptions(
+        include_columns=[*used, *extra],
+        column_types={name: pa.float64() for name in (*used, *extra)},
+        decimal_point=header.decimal,
+    )
+    out: list[np.ndarray] | None = None
+    n = pos = 0
+    pool = _arrow_memory_pool(pa)
+    with pa.OSFile(path, "r", memory_pool=pool) as fh:
+        fh.seek(header.data_offset)
+        with pacsv.open_csv(fh, read_options=read_options, parse_options=parse_options,
+                            convert_options=convert_options, memory_pool=pool) as reader:
+            for batch in reader:
+                k = batch.num_rows
+                if out is None:
+                    feeds = scan.line_feeds()
+                    if feeds is None:
+                        return None
+                    # one row per line: every line feed but those cut at the end, plus one
+                    n = feeds - cut_feeds + 1
+                    out = [np.empty(n, dtype=np.float64) for _ in used]
+                if pos + k > n:
+                    return None
+                for j in range(len(used), len(used) + len(extra)):
+                    if batch.column(j).null_count != k:
+                        return None
+                for j, a in enumerate(out):
+                    col = batch.column(j)
+                    if col.null_count:
+                        return None
+                    # the Arrow values buffer, read in place (no to_numpy: it imports pandas)
+                    view = np.frombuffer(col.buffers()[1], dtype=np.float64, count=k,
+                                         offset=col.offset * 8)
+                    if not np.isfinite(view).all():
+                        return None
+                    a[pos : pos + k] = view
+                pos += k
+    if out is None or pos != n:
+        return None
+    return out
+
+
+def _arrow_memory_pool(pa):
+    """Memory pool for the pyarrow parse (tests swap in a proxy pool to measure its peak)."""
+    return pa.default_memory_pool()
 
 
 def _csv_columns(path, header: _Header, indices, drop_bad_rows, digest=None):
