@@ -293,6 +293,9 @@ class Identification:
         Singular values of the subspace projection (``None`` without subspace).
     suggested_order : int or None
         Order at the largest gap in ``singular_values``.
+    subspace_factorization : dict or None
+        How the subspace projection factorised the data: ``{"path": "gram" or
+        "householder", "gram_condition": float}`` (``None`` without subspace).
     delay : object or None
         The ``DelayEstimate`` used for ARX (``None`` when the delay was given
         or no ARX model was fitted).
@@ -328,6 +331,7 @@ class Identification:
     options: IdentifyOptions
     best_by: dict[str, int] = field(default_factory=dict)
     arx_sweep: Any = None
+    subspace_factorization: dict[str, Any] | None = None
 
     @property
     def selected(self) -> Candidate:
@@ -732,6 +736,7 @@ def _identify(
     arx_sweep = None
     singular_values = None
     suggested = None
+    factorization = None
     do_arx = options.method in ("arx", "auto")
     do_sub = options.method in ("subspace", "auto")
     n_arx = 3 * options.per_criterion + len(orders) if fixed is None else 1  # progress steps (upper bound)
@@ -833,6 +838,8 @@ def _identify(
         )
         singular_values = np.asarray(projection.singular_values, dtype=float)
         suggested = int(suggest_order(projection).order)
+        factorization = {"path": projection.factorization,
+                         "gram_condition": float(projection.gram_condition)}
         n_supported = int(projection.max_order)
         sub_orders = [n for n in orders if n <= n_supported]
         if len(sub_orders) < len(orders):
@@ -925,4 +932,5 @@ def _identify(
         options=options,
         best_by=_best_by(candidates),
         arx_sweep=arx_sweep,
+        subspace_factorization=factorization,
     )

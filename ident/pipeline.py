@@ -527,6 +527,7 @@ def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: 
                 "candidates": [c.as_dict() for c in result.candidates],
                 "singular_values": None if result.singular_values is None else list(result.singular_values),
                 "suggested_order": result.suggested_order,
+                "subspace_factorization": result.subspace_factorization,
             },
             "delays": None if result.delay is None else getattr(result.delay, "delays", None),
             "notes": list(result.notes),

@@ -197,6 +197,9 @@ def test_fixed_order_subspace(run_cli, log_file):
     data = json.loads(res.stdout)
     assert data["method"] == "subspace" and data["order"] == 2
     assert len(data["candidates"]) == 1
+    # which factorisation built the projection is reported (common practice, no source)
+    assert data["subspace_factorization"]["path"] in ("gram", "householder")
+    assert data["subspace_factorization"]["gram_condition"] >= 1.0
 
 
 def test_refuses_to_overwrite(run_cli, log_file, tmp_path):

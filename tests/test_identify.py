@@ -137,6 +137,9 @@ def test_auto_order_subspace_data(rng):
     assert_allclose(_sorted(res.model.poles()),
                     _sorted(np.exp(np.array([-2.0, -1 + 6j, -1 - 6j]) * 0.05)), atol=5e-3)
     assert res.singular_values is not None and res.suggested_order == 3
+    # 2 % output noise keeps the scaled data covariance well conditioned: the Gram path
+    assert res.subspace_factorization["path"] == "gram"
+    assert 1.0 <= res.subspace_factorization["gram_condition"] <= 1e8
 
 
 def test_auto_picks_simpler_model_on_noise_free_first_order(rng):

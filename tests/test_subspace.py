@@ -3,8 +3,10 @@
 Data come from known discrete systems simulated with scipy.signal.dlsim (or a
 plain state recursion for noisy systems); poles are compared with the roots of
 the true denominator / eigenvalues of the true A (numpy), the R factor with
-numpy.linalg.qr of a block-Hankel matrix built here with plain loops, and the
-innovation covariance with scipy.linalg.solve_discrete_are.
+numpy.linalg.qr of a block-Hankel matrix built here with plain loops (both the
+Gram/Cholesky and the Householder path), the recorded condition number with
+numpy.linalg.cond, and the innovation covariance and the Riccati solution with
+scipy.linalg.solve_discrete_are.
 """
 
 from __future__ import annotations
@@ -139,22 +141,115 @@ def _dense_hankel(experiments, horizon):
     return np.array(cols).T
 
 
-def test_block_accumulated_r_equals_dense_qr(rng):
+def _noisy_mimo3_data(rng, lengths, noise=0.1):
     system = _mimo3()
     data = []
-    for N in (301, 157):
+    for N in lengths:
         u = rng.standard_normal((N, 2))
-        data.append((u, _dlsim(system, u) + 0.1 * rng.standard_normal((N, 2))))
+        data.append((u, _dlsim(system, u) + noise * rng.standard_normal((N, 2))))
+    return data
+
+
+@pytest.mark.parametrize("path", ["gram", "householder"])
+def test_block_accumulated_r_equals_dense_qr(path, monkeypatch, rng):
+    from ident import subspace
+
+    if path == "householder":
+        monkeypatch.setattr(subspace, "_GRAM_MAX_CONDITION", 0.0)  # the gate refuses the Gram
+    # the second experiment has exactly 2i = 8 samples: one block-Hankel column
+    data = _noisy_mimo3_data(rng, (301, 157, 8))
     proj = project([Experiment(u, y) for u, y in data], horizon=4, max_order=3, chunk_columns=37)
+    assert proj.factorization == path
     H = _dense_hankel(data, 4)
     assert proj.n_columns == H.shape[1]
     R_dense = np.linalg.qr(H.T, mode="r")  # reference: numpy.linalg.qr (one shot)
     R = proj.r_factor
-    # R equals the dense R up to row signs: compare R^T R (= H H^T) and |diag R|;
-    # rounding of a 32-column Householder QR on O(1) data: 1e-10 relative
+    # rounding of a 32-column factorisation of O(1) data, well conditioned (noisy
+    # data, gram_condition ~ 7e3, so Cholesky error ~ 7e3 * eps ~ 2e-12): 1e-10 relative
     assert_allclose(R.T @ R, H @ H.T, rtol=1e-10, atol=1e-10 * np.abs(H @ H.T).max())
-    assert_allclose(np.abs(np.diag(R)), np.abs(np.diag(R_dense)), rtol=1e-9)
+    # R is the one-shot R with its rows signed to a non-negative diagonal
+    signs = np.where(np.diag(R_dense) < 0, -1.0, 1.0)
+    assert_allclose(R, signs[:, None] * R_dense, rtol=0, atol=1e-10 * np.abs(R_dense).max())
     assert_allclose(np.tril(R, -1), 0.0, atol=0)
+    # the recorded condition is that of the row-equilibrated H, squared (numpy.linalg.cond)
+    Hs = H / np.linalg.norm(H, axis=1)[:, None]
+    assert_allclose(proj.gram_condition, np.linalg.cond(Hs) ** 2, rtol=1e-8)
+
+
+def test_hankel_gram_equals_dense_product(rng):
+    from ident import subspace
+
+    # H H^T from lagged products with head and tail corrections, three experiments
+    # (one of exactly 2i samples) and a block size that splits the lagged products
+    data = [(rng.standard_normal((N, 2)), rng.standard_normal((N, 3))) for N in (90, 10, 41)]
+    H = _dense_hankel(data, 5)
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(subspace, "_GRAM_BLOCK", 16)
+        G = subspace._hankel_gram([Experiment(u, y) for u, y in data], 5)
+    # reference: the product of the dense matrix built with loops; sums of ~150
+    # O(1) products in another order: 1e-12 of the largest entry
+    assert_allclose(G, H @ H.T, rtol=0, atol=1e-12 * np.abs(H @ H.T).max())
+
+
+def test_gram_and_householder_paths_agree_on_noisy_log(monkeypatch):
+    from ident import subspace
+
+    rng = np.random.default_rng(41)
+    (u, y), = _noisy_mimo3_data(rng, (6000,), noise=0.3)
+    data = Experiment(u, y)
+    gram = project(data, max_order=5)
+    assert gram.factorization == "gram" and gram.gram_condition <= 1e8
+    monkeypatch.setattr(subspace, "_GRAM_MAX_CONDITION", 0.0)
+    householder = project(data, max_order=5)
+    assert householder.factorization == "householder"
+    assert householder.gram_condition == gram.gram_condition
+    # gram_condition ~ 1e3 here: the Cholesky factor's relative error is about
+    # cond * eps ~ 2e-13 (Golub & Van Loan, 4th ed., sec. 4.2), seen 1e-14; 1e-10
+    # leaves margin and is still far inside the gate's worst case (1e8 * eps ~ 2e-8)
+    assert gram.gram_condition < 1e4
+    assert_allclose(gram.r_factor, householder.r_factor, rtol=0,
+                    atol=1e-10 * np.abs(householder.r_factor).max())
+    assert_allclose(gram.singular_values[:6], householder.singular_values[:6], rtol=1e-10)
+    for n in (2, 3):
+        a = model_of_order(gram, data, n, 1.0)
+        b = model_of_order(householder, data, n, 1.0)
+        assert_allclose(_sorted_poles(a.model.poles()), _sorted_poles(b.model.poles()),
+                        rtol=1e-10)
+        assert_allclose(a.model.B, b.model.B, rtol=0, atol=1e-10 * np.abs(b.model.B).max())
+        assert_allclose(a.model.D, b.model.D, rtol=0, atol=1e-10 * np.abs(b.model.B).max())
+
+
+def test_noise_free_data_take_householder_path(rng):
+    # noise-free data of order 3 with horizon 4: H has rank 2i m + n = 19 < 32 rows,
+    # the Gram matrix is singular to rounding, the gate sends it to Householder QR
+    system = _mimo3()
+    u = rng.standard_normal((800, 2))
+    proj = project(Experiment(u, _dlsim(system, u)), horizon=4, max_order=3)
+    assert proj.factorization == "householder"
+    assert proj.gram_condition > 1e8
+
+
+def test_condition_gate_honoured(monkeypatch, rng):
+    from ident import subspace
+
+    (u, y), = _noisy_mimo3_data(rng, (500,))
+    data = Experiment(u, y)
+    cond = project(data, horizon=3, max_order=2).gram_condition
+    monkeypatch.setattr(subspace, "_GRAM_MAX_CONDITION", cond * (1 - 1e-6))
+    assert project(data, horizon=3, max_order=2).factorization == "householder"
+    monkeypatch.setattr(subspace, "_GRAM_MAX_CONDITION", cond * (1 + 1e-6))
+    assert project(data, horizon=3, max_order=2).factorization == "gram"
+
+
+def test_smooth_input_takes_householder_path(rng):
+    # a slowly varying input (white noise through a pole at 0.995): neighbouring
+    # block rows of U are nearly equal, cond(H) > 1e4, so the gate refuses the Gram
+    system = _mimo3()
+    u = signal.lfilter([1.0], [1.0, -0.995], rng.standard_normal((3000, 2)), axis=0)
+    y = _dlsim(system, u) + 0.01 * rng.standard_normal((3000, 2))
+    proj = project(Experiment(u, y), horizon=5, max_order=3)
+    assert proj.gram_condition > 1e8
+    assert proj.factorization == "householder"
 
 
 def test_two_experiments_combined_with_their_own_initial_states(rng):
@@ -431,14 +526,22 @@ def _dense_bd_reference(A, C, experiments, weight):
             [theta[nb + nd + e * n : nb + nd + (e + 1) * n] for e in range(E)])
 
 
+@pytest.mark.parametrize("path", ["gram", "householder"])
 @pytest.mark.parametrize("basis", ["modal", "schur"])
-def test_bd_least_squares_equals_dense_reference(basis, monkeypatch, rng):
+def test_bd_least_squares_equals_dense_reference(basis, path, monkeypatch, rng):
     from ident import subspace
 
-    # both feature bases, several chunks per experiment (state carried across chunks)
+    # both feature bases, several chunks per experiment (state carried across chunks),
+    # and both ways to the R factor of the features
     monkeypatch.setattr(subspace, "_BD_CHUNK", 97)
     if basis == "schur":
         monkeypatch.setattr(subspace, "_MODAL_COND", 0.0)
+    if path == "householder":
+        monkeypatch.setattr(subspace, "_BD_GRAM_MAX_CONDITION", 0.0)
+    taken = []
+    factor = subspace._regressor_factor
+    monkeypatch.setattr(subspace, "_regressor_factor",
+                        lambda g, k: taken.append(factor(g, k) is not None) or factor(g, k))
     A, _, C, _ = _mimo3()
     experiments = []
     for N in (250, 180):
@@ -446,6 +549,9 @@ def test_bd_least_squares_equals_dense_reference(basis, monkeypatch, rng):
         experiments.append(Experiment(u, rng.standard_normal((N, 2))))  # pure noise: any fit
     weight = np.array([1.0, 3.0])
     B, D, x0 = subspace._fit_bd_simulation(A, C, experiments, weight)
+    # the Schur features repeat for every output (p n of them in an n-dimensional
+    # span), so their Gram matrix is singular and the gate always refuses it
+    assert taken == [path == "gram" and basis == "modal"]
     B_ref, D_ref, x0_ref = _dense_bd_reference(A, C, experiments, weight)
     # same least-squares problem, reduced by QR vs solved densely by numpy.linalg.lstsq;
     # rounding of well-conditioned problems of ~1000 rows: 1e-9
@@ -508,3 +614,70 @@ def test_zero_pole_and_complex_pair_in_modal_features(rng):
     assert_allclose(B_est, B, atol=1e-9)
     assert_allclose(D_est, D, atol=1e-9)
     assert_allclose(x0[0], x0_true, atol=1e-9)
+
+
+def test_noise_free_bd_on_gram_path_is_exact(rng):
+    from ident import subspace
+
+    # outputs exactly in the span of the features (noise-free): only the feature block
+    # of the Gram matrix is factorised, so the Cholesky path is still taken and exact
+    A, B, C, D = _mimo3()
+    x0_true = rng.standard_normal(3)
+    u = rng.standard_normal((600, 2))
+    y = _dlsim((A, B, C, D), u, x0_true)
+    R = subspace._regressor_factor(np.array([[4.0, 2.0], [2.0, 1.0]]), 1)  # y = 0.5 * x: rank 1
+    # closed form: R11 = sqrt(4) = 2, R12 = 2 / 2 = 1, target block zero
+    assert_allclose(R, [[2.0, 1.0], [0.0, 0.0]], atol=1e-15)
+    B_est, D_est, x0 = subspace._fit_bd_simulation(A, C, [Experiment(u, y)], np.ones(2))
+    # true A, C and noise-free data: B, D, x0 exact (closed form); rounding 1e-9
+    assert_allclose(B_est, B, atol=1e-9)
+    assert_allclose(D_est, D, atol=1e-9)
+    assert_allclose(x0[0], x0_true, atol=1e-9)
+
+
+# --------------------------------------------------------------------------- Riccati
+
+
+def _random_covariances(rng, n, p):
+    Z = rng.standard_normal((n + p, n + p + 3))
+    J = Z @ Z.T  # a joint covariance of (w, v): positive definite
+    return J[:n, :n], J[n:, n:], J[:n, n:]
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_filter_riccati_equals_scipy(seed):
+    from ident.subspace import _filter_riccati
+
+    rng = np.random.default_rng(seed)
+    n, p = int(rng.integers(1, 7)), int(rng.integers(1, 4))
+    A = rng.standard_normal((n, n))
+    A *= rng.uniform(0.3, 1.3) / np.abs(np.linalg.eigvals(A)).max()  # some unstable
+    C = rng.standard_normal((p, n))
+    Q, R, S = _random_covariances(rng, n, p)
+    P = _filter_riccati(A, C, Q, R, S)
+    # reference: scipy.linalg.solve_discrete_are for (A^T, C^T, Q, R, s=S); two
+    # backward-stable solvers on O(1) data: 1e-10 relative
+    P_ref = linalg.solve_discrete_are(A.T, C.T, Q, R, s=S)
+    assert_allclose(P, P_ref, rtol=1e-10, atol=1e-10 * np.abs(P_ref).max())
+
+
+def test_filter_riccati_slow_mode_equals_scipy():
+    from ident.subspace import _filter_riccati
+
+    # a mode at 0.9999 driven by small process noise: slow (closed-loop radius near 1)
+    A = np.array([[0.9999, 0.01], [0.0, 0.5]])
+    C = np.array([[1.0, 0.0]])
+    Q, R, S = np.diag([1e-6, 1.0]), np.array([[1.0]]), np.zeros((2, 1))
+    P_ref = linalg.solve_discrete_are(A.T, C.T, Q, R, s=S)  # reference: scipy
+    assert_allclose(_filter_riccati(A, C, Q, R, S), P_ref, rtol=1e-9)
+
+
+def test_filter_riccati_without_stabilising_solution_raises():
+    from ident.subspace import _filter_riccati
+
+    # unstable mode 1.2 driven by noise but invisible in the output: no stabilising
+    # solution exists (closed form: the error variance of that mode grows without bound)
+    A = np.diag([1.2, 0.5])
+    C = np.array([[0.0, 1.0]])
+    with pytest.raises(np.linalg.LinAlgError):
+        _filter_riccati(A, C, np.eye(2), np.eye(1), np.zeros((2, 1)))

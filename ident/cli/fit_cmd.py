@@ -269,6 +269,7 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
         },
         "singular_values": None if result.singular_values is None else result.singular_values,
         "suggested_subspace_order": result.suggested_order,
+        "subspace_factorization": result.subspace_factorization,
         "delays": None if result.delay is None else result.delay.delays,
         "delay_evidence": _delay_evidence(result.delay, prep.input_names, prep.output_names),
         "operating_point": {
@@ -399,6 +400,12 @@ def _text(log, result, table, written) -> str:
         sv = ", ".join(f"{v:.3g}" for v in result.singular_values[: result.options.max_order + 1])
         lines.append(f"subspace singular values: {sv} (largest gap after "
                      f"{result.suggested_order})")
+        fact = result.subspace_factorization
+        if fact is not None:
+            how = ("data covariance + Cholesky" if fact["path"] == "gram"
+                   else "block Householder QR")
+            lines.append(f"  projection by {how} (scaled data covariance condition "
+                         f"{fact['gram_condition']:.2g})")
     delay_lines = _delay_lines(result)
     if delay_lines:
         lines.append("")
