@@ -153,30 +153,45 @@ def child_subspace_baseline(path: str, inputs: list[str], outputs: list[str]) ->
 
 # --------------------------------------------------------------------------- timing
 
-#: Modules a ``rigfit fit`` process loads, per method (the "startup" child imports
-#: exactly these and exits: interpreter, numpy, scipy, pandas, click and rigfit).
-STARTUP_MODULES = {
-    "arx": ["ident.cli", "ident.cli.fit_cmd", "ident.identify", "ident.io.log", "ident.modes",
-            "ident.arx", "ident.delay", "ident.excitation", "pandas"],
-    "subspace": ["ident.cli", "ident.cli.fit_cmd", "ident.identify", "ident.io.log",
-                 "ident.modes", "ident.subspace", "ident.excitation", "pandas"],
-}
+def child_modules(method: str, path: str, inputs: list[str], outputs: list[str]) -> dict:
+    """Run ``rigfit fit`` in this process; list the modules it loaded, in load order."""
+    import contextlib
+    import io
+
+    before = set(sys.modules)
+    from ident.cli import main as rigfit_main
+
+    args = rigfit_cmd(Path(path), method, inputs, outputs)[3:]  # after "python -m ident"
+    with contextlib.redirect_stdout(io.StringIO()):
+        try:
+            rigfit_main(args)
+        except SystemExit as exc:
+            if exc.code not in (0, None):
+                raise
+    return {"modules": [m for m in sys.modules if m not in before and m != "__main__"]}
 
 
-def child_startup(method: str) -> dict:
+def child_startup(modules: list[str]) -> dict:
+    """Import ``modules`` (what a ``rigfit fit`` process loads) and exit."""
     import importlib
 
-    for name in STARTUP_MODULES[method]:
-        importlib.import_module(name)
-    return {"modules": len(STARTUP_MODULES[method])}
+    loaded = 0
+    for name in modules:
+        try:
+            importlib.import_module(name)
+            loaded += 1
+        except ImportError:  # aliases and modules made at run time
+            pass
+    return {"modules": loaded}
 
 
-def child_work(method: str, path: str, inputs: list[str], outputs: list[str]) -> dict:
+def child_work(method: str, path: str, inputs: list[str], outputs: list[str],
+               modules: list[str]) -> dict:
     """Import what ``rigfit fit`` imports, then time the command itself in this process."""
     import contextlib
     import io
 
-    child_startup(method)
+    child_startup(modules)
     from ident.cli import main as rigfit_main
 
     args = rigfit_cmd(Path(path), method, inputs, outputs)[3:]  # after "python -m ident"
@@ -251,9 +266,11 @@ def rigfit_cmd(path: Path, method: str, inputs: list[str], outputs: list[str]) -
     return args
 
 
-def self_cmd(mode: str, path: Path, inputs: list[str], outputs: list[str]) -> list[str]:
-    return [sys.executable, __file__, "--child", mode, str(path),
+def self_cmd(mode: str, path: Path, inputs: list[str], outputs: list[str],
+             modules: Path | None = None) -> list[str]:
+    args = [sys.executable, __file__, "--child", mode, str(path),
             "--inputs", ",".join(inputs), "--outputs", ",".join(outputs)]
+    return args + (["--modules", str(modules)] if modules is not None else [])
 
 
 def _ok(flag: bool) -> str:
@@ -273,14 +290,17 @@ def main() -> None:
     parser.add_argument("path", nargs="?", help=argparse.SUPPRESS)
     parser.add_argument("--inputs", default="", help=argparse.SUPPRESS)
     parser.add_argument("--outputs", default="", help=argparse.SUPPRESS)
+    parser.add_argument("--modules", default=None, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
         ins, outs = args.inputs.split(","), args.outputs.split(",")
+        mods = json.loads(Path(args.modules).read_text()) if args.modules else []
         fn = {"read": lambda: child_read_csv(args.path),
-              "startup-arx": lambda: child_startup("arx"),
-              "startup-subspace": lambda: child_startup("subspace"),
-              "work-arx": lambda: child_work("arx", args.path, ins, outs),
-              "work-subspace": lambda: child_work("subspace", args.path, ins, outs),
+              "modules-arx": lambda: child_modules("arx", args.path, ins, outs),
+              "modules-subspace": lambda: child_modules("subspace", args.path, ins, outs),
+              "startup": lambda: child_startup(mods),
+              "work-arx": lambda: child_work("arx", args.path, ins, outs, mods),
+              "work-subspace": lambda: child_work("subspace", args.path, ins, outs, mods),
               "arx": lambda: child_arx_baseline(args.path, ins, outs),
               "subspace": lambda: child_subspace_baseline(args.path, ins, outs)}[args.child]
         print(json.dumps(fn()))
@@ -312,9 +332,13 @@ def main() -> None:
                 path = logs[kind]
                 cmd = rigfit_cmd(path, method, ins, outs)
                 run_timed_wait4(cmd)  # warm-up: page cache and bytecode caches
-                best = best_of({"start": self_cmd(f"startup-{method}", path, ins, outs),
+                # the modules a rigfit fit process loads, for the start-up and work children
+                loaded = run_timed_wait4(self_cmd(f"modules-{method}", path, ins, outs))
+                modules = folder / f"modules-{method}.json"
+                modules.write_text(json.dumps(loaded["out"]["modules"]))
+                best = best_of({"start": self_cmd("startup", path, ins, outs, modules),
                                 "read": self_cmd("read", path, ins, outs), "ours": cmd,
-                                "work": self_cmd(f"work-{method}", path, ins, outs)},
+                                "work": self_cmd(f"work-{method}", path, ins, outs, modules)},
                                args.repeat)
                 start, read, ours = best["start"], best["read"], best["ours"]
                 work_s = min(r["out"]["work_s"] for r in best["all_work"])

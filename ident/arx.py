@@ -35,7 +35,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from ._linalg import block_diag, solve_upper
+from ._linalg import block_diag, column_norms, column_sums, solve_upper
 from ._validate import as_signal, int_in_range, names_tuple, positive_float
 from .data import Experiment, as_experiments
 
@@ -407,16 +407,7 @@ def _accumulate_r(experiments: Sequence[Experiment], blocks: Sequence[_Block],
     With ``max_rows``, only the first ``max_rows`` rows (in experiment order) are used.
     Each block of rows is written under the R factor so far into one buffer,
     which is factorised (Householder QR, R only); the working memory is one
-    block whatever the length of the log. Long logs are split into two halves
-    factorised in two threads (LAPACK runs without the interpreter lock), and
-    the two R factors are combined by one more QR of the two stacked: a
-    tall-skinny QR, exact in the same sense as the sequential one.
-
-    References
-    ----------
-    .. [1] J. Demmel, L. Grigori, M. Hoemmen and J. Langou, "Communication-optimal
-       parallel and sequential QR and LU factorizations", *SIAM J. Sci. Comput.*
-       34(1), 2012 (TSQR).
+    block whatever the length of the log.
     """
     c = sum(b.width for b in blocks)
     chunk = max(8 * c, _BLOCK_VALUES // max(c, 1))
@@ -431,35 +422,10 @@ def _accumulate_r(experiments: Sequence[Experiment], blocks: Sequence[_Block],
                     break
             tasks.append((exp, k0, k1))
             total += k1 - k0
-    if total >= _PARALLEL_ROWS and len(tasks) >= 4:
-        import threading
-
-        half = len(tasks) // 2
-        parts: list[np.ndarray | BaseException] = [np.zeros((0, c)), np.zeros((0, c))]
-
-        def work(slot: int, todo: list) -> None:
-            try:
-                parts[slot] = _absorb_rows(todo, blocks, max_lag, c)
-            except BaseException as exc:  # pragma: no cover - re-raised below
-                parts[slot] = exc
-
-        helper = threading.Thread(target=work, args=(1, tasks[half:]), daemon=True)
-        helper.start()
-        work(0, tasks[:half])
-        helper.join()
-        for part in parts:
-            if isinstance(part, BaseException):  # pragma: no cover - LAPACK does not fail here
-                raise part
-        R = np.linalg.qr(np.vstack(parts), mode="r")
-    else:
-        R = _absorb_rows(tasks, blocks, max_lag, c)
+    R = _absorb_rows(tasks, blocks, max_lag, c)
     out = np.zeros((c, c))
     out[:R.shape[0]] = R
     return out, total
-
-
-#: Regression rows from which :func:`_accumulate_r` factorises two halves in two threads.
-_PARALLEL_ROWS = 200_000
 
 
 def _absorb_rows(tasks: Sequence[tuple[Experiment, int, int]], blocks: Sequence[_Block],
@@ -702,11 +668,11 @@ def _check_outputs_are_not_inputs(experiments: Sequence[Experiment], in_names: S
                                   out_names: Sequence[str]) -> None:
     """Raise when an output is an input up to scale and offset (|correlation| ~ 1)."""
     n = sum(e.n_samples for e in experiments)
-    mu = sum(e.u.sum(axis=0) for e in experiments) / n
-    my = sum(e.y.sum(axis=0) for e in experiments) / n
+    mu = sum(column_sums(e.u) for e in experiments) / n
+    my = sum(column_sums(e.y) for e in experiments) / n
     cross = sum((e.y - my).T @ (e.u - mu) for e in experiments)  # (p, m)
-    un = np.sqrt(sum(np.sum((e.u - mu) ** 2, axis=0) for e in experiments))
-    yn = np.sqrt(sum(np.sum((e.y - my) ** 2, axis=0) for e in experiments))
+    un = np.sqrt(sum(column_norms(e.u - mu) ** 2 for e in experiments))
+    yn = np.sqrt(sum(column_norms(e.y - my) ** 2 for e in experiments))
     for i in range(yn.size):
         for j in range(un.size):
             if un[j] > 0 and yn[i] > 0 and abs(cross[i, j]) >= (1 - 1e-10) * un[j] * yn[i]:

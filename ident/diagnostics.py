@@ -28,6 +28,7 @@ from typing import Any, Literal
 import numpy as np
 
 from ._json import json_ready
+from ._linalg import column_norms, column_sums
 from ._validate import as_signal, fraction, int_in_range, one_of, positive_float
 from .analysis import frequency_response
 from .errors import ModelError, OptionError, UnstableModelWarning
@@ -1364,8 +1365,8 @@ def fit_percent(y: np.ndarray, y_hat: np.ndarray) -> np.ndarray:
     y_hat = as_signal(y_hat, "y_hat", ndim=2)
     if y.shape != y_hat.shape:
         raise OptionError(f"y_hat must have the shape of y {y.shape}; got {y_hat.shape}")
-    err = np.linalg.norm(y - y_hat, axis=0)
-    spread = np.linalg.norm(y - y.mean(axis=0), axis=0)
+    err = column_norms(y - y_hat)
+    spread = column_norms(y - column_sums(y) / max(y.shape[0], 1))
     with np.errstate(divide="ignore", invalid="ignore"):
         fit = 100.0 * (1.0 - err / spread)
     fit = np.where(spread == 0, np.where(err == 0, 100.0, -np.inf), fit)

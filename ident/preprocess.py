@@ -33,6 +33,7 @@ from typing import Any, Literal
 
 import numpy as np
 
+from ._linalg import column_sums
 from ._validate import as_signal, did_you_mean, int_in_range, names_tuple, one_of, positive_float
 from .data import Experiment, as_experiments
 from .errors import OptionError, PipelineError
@@ -378,8 +379,8 @@ def prepare(
     # 2. operating point
     if options.offset == "mean":
         total = sum(s_raw for _, s_raw in splits)
-        op_u = sum(r[0][:s_raw].sum(axis=0) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
-        op_y = sum(r[1][:s_raw].sum(axis=0) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
+        op_u = sum(column_sums(r[0][:s_raw]) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
+        op_y = sum(column_sums(r[1][:s_raw]) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
     else:
         windows = []
         for _, s_raw in splits:
@@ -389,8 +390,8 @@ def prepare(
                 w = max(1, int(round(options.initial_window_s / sample_time)))
             windows.append(min(w, s_raw))
         total = sum(windows)
-        op_u = sum(r[0][:w].sum(axis=0) for r, w in zip(records, windows, strict=True)) / total
-        op_y = sum(r[1][:w].sum(axis=0) for r, w in zip(records, windows, strict=True)) / total
+        op_u = sum(column_sums(r[0][:w]) for r, w in zip(records, windows, strict=True)) / total
+        op_y = sum(column_sums(r[1][:w]) for r, w in zip(records, windows, strict=True)) / total
     operating_point = OperatingPoint(inputs=op_u, outputs=op_y)
     level = np.concatenate((op_u, op_y))
 

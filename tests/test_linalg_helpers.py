@@ -5,7 +5,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import linalg
 
-from ident._linalg import block_diag, solve_upper
+from ident._linalg import block_diag, column_norms, column_sums, solve_upper
 
 
 @pytest.mark.parametrize("k", [1, 2, 7, 30])
@@ -28,3 +28,12 @@ def test_block_diag_equals_scipy(rng):
     blocks = [rng.standard_normal((2, 3)), np.zeros((1, 0)), rng.standard_normal((1, 1)), np.zeros((0, 2))]
     # scipy.linalg.block_diag is the reference, empty blocks included
     assert_allclose(block_diag(blocks), linalg.block_diag(*blocks))
+
+
+@pytest.mark.parametrize("shape", [(1000, 1), (12345, 3), (7, 5), (0, 2)])
+def test_column_reductions_equal_numpy(shape, rng):
+    x = rng.standard_normal(shape) * 1e3 + 5.0
+    # numpy's own axis-0 reductions are the reference
+    assert_allclose(column_sums(x), x.sum(axis=0), rtol=1e-13, atol=1e-9)
+    assert_allclose(column_norms(x), np.linalg.norm(x, axis=0), rtol=1e-13)
+    assert column_sums(x).shape == (shape[1],)

@@ -81,8 +81,8 @@ _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\)
 _DECIMAL_COMMA_RE = re.compile(r"^\s*[-+]?\d*,\d+(?:[eE][-+]?\d+)?\s*$")
 _INSTALL_PARQUET = "pip install pyarrow (from a rigfit checkout: pip install '.[parquet]')"
 _SCAN_CHUNK = 1 << 20
-# pyarrow reads up to 32 blocks ahead of the parser: 256 KiB blocks bound that to 8 MiB
-_ARROW_BLOCK = 1 << 18
+#: Bytes per pyarrow parse block (the blocks are parsed in parallel threads).
+_ARROW_BLOCK = 1 << 20
 #: Parse clean UTF-8 CSV logs with ``pyarrow.csv`` when pyarrow is installed (no pandas
 #: import); ``False`` forces the pandas path (tests run every file through both).
 _FAST_CSV = True
@@ -767,22 +767,17 @@ def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_ro
 
 
 class _FileScan:
-    """Line-feed count and SHA-256 of a file, computed in a background thread.
+    """SHA-256 of a file, computed in a background thread.
 
-    Two passes over the file in 1 MiB chunks (the second one comes from the page
-    cache): first the line feeds at or after ``data_offset``, which the parser
-    needs early to size its output, then the SHA-256 of every byte. File reads
-    and ``hashlib`` release the GIL on such buffers, so the scan runs beside the
-    pyarrow parse (which releases it too) at almost no wall-time cost on two cores.
+    The file is read in 1 MiB chunks; file reads and ``hashlib`` release the GIL
+    on such buffers, so the hash runs beside the pyarrow parse (which releases
+    it too) at almost no wall-time cost on two cores.
     """
 
-    def __init__(self, path: str, data_offset: int) -> None:
+    def __init__(self, path: str) -> None:
         import threading
 
         self._path = path
-        self._offset = data_offset
-        self._counted = threading.Event()
-        self._feeds: int | None = None
         self._sha256: str | None = None
         self._thread = threading.Thread(target=self._run, name="rigfit-scan", daemon=True)
         self._thread.start()
@@ -790,26 +785,12 @@ class _FileScan:
     def _run(self) -> None:
         try:
             with open(self._path, "rb", buffering=0) as fh:
-                fh.seek(self._offset)
-                feeds = 0
-                while chunk := fh.read(_SCAN_CHUNK):
-                    feeds += chunk.count(b"\n")
-                self._feeds = feeds
-                self._counted.set()
-                fh.seek(0)
                 digest = hashlib.sha256()
                 while chunk := fh.read(_SCAN_CHUNK):
                     digest.update(chunk)
                 self._sha256 = digest.hexdigest()
         except OSError:
-            pass  # both results stay None; the caller falls back and reports the error
-        finally:
-            self._counted.set()
-
-    def line_feeds(self) -> int | None:
-        """Wait for the count of line-feed bytes after the header (``None`` if unreadable)."""
-        self._counted.wait()
-        return self._feeds
+            pass  # the result stays None; the caller falls back and reports the error
 
     def sha256(self) -> str | None:
         """Wait for the hex SHA-256 of the whole file (``None`` if unreadable)."""
@@ -828,7 +809,8 @@ def _arrow_csv_columns(path: str, header: _Header, indices: list[int]):
     The pandas path stays the reference: this path answers only when every used
     cell parsed to a finite number, every row has as many fields as the first
     data row (no more than the header's, apart from empty trailing fields), and
-    pyarrow found exactly one row per line of the file. Anything else (empty or
+    pyarrow found exactly one row per line of the file (a blank line inside the
+    data is a row of nulls to it). Anything else (empty or
     non-numeric cells, NaN, inf, blank lines inside the data, ragged rows, any
     pyarrow error) gives up, and the pandas path produces the values or the
     precise error, so messages and row numbers never depend on pyarrow. Blank
@@ -852,7 +834,6 @@ def _arrow_csv_columns(path: str, header: _Header, indices: list[int]):
         kept = tail.rstrip(b"\r\n")
         if not kept:
             return None, None  # no data, or more than 1 MiB of blank lines: not the usual
-        cut_feeds = tail.count(b"\n", len(kept))
         fh.seek(start)
         first = fh.read(_PREVIEW_BYTES)
     line_end = first.find(b"\n")
@@ -865,9 +846,9 @@ def _arrow_csv_columns(path: str, header: _Header, indices: list[int]):
         return None, None
     if n_fields < len(header.raw):
         return None, None
-    scan = _FileScan(path, start)
+    scan = _FileScan(path)
     try:
-        arrays = _arrow_stream(pa, pacsv, path, header, indices, n_fields, scan, cut_feeds)
+        arrays = _arrow_table(pa, pacsv, path, header, indices, n_fields, tail_start + len(kept))
     except (pa.ArrowException, OSError, ValueError):
         arrays = None
     if arrays is None or scan.sha256() is None:
@@ -875,62 +856,52 @@ def _arrow_csv_columns(path: str, header: _Header, indices: list[int]):
     return arrays, scan
 
 
-def _arrow_stream(pa, pacsv, path, header: _Header, indices, n_fields, scan, cut_feeds):
-    """Stream record batches into preallocated float64 columns (``None``: give up).
-
-    Arrow holds only the batches in flight; the output arrays, sized from the
-    scan's line count, are the one full copy of the data.
-    """
+def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields, end):
+    """Parse the data lines (up to byte ``end``) in one multithreaded call (``None``: give up)."""
     width = len(header.raw)
     names = [f"f{k}" for k in range(n_fields)]
     used = [names[k] for k in indices]
     extra = names[width:]  # must be empty on every row, as the pandas path's sentinel
-    read_options = pacsv.ReadOptions(column_names=names, use_threads=True,
-                                     block_size=_ARROW_BLOCK)
+    read_options = pacsv.ReadOptions(column_names=names, use_threads=True, block_size=_ARROW_BLOCK)
     parse_options = pacsv.ParseOptions(
         delimiter=header.sep, quote_char='"', double_quote=True, escape_char=False,
-        newlines_in_values=False, ignore_empty_lines=True,
+        newlines_in_values=False, ignore_empty_lines=False,  # a blank line is a row of nulls
     )
     convert_options = pacsv.ConvertOptions(
         include_columns=[*used, *extra],
         column_types={name: pa.float64() for name in (*used, *extra)},
         decimal_point=header.decimal,
     )
-    out: list[np.ndarray] | None = None
-    n = pos = 0
     pool = _arrow_memory_pool(pa)
-    with pa.OSFile(path, "r", memory_pool=pool) as fh:
-        fh.seek(header.data_offset)
-        with pacsv.open_csv(fh, read_options=read_options, parse_options=parse_options,
-                            convert_options=convert_options, memory_pool=pool) as reader:
-            for batch in reader:
-                k = batch.num_rows
-                if out is None:
-                    feeds = scan.line_feeds()
-                    if feeds is None:
-                        return None
-                    # one row per line: every line feed but those cut at the end, plus one
-                    n = feeds - cut_feeds + 1
-                    out = [np.empty(n, dtype=np.float64) for _ in used]
-                if pos + k > n:
-                    return None
-                for j in range(len(used), len(used) + len(extra)):
-                    if batch.column(j).null_count != k:
-                        return None
-                for j, a in enumerate(out):
-                    col = batch.column(j)
-                    if col.null_count:
-                        return None
-                    # the Arrow values buffer, read in place (no to_numpy: it imports pandas)
-                    view = np.frombuffer(col.buffers()[1], dtype=np.float64, count=k,
-                                         offset=col.offset * 8)
-                    if not np.isfinite(view).all():
-                        return None
-                    a[pos : pos + k] = view
-                pos += k
-    if out is None or pos != n:
-        return None
+    with pa.memory_map(path, "r") as mm:
+        mm.seek(header.data_offset)
+        data = mm.read_buffer(end - header.data_offset)  # zero copy
+        table = pacsv.read_csv(pa.BufferReader(data), read_options=read_options,
+                               parse_options=parse_options, convert_options=convert_options,
+                               memory_pool=pool)
+        del data
+    n = table.num_rows
+    for name in extra:
+        if table.column(name).null_count != n:
+            return None
+    out = []
+    for name in used:
+        col = table.column(name)
+        if col.null_count:
+            return None
+        a = np.empty(n, dtype=np.float64)
+        pos = 0
+        for chunk in col.chunks:
+            k = len(chunk)
+            # the Arrow values buffer, read in place (no to_numpy: it imports pandas)
+            a[pos:pos + k] = np.frombuffer(chunk.buffers()[1], dtype=np.float64, count=k,
+                                           offset=chunk.offset * 8)
+            pos += k
+        if not np.isfinite(a).all():
+            return None
+        out.append(a)
     return out
+
 
 
 def _arrow_memory_pool(pa):
@@ -1227,7 +1198,7 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
             f"{what} ({_fmt(stamps[i])} s after {_fmt(stamps[i - 1])} s on the row before)",
             path=path, row=table.line_of(i), column=name,
         )
-    t_s = float(np.median(dt))
+    t_s = _median(dt)
     short = np.flatnonzero(dt < (1.0 - tol) * t_s)
     if short.size:
         i = int(short[0]) + 1
@@ -1268,3 +1239,11 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
 def _fmt(x: float) -> str:
     return f"{float(x):.6g}"
 
+
+def _median(x: np.ndarray) -> float:
+    """``numpy.median`` of a non-empty 1-D array (without the masked-array import it triggers)."""
+    k = x.size // 2
+    if x.size % 2:
+        return float(np.partition(x, k)[k])
+    part = np.partition(x, (k - 1, k))
+    return float(0.5 * (part[k - 1] + part[k]))
