@@ -912,6 +912,7 @@ def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields):
         if not np.isfinite(a).all():
             return None
         out.append(a)
+    pool.release_unused()  # hand the freed Arrow memory back to the system now
     return out
 
 
