@@ -43,6 +43,7 @@ import numpy as np
 T = 0.001  # s, 1 kHz logs
 MAX_ORDER = 10
 HORIZON = 7  # the subspace horizon rigfit chooses for max order 10 and 2 outputs
+TARGET_N = 1_000_000  # the ratio targets are stated for logs of this length
 
 
 # --------------------------------------------------------------------------- data
@@ -377,15 +378,20 @@ def main() -> None:
             speedup = r["base"]["wall_s"] / r["ours"]["wall_s"]
             mem = r["ours"]["peak_mib"] / r["base"]["peak_mib"]
             read_target, speed_target = (1.5, 10.0) if method == "arx" else (3.0, 5.0)
+            judged = n == TARGET_N  # the targets are stated for 1e6 samples
+
+            def verdict(flag: bool, judged: bool = judged) -> str:
+                return _ok(flag) if judged else "target is for N = 1e6"
+
             line = (f"  {method:<9} N={n:>8}: rigfit / read {vs_read:5.2f} (target <= "
-                    f"{read_target:g}: {_ok(vs_read <= read_target)}; CPU time "
+                    f"{read_target:g}: {verdict(vs_read <= read_target)}; CPU time "
                     f"{cpu_vs_read:5.2f}; start-up alone / read "
                     f"{r['start']['wall_s'] / r['read']['wall_s']:4.2f}; work "
                     f"{work:5.2f} s vs the read alone {r['read']['out']['read_s']:5.2f} s); "
                     f"baseline / rigfit {speedup:5.2f} (target >= {speed_target:g}: "
-                    f"{_ok(speedup >= speed_target)})")
+                    f"{verdict(speedup >= speed_target)})")
             if method == "subspace":
-                line += f"; peak memory rigfit / baseline {mem:4.2f} (target <= 0.2: {_ok(mem <= 0.2)})"
+                line += f"; peak memory rigfit / baseline {mem:4.2f} (target <= 0.2: {verdict(mem <= 0.2)})"
             print(line)
         if len(sizes) >= 2:
             a, b = sizes[0], sizes[-1]

@@ -397,7 +397,8 @@ def prepare(
 
     estimation, validation, est_ranges, val_ranges, trends = [], [], [], [], []
     for (u, y), (s_dec, s_raw), start in zip(records, splits, starts, strict=True):
-        z = np.hstack((u, y)) - level  # new array: the caller's data is never touched
+        z = np.hstack((u, y))  # new array: the caller's data is never touched
+        z -= level
         # 3. detrend, fitted on the estimation part only
         if options.detrend:
             t_est = np.arange(s_raw, dtype=float)
