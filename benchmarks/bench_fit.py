@@ -2,7 +2,7 @@
 
 Run by hand (never from the test suite)::
 
-    python benchmarks/bench_fit.py                 # 1e5 and 1e6 samples, about 5 minutes
+    python benchmarks/bench_fit.py                 # 1e5 and 1e6 samples, about 6 minutes
     python benchmarks/bench_fit.py --sizes 100000  # quicker
 
 For each size it writes a SISO log and a 2x2 log (CSV, time column plus signals)
@@ -10,8 +10,10 @@ into a temporary folder and times, each as a fresh process (wall time from
 start to exit, peak resident memory from ``os.wait4``):
 
 - ``rigfit fit`` with ARX and the order sweep (``--method arx``, orders 1..10,
-  delays estimated) on the SISO log, and with subspace (``--method subspace``,
-  orders 1..10 from one projection) on the 2x2 log;
+  delays estimated) on the SISO log; with subspace at one order (``--method
+  subspace --order 3``: one projection, as the baseline, then B, D, the initial
+  state, the validation and the modes) on the 2x2 log; and with the subspace
+  order sweep (``--max-order 10``: every order fitted and validated);
 - ``pandas.read_csv`` of the same file alone (interpreter start, pandas
   import and the read; the read by itself is printed too);
 - a straightforward baseline: for ARX, lagged columns made with pandas
@@ -257,9 +259,20 @@ def best_of(commands: dict[str, list[str]], repeat: int) -> dict[str, dict]:
     return best
 
 
-def rigfit_cmd(path: Path, method: str, inputs: list[str], outputs: list[str]) -> list[str]:
-    args = [sys.executable, "-m", "ident", "fit", str(path), "--method", method,
-            "--max-order", str(MAX_ORDER), "--json", "--quiet"]
+#: case -> (log, inputs, outputs, rigfit fit options, baseline). "subspace" fits one order
+#: from one projection, the work the baseline does (plus B, D, validation and modes);
+#: "subspace-sweep" fits and validates every order 1..MAX_ORDER.
+CASES = {
+    "arx": ("siso", ["valve"], ["flow"], ["--method", "arx", "--max-order", str(MAX_ORDER)], "arx"),
+    "subspace": ("mimo", ["heater", "fan"], ["temp", "flow"],
+                 ["--method", "subspace", "--order", "3"], "subspace"),
+    "subspace-sweep": ("mimo", ["heater", "fan"], ["temp", "flow"],
+                       ["--method", "subspace", "--max-order", str(MAX_ORDER)], "subspace"),
+}
+
+
+def rigfit_cmd(path: Path, case: str, inputs: list[str], outputs: list[str]) -> list[str]:
+    args = [sys.executable, "-m", "ident", "fit", str(path), *CASES[case][3], "--json", "--quiet"]
     for name in inputs:
         args += ["--input", name]
     for name in outputs:
@@ -285,8 +298,7 @@ def main() -> None:
                         help="keep the logs here (and reuse logs already there)")
     parser.add_argument("--repeat", type=int, default=3,
                         help="runs of rigfit, the read and the start-up; the fastest counts")
-    parser.add_argument("--methods", nargs="+", default=["arx", "subspace"],
-                        choices=["arx", "subspace"])
+    parser.add_argument("--cases", nargs="+", default=list(CASES), choices=list(CASES))
     parser.add_argument("--child", default=None, help=argparse.SUPPRESS)
     parser.add_argument("path", nargs="?", help=argparse.SUPPRESS)
     parser.add_argument("--inputs", default="", help=argparse.SUPPRESS)
@@ -297,23 +309,19 @@ def main() -> None:
         ins, outs = args.inputs.split(","), args.outputs.split(",")
         mods = json.loads(Path(args.modules).read_text()) if args.modules else []
         fn = {"read": lambda: child_read_csv(args.path),
-              "modules-arx": lambda: child_modules("arx", args.path, ins, outs),
-              "modules-subspace": lambda: child_modules("subspace", args.path, ins, outs),
               "startup": lambda: child_startup(mods),
-              "work-arx": lambda: child_work("arx", args.path, ins, outs, mods),
-              "work-subspace": lambda: child_work("subspace", args.path, ins, outs, mods),
-              "arx": lambda: child_arx_baseline(args.path, ins, outs),
-              "subspace": lambda: child_subspace_baseline(args.path, ins, outs)}[args.child]
+              "baseline-arx": lambda: child_arx_baseline(args.path, ins, outs),
+              "baseline-subspace": lambda: child_subspace_baseline(args.path, ins, outs)}
+        for case in CASES:
+            fn[f"modules-{case}"] = lambda case=case: child_modules(case, args.path, ins, outs)
+            fn[f"work-{case}"] = lambda case=case: child_work(case, args.path, ins, outs, mods)
+        fn = fn[args.child]
         print(json.dumps(fn()))
         return
 
     folder = args.workdir or Path(tempfile.mkdtemp(prefix="rigfit-bench-"))
     folder.mkdir(parents=True, exist_ok=True)
-    cases = {
-        "arx": ("siso", ["valve"], ["flow"]),
-        "subspace": ("mimo", ["heater", "fan"], ["temp", "flow"]),
-    }
-    cases = {k: v for k, v in cases.items() if k in args.methods}
+    cases = {k: v for k, v in CASES.items() if k in args.cases}
     results: dict[tuple[str, int], dict] = {}
     print(f"# fastest of {args.repeat} runs for rigfit, read and start-up; baselines run once; "
           f"wall time (CPU time in brackets)", flush=True)
@@ -329,7 +337,7 @@ def main() -> None:
                   f"{time.perf_counter() - t0:.1f} s "
                   f"({', '.join(f'{p.name} {p.stat().st_size / 2**20:.0f} MiB' for p in logs.values())})",
                   flush=True)
-            for method, (kind, ins, outs) in cases.items():
+            for method, (kind, ins, outs, _, baseline) in cases.items():
                 path = logs[kind]
                 cmd = rigfit_cmd(path, method, ins, outs)
                 run_timed_wait4(cmd)  # warm-up: page cache and bytecode caches
@@ -343,12 +351,12 @@ def main() -> None:
                                args.repeat)
                 start, read, ours = best["start"], best["read"], best["ours"]
                 work_s = min(r["out"]["work_s"] for r in best["all_work"])
-                base = run_timed_wait4(self_cmd(method, path, ins, outs))
+                base = run_timed_wait4(self_cmd(f"baseline-{baseline}", path, ins, outs))
                 results[(method, n)] = {"read": read, "ours": ours, "base": base, "start": start,
                                         "work_s": work_s}
                 chosen = ours["out"]
                 print(
-                    f"{method:<9} {kind} N={n:>8}: rigfit {ours['wall_s']:6.2f} s "
+                    f"{method:<14} {kind} N={n:>8}: rigfit {ours['wall_s']:6.2f} s "
                     f"({ours['cpu_s']:5.2f}) {ours['peak_mib']:6.0f} MiB, chose "
                     f"{chosen['method']} order {chosen['order']} (fit "
                     f"{chosen['mean_validation_fit']:.2f} %), of which the work after the "
@@ -383,14 +391,14 @@ def main() -> None:
             def verdict(flag: bool, judged: bool = judged) -> str:
                 return _ok(flag) if judged else "target is for N = 1e6"
 
-            line = (f"  {method:<9} N={n:>8}: rigfit / read {vs_read:5.2f} (target <= "
+            line = (f"  {method:<14} N={n:>8}: rigfit / read {vs_read:5.2f} (target <= "
                     f"{read_target:g}: {verdict(vs_read <= read_target)}; CPU time "
                     f"{cpu_vs_read:5.2f}; start-up alone / read "
                     f"{r['start']['wall_s'] / r['read']['wall_s']:4.2f}; work "
                     f"{work:5.2f} s vs the read alone {r['read']['out']['read_s']:5.2f} s); "
                     f"baseline / rigfit {speedup:5.2f} (target >= {speed_target:g}: "
                     f"{verdict(speedup >= speed_target)})")
-            if method == "subspace":
+            if method.startswith("subspace"):
                 line += f"; peak memory rigfit / baseline {mem:4.2f} (target <= 0.2: {verdict(mem <= 0.2)})"
             print(line)
         if len(sizes) >= 2:
@@ -398,7 +406,7 @@ def main() -> None:
             ra, rb = results[(method, a)], results[(method, b)]
             growth = rb["ours"]["wall_s"] / ra["ours"]["wall_s"]
             work_growth = rb["work_s"] / ra["work_s"]
-            line = (f"  {method:<9} N {a} -> {b} ({b / a:g}x the samples): end to end "
+            line = (f"  {method:<14} N {a} -> {b} ({b / a:g}x the samples): end to end "
                     f"x{growth:.2f} (start-up included); work {ra['work_s']:.2f} s -> "
                     f"{rb['work_s']:.2f} s, x{work_growth:.2f} (linear or better: "
                     f"{_ok(work_growth <= 1.1 * b / a)})")

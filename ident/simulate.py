@@ -1,4 +1,4 @@
-"""Time-domain simulation of discrete-time state-space models, in numpy alone.
+"""Time-domain simulation of discrete-time state-space models (numpy; scipy only in fallbacks).
 
 Long logs (millions of samples) are simulated with a blocked ("lifted")
 recursion. For ``x[k+1] = A x[k] + B u[k]`` the samples are cut into blocks of
@@ -18,8 +18,9 @@ an ARX model in observer form has) is repaired by refinement: pass 2 leaves
 an error only at the block starts, so the mismatch between each block's end
 and the next block's start is fed back through the block-start recursion
 until it reaches rounding level. If that does not converge, the chunk is
-simulated in the complex Schur basis (``A = Z T Z^H``), each coordinate a
-scalar first-order recursion, which lifts without growth.
+simulated in the complex Schur basis (``A = Z T Z^H``, from
+:func:`scipy.linalg.schur`, imported only then), each coordinate a scalar
+first-order recursion, which lifts without growth.
 :func:`all_pole_filter` follows the same plan with a block Toeplitz solve,
 and falls back on a cascade of first-order sections.
 """
@@ -549,28 +550,14 @@ def simulate_states(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None
 
 
 def _schur(A: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Complex Schur form ``A = Z T Z^H`` by deflation (``Z`` unitary, ``T`` upper triangular).
+    """Complex Schur form ``A = Z T Z^H`` (:func:`scipy.linalg.schur`).
 
-    For each eigenvalue ``lam`` of ``A`` in turn, the right singular vector of
-    the smallest singular value of ``T_k - lam I`` (``T_k`` the trailing block)
-    is a unit vector ``v`` with ``||T_k v - lam v||`` at rounding level, even
-    for repeated or defective eigenvalues; a unitary ``Q`` with first column
-    ``v`` (from a QR factorisation) moves it to the front. The residuals
-    dropped below the diagonal are the backward error, of the order of
-    ``eps ||A||``.
+    Only the fallbacks need it (lifted powers that grow far beyond the spectral
+    radius), so scipy is imported here and the usual path stays numpy-only.
     """
-    n = A.shape[0]
-    T = np.array(A, dtype=complex)
-    Z = np.eye(n, dtype=complex)
-    lams = np.linalg.eigvals(T)
-    for k in range(n - 1):
-        sub = T[k:, k:]
-        _, _, vh = np.linalg.svd(sub - lams[k] * np.eye(n - k))
-        Q, _ = np.linalg.qr(np.column_stack([vh[-1].conj(), np.eye(n - k)]))
-        T[:, k:] = T[:, k:] @ Q
-        T[k:, :] = Q.conj().T @ T[k:, :]
-        Z[:, k:] = Z[:, k:] @ Q
-        T[k + 1 :, k] = 0.0
+    from scipy import linalg
+
+    T, Z = linalg.schur(np.asarray(A, dtype=complex), output="complex")
     return T, Z
 
 

@@ -184,7 +184,7 @@ def test_schur_form_of_a_defective_matrix():
 
     A = np.array([[0.5, 1.0, 0.0, 0.0], [0.0, 0.5, 1.0, 0.0], [0.0, 0.0, 0.5, 0.0], [0.2, 0.0, 0.1, -0.3]])
     T, Z = _schur(A)
-    # numpy.linalg: Z unitary, T upper triangular, Z T Z^H = A to rounding
+    # Z unitary, T upper triangular, Z T Z^H = A to rounding (definition of the Schur form)
     assert_allclose(Z.conj().T @ Z, np.eye(4), atol=1e-13)
     assert_allclose(np.tril(T, -1), 0.0, atol=0)
     assert_allclose(Z @ T @ Z.conj().T, A, atol=1e-13)
