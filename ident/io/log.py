@@ -860,8 +860,10 @@ def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields):
     """Parse the data lines in one multithreaded call (``None``: give up).
 
     Rows at the end whose used cells are all empty (blank lines) are dropped, as
-    the pandas path does. Each column is copied out of Arrow memory and released
-    in turn, so the peak is the Arrow table plus one column.
+    the pandas path does. The peak is the Arrow table plus the numpy columns
+    (Arrow frees a column's blocks as it is copied, but its allocator returns
+    the pages only when the whole table is gone). Streaming the batches into
+    preallocated columns halves that peak but was about 50 % slower here.
     """
     width = len(header.raw)
     names = [f"f{k}" for k in range(n_fields)]
@@ -908,11 +910,11 @@ def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields):
             a[pos:pos + k] = np.frombuffer(chunk.buffers()[1], dtype=np.float64, count=k,
                                            offset=chunk.offset * 8)
             pos += k
-        columns[j] = None  # releases this column's Arrow memory
+        columns[j] = None  # frees this column's Arrow memory
         if not np.isfinite(a).all():
             return None
         out.append(a)
-    pool.release_unused()  # hand the freed Arrow memory back to the system now
+    pool.release_unused()  # the allocator keeps freed pages until asked; hand them back
     return out
 
 
