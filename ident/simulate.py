@@ -201,16 +201,11 @@ class _Recursion:
             ends = V[:, L - 1] @ aug  # each block's end, from its start
             mismatch = ends[:-1] - V[1:, 0, :n]
             size = float(np.max(np.abs(mismatch), initial=0.0))
-            if not np.isfinite(size + scale):
+            verdict = _refinement(size, scale, last, step)
+            if verdict is None:
                 return None
-            if size <= _DONE * scale:
+            if verdict:
                 break
-            if size > 0.5 * last:  # no longer converging
-                if size > _STALL * scale:
-                    return None
-                break
-            if step == _MAX_REFINE:
-                return None
             W2 = child.buffer(nb, W.dtype)
             W2[: nb - 1, n:] = mismatch
             child.run(W2, nb, np.zeros(n, dtype=W.dtype))
@@ -227,6 +222,23 @@ class _Recursion:
             level = level._child(_BLOCK)
             length = -(-length // _BLOCK)
         return self.growth()
+
+
+def _refinement(size: float, scale: float, last: float, step: int) -> bool | None:
+    """Control of a block-start refinement: ``True`` stop (converged), ``None`` give up, ``False`` go on.
+
+    ``size`` is the largest block-start mismatch now, ``last`` the one before,
+    ``scale`` the size of the solution.
+    """
+    if not np.isfinite(size + scale):
+        return None
+    if size <= _DONE * scale:
+        return True
+    if size > 0.5 * last:  # no longer converging: accept rounding-level noise only
+        return None if size > _STALL * scale else True
+    if step == _MAX_REFINE:
+        return None
+    return False
 
 
 def _copy_columns(dst: np.ndarray, src: np.ndarray) -> None:
@@ -447,16 +459,11 @@ class _PoleSolver:
             size = float(np.max(np.abs(mismatch), initial=0.0))
             if scale is None:
                 scale = float(np.max(np.abs(E[na:])))
-            if not np.isfinite(size + scale):
+            verdict = _refinement(size, scale, last, step)
+            if verdict is None:
                 return None
-            if size <= _DONE * scale:
+            if verdict:
                 break
-            if size > 0.5 * last:  # no longer converging
-                if size > _STALL * scale:
-                    return None
-                break
-            if step == _MAX_REFINE:
-                return None
             drive = np.zeros_like(S)
             drive[:-1] = mismatch
             S = S + self._past(drive)
