@@ -17,7 +17,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-__all__ = ["solve_upper", "block_diag", "column_sums", "column_norms"]
+__all__ = ["solve_upper", "block_diag", "column_sums", "column_norms", "column_stds"]
 
 
 def solve_upper(R: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -77,3 +77,9 @@ def column_norms(x: np.ndarray) -> np.ndarray:
     """Euclidean norm of each column of a 2-D array (``numpy.linalg.norm(x, axis=0)``)."""
     x = np.asarray(x, dtype=float)
     return np.sqrt(np.array([col @ col for col in x.T], dtype=float))
+
+
+def column_stds(x: np.ndarray) -> np.ndarray:
+    """Return the population standard deviation of each column (``x.std(axis=0)``); rows > 0."""
+    x = np.asarray(x, dtype=float)
+    return column_norms(x - column_sums(x) / x.shape[0]) / np.sqrt(x.shape[0])

@@ -38,7 +38,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from ._linalg import column_norms, column_sums
+from ._linalg import column_stds
 from ._validate import int_in_range, one_of
 from .choices import METHODS, WEIGHTINGS  # METHODS: "auto" tries both and keeps the best
 from .data import Experiment
@@ -421,8 +421,8 @@ def _check_signals(prep: PreparedData) -> list[str]:
     u = np.vstack(u_parts)
     y = np.vstack(y_parts)
     out: list[str] = []
-    u_std = column_norms(u - column_sums(u) / u.shape[0]) / math.sqrt(u.shape[0])
-    y_std = column_norms(y - column_sums(y) / y.shape[0]) / math.sqrt(y.shape[0])
+    u_std = column_stds(u)
+    y_std = column_stds(y)
     for j in range(m):
         if not u_std[j] > 1e-12 * max(1.0, float(np.max(np.abs(prep.operating_point.inputs[j])))):
             raise IdentificationError(

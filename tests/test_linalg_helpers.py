@@ -5,7 +5,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import linalg
 
-from ident._linalg import block_diag, column_norms, column_sums, solve_upper
+from ident._linalg import block_diag, column_norms, column_stds, column_sums, solve_upper
 
 
 @pytest.mark.parametrize("k", [1, 2, 7, 30])
@@ -37,3 +37,5 @@ def test_column_reductions_equal_numpy(shape, rng):
     assert_allclose(column_sums(x), x.sum(axis=0), rtol=1e-13, atol=1e-9)
     assert_allclose(column_norms(x), np.linalg.norm(x, axis=0), rtol=1e-13)
     assert column_sums(x).shape == (shape[1],)
+    if shape[0]:
+        assert_allclose(column_stds(x), x.std(axis=0), rtol=1e-12)

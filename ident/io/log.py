@@ -827,13 +827,8 @@ def _arrow_csv_columns(path: str, header: _Header, indices: list[int]):
     start = header.data_offset
     with open(path, "rb") as fh:
         size = os.fstat(fh.fileno()).st_size
-        # line ends at the end of the file: blank lines there are not rows (nor errors)
-        tail_start = max(start, size - _SCAN_CHUNK)
-        fh.seek(tail_start)
-        tail = fh.read()
-        kept = tail.rstrip(b"\r\n")
-        if not kept:
-            return None, None  # no data, or more than 1 MiB of blank lines: not the usual
+        if size <= start:
+            return None, None  # no data lines: the pandas path says so
         fh.seek(start)
         first = fh.read(_PREVIEW_BYTES)
     line_end = first.find(b"\n")
