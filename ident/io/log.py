@@ -17,13 +17,13 @@ preceded by any number of ``#`` comment lines. The reader
   into segments at gaps on request.
 
 Speed and memory: with pyarrow installed, a well-formed UTF-8 CSV log is parsed
-by ``pyarrow.csv`` in parallel, streamed batch by batch into float64 columns of
-the requested columns only, without importing pandas; a background thread hashes
-the file meanwhile. Any file that is not clean (a bad or empty cell, a ragged row,
-a blank line inside the data, another encoding) goes to the pandas C engine path,
-which gives the same values and the precise error; object-dtype text is read only
-to locate a bad cell after that parse has failed. Either way the ``u``/``y``
-matrices are the one extra copy of the parsed columns.
+by ``pyarrow.csv`` in parallel into float64 columns of the requested columns
+only, without importing pandas; a background thread hashes the file meanwhile.
+Any file that is not clean (a bad or empty cell, a ragged row, a blank line
+inside the data, another encoding) goes to the pandas C engine path, which gives
+the same values and the precise error; object-dtype text is read only to locate
+a bad cell after that parse has failed. Either way the ``u``/``y`` matrices are
+the one extra copy of the parsed columns.
 """
 
 from __future__ import annotations
@@ -80,7 +80,6 @@ _SNIFF_ROWS = 50
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\))\s*$")
 _DECIMAL_COMMA_RE = re.compile(r"^\s*[-+]?\d*,\d+(?:[eE][-+]?\d+)?\s*$")
 _INSTALL_PARQUET = "pip install pyarrow (from a rigfit checkout: pip install '.[parquet]')"
-_SCAN_CHUNK = 1 << 20
 #: Bytes per pyarrow parse block (the blocks are parsed in parallel threads).
 _ARROW_BLOCK = 1 << 20
 #: Parse clean UTF-8 CSV logs with ``pyarrow.csv`` when pyarrow is installed (no pandas
@@ -784,11 +783,7 @@ class _FileScan:
 
     def _run(self) -> None:
         try:
-            with open(self._path, "rb", buffering=0) as fh:
-                digest = hashlib.sha256()
-                while chunk := fh.read(_SCAN_CHUNK):
-                    digest.update(chunk)
-                self._sha256 = digest.hexdigest()
+            self._sha256 = _sha256(self._path)
         except OSError:
             pass  # the result stays None; the caller falls back and reports the error
 
