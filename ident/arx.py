@@ -36,7 +36,7 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
 from ._linalg import block_diag, column_norms, column_sums, solve_upper
-from ._validate import as_signal, int_in_range, names_tuple, positive_float
+from ._validate import int_in_range, names_tuple, positive_float
 from .data import Experiment, as_experiments
 
 if TYPE_CHECKING:
@@ -49,7 +49,7 @@ from .errors import (
 )
 from .models import StateSpaceModel, TransferFunctionModel
 from .order import CRITERIA, Criteria, best_index, information_criteria
-from .simulate import all_pole_filter
+from .simulate import all_pole_filter, simulation_inputs
 
 __all__ = [
     "SELECTION_RULES",
@@ -243,18 +243,7 @@ class ArxResult:
             solve per output), which is the fastest way to score a candidate
             on a long log.
         """
-        u = as_signal(u, "u", ndim=2)
-        m = len(self.nk)
-        if u.shape[1] != m:
-            raise OptionError(f"u must have {m} column(s) to match the model's inputs; "
-                              f"got {u.shape[1]}")
-        n = self.model.n_states
-        if x0 is None:
-            x0 = np.zeros(n)
-        else:
-            x0 = np.asarray(x0, dtype=float).ravel()
-            if x0.shape != (n,):
-                raise OptionError(f"x0 must have {n} entries; got {x0.size}")
+        u, x0 = simulation_inputs(self.model, u, x0)
         return _arx_simulate(self.a, self.b, self.nk, u, x0)
 
     def transfer_function(self) -> TransferFunctionModel:

@@ -80,7 +80,10 @@ _STALL = 1e-10
 _MAX_REFINE = 6
 
 
-def _check(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+def simulation_inputs(
+    model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Validate the inputs of a simulation: ``u`` as (N, m) float samples, ``x0`` (zeros by default)."""
     if not isinstance(model, StateSpaceModel):
         raise OptionError(f"model must be a StateSpaceModel; got {type(model).__name__}")
     if not model.is_discrete:
@@ -549,7 +552,7 @@ def simulate_states(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None
     numpy.ndarray, shape (N, n)
         States, ``x[0] = x0``.
     """
-    u, x0 = _check(model, u, x0)
+    u, x0 = simulation_inputs(model, u, x0)
     out = np.empty((u.shape[0], model.n_states))
     for k0, k1, x in state_chunks(model.A, model.B, u, x0):
         out[k0:k1] = x
@@ -684,7 +687,7 @@ def simulate(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None = None
     >>> simulate(m, [[1.0], [0.0], [0.0]]).ravel().tolist()
     [0.0, 1.0, 0.5]
     """
-    u, x0 = _check(model, u, x0)
+    u, x0 = simulation_inputs(model, u, x0)
     N = u.shape[0]
     y = np.empty((N, model.n_outputs))
     if model.n_states == 0:
@@ -738,7 +741,7 @@ def estimate_initial_state(
     from zero, and ``x0`` solves the stacked least-squares problem (minimum
     norm when some states are not observable, :func:`numpy.linalg.lstsq`).
     """
-    u, _ = _check(model, u, None)
+    u, _ = simulation_inputs(model, u, None)
     y = as_signal(y, "y", ndim=2)
     if y.shape != (u.shape[0], model.n_outputs):
         raise OptionError(f"y must have shape ({u.shape[0]}, {model.n_outputs}); got {y.shape}")
