@@ -1,9 +1,11 @@
 """rigfit: turn test-rig logs into checked linear plant models.
 
-The import package is ``ident``. The numeric core (models, conversions,
-estimators, modes, diagnostics) takes numpy arrays and returns frozen
-dataclasses; file handling lives in :mod:`ident.io` and the command line in
-:mod:`ident.cli`.
+The import package is ``ident``. The numeric core takes numpy arrays and
+returns frozen dataclasses; it is three sub-packages, imported in one
+direction: :mod:`ident.estimate` (data preparation and estimators) uses
+:mod:`ident.assess` (judging a model), which uses :mod:`ident.lti` (model
+objects and linear-systems algebra). File handling lives in :mod:`ident.io`,
+figures in :mod:`ident.plots` and the command line in :mod:`ident.cli`.
 """
 
 from ._version import __version__
@@ -21,7 +23,11 @@ from .errors import (
     UnstableModelWarning,
 )
 
-_LAZY = {"OperatingPoint": "models", "StateSpaceModel": "models", "TransferFunctionModel": "models"}
+_LAZY = {
+    "OperatingPoint": "lti.models",
+    "StateSpaceModel": "lti.models",
+    "TransferFunctionModel": "lti.models",
+}
 
 
 def __getattr__(name: str):

@@ -12,13 +12,13 @@ __all__ = ["METHODS", "WEIGHTINGS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS
 #: Model families of ``identify`` / ``rigfit fit --method``.
 METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
 
-#: Subspace weightings (``ident.subspace``).
+#: Subspace weightings (``ident.estimate.subspace``).
 WEIGHTINGS: tuple[str, ...] = ("n4sid", "moesp", "cva")
 
 #: Discretisation methods, both directions (``rigfit convert --method``).
 DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")
 
-#: State coordinates offered by ``ident.realization.realize`` (``rigfit convert --realization``).
+#: State coordinates offered by ``ident.lti.realization.realize`` (``rigfit convert --realization``).
 REALIZATIONS: tuple[str, ...] = ("controllable", "observable", "modal", "balanced")
 
 #: Every plausibility flag a mode can carry, in the order they are reported.

@@ -4,16 +4,16 @@
 
 1. **ingest** every log file (each file, and each segment between timing gaps
    when ``split_at_gaps`` is on, is one experiment);
-2. **preprocess, candidates, selection** with :func:`ident.identify.identify`;
+2. **preprocess, candidates, selection** with :func:`ident.estimate.identify.identify`;
 3. **validation** of the selected model on every held-out part with
-   :func:`ident.diagnostics.validate_model`;
-4. **modes and expectations** (:func:`ident.modes.mode_table`,
-   :func:`ident.expectations.check_expectations`); an ARX model's poles get
+   :func:`ident.assess.diagnostics.validate_model`;
+4. **modes and expectations** (:func:`ident.assess.modes.mode_table`,
+   :func:`ident.assess.expectations.check_expectations`); an ARX model's poles get
    confidence regions from its parameter covariance
-   (:func:`ident.uncertainty.arx_pole_covariance`), stored in the model file as
+   (:func:`ident.estimate.uncertainty.arx_pole_covariance`), stored in the model file as
    ``provenance["estimation"]["pole_covariance"]``;
 5. **drift** against a baseline model file, when one is given
-   (:func:`ident.drift.compare_models`; frequency shifts get a z-score when
+   (:func:`ident.assess.drift.compare_models`; frequency shifts get a z-score when
    both models carry a pole covariance);
 
 then evaluates the gates and writes a NEW folder ``<UTC time>-<hash>`` (under
@@ -124,12 +124,12 @@ class RunResult:
     summary : dict
         The content of ``summary.json``.
     spec : PipelineSpec
-    identification : ident.identify.Identification
-    validation : tuple of ident.diagnostics.ValidationReport
+    identification : ident.estimate.identify.Identification
+    validation : tuple of ident.assess.diagnostics.ValidationReport
         One per held-out part long enough to validate on (the longest first).
-    modes : ident.modes.ModeTable
-    expectations : tuple of ident.expectations.ExpectationResult
-    drift : ident.drift.DriftReport or None
+    modes : ident.assess.modes.ModeTable
+    expectations : tuple of ident.assess.expectations.ExpectationResult
+    drift : ident.assess.drift.DriftReport or None
         ``None`` without a baseline.
     model_path, summary_path, report_path : pathlib.Path
     figure_paths : tuple of pathlib.Path
@@ -257,11 +257,11 @@ def _units(spec: PipelineSpec, names: Sequence[str], header: Sequence[str], role
 
 
 def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float], None]) -> dict[str, Any]:
-    from .diagnostics import validate_model
-    from .excitation import excitation_report, excited_band
-    from .expectations import check_expectations
-    from .identify import identify
-    from .modes import mode_table
+    from .assess.diagnostics import validate_model
+    from .assess.expectations import check_expectations
+    from .assess.modes import mode_table
+    from .estimate.excitation import excitation_report, excited_band
+    from .estimate.identify import identify
 
     report("reading logs", 0.0)
     logs = _read_logs(spec)
@@ -298,7 +298,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
     prep = result.prepared
     pole_cov = None
     if result.arx is not None:
-        from .uncertainty import arx_pole_covariance
+        from .estimate.uncertainty import arx_pole_covariance
 
         # first-order pole covariance from the ARX parameter covariance, in model.poles() order
         pole_cov = arx_pole_covariance(result.arx, model=model)
@@ -336,7 +336,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
 
     drift = None
     if baseline is not None:
-        from .drift import compare_models
+        from .assess.drift import compare_models
 
         report("comparing with the baseline", 0.8)
         base_model = baseline.model
@@ -423,7 +423,7 @@ def _signal_stats(name: str, unit: str, role: str, x: np.ndarray) -> dict[str, A
 
 
 def _drift_dict(drift: Any, baseline_path: Path, baseline: Any) -> dict[str, Any]:
-    from .drift import drift_report_to_dict
+    from .assess.drift import drift_report_to_dict
 
     return {
         "baseline": {"path": str(baseline_path), "file_name": baseline_path.name,
@@ -435,8 +435,8 @@ def _drift_dict(drift: Any, baseline_path: Path, baseline: Any) -> dict[str, Any
 
 def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: str,
              figures: list[dict[str, str]]) -> dict[str, Any]:
-    from .diagnostics import report_to_dict
-    from .modes import mode_table_to_dict
+    from .assess.diagnostics import report_to_dict
+    from .assess.modes import mode_table_to_dict
 
     spec: PipelineSpec = state["spec"]
     logs = state["logs"]
@@ -626,7 +626,7 @@ def _pole_covariance_entry(cov: np.ndarray | None) -> dict[str, Any]:
     """``{"pole_covariance": [...]}`` for the model file's estimation provenance, or nothing."""
     if cov is None:
         return {}
-    from .uncertainty import pole_covariance_to_list
+    from .estimate.uncertainty import pole_covariance_to_list
 
     return {"pole_covariance": pole_covariance_to_list(cov)}
 

@@ -6,7 +6,7 @@ import numpy as np
 from hypothesis import HealthCheck, settings
 from scipy import linalg, stats
 
-from ident.models import StateSpaceModel
+from ident.lti.models import StateSpaceModel
 
 # derandomize: the same examples on every run (reproducible CI); seeds were varied by hand
 SETTINGS = settings(

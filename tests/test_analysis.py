@@ -1,4 +1,4 @@
-"""Tests of zeros, DC gain, frequency, step and impulse responses (ident.analysis)."""
+"""Tests of zeros, DC gain, frequency, step and impulse responses (ident.lti.analysis)."""
 
 from __future__ import annotations
 
@@ -12,7 +12,8 @@ from numpy.testing import assert_allclose
 from scipy import linalg, signal
 from systems import SETTINGS, random_stable
 
-from ident.analysis import (
+from ident.errors import OptionError
+from ident.lti.analysis import (
     TimeResponse,
     dc_gain,
     frequency_response,
@@ -20,8 +21,7 @@ from ident.analysis import (
     step_response,
     transmission_zeros,
 )
-from ident.errors import OptionError
-from ident.models import StateSpaceModel
+from ident.lti.models import StateSpaceModel
 
 # scipy's reference polynomials (ss2tf inside freqresp/dfreqresp/ss2zpk) warn about
 # their own conditioning at high order; the accuracy is asserted explicitly instead
@@ -258,7 +258,7 @@ def test_time_response_options_are_checked():
 
 
 def test_channel_zeros_equal_scipy_ss2zpk():
-    from ident.analysis import channel_zeros
+    from ident.lti.analysis import channel_zeros
 
     model = random_stable(7, 4, 2, 3, 0.1)
     zeros = channel_zeros(model)

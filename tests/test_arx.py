@@ -1,4 +1,4 @@
-"""Tests for ident.arx: QR least-squares ARX, its realisation and the order/delay sweep."""
+"""Tests for ident.estimate.arx: QR least-squares ARX, its realisation and the order/delay sweep."""
 
 from __future__ import annotations
 
@@ -10,7 +10,13 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from ident.arx import (
+from ident.errors import (
+    IdentificationError,
+    IllConditionedWarning,
+    OptionError,
+    UnstableModelWarning,
+)
+from ident.estimate.arx import (
     SELECTION_RULES,
     ArxOptions,
     arx_regressors,
@@ -20,13 +26,7 @@ from ident.arx import (
     iter_arx_candidates,
     sweep_arx,
 )
-from ident.data import Experiment
-from ident.errors import (
-    IdentificationError,
-    IllConditionedWarning,
-    OptionError,
-    UnstableModelWarning,
-)
+from ident.estimate.data import Experiment
 
 # A second-order plant with poles 0.75 +/- 0.3708j (|z| = 0.8367), delay 2, invented for
 # these tests: A(q) = 1 - 1.5 q^-1 + 0.7 q^-2, B(q) = q^-2 (1.0 + 0.5 q^-1).
@@ -126,7 +126,7 @@ def test_parameters_and_std_errors_equal_statsmodels_ols(rng):
 
 def test_parameters_equal_statsmodels_ols_when_accumulated_in_many_blocks(rng, monkeypatch):
     # the block-by-block R factor gives the same least squares as statsmodels OLS
-    import ident.arx as arx_module
+    import ident.estimate.arx as arx_module
 
     monkeypatch.setattr(arx_module, "_BLOCK_VALUES", 2000)  # many small blocks, two experiments
     N = 3000
@@ -516,7 +516,7 @@ def test_arx_simulate_equals_dlsim_of_the_realisation(rng):
 
 
 def test_arx_simulate_across_blocks_equals_lfilter(rng, monkeypatch):
-    import ident.simulate as simulate_module
+    import ident.lti.simulate as simulate_module
 
     monkeypatch.setattr(simulate_module, "_POLE_BLOCK", 5)  # many blocks, each shorter than 4 na
     exps = _two_by_two_experiments(rng)
@@ -536,7 +536,7 @@ def test_arx_simulate_across_blocks_equals_lfilter(rng, monkeypatch):
 
 
 def test_shortlist_holds_the_best_of_each_order(rng):
-    from ident.arx import shortlist, sweep_arx
+    from ident.estimate.arx import shortlist, sweep_arx
 
     u = rng.standard_normal(3000)
     # second-order ARX data (scipy.signal.lfilter); a 1..4 grid

@@ -5,10 +5,10 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import linalg, signal
 
-from ident.diagnostics import CheckOptions, validate_model
+from ident.assess.diagnostics import CheckOptions, validate_model
 from ident.io.modelfile import save_model
-from ident.models import OperatingPoint, StateSpaceModel
-from ident.simulate import simulate
+from ident.lti.models import OperatingPoint, StateSpaceModel
+from ident.lti.simulate import simulate
 
 T = 0.01
 U_LEVEL, Y_LEVEL = 2.0, 10.0

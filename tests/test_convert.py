@@ -1,4 +1,4 @@
-"""Tests of state space <-> transfer function conversion and scipy interop (ident.convert)."""
+"""Tests of state space <-> transfer function conversion and scipy interop (ident.lti.convert)."""
 
 from __future__ import annotations
 
@@ -10,8 +10,9 @@ from numpy.testing import assert_allclose
 from scipy import linalg, signal
 from systems import SETTINGS, random_stable
 
-from ident.analysis import frequency_response
-from ident.convert import (
+from ident.errors import ModelError, OptionError
+from ident.lti.analysis import frequency_response
+from ident.lti.convert import (
     TF_TO_SS_FORMS,
     from_scipy,
     ss_from_scipy,
@@ -20,8 +21,7 @@ from ident.convert import (
     tf_to_ss,
     to_scipy,
 )
-from ident.errors import ModelError, OptionError
-from ident.models import OperatingPoint, StateSpaceModel, TransferFunctionModel
+from ident.lti.models import OperatingPoint, StateSpaceModel, TransferFunctionModel
 
 # scipy's reference polynomials (ss2tf inside freqresp/dfreqresp/ss2zpk) warn about
 # their own conditioning at high order; the accuracy is asserted explicitly instead

@@ -6,7 +6,7 @@ from numpy.testing import assert_allclose
 from scipy import signal
 
 from ident.io.modelfile import load_model, save_model
-from ident.models import OperatingPoint, StateSpaceModel
+from ident.lti.models import OperatingPoint, StateSpaceModel
 
 # scipy's reference dfreqresp goes through polynomials and warns about their conditioning;
 # the accuracy is asserted explicitly instead
@@ -25,8 +25,8 @@ def zoh_example(tmp_path):
 
 def test_choice_sets_match_core():
     from ident.cli.convert_cmd import convert
-    from ident.discretize import DISCRETIZE_METHODS
-    from ident.realization import REALIZATIONS
+    from ident.lti.discretize import DISCRETIZE_METHODS
+    from ident.lti.realization import REALIZATIONS
 
     choices = {p.name: tuple(p.type.choices) for p in convert.params if hasattr(p.type, "choices")}
     assert choices["method"] == DISCRETIZE_METHODS

@@ -1,4 +1,4 @@
-"""Tests for ident.delay: input-delay estimation from a high-order ARX impulse response."""
+"""Tests for ident.estimate.delay: input-delay estimation from a high-order ARX impulse response."""
 
 from __future__ import annotations
 
@@ -7,9 +7,9 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from ident.data import Experiment
-from ident.delay import DELAY_METHOD, estimate_delay
 from ident.errors import IdentificationError, OptionError
+from ident.estimate.data import Experiment
+from ident.estimate.delay import DELAY_METHOD, estimate_delay
 
 
 def test_siso_noisy_delay_and_evidence(rng):

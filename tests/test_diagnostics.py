@@ -8,7 +8,7 @@ from statsmodels.stats.diagnostic import acorr_ljungbox
 from statsmodels.stats.stattools import jarque_bera
 from statsmodels.tsa.stattools import acf, ccf
 
-from ident.diagnostics import (
+from ident.assess.diagnostics import (
     DATA_TESTS,
     CheckOptions,
     correlation,
@@ -20,8 +20,8 @@ from ident.diagnostics import (
     whiteness,
 )
 from ident.errors import ModelError, OptionError
-from ident.models import StateSpaceModel
-from ident.simulate import simulate
+from ident.lti.models import StateSpaceModel
+from ident.lti.simulate import simulate
 
 T = 0.01
 

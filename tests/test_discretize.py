@@ -1,4 +1,4 @@
-"""Tests of continuous <-> discrete conversion (ident.discretize)."""
+"""Tests of continuous <-> discrete conversion (ident.lti.discretize)."""
 
 from __future__ import annotations
 
@@ -13,17 +13,17 @@ from numpy.testing import assert_allclose
 from scipy import signal
 from systems import SETTINGS, random_stable
 
-from ident.analysis import frequency_response, step_response
-from ident.convert import ss_to_tf
-from ident.discretize import (
+from ident.errors import ModelError, OptionError
+from ident.lti.analysis import frequency_response, step_response
+from ident.lti.convert import ss_to_tf
+from ident.lti.discretize import (
     DISCRETIZE_METHODS,
     pole_to_continuous,
     poles_to_continuous,
     to_continuous,
     to_discrete,
 )
-from ident.errors import ModelError, OptionError
-from ident.models import OperatingPoint, StateSpaceModel
+from ident.lti.models import OperatingPoint, StateSpaceModel
 
 FREQS = np.array([0.0, 0.1, 0.5, 1.0, 2.0, 4.5])  # Hz, below the Nyquist 5 Hz of T = 0.1 s
 T = 0.1

@@ -3,9 +3,9 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from ident.drift import DriftThresholds, compare_models
+from ident.assess.drift import DriftThresholds, compare_models
 from ident.errors import OptionError
-from ident.models import OperatingPoint, StateSpaceModel
+from ident.lti.models import OperatingPoint, StateSpaceModel
 
 T = 1e-3
 
@@ -69,7 +69,7 @@ def test_dc_gain_change_breach():
 
 
 def test_old_model_scored_on_new_log(rng):
-    from ident.simulate import simulate
+    from ident.lti.simulate import simulate
 
     base = _plant([(30.0, 0.05)])
     new = _plant([(36.0, 0.04)])
@@ -110,7 +110,7 @@ def test_modes_outside_band_do_not_breach():
 def test_report_dict_is_json_ready():
     import json
 
-    from ident.drift import drift_report_to_dict
+    from ident.assess.drift import drift_report_to_dict
 
     d = drift_report_to_dict(compare_models(_plant([(30.0, 0.05)]), _plant([(36.0, 0.04)])))
     text = json.dumps(d, allow_nan=False)

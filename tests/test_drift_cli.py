@@ -7,8 +7,8 @@ from numpy.testing import assert_allclose
 from scipy import signal
 
 from ident.io.modelfile import save_model
-from ident.models import OperatingPoint, StateSpaceModel
-from ident.simulate import simulate
+from ident.lti.models import OperatingPoint, StateSpaceModel
+from ident.lti.simulate import simulate
 
 T = 1e-3
 

@@ -10,11 +10,11 @@ import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
-from ident.arx import ArxOptions, fit_arx
-from ident.data import Experiment
 from ident.errors import OptionError
+from ident.estimate.arx import ArxOptions, fit_arx
+from ident.estimate.data import Experiment
+from ident.estimate.subspace import SubspaceOptions, fit_subspace
 from ident.io.modelfile import load_model, save_model
-from ident.subspace import SubspaceOptions, fit_subspace
 
 T = 0.01
 # true system: second-order, poles 0.8 +- 0.3j, one sample of delay (a chosen invented system)

@@ -8,7 +8,7 @@ from scipy import signal
 from scipy.integrate import cumulative_trapezoid
 
 from ident.errors import OptionError
-from ident.excitation import (
+from ident.estimate.excitation import (
     excitation_covariance,
     excitation_report,
     persistent_excitation_order,
@@ -143,7 +143,7 @@ def test_validation_messages():
 
 def test_core_module_imports_no_io_libraries():
     code = (
-        "import sys, ident.excitation; "
+        "import sys, ident.estimate.excitation; "
         "bad = [m for m in ('pandas', 'click', 'matplotlib') if m in sys.modules]; "
         "print(','.join(bad))"
     )

@@ -1,4 +1,4 @@
-"""Tests of engineer-stated expectations (ident.expectations, ident.io.expectfile)."""
+"""Tests of engineer-stated expectations (ident.assess.expectations, ident.io.expectfile)."""
 
 from __future__ import annotations
 
@@ -11,11 +11,11 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
+from ident.assess.expectations import Expectations, check_expectations
+from ident.assess.modes import mode_table
 from ident.errors import PipelineError
-from ident.expectations import Expectations, check_expectations
 from ident.io.expectfile import load_expectations
-from ident.models import StateSpaceModel
-from ident.modes import mode_table
+from ident.lti.models import StateSpaceModel
 
 T = 1e-3
 

@@ -94,7 +94,7 @@ def test_fit_reports_criteria_table_and_delay_evidence(run_cli, log_file):
     assert "preferred: AIC -> #" in out and "BIC -> #" in out and "FPE -> #" in out
     # the plant has one sample of delay (numerator [0, 0.5, 0.3], by construction)
     assert "valve -> flow: 1 sample;" in out and "t-ratios at lags 0..3" in out
-    assert "|t| > 3" in out  # the threshold of the delay test (ident.delay default)
+    assert "|t| > 3" in out  # the threshold of the delay test (ident.estimate.delay default)
 
     data = json.loads(run_cli("fit", log_file, "--input", "valve", "--output", "flow",
                               "--method", "arx", "--max-order", "3", "--json").stdout)
@@ -244,7 +244,7 @@ def test_bad_options_exit_2(run_cli, log_file, args):
 
 def test_method_choices_match_library():
     from ident.cli.fit_cmd import fit
-    from ident.identify import METHODS
+    from ident.estimate.identify import METHODS
 
     choice = next(p for p in fit.params if p.name == "method").type
     assert tuple(choice.choices) == METHODS

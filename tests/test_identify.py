@@ -1,4 +1,4 @@
-"""Tests of ident.identify: recovery of known systems, order selection, bad input."""
+"""Tests of ident.estimate.identify: recovery of known systems, order selection, bad input."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from numpy.testing import assert_allclose
 from scipy import signal
 
 from ident.errors import IdentificationError, OptionError, PipelineError, PoorExcitationWarning
-from ident.identify import (
+from ident.estimate.identify import (
     METHODS,
     TIE_TOLERANCE,
     Candidate,
@@ -19,7 +19,7 @@ from ident.identify import (
     identify,
     select_candidate,
 )
-from ident.preprocess import PreprocessOptions
+from ident.estimate.preprocess import PreprocessOptions
 
 T = 0.01
 #: Poles of the second-order test plant: 0.9 +- 0.2j (chosen, no source).
@@ -96,8 +96,8 @@ def test_grid_criteria_match_statsmodels(rng):
     # the grid's criteria come from residuals equal to OLS residuals on the common rows
     import statsmodels.api as sm
 
-    from ident.arx import arx_regressors, fit_arx, grid_search_arx
-    from ident.data import Experiment
+    from ident.estimate.arx import arx_regressors, fit_arx, grid_search_arx
+    from ident.estimate.data import Experiment
 
     n = 3000
     u = rng.standard_normal(n)
@@ -324,11 +324,11 @@ def test_hair_dryer_beats_low_order_arx_baseline(shared_dataset):
 
 
 def test_chunked_scoring_simulation_matches_dlsim(rng):
-    from ident.arx import ArxOptions, fit_arx
-    from ident.data import Experiment
-    from ident.identify import _free_run
-    from ident.models import StateSpaceModel
-    from ident.simulate import _CHUNK
+    from ident.estimate.arx import ArxOptions, fit_arx
+    from ident.estimate.data import Experiment
+    from ident.estimate.identify import _free_run
+    from ident.lti.models import StateSpaceModel
+    from ident.lti.simulate import _CHUNK
 
     A = np.array([[0.9, 0.2], [-0.2, 0.9]])
     B = np.array([[1.0], [0.5]])

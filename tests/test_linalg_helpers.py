@@ -1,11 +1,11 @@
-"""The numpy-only helpers of ident._linalg against scipy.linalg (the reference)."""
+"""The numpy-only helpers of ident.lti._linalg against scipy.linalg (the reference)."""
 
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 from scipy import linalg
 
-from ident._linalg import block_diag, column_norms, column_stds, column_sums, solve_upper
+from ident.lti._linalg import block_diag, column_norms, column_stds, column_sums, solve_upper
 
 
 @pytest.mark.parametrize("k", [1, 2, 7, 30])

@@ -14,7 +14,7 @@ from ident.io.modelfile import (
     model_from_dict,
     save_model,
 )
-from ident.models import OperatingPoint, StateSpaceModel
+from ident.lti.models import OperatingPoint, StateSpaceModel
 
 
 @pytest.fixture

@@ -1,4 +1,4 @@
-"""Tests of the mode table (ident.modes)."""
+"""Tests of the mode table (ident.assess.modes)."""
 
 from __future__ import annotations
 
@@ -13,10 +13,10 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal, stats
 
+from ident.assess.modes import FLAGS, Mode, ModeTable, ModeThresholds, mode_table, mode_table_to_dict
 from ident.errors import ModelError, OptionError, PipelineError
-from ident.models import StateSpaceModel
-from ident.modes import FLAGS, Mode, ModeTable, ModeThresholds, mode_table, mode_table_to_dict
-from ident.simulate import simulate
+from ident.lti.models import StateSpaceModel
+from ident.lti.simulate import simulate
 
 T = 1e-3  # s, a 1 kHz rig
 
@@ -270,7 +270,7 @@ def test_types_are_frozen():
 
 def test_core_modules_do_not_import_cli_or_plotting():
     code = (
-        "import sys, ident.modes, ident.expectations; "
+        "import sys, ident.assess.modes, ident.assess.expectations; "
         "bad = [m for m in ('click', 'matplotlib', 'pandas') if m in sys.modules]; print(bad)"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
@@ -307,7 +307,7 @@ def test_near_cancellation_on_a_model_with_more_outputs_than_inputs():
     # the 0.3 pole is barely excited (B entry 1e-4): with one input and two outputs there are no
     # transmission zeros, but each channel has a zero next to 0.3 (closed form: a mode the input
     # hardly reaches cancels in every output)
-    from ident.analysis import transmission_zeros
+    from ident.lti.analysis import transmission_zeros
 
     A = np.diag([0.9, 0.5, 0.3])
     B = np.array([[1.0], [1.0], [1e-4]])

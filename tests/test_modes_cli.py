@@ -11,9 +11,9 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
+from ident.assess.modes import FLAGS
 from ident.io.modelfile import save_model
-from ident.models import StateSpaceModel
-from ident.modes import FLAGS
+from ident.lti.models import StateSpaceModel
 
 T = 1e-3
 
@@ -166,8 +166,8 @@ def test_plot_writes_png_and_refuses_overwrite(run_cli, resonant_file, tmp_path)
 def test_plot_function_draws_on_given_axes(resonant_file):
     from matplotlib.figure import Figure
 
+    from ident.assess.modes import mode_table
     from ident.io.modelfile import load_model
-    from ident.modes import mode_table
     from ident.plots.poles import pole_zero_map
 
     fig = Figure()

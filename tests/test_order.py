@@ -1,4 +1,4 @@
-"""Tests for ident.order: information criteria and the best-index rule."""
+"""Tests for ident.estimate.order: information criteria and the best-index rule."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 
 from ident.errors import OptionError
-from ident.order import CRITERIA, best_index, information_criteria
+from ident.estimate.order import CRITERIA, best_index, information_criteria
 
 
 def test_closed_form_values():

@@ -13,7 +13,7 @@ from numpy.testing import assert_allclose
 from scipy import signal
 
 from ident.errors import IdentError, LogFormatError
-from ident.excitation import excited_band
+from ident.estimate.excitation import excited_band
 from ident.io.modelfile import load_model
 from ident.pipeline import run_pipeline
 
@@ -253,7 +253,7 @@ def arx_runs(tmp_path_factory):
 
 
 def test_arx_run_gives_pole_uncertainty_in_summary_and_model_file(arx_runs):
-    from ident.uncertainty import arx_pole_covariance, pole_covariance_from_list
+    from ident.estimate.uncertainty import arx_pole_covariance, pole_covariance_from_list
 
     before, _ = arx_runs
     assert before.summary["model"]["method"] == "arx"

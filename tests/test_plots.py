@@ -11,9 +11,9 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from ident.diagnostics import CheckOptions, Verdict, validate_model
-from ident.models import StateSpaceModel
-from ident.modes import mode_table
+from ident.assess.diagnostics import CheckOptions, Verdict, validate_model
+from ident.assess.modes import mode_table
+from ident.lti.models import StateSpaceModel
 from ident.plots.poles import pole_zero_map
 from ident.plots.validation import MAX_VERDICTS, verdict_card
 

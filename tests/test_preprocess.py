@@ -1,4 +1,4 @@
-"""Tests of ident.preprocess against numpy/scipy references."""
+"""Tests of ident.estimate.preprocess against numpy/scipy references."""
 
 from __future__ import annotations
 
@@ -7,9 +7,9 @@ import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
-from ident.data import Experiment
 from ident.errors import OptionError, PipelineError
-from ident.preprocess import OFFSET_METHODS, PreprocessOptions, prepare
+from ident.estimate.data import Experiment
+from ident.estimate.preprocess import OFFSET_METHODS, PreprocessOptions, prepare
 
 
 def _record(rng, n=1000, m=2, p=1, offset=(3.0, -1.0, 20.0)):

@@ -1,4 +1,4 @@
-"""Tests of realisations: canonical, modal, balanced, minimal (ident.realization)."""
+"""Tests of realisations: canonical, modal, balanced, minimal (ident.lti.realization)."""
 
 from __future__ import annotations
 
@@ -10,10 +10,10 @@ from numpy.testing import assert_allclose
 from scipy import linalg, signal, stats
 from systems import SETTINGS, random_stable
 
-from ident.analysis import frequency_response
 from ident.errors import ModelError, OptionError
-from ident.models import OperatingPoint, StateSpaceModel
-from ident.realization import (
+from ident.lti.analysis import frequency_response
+from ident.lti.models import OperatingPoint, StateSpaceModel
+from ident.lti.realization import (
     REALIZATIONS,
     balanced_realization,
     controllable_form,

@@ -7,10 +7,10 @@ from numpy.testing import assert_allclose
 from scipy import signal
 from systems import random_stable
 
-import ident.simulate as simulate_module
+import ident.lti.simulate as simulate_module
 from ident.errors import ModelError, OptionError
-from ident.models import StateSpaceModel
-from ident.simulate import (
+from ident.lti.models import StateSpaceModel
+from ident.lti.simulate import (
     all_pole_filter,
     estimate_initial_state,
     first_order_recursion,
@@ -180,7 +180,7 @@ def test_schur_fallback_matches_dlsim(monkeypatch, rng):
 
 
 def test_schur_form_of_a_defective_matrix():
-    from ident.simulate import _schur
+    from ident.lti.simulate import _schur
 
     A = np.array([[0.5, 1.0, 0.0, 0.0], [0.0, 0.5, 1.0, 0.0], [0.0, 0.0, 0.5, 0.0], [0.2, 0.0, 0.1, -0.3]])
     T, Z = _schur(A)
@@ -357,6 +357,6 @@ def test_first_order_recursion_empty():
 
 
 def test_import_does_not_load_scipy():
-    code = "import sys, ident.simulate; print('scipy' in sys.modules)"
+    code = "import sys, ident.lti.simulate; print('scipy' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"

@@ -1,4 +1,4 @@
-"""Tests of ident.subspace against outside references.
+"""Tests of ident.estimate.subspace against outside references.
 
 Data come from known discrete systems simulated with scipy.signal.dlsim (or a
 plain state recursion for noisy systems); poles are compared with the roots of
@@ -18,16 +18,15 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import linalg, signal
 
-from ident.data import Experiment
-from ident.diagnostics import fit_percent
+from ident.assess.diagnostics import fit_percent
 from ident.errors import (
     IdentificationError,
     OptionError,
     PoorExcitationWarning,
     UnstableModelWarning,
 )
-from ident.simulate import estimate_initial_state, simulate
-from ident.subspace import (
+from ident.estimate.data import Experiment
+from ident.estimate.subspace import (
     WEIGHTINGS,
     SubspaceOptions,
     fit_subspace,
@@ -35,6 +34,7 @@ from ident.subspace import (
     project,
     suggest_order,
 )
+from ident.lti.simulate import estimate_initial_state, simulate
 
 # --------------------------------------------------------------------------- systems
 
@@ -152,7 +152,7 @@ def _noisy_mimo3_data(rng, lengths, noise=0.1):
 
 @pytest.mark.parametrize("path", ["gram", "householder"])
 def test_block_accumulated_r_equals_dense_qr(path, monkeypatch, rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     if path == "householder":
         monkeypatch.setattr(subspace, "_GRAM_MAX_CONDITION", 0.0)  # the gate refuses the Gram
@@ -177,7 +177,7 @@ def test_block_accumulated_r_equals_dense_qr(path, monkeypatch, rng):
 
 
 def test_hankel_gram_equals_dense_product(rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     # H H^T from lagged products with head and tail corrections, three experiments
     # (one of exactly 2i samples) and a block size that splits the lagged products
@@ -192,7 +192,7 @@ def test_hankel_gram_equals_dense_product(rng):
 
 
 def test_gram_and_householder_paths_agree_on_noisy_log(monkeypatch):
-    from ident import subspace
+    from ident.estimate import subspace
 
     rng = np.random.default_rng(41)
     (u, y), = _noisy_mimo3_data(rng, (6000,), noise=0.3)
@@ -230,7 +230,7 @@ def test_noise_free_data_take_householder_path(rng):
 
 
 def test_condition_gate_honoured(monkeypatch, rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     (u, y), = _noisy_mimo3_data(rng, (500,))
     data = Experiment(u, y)
@@ -529,7 +529,7 @@ def _dense_bd_reference(A, C, experiments, weight):
 @pytest.mark.parametrize("path", ["gram", "householder"])
 @pytest.mark.parametrize("basis", ["modal", "schur"])
 def test_bd_least_squares_equals_dense_reference(basis, path, monkeypatch, rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     # both feature bases, several chunks per experiment (state carried across chunks),
     # and both ways to the R factor of the features
@@ -562,7 +562,7 @@ def test_bd_least_squares_equals_dense_reference(basis, path, monkeypatch, rng):
 
 
 def test_defective_a_uses_schur_basis_and_recovers_b_d(rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     # Jordan block: double pole 0.9 with one eigenvector (closed form); eig(A) gives a
     # numerically singular eigenvector matrix, so the Schur-basis features are used
@@ -582,7 +582,7 @@ def test_defective_a_uses_schur_basis_and_recovers_b_d(rng):
 
 
 def test_long_free_response_and_chunk_boundaries(monkeypatch, rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     # slow poles (free response still alive across many chunks) with small chunks:
     # the model must be exactly the noise-free one (1e-6 of the output RMS, as above)
@@ -597,7 +597,7 @@ def test_long_free_response_and_chunk_boundaries(monkeypatch, rng):
 
 
 def test_zero_pole_and_complex_pair_in_modal_features(rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     # poles 0 (free response gone after one step), 0.6 +/- 0.3j and 0.95 (closed form:
     # block-diagonal A); the modal features are used (well-conditioned eigenvectors)
@@ -617,7 +617,7 @@ def test_zero_pole_and_complex_pair_in_modal_features(rng):
 
 
 def test_noise_free_bd_on_gram_path_is_exact(rng):
-    from ident import subspace
+    from ident.estimate import subspace
 
     # outputs exactly in the span of the features (noise-free): only the feature block
     # of the Gram matrix is factorised, so the Cholesky path is still taken and exact
@@ -646,7 +646,7 @@ def _random_covariances(rng, n, p):
 
 @pytest.mark.parametrize("seed", range(6))
 def test_filter_riccati_equals_scipy(seed):
-    from ident.subspace import _filter_riccati
+    from ident.estimate.subspace import _filter_riccati
 
     rng = np.random.default_rng(seed)
     n, p = int(rng.integers(1, 7)), int(rng.integers(1, 4))
@@ -662,7 +662,7 @@ def test_filter_riccati_equals_scipy(seed):
 
 
 def test_filter_riccati_slow_mode_equals_scipy():
-    from ident.subspace import _filter_riccati
+    from ident.estimate.subspace import _filter_riccati
 
     # a mode at 0.9999 driven by small process noise: slow (closed-loop radius near 1)
     A = np.array([[0.9999, 0.01], [0.0, 0.5]])
@@ -673,7 +673,7 @@ def test_filter_riccati_slow_mode_equals_scipy():
 
 
 def test_filter_riccati_without_stabilising_solution_raises():
-    from ident.subspace import _filter_riccati
+    from ident.estimate.subspace import _filter_riccati
 
     # unstable mode 1.2 driven by noise but invisible in the output: no stabilising
     # solution exists (closed form: the error variance of that mode grows without bound)

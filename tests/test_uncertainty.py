@@ -10,18 +10,18 @@ from numpy.testing import assert_allclose
 from scipy import signal
 from scipy.optimize import linear_sum_assignment
 
-from ident.arx import ArxOptions, fit_arx
-from ident.data import Experiment
+from ident.assess.modes import mode_table
 from ident.errors import OptionError
-from ident.models import StateSpaceModel
-from ident.modes import mode_table
-from ident.uncertainty import (
+from ident.estimate.arx import ArxOptions, fit_arx
+from ident.estimate.data import Experiment
+from ident.estimate.uncertainty import (
     arx_pole_covariance,
     pole_covariance_from_list,
     pole_covariance_to_list,
     root_covariance,
     root_jacobian,
 )
+from ident.lti.models import StateSpaceModel
 
 #: ARX(2,2) test system A(q) = 1 - 1.5 q^-1 + 0.7 q^-2 (poles 0.75 +- 0.371j, closed form),
 #: B(q) = q^-1 + 0.5 q^-2. Invented for these tests.
@@ -199,7 +199,7 @@ def test_json_round_trip_with_unknown_blocks():
 
 
 def test_compare_models_z_score_from_both_pole_covariances():
-    from ident.drift import compare_models
+    from ident.assess.drift import compare_models
 
     base = fit_arx(_simulate(31), 0.01, ArxOptions(na=2, nb=2, nk=1))
     # the same structure with the resonance moved: A = 1 - 1.4 q^-1 + 0.7 q^-2 (invented)
@@ -225,7 +225,7 @@ def test_compare_models_z_score_from_both_pole_covariances():
 def test_nearest_pairs_equals_optimal_assignment_for_roundoff_matches(rng):
     # scipy.optimize.linear_sum_assignment is the reference; with every pole matched
     # within round-off (as for an exact realisation) nearest-first pairing is optimal
-    from ident.uncertainty import _nearest_pairs
+    from ident.estimate.uncertainty import _nearest_pairs
 
     z = rng.uniform(-1, 1, 12) + 1j * rng.uniform(-1, 1, 12)
     perm = rng.permutation(12)

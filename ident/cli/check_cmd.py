@@ -66,7 +66,7 @@ def check(
 
     import numpy as np
 
-    from ..diagnostics import CheckOptions, report_to_dict, validate_model
+    from ..assess.diagnostics import CheckOptions, report_to_dict, validate_model
     from ..errors import IdentError, IdentWarning
     from ..io.modelfile import load_model
 
@@ -185,7 +185,7 @@ def _log_columns(path: str) -> list[str] | None:
 
 
 def _check_sample_time(log_T: float, model_T: float, log_path: str, model_path: str) -> None:
-    from ..diagnostics import SAMPLE_TIME_RTOL
+    from ..assess.diagnostics import SAMPLE_TIME_RTOL
     from ..errors import IdentError
 
     if abs(log_T - model_T) > SAMPLE_TIME_RTOL * model_T:
@@ -235,7 +235,7 @@ def report_text(report: Any, *, log_path: str = "", model_path: str = "") -> str
                  "normality (JB) reported, not gated")
     lines.append("")
     lines.append("verdicts")
-    from ..diagnostics import DATA_TESTS
+    from ..assess.diagnostics import DATA_TESTS
 
     for v in report.verdicts:
         mark = "ok  " if v.passed else ("note" if v.test in DATA_TESTS else "FAIL")

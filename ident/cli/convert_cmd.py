@@ -53,10 +53,10 @@ def convert(
       rigfit convert model.json --to continuous --json
       rigfit convert model.json --to ss --realization modal -o modal.json
     """
-    from ..convert import ss_to_tf
-    from ..discretize import to_continuous, to_discrete
     from ..io.modelfile import load_model, model_to_dict, save_model
-    from ..realization import realize
+    from ..lti.convert import ss_to_tf
+    from ..lti.discretize import to_continuous, to_discrete
+    from ..lti.realization import realize
 
     loaded = load_model(model_path)
     model = loaded.model

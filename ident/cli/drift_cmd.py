@@ -47,7 +47,7 @@ def drift(
 
     Exit status 3 when a threshold is breached.
     """
-    from ..drift import DriftThresholds, compare_models, drift_report_to_dict
+    from ..assess.drift import DriftThresholds, compare_models, drift_report_to_dict
     from ..io.modelfile import load_model
 
     baseline_file = load_model(baseline_path)
@@ -65,7 +65,7 @@ def drift(
     log_kwargs = read_log_kwargs(locals())
     u = y = None
     if log_path is not None:
-        from ..excitation import excited_band
+        from ..estimate.excitation import excited_band
         from ..io.log import read_log
 
         log = read_log(log_path, list(new.inputs), list(new.outputs), **log_kwargs)

@@ -107,10 +107,10 @@ def fit(
 
     log_kwargs = read_log_kwargs(locals())
     _single_blas_thread()
-    from ..identify import IdentifyOptions, identify
+    from ..estimate.identify import IdentifyOptions, identify
+    from ..estimate.preprocess import PreprocessOptions
     from ..io.atomic import check_output_path
     from ..io.log import read_log
-    from ..preprocess import PreprocessOptions
 
     order = _parse_order(order_text)
     names_in = [n.lower() for n in inputs]
@@ -161,11 +161,11 @@ def fit(
         if text not in messages:
             messages.append(text)
 
-    from ..modes import mode_table
+    from ..assess.modes import mode_table
 
     pole_cov = None
     if result.arx is not None:
-        from ..uncertainty import arx_pole_covariance
+        from ..estimate.uncertainty import arx_pole_covariance
 
         pole_cov = arx_pole_covariance(result.arx, model=result.model)
     table = mode_table(result.model, log_duration_s=log.duration_s or None, pole_covariance=pole_cov)
@@ -229,14 +229,14 @@ def _provenance(log, result, pole_cov=None) -> dict[str, Any]:
         },
     }
     if pole_cov is not None:
-        from ..uncertainty import pole_covariance_to_list
+        from ..estimate.uncertainty import pole_covariance_to_list
 
         prov["estimation"]["pole_covariance"] = pole_covariance_to_list(pole_cov)
     return prov
 
 
 def _summary(log, result, table, messages, written) -> dict[str, Any]:
-    from ..modes import mode_table_to_dict
+    from ..assess.modes import mode_table_to_dict
 
     prep = result.prepared
     flags = sorted({flag for mode in table.modes for flag in mode.flags})

@@ -41,7 +41,7 @@ def inspect(
 
     Exit status: 0 ok; 2 the log cannot be read as asked.
     """
-    from ..excitation import excitation_report
+    from ..estimate.excitation import excitation_report
     from ..io.atomic import check_output_path
     from ..io.log import log_from_table, read_table, time_base
 

@@ -67,9 +67,9 @@ def modes(
     Exit status: 0 ok; 2 bad input; 3 an expectation failed or a --fail-on flag is present.
     """
     # An existing --plot file is refused (below) before anything is printed.
+    from ..assess.modes import ModeThresholds, mode_table, mode_table_to_dict
     from ..io.atomic import check_output_path
     from ..io.modelfile import load_model
-    from ..modes import ModeThresholds, mode_table, mode_table_to_dict
 
     if plot_path is not None:
         check_output_path(plot_path, force=force, protected=(model_path,))
@@ -100,7 +100,7 @@ def modes(
     )
     results: tuple = ()
     if expectations is not None:
-        from ..expectations import check_expectations
+        from ..assess.expectations import check_expectations
 
         results = check_expectations(model, table, expectations)
     present = table.flags()

@@ -7,8 +7,8 @@ import tomllib
 from pathlib import Path
 
 from .._validate import did_you_mean
+from ..assess.expectations import Expectations
 from ..errors import PipelineError
-from ..expectations import Expectations
 
 __all__ = ["load_expectations"]
 
@@ -20,7 +20,7 @@ def load_expectations(path: str | os.PathLike) -> Expectations:
     ----------
     path : path-like
         A TOML file whose only top-level table is ``[expect]``; see
-        :mod:`ident.expectations` for the keys.
+        :mod:`ident.assess.expectations` for the keys.
 
     Returns
     -------

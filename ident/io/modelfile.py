@@ -36,7 +36,7 @@ import numpy as np
 from .._json import json_ready
 from .._version import __version__
 from ..errors import IdentError, ModelFileError
-from ..models import OperatingPoint, StateSpaceModel
+from ..lti.models import OperatingPoint, StateSpaceModel
 from .atomic import write_atomic
 
 __all__ = [
@@ -78,9 +78,9 @@ class ModelFile:
 
         A nan block means the uncertainty of that pole is unknown; ``None`` means
         the file holds no usable covariance (see
-        :func:`ident.uncertainty.pole_covariance_from_list`).
+        :func:`ident.estimate.uncertainty.pole_covariance_from_list`).
         """
-        from ..uncertainty import pole_covariance_from_list
+        from ..estimate.uncertainty import pole_covariance_from_list
 
         block = self.provenance.get("estimation") if isinstance(self.provenance, dict) else None
         raw = block.get("pole_covariance") if isinstance(block, dict) else None

@@ -20,17 +20,17 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     jitter_tolerance = 0.1
     units = { motor_torque_cmd = "N m" }    # fill in units the header does not carry
 
-    [preprocess]   # ident.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
+    [preprocess]   # ident.estimate.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
                    # decimate, holdout
-    [fit]          # ident.identify.IdentifyOptions: method, order ("auto" or N), max_order,
+    [fit]          # ident.estimate.identify.IdentifyOptions: method, order ("auto" or N), max_order,
                    # delay, weighting, horizon, stabilize, tie_tolerance
-    [check]        # ident.diagnostics.CheckOptions: gates min_fit, require_white; and
+    [check]        # ident.assess.diagnostics.CheckOptions: gates min_fit, require_white; and
                    # prediction_steps, max_lag, confidence, initial_state, spectral_segment
-    [modes]        # ident.modes.ModeThresholds, plus fail_on = ["unstable", ...] (flags
+    [modes]        # ident.assess.modes.ModeThresholds, plus fail_on = ["unstable", ...] (flags
                    # that fail the run; default ["unstable"])
-    [expect]       # ident.expectations.Expectations
+    [expect]       # ident.assess.expectations.Expectations
     [drift]        # baseline = "model.json" (relative to this file) and
-                   # ident.drift.DriftThresholds
+                   # ident.assess.drift.DriftThresholds
 
 Unknown keys and wrong types raise :class:`ident.errors.PipelineError` naming
 the file, the dotted key path (``fit.ordr``) and, for unknown keys, the
@@ -51,13 +51,13 @@ from pathlib import Path
 from typing import Any
 
 from .._validate import did_you_mean
-from ..diagnostics import CheckOptions
-from ..drift import DriftThresholds
+from ..assess.diagnostics import CheckOptions
+from ..assess.drift import DriftThresholds
+from ..assess.expectations import Expectations
+from ..assess.modes import FLAGS, ModeThresholds
 from ..errors import IdentError, PipelineError
-from ..expectations import Expectations
-from ..identify import IdentifyOptions
-from ..modes import FLAGS, ModeThresholds
-from ..preprocess import PreprocessOptions
+from ..estimate.identify import IdentifyOptions
+from ..estimate.preprocess import PreprocessOptions
 
 __all__ = [
     "SECTIONS",

@@ -1,6 +1,6 @@
 """Figure of a drift comparison: both models' frequency-response magnitudes overlaid.
 
-The function takes a :class:`ident.drift.DriftReport`, draws on the axes it is
+The function takes a :class:`ident.assess.drift.DriftReport`, draws on the axes it is
 given (or on a new figure not registered with pyplot) and returns the figure.
 Nothing here changes global matplotlib state.
 """
@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from ..drift import DriftReport
+from ..assess.drift import DriftReport
 
 __all__ = ["magnitude_overlay"]
 
@@ -34,7 +34,7 @@ def magnitude_overlay(
     Parameters
     ----------
     report : DriftReport
-        From :func:`ident.drift.compare_models`; its ``response`` holds the
+        From :func:`ident.assess.drift.compare_models`; its ``response`` holds the
         magnitudes over the compared band.
     inputs : sequence of str, optional
         Input names (columns of the magnitude arrays), for the panel titles;

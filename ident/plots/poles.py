@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from ..modes import ModeTable
+from ..assess.modes import ModeTable
 
 __all__ = ["pole_zero_map"]
 
@@ -56,7 +56,7 @@ def pole_zero_map(
     Parameters
     ----------
     table : ModeTable
-        From :func:`ident.modes.mode_table`.
+        From :func:`ident.assess.modes.mode_table`.
     ax : matplotlib.axes.Axes, optional
         Axes to draw on; a new figure (not registered with pyplot) when omitted.
     title : str, optional

@@ -1,6 +1,6 @@
 """Figures of a validation report: outputs, residual correlations, spectra, verdict card.
 
-Every function takes a :class:`ident.diagnostics.ValidationReport`, draws on
+Every function takes a :class:`ident.assess.diagnostics.ValidationReport`, draws on
 the axes it is given (or on a new figure not registered with pyplot) and
 returns the figure. Nothing here changes global matplotlib state.
 """
@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from ..diagnostics import Correlation, ValidationReport
+from ..assess.diagnostics import Correlation, ValidationReport
 
 __all__ = [
     "output_comparison",
@@ -218,7 +218,7 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
     if sp.multiple_coherence.shape[1] and len(report.inputs) > 1:
         ax_coh.semilogx(f, sp.multiple_coherence[:, output], color=_PRED, lw=0.8, ls="--",
                         label="multiple coherence")
-    from ..diagnostics import COHERENCE_LOW
+    from ..assess.diagnostics import COHERENCE_LOW
 
     ax_coh.axhline(COHERENCE_LOW, color=_BAD, lw=0.7, ls=":")
     ax_coh.set_ylim(0.0, 1.05)
@@ -273,7 +273,7 @@ def verdict_card(report: ValidationReport, *, ax: Any | None = None,
 
     from matplotlib.transforms import ScaledTranslation, blended_transform_factory
 
-    from ..diagnostics import DATA_TESTS
+    from ..assess.diagnostics import DATA_TESTS
 
     items, hidden = _pick_verdicts(report.verdicts, max_verdicts)
     wrapped = [

@@ -1,6 +1,6 @@
 """Model analysis: transmission zeros, DC gain, frequency, step and impulse responses.
 
-All functions take a :class:`~ident.models.StateSpaceModel`, continuous
+All functions take a :class:`~ident.lti.models.StateSpaceModel`, continuous
 (``sample_time is None``) or discrete, and return plain arrays or frozen result
 dataclasses. Nothing here changes the model.
 """
@@ -13,8 +13,8 @@ from typing import Any
 
 import numpy as np
 
-from ._validate import as_signal, int_in_range, optional_positive_float
-from .errors import OptionError
+from .._validate import as_signal, int_in_range, optional_positive_float
+from ..errors import OptionError
 from .models import StateSpaceModel
 
 __all__ = [
@@ -232,7 +232,7 @@ def transmission_zeros(model: StateSpaceModel) -> np.ndarray:
 
     Examples
     --------
-    >>> from ident.models import StateSpaceModel
+    >>> from ident.lti.models import StateSpaceModel
     >>> m = StateSpaceModel(A=[[-1.0, 0.0], [0.0, -2.0]], B=[[1.0], [1.0]],
     ...                     C=[[1.0, 1.0]], D=[[0.0]])
     >>> transmission_zeros(m).real.round(6).tolist()   # (2s + 3)/((s+1)(s+2))
@@ -276,7 +276,7 @@ def dc_gain(model: StateSpaceModel) -> np.ndarray:
 
     Examples
     --------
-    >>> from ident.models import StateSpaceModel
+    >>> from ident.lti.models import StateSpaceModel
     >>> integ = StateSpaceModel(A=[[0.0]], B=[[1.0]], C=[[-2.0]], D=[[0.0]])  # -2/s
     >>> dc_gain(integ).tolist()
     [[-inf]]
@@ -556,7 +556,7 @@ def step_response(
 
     Notes
     -----
-    Discrete models are run with :func:`ident.simulate.simulate`. A continuous
+    Discrete models are run with :func:`ident.lti.simulate.simulate`. A continuous
     model is sampled exactly by its zero-order-hold equivalent on the grid: a
     step is constant between grid points, so the values are exact samples of
     the continuous response.

@@ -1,24 +1,24 @@
 """The top-level identification job: candidates, selection, validation.
 
-:func:`identify` prepares the data (:mod:`ident.preprocess`), checks that it can
+:func:`identify` prepares the data (:mod:`ident.estimate.preprocess`), checks that it can
 support the models asked for, fits a family of candidate models and picks one
 by its fit on the held-out validation data:
 
 - **ARX**: a grid of structures ``na`` and ``nb`` in ``1 .. max_order`` with
-  the input delays estimated from the data (:func:`ident.delay.estimate_delay`)
+  the input delays estimated from the data (:func:`ident.estimate.delay.estimate_delay`)
   and their neighbours ``nk - 1 .. nk + 1`` (or the given delay), one MISO
   ARX model per output, every structure ranked by AIC, BIC/MDL and FPE from
   one accumulated R factor; the best :data:`PER_CRITERION` structures by each
-  criterion become candidates (:func:`ident.arx.grid_search_arx`). With a
+  criterion become candidates (:func:`ident.estimate.arx.grid_search_arx`). With a
   fixed order the one structure ``na = nb = order`` is the candidate;
 - **subspace** candidates of ``n = 1 .. max_order`` states, all from one
-  projection of the data (:func:`ident.subspace.project` then
-  :func:`ident.subspace.model_of_order`).
+  projection of the data (:func:`ident.estimate.subspace.project` then
+  :func:`ident.estimate.subspace.model_of_order`).
 
 Every candidate is simulated on the validation data from an initial state
 fitted to its first samples (ARX candidates by their difference equations,
-the others by :func:`ident.simulate.simulate`), and scored by its fit percent
-(:func:`ident.diagnostics.fit_percent`), averaged over the outputs. The
+the others by :func:`ident.lti.simulate.simulate`), and scored by its fit percent
+(:func:`ident.assess.diagnostics.fit_percent`), averaged over the outputs. The
 candidate with the best mean fit wins; candidates within
 :data:`TIE_TOLERANCE` percentage points of the best count as tied, and among
 tied candidates the simpler one wins (fewer states, then fewer parameters).
@@ -38,22 +38,22 @@ from typing import Any, Literal
 
 import numpy as np
 
-from ._linalg import column_stds
-from ._validate import int_in_range, one_of
-from .choices import METHODS, WEIGHTINGS  # METHODS: "auto" tries both and keeps the best
-from .data import Experiment
-from .diagnostics import fit_percent
-from .errors import (
+from .._validate import int_in_range, one_of
+from ..assess.diagnostics import fit_percent
+from ..choices import METHODS, WEIGHTINGS  # METHODS: "auto" tries both and keeps the best
+from ..errors import (
     IdentificationError,
     IllConditionedWarning,
     OptionError,
     PoorExcitationWarning,
     UnstableModelWarning,
 )
-from .models import StateSpaceModel
+from ..lti._linalg import column_stds
+from ..lti.models import StateSpaceModel
+from ..lti.simulate import estimate_initial_state, simulate
+from .data import Experiment
 from .order import Criteria
 from .preprocess import PreparedData, PreprocessOptions, _from_mapping, prepare
-from .simulate import estimate_initial_state, simulate
 
 __all__ = [
     "METHODS",
@@ -125,7 +125,7 @@ class IdentifyOptions:
         Subspace weighting (default ``"n4sid"``).
     horizon : int, optional
         Subspace past/future horizon; ``None`` (default) lets
-        :mod:`ident.subspace` choose it from the data and the order.
+        :mod:`ident.estimate.subspace` choose it from the data and the order.
     stabilize : bool
         Reflect unstable subspace poles into the unit circle (default
         ``False``); when it happens the result says so.
@@ -136,7 +136,7 @@ class IdentifyOptions:
         In an automatic ARX search, how many of the best grid structures by
         each of AIC, BIC/MDL and FPE go on to the validation stage (default
         :data:`PER_CRITERION`, 3), together with the BIC-best structure of
-        every order (see :func:`ident.arx.shortlist`).
+        every order (see :func:`ident.estimate.arx.shortlist`).
     preprocess : PreprocessOptions
         Operating point, detrending, decimation and hold-out.
     """
@@ -397,7 +397,7 @@ def excitation_order(u: Sequence[np.ndarray], max_lags: int) -> np.ndarray:
     -------
     numpy.ndarray of int, shape (m,)
         Per input, the largest order found by
-        :func:`ident.excitation.persistent_excitation_order` in any one
+        :func:`ident.estimate.excitation.persistent_excitation_order` in any one
         experiment (at most :data:`_CHECK_SAMPLES` samples of each are used).
     """
     from .excitation import persistent_excitation_order
@@ -522,9 +522,9 @@ def _validation_fit(model: StateSpaceModel, parts: Sequence[Experiment], arx: An
     """Fit percent of a free-run simulation on ``parts`` (pooled), per output.
 
     ``arx`` is the candidate's ``ArxResult`` when it is an ARX model: it then
-    runs as difference equations (:meth:`ident.arx.ArxResult.simulate`), the
+    runs as difference equations (:meth:`ident.estimate.arx.ArxResult.simulate`), the
     cheapest exact simulation; other models go through
-    :func:`ident.simulate.simulate`. The initial state is fitted to the first
+    :func:`ident.lti.simulate.simulate`. The initial state is fitted to the first
     samples of each part in either case.
     """
     ys, yhats = [], []
@@ -571,7 +571,7 @@ def identify(
     Parameters
     ----------
     segments : Experiment, (u, y) pair, or sequence of them
-        Raw logged records (see :func:`ident.preprocess.prepare`).
+        Raw logged records (see :func:`ident.estimate.preprocess.prepare`).
     sample_time : float
         Sample time of the records, in s.
     options : IdentifyOptions, optional

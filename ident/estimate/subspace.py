@@ -55,7 +55,7 @@ Measured with one BLAS thread on the 2-core development machine, 2 inputs,
 :func:`project` 0.01 s / 0.06-0.1 s on the Gram path (Householder path
 0.08 s / 0.6 s); :func:`model_of_order` for orders 1..10 in total 0.3 s /
 0.35 s, most of it the first-order recursions of the ``B, D`` features
-(:func:`ident.simulate.first_order_recursion`, one per real pole or complex
+(:func:`ident.lti.simulate.first_order_recursion`, one per real pole or complex
 pair, all inputs at once). Working memory beyond the log: a few MB for
 :func:`project` and about 15-30 MB for :func:`model_of_order`, whatever N.
 All these products are narrow (tens of columns): a multi-threaded OpenBLAS
@@ -89,18 +89,18 @@ from typing import Any, Literal
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from ._validate import int_in_range, one_of, positive_float
-from .choices import WEIGHTINGS
-from .data import Experiment, as_experiments
-from .errors import (
+from .._validate import int_in_range, one_of, positive_float
+from ..choices import WEIGHTINGS
+from ..errors import (
     IdentificationError,
     IllConditionedWarning,
     OptionError,
     PoorExcitationWarning,
     UnstableModelWarning,
 )
-from .models import StateSpaceModel
-from .simulate import first_order_recursion, state_chunks
+from ..lti.models import StateSpaceModel
+from ..lti.simulate import first_order_recursion, state_chunks
+from .data import Experiment, as_experiments
 
 __all__ = [
     "WEIGHTINGS",
@@ -1036,7 +1036,7 @@ def _features_modal(lam: np.ndarray, V: np.ndarray, C: np.ndarray, m: int):
     needs one complex filter, whose real and imaginary parts are two real
     features (``f_{s+1} = conj(f_s)``). So there are ``n`` real features per
     input and ``n`` per experiment, whatever ``p``; each chunk costs one
-    :func:`ident.simulate.first_order_recursion` call per real pole or pair (all inputs at once).
+    :func:`ident.lti.simulate.first_order_recursion` call per real pole or pair (all inputs at once).
 
     Returns ``(map_b, map_x0, chunks)``: ``map_b[i]`` (shape (n, n)) maps the
     features of one input to the regressors of ``B[:, l]`` for output ``i``;
@@ -1118,7 +1118,7 @@ def _features_schur(A: np.ndarray, C: np.ndarray, m: int):
     The regressor of ``B[j, l]`` for output ``i`` is state ``j`` of
     ``z[k+1] = A^T z[k] + C_i^T u_l[k]`` and that of ``x0[j]`` state ``j`` of
     ``z[k+1] = A^T z[k]``, ``z[0] = C_i^T``. All outputs are simulated at once
-    (``p`` copies of ``A^T`` on the diagonal) by :mod:`ident.simulate`, whose
+    (``p`` copies of ``A^T`` on the diagonal) by :mod:`ident.lti.simulate`, whose
     complex Schur basis is stable for repeated poles: ``m + 1`` runs of ``p n``
     states, ``p n`` features per input and per experiment (not shared by the
     outputs, unlike the modal features).
@@ -1314,7 +1314,7 @@ def model_of_order(
     features shared by all outputs (the inputs filtered through the ``n``
     modes of ``A``, the inputs, the free modal responses; for a defective or
     nearly defective ``A`` the Schur-basis simulations of
-    :mod:`ident.simulate`), whose Gram matrix is accumulated in one pass
+    :mod:`ident.lti.simulate`), whose Gram matrix is accumulated in one pass
     (Cholesky when well conditioned, else a second pass by Householder QR);
     the reduced problem has ``p q`` rows for ``q`` features. The cost is this
     one pass, about ``N q^2`` flops plus ``n`` filters of the inputs
@@ -1508,7 +1508,7 @@ def fit_subspace(
     --------
     >>> import numpy as np
     >>> from scipy import signal
-    >>> from ident.data import Experiment
+    >>> from ident.estimate.data import Experiment
     >>> u = np.random.default_rng(0).standard_normal((400, 1))
     >>> _, y, _ = signal.dlsim(([[0.5, 0.3], [0.0, 0.2]], [[1.0], [1.0]],
     ...                          [[1.0, 0.0]], [[0.0]], 0.1), u)

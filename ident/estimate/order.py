@@ -2,7 +2,7 @@
 
 All three trade the fit of a model (its loss) against its number of estimated
 parameters; the smallest value wins. They are shared by the ARX and subspace
-estimators and by the top-level selection in :mod:`ident.identify`.
+estimators and by the top-level selection in :mod:`ident.estimate.identify`.
 """
 
 from __future__ import annotations
@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validate import int_in_range, one_of
-from .errors import OptionError
+from .._validate import int_in_range, one_of
+from ..errors import OptionError
 
 __all__ = ["CRITERIA", "Criteria", "information_criteria", "best_index"]
 

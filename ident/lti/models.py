@@ -28,8 +28,8 @@ from typing import Any
 
 import numpy as np
 
-from ._validate import as_matrix, names_tuple, optional_positive_float
-from .errors import OptionError
+from .._validate import as_matrix, names_tuple, optional_positive_float
+from ..errors import OptionError
 
 __all__ = ["OperatingPoint", "StateSpaceModel", "TransferFunctionModel"]
 

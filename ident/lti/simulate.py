@@ -31,8 +31,8 @@ from collections.abc import Iterator
 
 import numpy as np
 
-from ._validate import as_signal
-from .errors import ModelError, OptionError
+from .._validate import as_signal
+from ..errors import ModelError, OptionError
 from .models import StateSpaceModel
 
 __all__ = [
@@ -283,7 +283,7 @@ def all_pole_filter(a: np.ndarray, r: np.ndarray) -> np.ndarray:
     outputs and ``F`` their free responses: one matrix product for all
     blocks. The past outputs of the next block follow from ``s_{b+1} = Phi^T
     s_b + (zero-state tail of block b)``, solved by the lifted recursion of
-    :mod:`ident.simulate`.
+    :mod:`ident.lti.simulate`.
 
     When the free responses grow large (poles clustered near 1, where the
     past-output basis is ill-conditioned) that loses accuracy. Then short
@@ -496,7 +496,7 @@ def first_order_recursion(pole: complex, drive: np.ndarray, start: np.ndarray) -
     Notes
     -----
     The same numbers as :func:`scipy.signal.lfilter` ``([0, 1], [1, -pole], drive, zi=start)``,
-    computed by the lifted recursion of :mod:`ident.simulate` with all columns
+    computed by the lifted recursion of :mod:`ident.lti.simulate` with all columns
     at once (``|pole|^L`` never grows beyond the spectral radius, so no
     refinement is needed).
     """
@@ -677,12 +677,12 @@ def simulate(model: StateSpaceModel, u: np.ndarray, x0: np.ndarray | None = None
     Notes
     -----
     The states are computed chunk by chunk by the lifted recursion described
-    in :mod:`ident.simulate`; each chunk's outputs are one product of the
+    in :mod:`ident.lti.simulate`; each chunk's outputs are one product of the
     rows ``[x[k], u[k]]`` with ``[C D]^T``.
 
     Examples
     --------
-    >>> from ident.models import StateSpaceModel
+    >>> from ident.lti.models import StateSpaceModel
     >>> m = StateSpaceModel(A=[[0.5]], B=[[1.0]], C=[[1.0]], D=[[0.0]], sample_time=0.1)
     >>> simulate(m, [[1.0], [0.0], [0.0]]).ravel().tolist()
     [0.0, 1.0, 0.5]

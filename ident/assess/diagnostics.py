@@ -27,13 +27,13 @@ from typing import Any, Literal
 
 import numpy as np
 
-from ._json import json_ready
-from ._linalg import column_norms, column_sums
-from ._validate import as_signal, fraction, int_in_range, one_of, positive_float
-from .analysis import frequency_response
-from .errors import ModelError, OptionError, UnstableModelWarning
-from .models import StateSpaceModel
-from .simulate import estimate_initial_state, simulate, simulate_states
+from .._json import json_ready
+from .._validate import as_signal, fraction, int_in_range, one_of, positive_float
+from ..errors import ModelError, OptionError, UnstableModelWarning
+from ..lti._linalg import column_norms, column_sums
+from ..lti.analysis import frequency_response
+from ..lti.models import StateSpaceModel
+from ..lti.simulate import estimate_initial_state, simulate, simulate_states
 
 __all__ = [
     "INITIAL_STATE_MODES",

@@ -3,13 +3,13 @@
 An estimator that knows the covariance of its parameters also knows, to first
 order, the covariance of every quantity computed from them. Here that quantity
 is the position of each pole in the z-plane: the covariance of
-``(Re z, Im z)``, which :func:`ident.modes.mode_table` turns into a confidence
+``(Re z, Im z)``, which :func:`ident.assess.modes.mode_table` turns into a confidence
 region, the ``uncertain_stability`` flag and standard deviations of natural
-frequency and damping ratio, and which :func:`ident.drift.compare_models` uses
+frequency and damping ratio, and which :func:`ident.assess.drift.compare_models` uses
 to judge whether a frequency shift is significant.
 
 Only ARX models carry a parameter covariance so far
-(:attr:`ident.arx.ArxResult.covariance`); :func:`arx_pole_covariance` gives
+(:attr:`ident.estimate.arx.ArxResult.covariance`); :func:`arx_pole_covariance` gives
 their pole covariance in the order of ``model.poles()``.
 """
 
@@ -20,9 +20,9 @@ from typing import Any
 
 import numpy as np
 
-from ._validate import as_matrix
-from .errors import OptionError
-from .models import StateSpaceModel
+from .._validate import as_matrix
+from ..errors import OptionError
+from ..lti.models import StateSpaceModel
 
 __all__ = [
     "REPEATED_ROOT_RTOL",
@@ -35,7 +35,7 @@ __all__ = [
 
 #: Roots closer than this fraction of ``max(1, |z|)`` to another root count as
 #: repeated: their first-order covariance is undefined (reported as nan). The
-#: same tolerance as the one :func:`ident.modes.mode_table` merges repeated
+#: same tolerance as the one :func:`ident.assess.modes.mode_table` merges repeated
 #: poles with, so a pole the mode table shows as repeated never carries a
 #: covariance.
 REPEATED_ROOT_RTOL = 1e-5
@@ -170,7 +170,7 @@ def arx_pole_covariance(result: Any, *, model: StateSpaceModel | None = None) ->
 
     Parameters
     ----------
-    result : ident.arx.ArxResult
+    result : ident.estimate.arx.ArxResult
         A fitted ARX model with its parameter covariance.
     model : StateSpaceModel, optional
         A model with the same poles as ``result.model`` (e.g. the same model
@@ -184,7 +184,7 @@ def arx_pole_covariance(result: Any, *, model: StateSpaceModel | None = None) ->
         input-lag states (at ``z = 0``, not roots of any ``A`` polynomial) get
         zero covariance: they are fixed by the structure, not estimated.
         Repeated roots get nan (see :func:`root_jacobian`);
-        :func:`ident.modes.mode_table` treats a nan block as "unknown".
+        :func:`ident.assess.modes.mode_table` treats a nan block as "unknown".
 
     Raises
     ------
@@ -193,7 +193,7 @@ def arx_pole_covariance(result: Any, *, model: StateSpaceModel | None = None) ->
 
     Notes
     -----
-    The realisation of :func:`ident.arx.arx_state_space` is block diagonal
+    The realisation of :func:`ident.estimate.arx.arx_state_space` is block diagonal
     over outputs: block ``i`` has the characteristic polynomial
     ``z^(n_i - na) A_i(z)``. Each root of ``A_i`` carries the covariance that
     :func:`root_covariance` derives from output ``i``'s parameter covariance

@@ -14,10 +14,10 @@ from typing import Any, Literal
 
 import numpy as np
 
-from ._validate import one_of, optional_positive_float, positive_float
+from .._validate import one_of, optional_positive_float, positive_float
+from ..choices import DISCRETIZE_METHODS
+from ..errors import ModelError
 from .analysis import _channel_zeros_gains, _meta, _require_ss
-from .choices import DISCRETIZE_METHODS
-from .errors import ModelError
 from .models import StateSpaceModel
 
 __all__ = [

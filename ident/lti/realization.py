@@ -2,7 +2,7 @@
 
 A realisation changes the state coordinates (or removes states that do not
 matter) without changing the input-output behaviour. Every function returns a
-new :class:`~ident.models.StateSpaceModel` with the same sample time, signal
+new :class:`~ident.lti.models.StateSpaceModel` with the same sample time, signal
 names, units and operating point.
 """
 
@@ -14,10 +14,10 @@ from typing import Any, Literal
 import numpy as np
 from scipy import linalg
 
-from ._validate import as_matrix, one_of
+from .._validate import as_matrix, one_of
+from ..choices import REALIZATIONS
+from ..errors import ModelError, OptionError
 from .analysis import _controllable_staircase, _meta, _require_ss
-from .choices import REALIZATIONS
-from .errors import ModelError, OptionError
 from .models import StateSpaceModel
 
 __all__ = [

@@ -35,21 +35,21 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from ._linalg import block_diag, column_norms, column_sums, solve_upper
-from ._validate import int_in_range, names_tuple, positive_float
+from .._validate import int_in_range, names_tuple, positive_float
+from ..lti._linalg import block_diag, column_norms, column_sums, solve_upper
 from .data import Experiment, as_experiments
 
 if TYPE_CHECKING:
     from .delay import DelayEstimate
-from .errors import (
+from ..errors import (
     IdentificationError,
     IllConditionedWarning,
     OptionError,
     UnstableModelWarning,
 )
-from .models import StateSpaceModel, TransferFunctionModel
+from ..lti.models import StateSpaceModel, TransferFunctionModel
+from ..lti.simulate import all_pole_filter, simulation_inputs
 from .order import CRITERIA, Criteria, best_index, information_criteria
-from .simulate import all_pole_filter, simulation_inputs
 
 __all__ = [
     "SELECTION_RULES",
@@ -113,7 +113,7 @@ class ArxOptions:
         0 leaves an input out.
     nk : int or tuple of int or None, default None
         Input delay in samples per input (0 = direct feed-through). ``None``
-        estimates it per input with :func:`ident.delay.estimate_delay` (the
+        estimates it per input with :func:`ident.estimate.delay.estimate_delay` (the
         smallest delay over the outputs).
     """
 
@@ -237,7 +237,7 @@ class ArxResult:
         Returns
         -------
         numpy.ndarray, shape (N, p)
-            The same as ``ident.simulate.simulate(self.model, u, x0)`` up to
+            The same as ``ident.lti.simulate.simulate(self.model, u, x0)`` up to
             rounding, computed from the difference equations in real
             arithmetic, ``O(N n)`` (a convolution and a banded triangular
             solve per output), which is the fastest way to score a candidate
@@ -719,7 +719,7 @@ def fit_arx(data: Experiment | Sequence[Experiment], sample_time: float,
     module notes); ``cov(theta_i) = sigma_i^2 (R_i^T R_i)^-1`` with ``R_i`` the
     R factor of output ``i``'s regressors, so standard errors equal those of
     ordinary least squares on the explicit regression. For ``nk = None`` the
-    delays come from :func:`ident.delay.estimate_delay`.
+    delays come from :func:`ident.estimate.delay.estimate_delay`.
 
     References
     ----------
@@ -762,7 +762,7 @@ def fit_arx_candidates(data: Experiment | Sequence[Experiment], sample_time: flo
         Sample time in seconds.
     structures : sequence of ArxOptions
         The candidate structures. Those with ``nk=None`` share one delay
-        estimate (:func:`ident.delay.estimate_delay`, the smallest delay over
+        estimate (:func:`ident.estimate.delay.estimate_delay`, the smallest delay over
         the outputs, as in :func:`fit_arx`).
     input_names, output_names : sequence of str, optional
         Signal names for the models and for messages.
@@ -1091,8 +1091,8 @@ def _values(values: Sequence[object], name: str) -> tuple[int, ...]:
 
 def _validation_fit(a, b, nk, model: StateSpaceModel,
                     validation: Sequence[Experiment]) -> np.ndarray:
-    from .diagnostics import fit_percent
-    from .simulate import estimate_initial_state
+    from ..assess.diagnostics import fit_percent
+    from ..lti.simulate import estimate_initial_state
 
     ys, yhats = [], []
     diverged = np.full(validation[0].n_outputs, -np.inf)
@@ -1132,10 +1132,10 @@ def sweep_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
     nk_values : sequence of int, or sequence of sequence of int, optional
         Delays to try: ints apply the same delay to every input; a sequence of
         per-input tuples lists delay vectors explicitly. ``None`` (default)
-        uses the delays from :func:`ident.delay.estimate_delay` only.
+        uses the delays from :func:`ident.estimate.delay.estimate_delay` only.
     validation : Experiment or sequence of Experiment, optional
         Held-out data; each candidate is simulated on it (initial state
-        estimated by :func:`ident.simulate.estimate_initial_state`) and its fit
+        estimated by :func:`ident.lti.simulate.estimate_initial_state`) and its fit
         percent recorded.
     input_names, output_names : sequence of str, optional
         Signal names used in messages.

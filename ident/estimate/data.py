@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validate import as_signal
-from .errors import OptionError
+from .._validate import as_signal
+from ..errors import OptionError
 
 __all__ = ["Experiment", "as_experiments"]
 

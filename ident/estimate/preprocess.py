@@ -33,11 +33,11 @@ from typing import Any, Literal
 
 import numpy as np
 
-from ._linalg import column_sums
-from ._validate import as_signal, did_you_mean, int_in_range, names_tuple, one_of, positive_float
+from .._validate import as_signal, did_you_mean, int_in_range, names_tuple, one_of, positive_float
+from ..errors import OptionError, PipelineError
+from ..lti._linalg import column_sums
+from ..lti.models import OperatingPoint
 from .data import Experiment, as_experiments
-from .errors import OptionError, PipelineError
-from .models import OperatingPoint
 
 __all__ = ["OFFSET_METHODS", "PreprocessOptions", "PreparedData", "prepare"]
 

@@ -19,13 +19,13 @@ from typing import Any
 import numpy as np
 from scipy.optimize import linear_sum_assignment
 
-from ._validate import as_signal, fraction, positive_float
-from .analysis import dc_gain, frequency_response
+from .._validate import as_signal, fraction, positive_float
+from ..errors import OptionError
+from ..lti.analysis import dc_gain, frequency_response
+from ..lti.models import StateSpaceModel
+from ..lti.simulate import estimate_initial_state, simulate
 from .diagnostics import fit_percent
-from .errors import OptionError
-from .models import StateSpaceModel
 from .modes import Mode, mode_table
-from .simulate import estimate_initial_state, simulate
 
 __all__ = [
     "MODE_STATUSES",
@@ -339,7 +339,7 @@ def compare_models(
         Frequencies (log-spaced) in the band.
     baseline_pole_covariance, new_pole_covariance : array_like, shape (n, 2, 2), optional
         Covariance of ``(Re z, Im z)`` of each pole of each model, in
-        ``model.poles()`` order (see :func:`ident.modes.mode_table`; nan blocks
+        ``model.poles()`` order (see :func:`ident.assess.modes.mode_table`; nan blocks
         mean unknown). When both are known, each matched mode gets the
         ``z_score`` of its frequency shift.
 

@@ -1,7 +1,7 @@
 """Engineer-stated expectations about a model, and their checks.
 
 An engineer writes down what the hardware should show; each statement is
-checked against a model's :class:`~ident.modes.ModeTable` and reported as met
+checked against a model's :class:`~ident.assess.modes.ModeTable` and reported as met
 or not, with the measured value. The statements come from a TOML table
 ``[expect]`` (in an expectations file or a pipeline file)::
 
@@ -38,9 +38,9 @@ from typing import Any
 
 import numpy as np
 
-from ._validate import did_you_mean
-from .errors import OptionError, PipelineError
-from .models import StateSpaceModel
+from .._validate import did_you_mean
+from ..errors import OptionError, PipelineError
+from ..lti.models import StateSpaceModel
 from .modes import ModeTable
 
 __all__ = [
@@ -353,7 +353,7 @@ def check_expectations(
     model : StateSpaceModel
         The model (for its order and signal names).
     table : ModeTable
-        Its mode table, from :func:`ident.modes.mode_table`.
+        Its mode table, from :func:`ident.assess.modes.mode_table`.
     expectations : Expectations
         What is expected.
 

@@ -1,7 +1,7 @@
 """Input-delay estimation from the significance of a high-order ARX impulse response.
 
 For each output a high-order ARX model with input lags starting at 0 is fitted
-by least squares (:mod:`ident.arx`). Because the denominator is monic, the
+by least squares (:mod:`ident.estimate.arx`). Because the denominator is monic, the
 first non-zero input coefficient of ``B(q)/A(q)`` equals the first non-zero
 impulse-response coefficient, so the delay of a channel is the first lag whose
 input coefficient is significantly different from zero. The autoregressive
@@ -16,7 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validate import int_in_range, positive_float
+from .._validate import int_in_range, positive_float
+from ..errors import IdentificationError, OptionError
 from .arx import (
     _accumulate_r,
     _blocks_for,
@@ -26,7 +27,6 @@ from .arx import (
     _solve_subset,
 )
 from .data import Experiment, as_experiments
-from .errors import IdentificationError, OptionError
 
 __all__ = ["DELAY_METHOD", "DelayEstimate", "estimate_delay"]
 

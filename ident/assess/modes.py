@@ -19,12 +19,12 @@ from typing import Any
 
 import numpy as np
 
-from ._validate import did_you_mean, fraction, positive_float
-from .analysis import channel_zeros, dc_gain, transmission_zeros
-from .choices import FLAGS
-from .discretize import poles_to_continuous
-from .errors import ModelError, OptionError
-from .models import StateSpaceModel
+from .._validate import did_you_mean, fraction, positive_float
+from ..choices import FLAGS
+from ..errors import ModelError, OptionError
+from ..lti.analysis import channel_zeros, dc_gain, transmission_zeros
+from ..lti.discretize import poles_to_continuous
+from ..lti.models import StateSpaceModel
 
 __all__ = [
     "FLAGS",
@@ -164,7 +164,7 @@ class ModeThresholds:
         ident.errors.PipelineError
             An unknown key (naming the nearest valid one) or a bad value.
         """
-        from .errors import PipelineError
+        from ..errors import PipelineError
 
         valid = tuple(f.name for f in fields(cls))
         if not isinstance(mapping, Mapping):
@@ -459,7 +459,7 @@ def mode_table(
 
     Examples
     --------
-    >>> from ident.models import StateSpaceModel
+    >>> from ident.lti.models import StateSpaceModel
     >>> m = StateSpaceModel(A=[[0.9]], B=[[1.0]], C=[[0.1]], D=[[0.0]], sample_time=0.01)
     >>> t = mode_table(m)
     >>> round(t.modes[0].time_constant_s, 4), round(float(t.dc_gain[0, 0]), 6)

@@ -30,8 +30,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validate import as_signal, fraction, int_in_range, names_tuple, positive_float
-from .errors import OptionError
+from .._validate import as_signal, fraction, int_in_range, names_tuple, positive_float
+from ..errors import OptionError
 
 __all__ = [
     "DEFAULT_RCOND",

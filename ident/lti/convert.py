@@ -1,6 +1,6 @@
 """Conversions between state space and transfer functions, and scipy.signal interop.
 
-Transfer functions follow :mod:`ident.models`: ``num[i][j]``/``den[i][j]`` in
+Transfer functions follow :mod:`ident.lti.models`: ``num[i][j]``/``den[i][j]`` in
 descending powers of z (or s), denominators monic. Every conversion keeps the
 sample time, signal names, units and operating point.
 """
@@ -12,9 +12,9 @@ from typing import Any, Literal
 import numpy as np
 from scipy import linalg
 
-from ._validate import names_tuple, one_of
+from .._validate import names_tuple, one_of
+from ..errors import ModelError, OptionError
 from .analysis import _channel_zeros_gains, _meta, _require_ss
-from .errors import ModelError, OptionError
 from .models import StateSpaceModel, TransferFunctionModel
 from .realization import _canonical, minimal_realization
 
@@ -65,7 +65,7 @@ def ss_to_tf(model: StateSpaceModel) -> TransferFunctionModel:
     order. Here the denominator is built from the eigenvalues of ``A``, and
     each numerator from the channel's zeros and its high-frequency gain (the
     first non-zero Markov parameter), both from an orthogonal deflation of the
-    channel's Rosenbrock pencil (see :func:`ident.analysis.transmission_zeros`)
+    channel's Rosenbrock pencil (see :func:`ident.lti.analysis.transmission_zeros`)
     [1]_. Zeros that cancel poles (modes the channel does not see) are part of
     the numerator. This stays accurate to about order 20 for well-scaled
     models; the polynomial coefficients themselves become ill conditioned
@@ -78,7 +78,7 @@ def ss_to_tf(model: StateSpaceModel) -> TransferFunctionModel:
 
     Examples
     --------
-    >>> from ident.models import StateSpaceModel
+    >>> from ident.lti.models import StateSpaceModel
     >>> m = StateSpaceModel(A=[[0.5]], B=[[1.0]], C=[[2.0]], D=[[1.0]], sample_time=0.1)
     >>> tf = ss_to_tf(m)
     >>> tf.num[0][0].tolist(), tf.den[0][0].tolist()
@@ -112,7 +112,7 @@ def tf_to_ss(model: TransferFunctionModel, *, form: TfToSsForm = "controllable")
         Proper transfer-function matrix.
     form : {"controllable", "observable"}, default "controllable"
         Canonical form of each channel's realisation (see
-        :func:`ident.realization.controllable_form`).
+        :func:`ident.lti.realization.controllable_form`).
 
     Returns
     -------
@@ -122,7 +122,7 @@ def tf_to_ss(model: TransferFunctionModel, *, form: TfToSsForm = "controllable")
         single-input canonical block per input and distinct denominator in its
         column (the outputs of a column that share a denominator share the
         block); for ``observable`` the dual, by rows. The blocks are stacked
-        and reduced by :func:`ident.realization.minimal_realization`, so no
+        and reduced by :func:`ident.lti.realization.minimal_realization`, so no
         uncontrollable or unobservable state remains.
     """
     if not isinstance(model, TransferFunctionModel):
@@ -285,7 +285,7 @@ def tf_from_scipy(
     ----------
     system : scipy.signal.TransferFunction
         SISO, continuous or discrete. (scipy stores discrete transfer
-        functions in descending powers of z, like :mod:`ident.models`.)
+        functions in descending powers of z, like :mod:`ident.lti.models`.)
     inputs, outputs : sequence of str, optional
         One name each; default ``u1`` and ``y1``.
 

@@ -1,0 +1,18 @@
+"""Data preparation and the estimators.
+
+What lives here: experiment records (:mod:`~ident.estimate.data`), offsets,
+detrending, decimation and the estimation/validation split
+(:mod:`~ident.estimate.preprocess`), excitation measures
+(:mod:`~ident.estimate.excitation`), ARX (:mod:`~ident.estimate.arx`), input-delay estimation
+(:mod:`~ident.estimate.delay`), order criteria (:mod:`~ident.estimate.order`),
+subspace identification (:mod:`~ident.estimate.subspace`), parameter to pole
+uncertainty (:mod:`~ident.estimate.uncertainty`) and the top-level
+identification job (:mod:`~ident.estimate.identify`). Modules here may import
+each other (without loops), :mod:`ident.assess`, :mod:`ident.lti` and the
+base modules (:mod:`ident.errors`, :mod:`ident.choices`,
+:mod:`ident._validate`, :mod:`ident._json`), never :mod:`ident.io`,
+:mod:`ident.plots`, the report, the pipeline or the CLI. This ``__init__``
+imports nothing, so ``rigfit fit`` loads only the modules on its path; import
+the names from their modules (``from ident.estimate.identify import
+identify``).
+"""
