@@ -126,9 +126,9 @@ def test_parameters_and_std_errors_equal_statsmodels_ols(rng):
 
 def test_parameters_equal_statsmodels_ols_when_accumulated_in_many_blocks(rng, monkeypatch):
     # the block-by-block R factor gives the same least squares as statsmodels OLS
-    import ident.estimate.arx as arx_module
+    import ident.estimate.regression as regression_module
 
-    monkeypatch.setattr(arx_module, "_BLOCK_VALUES", 2000)  # many small blocks, two experiments
+    monkeypatch.setattr(regression_module, "_BLOCK_VALUES", 2000)  # many small blocks, two experiments
     N = 3000
     u = rng.standard_normal((N, 1))
     y = signal.lfilter([0, 0.8, 0.3], A_TRUE, u[:, 0]) + 0.1 * rng.standard_normal(N)

@@ -3,7 +3,9 @@
 What lives here: experiment records (:mod:`~ident.estimate.data`), offsets,
 detrending, decimation and the estimation/validation split
 (:mod:`~ident.estimate.preprocess`), excitation measures
-(:mod:`~ident.estimate.excitation`), ARX (:mod:`~ident.estimate.arx`), input-delay estimation
+(:mod:`~ident.estimate.excitation`), the lagged least-squares regression
+that ARX and delay estimation share (:mod:`~ident.estimate.regression`), ARX
+(:mod:`~ident.estimate.arx`), input-delay estimation
 (:mod:`~ident.estimate.delay`), order criteria (:mod:`~ident.estimate.order`),
 subspace identification (:mod:`~ident.estimate.subspace`), parameter to pole
 uncertainty (:mod:`~ident.estimate.uncertainty`) and the top-level

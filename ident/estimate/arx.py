@@ -21,7 +21,8 @@ regressors are a subset ``S`` of the columns solves
 ``min ||R[:, t] - R[:, S] theta||`` by a second, tiny QR; its residual vector
 in the R coordinates has the same inner products as the full residual, so
 residual norms and cross-output residual covariances are exact. No normal
-equations are formed anywhere.
+equations are formed anywhere. The accumulation and the subset solve live in
+:mod:`ident.estimate.regression`, which the delay estimator shares.
 """
 
 from __future__ import annotations
@@ -30,26 +31,33 @@ import itertools
 import warnings
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, fields
-from typing import TYPE_CHECKING
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
 from .._validate import int_in_range, names_tuple, positive_float
-from ..lti._linalg import block_diag, column_norms, column_sums, solve_upper
-from .data import Experiment, as_experiments
-
-if TYPE_CHECKING:
-    from .delay import DelayEstimate
 from ..errors import (
     IdentificationError,
     IllConditionedWarning,
     OptionError,
     UnstableModelWarning,
 )
+from ..lti._linalg import block_diag, column_norms, column_sums
 from ..lti.models import StateSpaceModel, TransferFunctionModel
 from ..lti.simulate import all_pole_filter, simulation_inputs
+from .data import Experiment, as_experiments
+from .delay import DelayEstimate, estimate_delay
 from .order import CRITERIA, Criteria, best_index, information_criteria
+from .regression import (
+    RANK_TOL,
+    RegressorBlock,
+    accumulate_r,
+    column_index,
+    fill_rows,
+    lag_blocks,
+    largest_lag,
+    rows_available,
+    solve_subset,
+)
 
 __all__ = [
     "SELECTION_RULES",
@@ -71,18 +79,12 @@ __all__ = [
 #: and the simulation fit on validation data (only when validation data are given).
 SELECTION_RULES = (*CRITERIA, "validation_fit")
 
-#: Below this sine of the angle between a regressor column and the span of the
-#: columns before it, the regression is rank deficient (an error in fit_arx).
-_RANK_TOL = 1e-10
 #: Below this sine, the regression is ill conditioned (a warning in fit_arx).
 _WARN_TOL = 1e-7
 #: A loss below this fraction of the mean square output (per output, multiplied
 #: over outputs) is a numerically exact fit; criteria use this floor instead,
 #: so exact fits tie and the tie goes to the model with fewer parameters.
 _EXACT_FIT_LOSS = 1e-20
-#: Target number of float64 values in one block of regression rows (1 MiB: a
-#: block stays in a core's L2 cache while LAPACK factorises it).
-_BLOCK_VALUES = 1 << 17
 
 
 # --------------------------------------------------------------------------- options
@@ -348,90 +350,6 @@ class ArxSweep:
 # --------------------------------------------------------------------------- regressors
 
 
-@dataclass(frozen=True, slots=True)
-class _Block:
-    """Columns ``sign * x[k - lag]`` for lag = lo..hi of signal ``kind``/``channel``."""
-
-    kind: str  # "u", "y" (a regressor, stored negated) or "t" (a target y[k])
-    channel: int
-    lo: int
-    hi: int
-
-    @property
-    def width(self) -> int:
-        return self.hi - self.lo + 1
-
-
-def _layout(blocks: Sequence[_Block]) -> dict[tuple[str, int, int], int]:
-    index: dict[tuple[str, int, int], int] = {}
-    col = 0
-    for blk in blocks:
-        for lag in range(blk.lo, blk.hi + 1):
-            index[(blk.kind, blk.channel, lag)] = col
-            col += 1
-    return index
-
-
-def _fill(out: np.ndarray, exp: Experiment, blocks: Sequence[_Block], max_lag: int,
-          k0: int, k1: int) -> None:
-    """Write regression rows for samples k0..k1-1 of ``exp`` into ``out``."""
-    col = 0
-    for blk in blocks:
-        x = exp.u[:, blk.channel] if blk.kind == "u" else exp.y[:, blk.channel]
-        w = blk.width
-        win = sliding_window_view(x, w)  # win[t] = x[t .. t+w-1]
-        view = win[k0 - blk.hi:k1 - blk.hi, ::-1]  # row k: x[k-lo], ..., x[k-hi]
-        dest = out[:, col:col + w]
-        if blk.kind == "y":
-            np.negative(view, out=dest)
-        else:
-            dest[...] = view
-        col += w
-
-
-def _accumulate_r(experiments: Sequence[Experiment], blocks: Sequence[_Block],
-                  max_lag: int, max_rows: int | None = None) -> tuple[np.ndarray, int]:
-    """R factor (c x c) of the regression rows with targets; and the row count.
-
-    With ``max_rows``, only the first ``max_rows`` rows (in experiment order) are used.
-    Each block of rows is written under the R factor so far into one buffer,
-    which is factorised (Householder QR, R only); the working memory is one
-    block whatever the length of the log.
-    """
-    c = sum(b.width for b in blocks)
-    chunk = max(8 * c, _BLOCK_VALUES // max(c, 1))
-    tasks: list[tuple[Experiment, int, int]] = []
-    total = 0
-    for exp in experiments:
-        for k0 in range(max_lag, exp.n_samples, chunk):
-            k1 = min(exp.n_samples, k0 + chunk)
-            if max_rows is not None:
-                k1 = min(k1, k0 + max_rows - total)
-                if k1 <= k0:
-                    break
-            tasks.append((exp, k0, k1))
-            total += k1 - k0
-    R = _absorb_rows(tasks, blocks, max_lag, c)
-    out = np.zeros((c, c))
-    out[:R.shape[0]] = R
-    return out, total
-
-
-def _absorb_rows(tasks: Sequence[tuple[Experiment, int, int]], blocks: Sequence[_Block],
-                 max_lag: int, c: int) -> np.ndarray:
-    """R factor (at most c x c) of the rows of ``tasks`` (experiment, first row, end row)."""
-    R = np.zeros((0, c))
-    buf = np.empty((0, c))
-    for exp, k0, k1 in tasks:
-        have = R.shape[0]
-        if buf.shape[0] != have + k1 - k0:
-            buf = np.empty((have + k1 - k0, c))
-        buf[:have] = R
-        _fill(buf[have:], exp, blocks, max_lag, k0, k1)
-        R = np.linalg.qr(buf, mode="r")  # min(c, rows so far) x c, upper triangular
-    return R
-
-
 def arx_regressors(data: Experiment | Sequence[Experiment], na: int, nb: Sequence[int],
                    nk: Sequence[int], output: int = 0) -> tuple[np.ndarray, np.ndarray]:
     """Build the explicit ARX regression ``y_i = Phi theta + e`` of one output.
@@ -464,14 +382,14 @@ def arx_regressors(data: Experiment | Sequence[Experiment], na: int, nb: Sequenc
     nb_t = _per_input(tuple(_order(v, "nb") for v in nb), "nb", m)
     nk_t = _per_input(tuple(_order(v, "nk") for v in nk), "nk", m)
     output = int_in_range(output, "output", 0, p - 1)
-    blocks = _blocks_for(na, nb_t, nk_t, [output], u_first=False)
-    L = _max_lag(na, nb_t, nk_t)
+    blocks = lag_blocks(na, nb_t, nk_t, [output], u_first=False)
+    L = largest_lag(na, nb_t, nk_t)
     parts = []
     for exp in exps:
         if exp.n_samples <= L:
             continue
         out = np.empty((exp.n_samples - L, sum(b.width for b in blocks)))
-        _fill(out, exp, blocks, L, L, exp.n_samples)
+        fill_rows(out, exp, blocks, L, L, exp.n_samples)
         parts.append(out)
     if not parts:
         raise OptionError(f"no experiment is longer than the largest lag {L}")
@@ -479,51 +397,7 @@ def arx_regressors(data: Experiment | Sequence[Experiment], na: int, nb: Sequenc
     return full[:, :-1], full[:, -1]
 
 
-def _blocks_for(na: int, nb: Sequence[int], nk: Sequence[int], outputs: Sequence[int],
-                *, u_first: bool = True) -> list[_Block]:
-    ublocks = [_Block("u", j, nk[j], nk[j] + nb[j] - 1) for j in range(len(nb)) if nb[j] > 0]
-    yblocks = [_Block("y", i, 1, na) for i in outputs] if na > 0 else []
-    tblocks = [_Block("t", i, 0, 0) for i in outputs]
-    return (ublocks + yblocks if u_first else yblocks + ublocks) + tblocks
-
-
-def _max_lag(na: int, nb: Sequence[int], nk: Sequence[int]) -> int:
-    lags = [na] + [nk[j] + nb[j] - 1 for j in range(len(nb)) if nb[j] > 0]
-    return max(lags)
-
-
 # --------------------------------------------------------------------------- solving
-
-
-@dataclass(frozen=True, slots=True, eq=False)
-class _Solution:
-    theta: np.ndarray  # in column order of the subset
-    residual: np.ndarray  # residual in R coordinates (length c)
-    rinv: np.ndarray | None  # inverse of the small R factor (None when deficient)
-    sines: np.ndarray  # per column: sine of angle to the span of the earlier columns
-
-
-def _solve_subset(R: np.ndarray, cols: Sequence[int], target: int, *,
-                  covariance: bool = True) -> _Solution:
-    M = R[:, cols]
-    r = R[:, target]
-    if M.shape[1] == 0:
-        return _Solution(np.zeros(0), r.copy(), np.zeros((0, 0)), np.ones(0))
-    Qs, Rs = np.linalg.qr(M, mode="reduced")
-    norms = np.linalg.norm(M, axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        sines = np.where(norms > 0, np.abs(np.diag(Rs)) / norms, 0.0)
-    if np.min(sines) < _RANK_TOL:
-        theta, *_ = np.linalg.lstsq(M, r, rcond=None)  # LAPACK gelsd, minimum norm
-        rinv = None
-    else:
-        if covariance:
-            rinv = solve_upper(Rs, np.eye(Rs.shape[0]))
-            theta = solve_upper(Rs, Qs.T @ r)
-        else:
-            rinv = np.zeros((0, 0))  # not asked for; not None means "full rank"
-            theta = solve_upper(Rs, Qs.T @ r)
-    return _Solution(theta, r - M @ theta, rinv, sines)
 
 
 def _column_label(key: tuple[str, int, int], in_names: Sequence[str],
@@ -670,10 +544,6 @@ def _check_outputs_are_not_inputs(experiments: Sequence[Experiment], in_names: S
                     f"offset (correlation 1); there is no dynamics to identify",
                     hint="check the --input/--output column choice",
                 )
-
-
-def _rows_available(experiments: Sequence[Experiment], max_lag: int) -> int:
-    return sum(max(0, e.n_samples - max_lag) for e in experiments)
 
 
 def fit_arx(data: Experiment | Sequence[Experiment], sample_time: float,
@@ -855,8 +725,6 @@ def iter_arx_candidates(data: Experiment | Sequence[Experiment], sample_time: fl
     delay = None
     estimated_nk = None
     if any(nk is None for _, nk in resolved):
-        from .delay import estimate_delay
-
         delay = estimate_delay(experiments)
         estimated_nk = tuple(int(v) for v in delay.delays.min(axis=0))
     plans = []
@@ -884,12 +752,12 @@ def _plan(experiments: Sequence[Experiment], options: ArxOptions, nb: tuple[int,
     na = options.na
     d_out = na + sum(nb)
     label = _label(na, nb, nk)
-    L = _max_lag(na, nb, nk)
+    L = largest_lag(na, nb, nk)
     error = None
     if d_out == 0:
         error = OptionError(f"{label} has no parameters; set na > 0 or some nb > 0")
     else:
-        n_rows = _rows_available(experiments, L)
+        n_rows = rows_available(experiments, L)
         if n_rows <= d_out:
             total = sum(e.n_samples for e in experiments)
             error = OptionError(
@@ -905,18 +773,18 @@ def _label(na: int, nb: Sequence[int], nk: Sequence[int]) -> str:
     return f"ARX(na={na}, nb={list(nb)}, nk={list(nk)})"
 
 
-def _union_blocks(plans: Sequence[_Plan], m: int, p: int) -> tuple[list[_Block], int]:
+def _union_blocks(plans: Sequence[_Plan], m: int, p: int) -> tuple[list[RegressorBlock], int]:
     """Blocks holding every column of every plan (inputs, outputs, targets); the largest lag."""
     blocks = []
     for j in range(m):
         used = [pl for pl in plans if pl.nb[j] > 0]
         if used:
-            blocks.append(_Block("u", j, min(pl.nk[j] for pl in used),
+            blocks.append(RegressorBlock("u", j, min(pl.nk[j] for pl in used),
                                  max(pl.nk[j] + pl.nb[j] - 1 for pl in used)))
     na_max = max(pl.na for pl in plans)
     if na_max > 0:
-        blocks += [_Block("y", i, 1, na_max) for i in range(p)]
-    blocks += [_Block("t", i, 0, 0) for i in range(p)]
+        blocks += [RegressorBlock("y", i, 1, na_max) for i in range(p)]
+    blocks += [RegressorBlock("t", i, 0, 0) for i in range(p)]
     return blocks, max(pl.max_lag for pl in plans)
 
 
@@ -930,8 +798,8 @@ def _candidates(experiments, sample_time, plans, p, in_names, out_names) -> Iter
             reach = next((q for q in range(k, len(plans)) if plans[q].error is not None),
                          len(plans))
             blocks, L = _union_blocks(plans[k:reach], experiments[0].n_inputs, p)
-            index = _layout(blocks)
-            R, n_rows = _accumulate_r(experiments, blocks, L)
+            index = column_index(blocks)
+            R, n_rows = accumulate_r(experiments, blocks, L)
             union = (R, index, n_rows, L)
         R_s, index_s, rows_s = _restrict(union, experiments, plan, p)
         yield _result_from_r(R_s, index_s, rows_s, plan, sample_time, in_names, out_names)
@@ -941,15 +809,15 @@ def _restrict(union, experiments: Sequence[Experiment], plan: _Plan,
               p: int) -> tuple[np.ndarray, dict[tuple[str, int, int], int], int]:
     """R factor of one plan's own regression (its columns, from its own largest lag on)."""
     R, index, n_rows, L = union
-    blocks = _blocks_for(plan.na, plan.nb, plan.nk, range(p), u_first=True)
-    own = _layout(blocks)
+    blocks = lag_blocks(plan.na, plan.nb, plan.nk, range(p), u_first=True)
+    own = column_index(blocks)
     cols = [index[key] for key in sorted(own, key=own.__getitem__)]
     extra = []
     for exp in experiments:
         k1 = min(exp.n_samples, L)
         if k1 > plan.max_lag:  # rows this plan has but the union does not
             rows = np.empty((k1 - plan.max_lag, len(cols)))
-            _fill(rows, exp, blocks, plan.max_lag, plan.max_lag, k1)
+            fill_rows(rows, exp, blocks, plan.max_lag, plan.max_lag, k1)
             extra.append(rows)
     if not extra and cols == list(range(R.shape[1])):
         return R, own, n_rows
@@ -976,7 +844,7 @@ def _result_from_r(R: np.ndarray, index: dict[tuple[str, int, int], int], n_rows
         ukeys = [("u", j, lag) for j in range(m) for lag in range(nk[j], nk[j] + nb[j])]
         ykeys = [("y", i, lag) for lag in range(1, na + 1)]
         keys = ukeys + ykeys  # factorisation order: inputs first (names the culprit)
-        sol = _solve_subset(R, [index[k] for k in keys], index[("t", i, 0)])
+        sol = solve_subset(R, [index[k] for k in keys], index[("t", i, 0)])
         bad = int(np.argmin(sol.sines))
         if sol.rinv is None:
             culprit = keys[bad]
@@ -991,7 +859,7 @@ def _result_from_r(R: np.ndarray, index: dict[tuple[str, int, int], int], n_rows
             raise IdentificationError(
                 f"{label} for output {out_names[i]!r}: regressor {what} is a linear "
                 f"combination of the earlier ones (sine of angle {sol.sines[bad]:.1e} < "
-                f"{_RANK_TOL:g}): {reason}",
+                f"{RANK_TOL:g}): {reason}",
                 hint=hint,
             )
         if sol.sines[bad] < _WARN_TOL and (worst is None or sol.sines[bad] < worst[0]):
@@ -1186,8 +1054,6 @@ def sweep_arx(data: Experiment | Sequence[Experiment], sample_time: float, *,
                                   names_tuple(output_names, "output_names", p, "y"))
     delay = None
     if nk_values is None:
-        from .delay import estimate_delay
-
         delay = estimate_delay(experiments)
         nk_vecs = (tuple(int(v) for v in delay.delays.min(axis=0)),)
     else:
@@ -1328,21 +1194,21 @@ def _grid(experiments: Sequence[Experiment], sample_time: float, na_vals: tuple[
     lo = [min(v[j] for v in nk_vecs) for j in range(m)]
     hi = [max(v[j] for v in nk_vecs) + max(nb_vals) - 1 for j in range(m)]
     na_max = max(na_vals)
-    blocks = [_Block("u", j, lo[j], hi[j]) for j in range(m) if hi[j] >= lo[j]]
+    blocks = [RegressorBlock("u", j, lo[j], hi[j]) for j in range(m) if hi[j] >= lo[j]]
     if na_max > 0:
-        blocks += [_Block("y", i, 1, na_max) for i in range(p)]
-    blocks += [_Block("t", i, 0, 0) for i in range(p)]
-    index = _layout(blocks)
+        blocks += [RegressorBlock("y", i, 1, na_max) for i in range(p)]
+    blocks += [RegressorBlock("t", i, 0, 0) for i in range(p)]
+    index = column_index(blocks)
     L = max([na_max] + hi)
     d_max = na_max + m * max(nb_vals)
-    n_rows = _rows_available(experiments, L)
+    n_rows = rows_available(experiments, L)
     if n_rows <= d_max:
         raise OptionError(
             f"the largest candidate has {d_max} parameters per output but the data give only "
             f"{n_rows} regression rows (samples minus the largest lag {L} per experiment)",
             hint="shrink na_values/nb_values/nk_values or use a longer log",
         )
-    R, n_rows = _accumulate_r(experiments, blocks, L)
+    R, n_rows = accumulate_r(experiments, blocks, L)
     tnorm2 = np.array([np.sum(R[:, index[("t", i, 0)]] ** 2) for i in range(p)])
 
     rows: list[ArxCandidate] = []
@@ -1355,7 +1221,7 @@ def _grid(experiments: Sequence[Experiment], sample_time: float, na_vals: tuple[
         for i in range(p):
             ukeys = [("u", j, lag) for j in range(m) for lag in range(nk[j], nk[j] + nb1)]
             ykeys = [("y", i, lag) for lag in range(1, na + 1)]
-            sol = _solve_subset(R, [index[k] for k in ukeys + ykeys], index[("t", i, 0)],
+            sol = solve_subset(R, [index[k] for k in ukeys + ykeys], index[("t", i, 0)],
                                 covariance=False)
             deficient |= sol.rinv is None
             perm = np.r_[np.arange(len(ukeys), len(ukeys) + len(ykeys)), np.arange(len(ukeys))]

@@ -1,10 +1,10 @@
 """Input-delay estimation from the significance of a high-order ARX impulse response.
 
 For each output a high-order ARX model with input lags starting at 0 is fitted
-by least squares (:mod:`ident.estimate.arx`). Because the denominator is monic, the
-first non-zero input coefficient of ``B(q)/A(q)`` equals the first non-zero
-impulse-response coefficient, so the delay of a channel is the first lag whose
-input coefficient is significantly different from zero. The autoregressive
+by least squares (:mod:`ident.estimate.regression`). Because the denominator
+is monic, the first non-zero input coefficient of ``B(q)/A(q)`` equals the
+first non-zero impulse-response coefficient, so the delay of a channel is the
+first lag whose input coefficient is significantly different from zero. The autoregressive
 part whitens coloured disturbances, which keeps the ordinary least-squares
 standard errors meaningful.
 """
@@ -18,15 +18,8 @@ import numpy as np
 
 from .._validate import int_in_range, positive_float
 from ..errors import IdentificationError, OptionError
-from .arx import (
-    _accumulate_r,
-    _blocks_for,
-    _layout,
-    _max_lag,
-    _rows_available,
-    _solve_subset,
-)
 from .data import Experiment, as_experiments
+from .regression import accumulate_r, column_index, lag_blocks, largest_lag, rows_available, solve_subset
 
 __all__ = ["DELAY_METHOD", "DelayEstimate", "estimate_delay"]
 
@@ -144,8 +137,8 @@ def estimate_delay(data: Experiment | Sequence[Experiment], *, max_delay: int = 
 
     while True:
         d_out = ar + m * fir
-        L = _max_lag(ar, nb, nk)
-        rows = _rows_available(experiments, L)
+        L = largest_lag(ar, nb, nk)
+        rows = rows_available(experiments, L)
         if max_rows is not None:
             rows = min(rows, max_rows)
         if rows <= d_out:
@@ -157,14 +150,14 @@ def estimate_delay(data: Experiment | Sequence[Experiment], *, max_delay: int = 
                 f"coefficients for each of {m} input(s)); the data give {rows}",
                 hint="lower max_delay/fir_order or use a longer log",
             )
-        blocks = _blocks_for(ar, nb, nk, range(p), u_first=True)
-        index = _layout(blocks)
-        R, rows = _accumulate_r(experiments, blocks, L, max_rows)
+        blocks = lag_blocks(ar, nb, nk, range(p), u_first=True)
+        index = column_index(blocks)
+        R, rows = accumulate_r(experiments, blocks, L, max_rows)
         sols = []
         for i in range(p):
             keys = [("u", j, lag) for j in range(m) for lag in range(fir)]
             keys += [("y", i, lag) for lag in range(1, ar + 1)]
-            sols.append(_solve_subset(R, [index[k] for k in keys], index[("t", i, 0)]))
+            sols.append(solve_subset(R, [index[k] for k in keys], index[("t", i, 0)]))
         if all(s.rinv is not None for s in sols):
             break
         if ar == 0:
