@@ -2,7 +2,8 @@
 
 All functions take a :class:`~ident.lti.models.StateSpaceModel`, continuous
 (``sample_time is None``) or discrete, and return plain arrays or frozen result
-dataclasses. Nothing here changes the model.
+dataclasses. Nothing here changes the model. The orthogonal deflations behind
+the zeros and gains live in :mod:`ident.lti.zeros`.
 """
 
 from __future__ import annotations
@@ -15,7 +16,8 @@ import numpy as np
 
 from .._validate import as_signal, int_in_range, optional_positive_float
 from ..errors import OptionError
-from .models import StateSpaceModel
+from .models import StateSpaceModel, require_state_space
+from .zeros import channel_zeros_gains, invariant_zeros, siso_zeros_gain, system_tolerance
 
 __all__ = [
     "TimeResponse",
@@ -27,169 +29,11 @@ __all__ = [
     "impulse_response",
 ]
 
-_EPS = np.finfo(float).eps
-
-#: Safety factor on machine precision used in rank decisions.
-_RANK_FACTOR = 1e3
-
 #: Default number of grid points for continuous-time responses.
 _CONTINUOUS_GRID = 1000
 
 #: Bounds on the automatically chosen number of samples of a discrete response.
 _AUTO_SAMPLES = (20, 10000)
-
-
-def _require_ss(model: Any, name: str = "model") -> StateSpaceModel:
-    if not isinstance(model, StateSpaceModel):
-        raise OptionError(f"{name} must be a StateSpaceModel; got {type(model).__name__}")
-    return model
-
-
-def _meta(model: Any) -> dict[str, Any]:
-    """Names, units and operating point of a model, to carry over to a result."""
-    return {
-        "inputs": model.inputs,
-        "outputs": model.outputs,
-        "input_units": model.input_units,
-        "output_units": model.output_units,
-        "operating_point": model.operating_point,
-    }
-
-
-def _system_tol(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray) -> float:
-    n = A.shape[0]
-    p, m = D.shape
-    scale = max(
-        1.0,
-        np.linalg.norm(A, 2) if A.size else 0.0,
-        np.linalg.norm(B, 2) if B.size else 0.0,
-        np.linalg.norm(C, 2) if C.size else 0.0,
-        np.linalg.norm(D, 2) if D.size else 0.0,
-    )
-    return _RANK_FACTOR * max(n + p, n + m, 1) * _EPS * scale
-
-
-def _controllable_staircase(
-    A: np.ndarray, B: np.ndarray, tol: float
-) -> tuple[np.ndarray, int]:
-    """Orthogonal controllability staircase.
-
-    Returns ``(Q, nc)`` with ``Q`` orthogonal such that ``Q.T @ A @ Q`` is
-    ``[[Ac, *], [0, Au]]`` and ``Q.T @ B`` is ``[[Bc], [0]]``, where ``(Ac, Bc)``
-    (``nc`` states) is controllable and ``Au`` holds the uncontrollable modes.
-    Ranks are decided by singular values above ``tol``.
-    """
-    n = A.shape[0]
-    Q = np.eye(n)
-    Aw = A.copy()
-    nc = 0
-    Bk = B.copy()
-    while nc < n and Bk.size:
-        U, s, _ = np.linalg.svd(Bk, full_matrices=True)
-        r = int(np.sum(s > tol))
-        if r == 0:
-            break
-        Aw[nc:, :] = U.T @ Aw[nc:, :]
-        Aw[:, nc:] = Aw[:, nc:] @ U
-        Q[:, nc:] = Q[:, nc:] @ U
-        Bk = Aw[nc + r :, nc : nc + r]
-        nc += r
-    return Q, nc
-
-
-def _unobservable_eigenvalues(A: np.ndarray, C: np.ndarray, tol: float) -> np.ndarray:
-    Q, no = _controllable_staircase(A.T, C.T, tol)
-    Au = (Q.T @ A.T @ Q)[no:, no:]
-    return np.linalg.eigvals(Au) if Au.size else np.zeros(0, dtype=complex)
-
-
-def _invariant_zeros(
-    A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray, tol: float
-) -> np.ndarray:
-    """Zeros of the Rosenbrock pencil by orthogonal deflation of its infinite part.
-
-    Each step removes either the invertible part of the feedthrough (solving for
-    those inputs) or, when the feedthrough is zero, one block of states driven
-    directly by the inputs (which turn into the inputs of a smaller system).
-    What remains is a square pencil with no infinite eigenvalues, whose
-    eigenvalues are the finite zeros, so no huge spurious zeros appear.
-    """
-    p, m = D.shape
-    if m > p:  # zeros of the dual system are the same
-        A, B, C, D = A.T, C.T, B.T, D.T
-        p, m = m, p
-    A, B, C, D = (np.array(x, dtype=float) for x in (A, B, C, D))
-    while True:
-        n = A.shape[0]
-        if D.size:
-            U, s, Vt = np.linalg.svd(D, full_matrices=True)
-            r = int(np.sum(s > tol))
-        else:
-            r = 0
-        if r:
-            V = Vt.T
-            Ct = U.T @ C
-            Bt = B @ V
-            A = A - Bt[:, :r] @ (Ct[:r] / s[:r, None])
-            B, C = Bt[:, r:], Ct[r:]
-            p, m = p - r, m - r
-            D = np.zeros((p, m))
-        if n == 0:
-            return np.zeros(0, dtype=complex)
-        if m == 0:
-            if p == 0:
-                return np.linalg.eigvals(A)
-            return _unobservable_eigenvalues(A, C, tol)
-        U, s, Vt = np.linalg.svd(B, full_matrices=True)
-        k = int(np.sum(s > tol))
-        if k == 0:
-            return _unobservable_eigenvalues(A, C, tol)
-        # inputs in the null space of B act on nothing: drop them (normal rank)
-        Q = np.concatenate([U[:, k:], U[:, :k]], axis=1)
-        At = Q.T @ A @ Q
-        Ct = C @ Q
-        A, B = At[: n - k, : n - k], At[: n - k, n - k :]
-        C, D = Ct[:, : n - k], Ct[:, n - k :]
-        m = k
-
-
-def _siso_zeros_gain(
-    A: np.ndarray, b: np.ndarray, c: np.ndarray, d: float, tol: float
-) -> tuple[np.ndarray, float]:
-    """Finite zeros and high-frequency gain of ``c (sI - A)^-1 b + d``.
-
-    The gain is the leading numerator coefficient (first non-zero Markov
-    parameter). It is accumulated through the deflation of
-    :func:`_invariant_zeros` with Householder reflections; a zero channel gives
-    ``(empty, 0.0)``.
-    """
-    A = np.array(A, dtype=float)
-    b = np.array(b, dtype=float).ravel()
-    c = np.array(c, dtype=float).ravel()
-    d = float(d)
-    gain = 1.0
-    while True:
-        n = A.shape[0]
-        if abs(d) > tol:
-            if n == 0:
-                return np.zeros(0, dtype=complex), gain * d
-            return np.linalg.eigvals(A - np.outer(b, c) / d), gain * d
-        if n == 0:
-            return np.zeros(0, dtype=complex), 0.0
-        beta = float(np.linalg.norm(b))
-        if beta <= tol:
-            return np.zeros(0, dtype=complex), 0.0
-        sign = 1.0 if b[-1] >= 0 else -1.0
-        sigma = -sign * beta
-        v = b.copy()
-        v[-1] -= sigma
-        v /= np.linalg.norm(v)
-        H = np.eye(n) - 2.0 * np.outer(v, v)
-        At = H @ A @ H
-        ct = c @ H
-        gain *= sigma
-        A, b = At[:-1, :-1], At[:-1, -1]
-        c, d = ct[:-1], float(ct[-1])
 
 
 def transmission_zeros(model: StateSpaceModel) -> np.ndarray:
@@ -238,9 +82,9 @@ def transmission_zeros(model: StateSpaceModel) -> np.ndarray:
     >>> transmission_zeros(m).real.round(6).tolist()   # (2s + 3)/((s+1)(s+2))
     [-1.5]
     """
-    _require_ss(model)
-    tol = _system_tol(model.A, model.B, model.C, model.D)
-    z = _invariant_zeros(model.A, model.B, model.C, model.D, tol)
+    require_state_space(model)
+    tol = system_tolerance(model.A, model.B, model.C, model.D)
+    z = invariant_zeros(model.A, model.B, model.C, model.D, tol)
     z = np.asarray(z, dtype=complex)
     return z[np.lexsort((z.imag, z.real))]
 
@@ -281,7 +125,7 @@ def dc_gain(model: StateSpaceModel) -> np.ndarray:
     >>> dc_gain(integ).tolist()
     [[-inf]]
     """
-    _require_ss(model)
+    require_state_space(model)
     z0 = _evaluation_point(model)
     A, B, C, D = model.A, model.B, model.C, model.D
     n = model.n_states
@@ -291,7 +135,7 @@ def dc_gain(model: StateSpaceModel) -> np.ndarray:
     near = 1e-10 * max(1.0, float(np.linalg.norm(A, 2)))
     if not np.any(np.abs(poles - z0) <= near):
         return (C @ np.linalg.solve(z0.real * np.eye(n) - A, B) + D).real
-    tol = _system_tol(A, B, C, D)
+    tol = system_tolerance(A, B, C, D)
     out = np.empty(D.shape)
     for i in range(model.n_outputs):
         for j in range(model.n_inputs):
@@ -325,22 +169,12 @@ def channel_zeros(model: StateSpaceModel) -> tuple[tuple[np.ndarray | None, ...]
         raise OptionError(f"model must be a StateSpaceModel; got {type(model).__name__}")
     return tuple(
         tuple(np.asarray(zeros, dtype=complex) if gain != 0.0 else None for zeros, gain in row)
-        for row in _channel_zeros_gains(model)
+        for row in channel_zeros_gains(model)
     )
 
 
-def _channel_zeros_gains(model: StateSpaceModel) -> list[list[tuple[np.ndarray, float]]]:
-    """``(zeros, gain)`` of every channel ``G_ij`` (see :func:`_siso_zeros_gain`), as ``[i][j]``."""
-    A, B, C, D = model.A, model.B, model.C, model.D
-    tol = _system_tol(A, B, C, D)
-    return [
-        [_siso_zeros_gain(A, B[:, j], C[i], D[i, j], tol) for j in range(model.n_inputs)]
-        for i in range(model.n_outputs)
-    ]
-
-
 def _channel_dc_gain(poles, A, b, c, d, z0, near, tol) -> float:
-    zeros, gain = _siso_zeros_gain(A, b, c, d, tol)
+    zeros, gain = siso_zeros_gain(A, b, c, d, tol)
     if gain == 0.0:
         return 0.0
     poles = list(poles)
@@ -422,7 +256,7 @@ def frequency_response(model: StateSpaceModel, frequencies_hz: Any) -> np.ndarra
     .. [1] A. J. Laub, "Efficient multivariable frequency response
        computations", IEEE Trans. Automatic Control 26(2), 407-408, 1981.
     """
-    _require_ss(model)
+    require_state_space(model)
     f = as_signal(np.atleast_1d(frequencies_hz), "frequencies_hz", ndim=1)
     if np.any(f < 0):
         raise OptionError("frequencies_hz must be >= 0; got a negative frequency")
@@ -563,7 +397,7 @@ def step_response(
     """
     from .simulate import simulate
 
-    _require_ss(model)
+    require_state_space(model)
     time, dt = _grid(model, n_samples, duration_s)
     dm = _sampled(model, dt)
     N, p, m = time.size, model.n_outputs, model.n_inputs
@@ -601,7 +435,7 @@ def impulse_response(
     """
     from .simulate import simulate
 
-    _require_ss(model)
+    require_state_space(model)
     time, dt = _grid(model, n_samples, duration_s)
     N, p, m = time.size, model.n_outputs, model.n_inputs
     values = np.empty((N, p, m))

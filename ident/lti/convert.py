@@ -10,13 +10,12 @@ from __future__ import annotations
 from typing import Any, Literal
 
 import numpy as np
-from scipy import linalg
 
 from .._validate import names_tuple, one_of
 from ..errors import ModelError, OptionError
-from .analysis import _channel_zeros_gains, _meta, _require_ss
-from .models import StateSpaceModel, TransferFunctionModel
-from .realization import _canonical, minimal_realization
+from .models import StateSpaceModel, TransferFunctionModel, require_state_space, signal_metadata
+from .realization import canonical_matrices, minimal_realization
+from .zeros import channel_polynomials
 
 __all__ = [
     "TF_TO_SS_FORMS",
@@ -34,13 +33,6 @@ TF_TO_SS_FORMS = ("controllable", "observable")
 _MIMO_RTOL = 1e-8
 
 TfToSsForm = Literal["controllable", "observable"]
-
-
-def _poly_from_roots(roots: np.ndarray) -> np.ndarray:
-    """Real monic polynomial with the given (conjugate-closed) roots."""
-    if roots.size == 0:
-        return np.ones(1)
-    return np.real(np.poly(roots))
 
 
 def ss_to_tf(model: StateSpaceModel) -> TransferFunctionModel:
@@ -65,9 +57,9 @@ def ss_to_tf(model: StateSpaceModel) -> TransferFunctionModel:
     order. Here the denominator is built from the eigenvalues of ``A``, and
     each numerator from the channel's zeros and its high-frequency gain (the
     first non-zero Markov parameter), both from an orthogonal deflation of the
-    channel's Rosenbrock pencil (see :func:`ident.lti.analysis.transmission_zeros`)
-    [1]_. Zeros that cancel poles (modes the channel does not see) are part of
-    the numerator. This stays accurate to about order 20 for well-scaled
+    channel's Rosenbrock pencil (see :func:`ident.lti.analysis.transmission_zeros`;
+    the algebra is in :mod:`ident.lti.zeros`) [1]_. Zeros that cancel poles
+    (modes the channel does not see) are part of the numerator. This stays accurate to about order 20 for well-scaled
     models; the polynomial coefficients themselves become ill conditioned
     beyond that, whatever the method.
 
@@ -84,22 +76,10 @@ def ss_to_tf(model: StateSpaceModel) -> TransferFunctionModel:
     >>> tf.num[0][0].tolist(), tf.den[0][0].tolist()
     ([1.0, 1.5], [1.0, -0.5])
     """
-    _require_ss(model)
-    den = _poly_from_roots(linalg.eigvals(model.A)) if model.n_states else np.ones(1)
-    nums, dens = [], []
-    for channels in _channel_zeros_gains(model):
-        nrow, drow = [], []
-        for zeros, gain in channels:
-            if gain == 0.0:
-                num = np.zeros(1)
-            else:
-                num = gain * _poly_from_roots(zeros)
-            nrow.append(num)
-            drow.append(den)
-        nums.append(nrow)
-        dens.append(drow)
+    require_state_space(model)
+    nums, dens = channel_polynomials(model)
     return TransferFunctionModel(
-        num=nums, den=dens, sample_time=model.sample_time, **_meta(model)
+        num=nums, den=dens, sample_time=model.sample_time, **signal_metadata(model)
     )
 
 
@@ -129,9 +109,9 @@ def tf_to_ss(model: TransferFunctionModel, *, form: TfToSsForm = "controllable")
         raise OptionError(f"model must be a TransferFunctionModel; got {type(model).__name__}")
     one_of(form, "form", TF_TO_SS_FORMS)
     p, m = model.n_outputs, model.n_inputs
-    meta = _meta(model)
+    meta = signal_metadata(model)
     if p == 1 and m == 1:
-        A, B, C, D = _canonical(model.num[0][0], model.den[0][0], form)
+        A, B, C, D = canonical_matrices(model.num[0][0], model.den[0][0], form)
         return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=model.sample_time, **meta)
     # fewer inputs than outputs: one single-input block per input and distinct
     # denominator in its column (controllable structure); otherwise the dual,
@@ -142,10 +122,10 @@ def tf_to_ss(model: TransferFunctionModel, *, form: TfToSsForm = "controllable")
     for fixed, den, members in groups:
         # SIMO controllable (or MISO observable) canonical form with common den
         nd = den.size - 1
-        A0, B0, _, _ = _canonical(np.zeros(1), den, "controllable")
+        A0, B0, _, _ = canonical_matrices(np.zeros(1), den, "controllable")
         rows = []
         for other, num in members:
-            _, _, Cx, Dx = _canonical(num, den, "controllable")
+            _, _, Cx, Dx = canonical_matrices(num, den, "controllable")
             rows.append((other, Cx[0], Dx[0, 0]))
         realised.append((fixed, nd, A0, B0[:, 0], rows))
     n = sum(r[1] for r in realised)

@@ -17,8 +17,8 @@ import numpy as np
 from .._validate import one_of, optional_positive_float, positive_float
 from ..choices import DISCRETIZE_METHODS
 from ..errors import ModelError
-from .analysis import _channel_zeros_gains, _meta, _require_ss
-from .models import StateSpaceModel
+from .models import StateSpaceModel, TransferFunctionModel, require_state_space, signal_metadata
+from .zeros import channel_zeros_gains
 
 __all__ = [
     "DISCRETIZE_METHODS",
@@ -121,7 +121,7 @@ def _tustin_constant(sample_time: float, prewarp_hz: float | None) -> float:
 
 
 def _new(model: StateSpaceModel, A, B, C, D, sample_time) -> StateSpaceModel:
-    return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=sample_time, **_meta(model))
+    return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=sample_time, **signal_metadata(model))
 
 
 def to_discrete(
@@ -183,7 +183,7 @@ def to_discrete(
        equivalents: ZOH, FOH/triangle hold, Tustin with pre-warping, matched
        pole-zero).
     """
-    _require_ss(model)
+    require_state_space(model)
     T = positive_float(sample_time, "sample_time")
     one_of(method, "method", DISCRETIZE_METHODS)
     prewarp_hz = optional_positive_float(prewarp_hz, "prewarp_hz")
@@ -277,7 +277,7 @@ def to_continuous(
     .. [1] G. F. Franklin, J. D. Powell and M. L. Workman, *Digital Control of
        Dynamic Systems*, 3rd ed., Addison-Wesley, 1998, Chapter 6.
     """
-    _require_ss(model)
+    require_state_space(model)
     one_of(method, "method", DISCRETIZE_METHODS)
     prewarp_hz = optional_positive_float(prewarp_hz, "prewarp_hz")
     if not model.is_discrete:
@@ -360,11 +360,10 @@ def _real_logm(M: np.ndarray) -> np.ndarray:
 
 def _matched(model: StateSpaceModel, T: float, *, to_discrete: bool) -> StateSpaceModel:
     from .convert import tf_to_ss
-    from .models import TransferFunctionModel
 
     poles = np.linalg.eigvals(model.A) if model.n_states else np.zeros(0, dtype=complex)
     nums, dens = [], []
-    for channels in _channel_zeros_gains(model):
+    for channels in channel_zeros_gains(model):
         nrow, drow = [], []
         for zeros, gain in channels:
             num, den = _matched_channel(poles, zeros, gain, T, to_discrete)
@@ -376,7 +375,7 @@ def _matched(model: StateSpaceModel, T: float, *, to_discrete: bool) -> StateSpa
         num=nums,
         den=dens,
         sample_time=T if to_discrete else None,
-        **_meta(model),
+        **signal_metadata(model),
     )
     return tf_to_ss(tf)
 

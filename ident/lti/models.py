@@ -264,3 +264,21 @@ class TransferFunctionModel:
     def is_discrete(self) -> bool:
         """True for a discrete-time model."""
         return self.sample_time is not None
+
+
+def require_state_space(model: Any, name: str = "model") -> StateSpaceModel:
+    """Return ``model`` if it is a :class:`StateSpaceModel`; raise :class:`OptionError` naming ``name`` if not."""
+    if not isinstance(model, StateSpaceModel):
+        raise OptionError(f"{name} must be a StateSpaceModel; got {type(model).__name__}")
+    return model
+
+
+def signal_metadata(model: Any) -> dict[str, Any]:
+    """Names, units and operating point of a model, to carry over to a result."""
+    return {
+        "inputs": model.inputs,
+        "outputs": model.outputs,
+        "input_units": model.input_units,
+        "output_units": model.output_units,
+        "operating_point": model.operating_point,
+    }

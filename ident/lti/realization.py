@@ -17,8 +17,8 @@ from scipy import linalg
 from .._validate import as_matrix, one_of
 from ..choices import REALIZATIONS
 from ..errors import ModelError, OptionError
-from .analysis import _controllable_staircase, _meta, _require_ss
-from .models import StateSpaceModel
+from .models import StateSpaceModel, TransferFunctionModel, require_state_space, signal_metadata
+from .zeros import channel_polynomials, controllable_staircase
 
 __all__ = [
     "REALIZATIONS",
@@ -40,8 +40,13 @@ Realization = Literal["controllable", "observable", "modal", "balanced"]
 _MODAL_COND_LIMIT = 1e10
 
 
-def _canonical(num: np.ndarray, den: np.ndarray, form: str):
-    """Canonical ``(A, B, C, D)`` of a SISO ``num/den`` (descending, den monic)."""
+def canonical_matrices(num: np.ndarray, den: np.ndarray, form: str):
+    """Canonical ``(A, B, C, D)`` of a SISO ``num/den`` (descending, den monic).
+
+    ``form`` is ``"controllable"`` or ``"observable"`` (the dual); see
+    :func:`controllable_form` for the layout. Used by both realisations and
+    :func:`ident.lti.convert.tf_to_ss`.
+    """
     den = np.asarray(den, dtype=float)
     den = den / den[0]
     n = den.size - 1
@@ -65,18 +70,20 @@ def _canonical(num: np.ndarray, den: np.ndarray, form: str):
 
 
 def _siso_canonical(model: StateSpaceModel, form: str) -> StateSpaceModel:
-    from .convert import ss_to_tf
-
-    _require_ss(model)
+    """Canonical form of a SISO model from its transfer function (as :func:`ident.lti.convert.ss_to_tf` gives it)."""
+    require_state_space(model)
     if model.n_inputs != 1 or model.n_outputs != 1:
         raise ModelError(
             f"the {form} canonical form is defined here for one input and one output; "
             f"the model has {model.n_inputs} inputs and {model.n_outputs} outputs",
             hint="use the 'modal' or 'balanced' realisation for several inputs or outputs",
         )
-    tf = ss_to_tf(model)
-    A, B, C, D = _canonical(tf.num[0][0], tf.den[0][0], form)
-    return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=model.sample_time, **_meta(model))
+    nums, dens = channel_polynomials(model)
+    tf = TransferFunctionModel(
+        num=nums, den=dens, sample_time=model.sample_time, **signal_metadata(model)
+    )
+    A, B, C, D = canonical_matrices(tf.num[0][0], tf.den[0][0], form)
+    return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=model.sample_time, **signal_metadata(model))
 
 
 def controllable_form(model: StateSpaceModel) -> StateSpaceModel:
@@ -158,7 +165,7 @@ def similarity_transform(model: StateSpaceModel, T: Any) -> StateSpaceModel:
     OptionError
         When ``T`` has the wrong shape or is numerically singular.
     """
-    _require_ss(model)
+    require_state_space(model)
     n = model.n_states
     T = as_matrix(T, "T", (n, n))
     if n and np.linalg.cond(T) > 1 / np.finfo(float).eps:
@@ -200,7 +207,7 @@ def modal_form(model: StateSpaceModel) -> StateSpaceModel:
         When the eigenvectors are nearly dependent (repeated poles with a
         Jordan block), where no well-conditioned modal form exists.
     """
-    _require_ss(model)
+    require_state_space(model)
     n = model.n_states
     if n == 0:
         return model.with_changes()
@@ -329,7 +336,7 @@ def balanced_realization(model: StateSpaceModel) -> BalancedRealization:
        controllability, observability, and model reduction", IEEE Trans.
        Automatic Control 26(1), 17-32, 1981.
     """
-    _require_ss(model)
+    require_state_space(model)
     poles = model.poles()
     if model.is_discrete:
         bad = poles[np.abs(poles) >= 1.0]
@@ -402,7 +409,7 @@ def minimal_realization(model: StateSpaceModel, *, tol: float | None = None) -> 
     .. [1] P. Van Dooren, "The generalized eigenstructure problem in linear
        system theory", IEEE Trans. Automatic Control 26(1), 111-129, 1981.
     """
-    _require_ss(model)
+    require_state_space(model)
     A, B, C = model.A, model.B, model.C
     n, m, p = model.n_states, model.n_inputs, model.n_outputs
     if n:
@@ -420,11 +427,11 @@ def minimal_realization(model: StateSpaceModel, *, tol: float | None = None) -> 
     tol = tol * scale
     if n == 0:
         return model.with_changes(noise_gain=None)
-    Q, nc = _controllable_staircase(A, B, tol)
+    Q, nc = controllable_staircase(A, B, tol)
     Ac = (Q.T @ A @ Q)[:nc, :nc]
     Bc = (Q.T @ B)[:nc]
     Cc = (C @ Q)[:, :nc]
-    Q2, no = _controllable_staircase(Ac.T, Cc.T, tol)
+    Q2, no = controllable_staircase(Ac.T, Cc.T, tol)
     Am = (Q2.T @ Ac @ Q2)[:no, :no]
     Bm = (Q2.T @ Bc)[:no]
     Cm = (Cc @ Q2)[:, :no]
@@ -448,7 +455,7 @@ def realize(model: StateSpaceModel, form: Realization) -> StateSpaceModel:
     -------
     StateSpaceModel
     """
-    _require_ss(model)
+    require_state_space(model)
     one_of(form, "form", REALIZATIONS)
     if form == "controllable":
         return controllable_form(model)
