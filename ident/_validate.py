@@ -1,19 +1,22 @@
 """Validation helpers called at the top of every public core function.
 
 Each helper names the parameter, says what is allowed and shows what arrived,
-and raises :class:`ident.errors.OptionError` (a ``ValueError``).
+and raises :class:`ident.errors.OptionError` (a ``ValueError``);
+:func:`options_from_mapping`, the one way a pipeline table becomes an options
+dataclass, raises :class:`ident.errors.PipelineError` with the key path.
 """
 
 from __future__ import annotations
 
 import difflib
 import math
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import fields
 from typing import Any
 
 import numpy as np
 
-from .errors import OptionError
+from .errors import OptionError, PipelineError
 
 __all__ = [
     "as_signal",
@@ -25,6 +28,7 @@ __all__ = [
     "one_of",
     "names_tuple",
     "did_you_mean",
+    "options_from_mapping",
 ]
 
 
@@ -139,3 +143,34 @@ def did_you_mean(value: str, valid: Sequence[str]) -> str | None:
     """Return the hint ``"did you mean 'x'?"`` for the valid word nearest ``value``, or None."""
     close = difflib.get_close_matches(str(value), list(valid), n=1, cutoff=0.5)
     return f"did you mean {close[0]!r}?" if close else None
+
+
+def options_from_mapping(cls: type, mapping: Mapping[str, Any], key_path: str) -> Any:
+    """Build the options dataclass ``cls`` from a mapping such as a parsed TOML table.
+
+    Keys must be field names of ``cls`` (missing ones take their defaults);
+    ``key_path`` is the dotted location of the table, used in messages.
+
+    Raises
+    ------
+    PipelineError
+        The mapping is not a table, has an unknown key (with the valid keys and
+        the nearest one as a hint), or ``cls`` refuses a value.
+    """
+    if not isinstance(mapping, Mapping):
+        raise PipelineError(
+            f"expected a table; got {type(mapping).__name__}", key_path=key_path or None
+        )
+    valid = [f.name for f in fields(cls)]
+    for key in mapping:
+        if key not in valid:
+            where = f"{key_path}.{key}" if key_path else str(key)
+            raise PipelineError(
+                f"unknown key; valid keys are {', '.join(valid)}",
+                key_path=where,
+                hint=did_you_mean(key, valid),
+            )
+    try:
+        return cls(**dict(mapping))
+    except OptionError as exc:
+        raise PipelineError(str(exc), key_path=key_path or None, hint=exc.hint) from exc

@@ -38,7 +38,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .._validate import int_in_range, one_of
+from .._validate import int_in_range, one_of, options_from_mapping
 from ..assess.diagnostics import fit_percent
 from ..choices import METHODS, WEIGHTINGS  # METHODS: "auto" tries both and keeps the best
 from ..errors import (
@@ -53,7 +53,7 @@ from ..lti.models import StateSpaceModel
 from ..lti.simulate import estimate_initial_state, simulate
 from .data import Experiment
 from .order import Criteria
-from .preprocess import PreparedData, PreprocessOptions, _from_mapping, prepare
+from .preprocess import PreparedData, PreprocessOptions, prepare
 
 __all__ = [
     "METHODS",
@@ -198,7 +198,7 @@ class IdentifyOptions:
             mapping["preprocess"] = PreprocessOptions.from_mapping(
                 mapping["preprocess"], key_path=sub_path
             )
-        return _from_mapping(cls, mapping, key_path)
+        return options_from_mapping(cls, mapping, key_path)
 
     def to_dict(self) -> dict[str, Any]:
         """Return the options as a plain nested dict (for provenance records)."""

@@ -33,8 +33,8 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .._validate import as_signal, did_you_mean, int_in_range, names_tuple, one_of, positive_float
-from ..errors import OptionError, PipelineError
+from .._validate import as_signal, int_in_range, names_tuple, one_of, options_from_mapping, positive_float
+from ..errors import OptionError
 from ..lti._linalg import column_sums
 from ..lti.models import OperatingPoint
 from .data import Experiment, as_experiments
@@ -118,31 +118,11 @@ class PreprocessOptions:
         PipelineError
             An unknown key, or a value that is not allowed.
         """
-        return _from_mapping(cls, mapping, key_path)
+        return options_from_mapping(cls, mapping, key_path)
 
     def to_dict(self) -> dict[str, Any]:
         """Return the options as a plain dict (for provenance records)."""
         return {f.name: getattr(self, f.name) for f in fields(self)}
-
-
-def _from_mapping(cls: type, mapping: Mapping[str, Any], key_path: str) -> Any:
-    if not isinstance(mapping, Mapping):
-        raise PipelineError(
-            f"expected a table; got {type(mapping).__name__}", key_path=key_path or None
-        )
-    valid = [f.name for f in fields(cls)]
-    for key in mapping:
-        if key not in valid:
-            where = f"{key_path}.{key}" if key_path else str(key)
-            raise PipelineError(
-                f"unknown key; valid keys are {', '.join(valid)}",
-                key_path=where,
-                hint=did_you_mean(key, valid),
-            )
-    try:
-        return cls(**dict(mapping))
-    except OptionError as exc:
-        raise PipelineError(str(exc), key_path=key_path or None, hint=exc.hint) from exc
 
 
 @dataclass(frozen=True, slots=True, eq=False)
