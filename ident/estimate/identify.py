@@ -32,7 +32,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, fields, replace
 from typing import Any, Literal
 
@@ -655,237 +655,340 @@ def _warn(text: str, category: type[Warning]) -> None:
     warnings.warn(text, category, stacklevel=3)
 
 
+@dataclass(eq=False)
+class _Search:
+    """What the candidate search has gathered so far; filled in step by step by :func:`_identify`.
+
+    ``fitted`` holds, per candidate, ``(model, estimator result, warnings
+    recorded while fitting it)``; ``step`` counts finished progress steps out
+    of ``n_steps``.
+    """
+
+    report: Callable[[str, float], None]
+    n_steps: int
+    step: int = 0
+    candidates: list[Candidate] = field(default_factory=list)
+    fitted: list[Any] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    delay: Any = None
+    arx_sweep: Any = None
+    singular_values: np.ndarray | None = None
+    suggested_order: int | None = None
+    factorization: dict[str, Any] | None = None
+
+    def progress(self, text: str) -> None:
+        """Report ``text`` at the current step."""
+        self.report(text, self.step / self.n_steps)
+
+    def add(self, candidate: Candidate, model: StateSpaceModel, result: Any, caught: list) -> None:
+        """Keep a scored candidate with its model, estimator result and recorded warnings."""
+        self.candidates.append(candidate)
+        self.fitted.append((model, result, caught))
+
+
 def _identify(
     segments, sample_time, options, input_names, output_names, input_units, output_units,
     segment_starts, report,
 ) -> Identification:
+    """Run the steps of :func:`identify` in order (the caller records the warnings).
+
+    Prepare and check the data, choose the orders, gather the ARX and subspace
+    candidates, then select one and assemble the result.
+    """
     report("preparing data", 0.0)
-    prep = prepare(
+    prep = _prepare_and_check(
         segments, sample_time, options.preprocess,
         input_names=input_names, output_names=output_names,
         input_units=input_units, output_units=output_units, segment_starts=segment_starts,
     )
+    notes: list[str] = []
+    orders = _supported_orders(prep, options, notes)
+    search = _Search(report=report, n_steps=_progress_steps(options, orders), notes=notes)
+    if options.method in ("arx", "auto"):
+        _add_arx_candidates(prep, options, orders, search)
+    if options.method in ("subspace", "auto"):
+        _add_subspace_candidates(prep, options, orders, search)
+    search.progress("selecting")
+    return _select_and_assemble(prep, options, search)
+
+
+# --------------------------------------------------------------------------- steps of the job
+
+
+def _prepare_and_check(segments: Any, sample_time: float, options: PreprocessOptions,
+                       **names_and_ranges: Any) -> PreparedData:
+    """Prepare the data (:func:`prepare`), insist on validation samples and check the signals."""
+    prep = prepare(segments, sample_time, options, **names_and_ranges)
     if not prep.validation:
         raise OptionError("the hold-out left no validation samples; raise holdout")
-    m, p = prep.n_inputs, prep.n_outputs
-    notes: list[str] = []
     for text in _check_signals(prep):
         _warn(text, IllConditionedWarning)
+    return prep
 
-    # which orders the data can support
+
+def _supported_orders(prep: PreparedData, options: IdentifyOptions, notes: list[str]) -> list[int]:
+    """Orders to try: the fixed order if the data support it, else ``1 ..`` the largest they support."""
     fixed = options.order
     top = fixed if fixed is not None else options.max_order
-    n_est = prep.n_estimation_samples
     pe = excitation_order([e.u for e in prep.estimation], max(2 * top, 2))
     weakest = int(np.argmin(pe))
     pe_min = int(pe[weakest])
     weak_name = prep.input_names[weakest]
     if fixed is not None:
-        if pe_min < fixed:
-            raise IdentificationError(
-                f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
-                f"order {fixed} needs at least {fixed} (better {2 * fixed})",
-                hint="lower --order, or use a log with a richer input (noise, chirp, PRBS)",
-            )
-        if pe_min < 2 * fixed:
-            _warn(
-                f"input {weak_name!r} is persistently exciting of order {pe_min}; an order-"
-                f"{fixed} model needs {2 * fixed} to be reliably identifiable",
-                PoorExcitationWarning,
-            )
-        needed = _samples_needed(fixed, m, p)
-        if n_est < needed:
-            raise IdentificationError(
-                f"order {fixed} is too high for {n_est} estimation samples "
-                f"(needs at least {needed})",
-                hint="lower --order or --holdout, or use a longer log",
-            )
-        orders = [fixed]
-    else:
-        cap = options.max_order
-        if pe_min < 2:
-            raise IdentificationError(
-                f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
-                "not even a first-order model is identifiable",
-                hint="use a log with a richer input (noise, chirp, PRBS, several steps)",
-            )
-        if pe_min < 2 * cap:
-            cap = pe_min // 2
-            _warn(
-                f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
-                f"orders above {cap} were not tried",
-                PoorExcitationWarning,
-            )
-        while cap >= 1 and n_est < _samples_needed(cap, m, p):
-            cap -= 1
-        if cap < 1:
-            raise IdentificationError(
-                f"{n_est} estimation samples are too few for even a first-order model "
-                f"(needs at least {_samples_needed(1, m, p)})",
-                hint="use a longer log or a smaller --holdout",
-            )
-        if cap < options.max_order and pe_min >= 2 * options.max_order:
-            notes.append(
-                f"orders above {cap} were not tried: {n_est} estimation samples support "
-                f"at most order {cap}"
-            )
-        orders = list(range(1, cap + 1))
+        _check_fixed_order(prep, fixed, pe_min, weak_name)
+        return [fixed]
+    return _sweep_orders(prep, options.max_order, pe_min, weak_name, notes)
 
-    candidates: list[Candidate] = []
-    fitted: list[Any] = []  # (model, raw result) per candidate
-    arx_delay = None
-    arx_sweep = None
-    singular_values = None
-    suggested = None
-    factorization = None
+
+def _check_fixed_order(prep: PreparedData, fixed: int, pe_min: int, weak_name: str) -> None:
+    """Refuse (or warn about) a fixed order the excitation or the sample count cannot support."""
+    if pe_min < fixed:
+        raise IdentificationError(
+            f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
+            f"order {fixed} needs at least {fixed} (better {2 * fixed})",
+            hint="lower --order, or use a log with a richer input (noise, chirp, PRBS)",
+        )
+    if pe_min < 2 * fixed:
+        _warn(
+            f"input {weak_name!r} is persistently exciting of order {pe_min}; an order-"
+            f"{fixed} model needs {2 * fixed} to be reliably identifiable",
+            PoorExcitationWarning,
+        )
+    n_est = prep.n_estimation_samples
+    needed = _samples_needed(fixed, prep.n_inputs, prep.n_outputs)
+    if n_est < needed:
+        raise IdentificationError(
+            f"order {fixed} is too high for {n_est} estimation samples "
+            f"(needs at least {needed})",
+            hint="lower --order or --holdout, or use a longer log",
+        )
+
+
+def _sweep_orders(prep: PreparedData, max_order: int, pe_min: int, weak_name: str,
+                  notes: list[str]) -> list[int]:
+    """Orders ``1 .. cap`` of a sweep, ``cap`` limited by the excitation and the sample count."""
+    m, p = prep.n_inputs, prep.n_outputs
+    n_est = prep.n_estimation_samples
+    cap = max_order
+    if pe_min < 2:
+        raise IdentificationError(
+            f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
+            "not even a first-order model is identifiable",
+            hint="use a log with a richer input (noise, chirp, PRBS, several steps)",
+        )
+    if pe_min < 2 * cap:
+        cap = pe_min // 2
+        _warn(
+            f"input {weak_name!r} is persistently exciting of order {pe_min} only; "
+            f"orders above {cap} were not tried",
+            PoorExcitationWarning,
+        )
+    while cap >= 1 and n_est < _samples_needed(cap, m, p):
+        cap -= 1
+    if cap < 1:
+        raise IdentificationError(
+            f"{n_est} estimation samples are too few for even a first-order model "
+            f"(needs at least {_samples_needed(1, m, p)})",
+            hint="use a longer log or a smaller --holdout",
+        )
+    if cap < max_order and pe_min >= 2 * max_order:
+        notes.append(
+            f"orders above {cap} were not tried: {n_est} estimation samples support "
+            f"at most order {cap}"
+        )
+    return list(range(1, cap + 1))
+
+
+def _progress_steps(options: IdentifyOptions, orders: Sequence[int]) -> int:
+    """Count the progress steps of the whole job (an upper bound for an ARX grid)."""
     do_arx = options.method in ("arx", "auto")
     do_sub = options.method in ("subspace", "auto")
-    n_arx = 3 * options.per_criterion + len(orders) if fixed is None else 1  # progress steps (upper bound)
-    n_steps = (n_arx + 1 if do_arx else 0) + (len(orders) + 1 if do_sub else 0) + 1
-    step = 0
-    names = {"input_names": prep.input_names, "output_names": prep.output_names}
+    n_arx = 3 * options.per_criterion + len(orders) if options.order is None else 1
+    return (n_arx + 1 if do_arx else 0) + (len(orders) + 1 if do_sub else 0) + 1
 
-    if do_arx:
-        from .arx import grid_search_arx
 
-        if options.delay is not None:
-            nk: Any = options.delay
-            notes.append(f"ARX input delay fixed at {options.delay} samples")
-        else:
-            from .delay import estimate_delay
+def _signal_names(prep: PreparedData) -> dict[str, Any]:
+    """Input and output names as keyword arguments for the estimators."""
+    return {"input_names": prep.input_names, "output_names": prep.output_names}
 
-            report("estimating delays", step / n_steps)
-            try:
-                arx_delay = estimate_delay(prep.estimation, max_delay=20)
-            except IdentificationError as exc:
-                arx_delay = None
-                nk = 1
-                _warn(f"input delays could not be estimated ({exc}); ARX models assume a "
-                      "delay of 1 sample", PoorExcitationWarning)
-            else:
-                delays = np.asarray(arx_delay.delays, dtype=int).reshape(p, m)
-                # one delay per input, shared by the outputs' MISO models: the smallest
-                # seen from that input, so that no output loses its earliest response
-                nk = tuple(int(v) for v in delays.min(axis=0))
-        if fixed is not None:
-            arx_steps = _fixed_order_arx(prep, nk, fixed, names)
-        else:
-            report("ARX structure grid", step / n_steps)
-            nk_base = (nk,) * m if isinstance(nk, int) else tuple(nk)
-            shifts = (0,) if options.delay is not None else _DELAY_SHIFTS
-            nk_grid = list(dict.fromkeys(
-                tuple(max(0, v + d) for v in nk_base) for d in shifts
-            ))
-            arx_sweep, _, arx_steps = grid_search_arx(
-                prep.estimation, prep.sample_time, na_values=orders, nb_values=orders,
-                nk_values=nk_grid, per_criterion=options.per_criterion, **names,
-            )
-            notes.append(
-                f"ARX grid: na, nb in 1..{max(orders)}, nk in "
-                + ", ".join(str(list(v)) for v in nk_grid)
-                + f" ({len(arx_sweep.rows)} structures from one R factor); the best "
-                f"{options.per_criterion} by each of AIC, BIC and FPE and the BIC-best of each order were validated"
-            )
-        first = True
-        while True:
-            try:
-                with warnings.catch_warnings(record=True) as caught:
-                    warnings.simplefilter("always")
-                    k_grid, res = next(arx_steps)
-            except StopIteration:
-                break
-            step += 1
-            report("ARX candidates", min(step, n_steps - 1) / n_steps)
-            if isinstance(res, Exception):
-                if fixed is not None:
-                    raise res
-                notes.append(f"ARX candidate skipped: {res}")
-                continue
-            first = False
-            model = res.model
-            vfit = _validation_fit(model, prep.validation, res)
-            crit = res.criteria
-            if arx_sweep is not None:  # rank on the grid's common rows, like the whole grid
-                row = arx_sweep.rows[k_grid]
-                crit = Criteria(aic=row.aic, bic=row.bic, fpe=row.fpe)
-            candidates.append(
-                Candidate(
-                    method="arx",
-                    order=max(int(res.na), *(int(v) for v in res.nb)),
-                    structure={"na": int(res.na), "nb": [int(v) for v in res.nb],
-                               "nk": [int(v) for v in res.nk]},
-                    n_states=model.n_states,
-                    n_parameters=int(res.n_parameters),
-                    validation_fit=vfit,
-                    mean_fit=_mean(vfit),
-                    criteria=crit,
-                )
-            )
-            fitted.append((model, res, caught))
-        if first:
-            raise IdentificationError(
-                "no ARX candidate of the grid could be fitted",
-                hint="fix a low --order or check the inputs",
-            )
 
-    if do_sub:
-        from .subspace import SubspaceOptions, model_of_order, project, suggest_order
+# --------------------------------------------------------------------------- ARX candidates
 
-        report("subspace projection", step / n_steps)
-        step += 1
-        projection = project(
-            prep.estimation, horizon=options.horizon, weighting=options.weighting,
-            max_order=max(orders),
-        )
-        singular_values = np.asarray(projection.singular_values, dtype=float)
-        suggested = int(suggest_order(projection).order)
-        factorization = {"path": projection.factorization,
-                         "gram_condition": float(projection.gram_condition)}
-        n_supported = int(projection.max_order)
-        sub_orders = [n for n in orders if n <= n_supported]
-        if len(sub_orders) < len(orders):
-            if not sub_orders:
-                raise IdentificationError(
-                    f"subspace order {orders[0]} exceeds what horizon "
-                    f"{projection.horizon} supports ({n_supported})",
-                    hint="give a larger horizon or a lower order",
-                )
-            notes.append(
-                f"subspace orders above {n_supported} need a longer horizon and were skipped"
-            )
-        for n in sub_orders:
-            report(f"subspace order {n}", step / n_steps)
-            step += 1
-            sopts = SubspaceOptions(
-                order=n, weighting=options.weighting, horizon=projection.horizon,
-                max_order=projection.max_order, stabilize=options.stabilize,
-            )
+
+def _add_arx_candidates(prep: PreparedData, options: IdentifyOptions, orders: Sequence[int],
+                        search: _Search) -> None:
+    """Fit the ARX structures (fixed, or the shortlist of a grid) and score each on validation data."""
+    nk = _arx_delays(prep, options, search)
+    steps = _arx_structures(prep, options, orders, nk, search)
+    fitted_any = False
+    while True:
+        try:
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
-                res = model_of_order(projection, prep.estimation, n, prep.sample_time,
-                                     options=sopts, **names)
-            model = res.model
-            vfit = _validation_fit(model, prep.validation)
-            candidates.append(
-                Candidate(
-                    method="subspace",
-                    order=n,
-                    structure={"n": n, "weighting": options.weighting,
-                               "horizon": int(projection.horizon)},
-                    n_states=model.n_states,
-                    n_parameters=_subspace_parameters(n, m, p),
-                    validation_fit=vfit,
-                    mean_fit=_mean(vfit),
-                    criteria=None,
-                )
-            )
-            fitted.append((model, res, caught))
+                k_grid, res = next(steps)
+        except StopIteration:
+            break
+        search.step += 1
+        search.report("ARX candidates", min(search.step, search.n_steps - 1) / search.n_steps)
+        if isinstance(res, Exception):
+            if options.order is not None:
+                raise res
+            search.notes.append(f"ARX candidate skipped: {res}")
+            continue
+        fitted_any = True
+        search.add(_arx_candidate(res, k_grid, prep.validation, search.arx_sweep), res.model, res, caught)
+    if not fitted_any:
+        raise IdentificationError(
+            "no ARX candidate of the grid could be fitted",
+            hint="fix a low --order or check the inputs",
+        )
 
-    report("selecting", step / n_steps)
-    chosen = select_candidate(candidates, tie_tolerance=options.tie_tolerance)
-    candidates = [replace(c, selected=(k == chosen)) for k, c in enumerate(candidates)]
+
+def _arx_delays(prep: PreparedData, options: IdentifyOptions, search: _Search) -> Any:
+    """ARX input delays: the given one, or one per input estimated from the data (1 if that fails)."""
+    if options.delay is not None:
+        search.notes.append(f"ARX input delay fixed at {options.delay} samples")
+        return options.delay
+    from .delay import estimate_delay
+
+    search.progress("estimating delays")
+    try:
+        search.delay = estimate_delay(prep.estimation, max_delay=20)
+    except IdentificationError as exc:
+        search.delay = None
+        _warn(f"input delays could not be estimated ({exc}); ARX models assume a "
+              "delay of 1 sample", PoorExcitationWarning)
+        return 1
+    delays = np.asarray(search.delay.delays, dtype=int).reshape(prep.n_outputs, prep.n_inputs)
+    # one delay per input, shared by the outputs' MISO models: the smallest
+    # seen from that input, so that no output loses its earliest response
+    return tuple(int(v) for v in delays.min(axis=0))
+
+
+def _arx_structures(prep: PreparedData, options: IdentifyOptions, orders: Sequence[int], nk: Any,
+                    search: _Search) -> Iterator[tuple[int | None, Any]]:
+    """``(grid row, ArxResult or Exception)`` per structure: the fixed one, or a grid's shortlist."""
+    names = _signal_names(prep)
+    if options.order is not None:
+        return _fixed_order_arx(prep, nk, options.order, names)
+    from .arx import grid_search_arx
+
+    search.progress("ARX structure grid")
+    nk_base = (nk,) * prep.n_inputs if isinstance(nk, int) else tuple(nk)
+    shifts = (0,) if options.delay is not None else _DELAY_SHIFTS
+    nk_grid = list(dict.fromkeys(
+        tuple(max(0, v + d) for v in nk_base) for d in shifts
+    ))
+    search.arx_sweep, _, steps = grid_search_arx(
+        prep.estimation, prep.sample_time, na_values=orders, nb_values=orders,
+        nk_values=nk_grid, per_criterion=options.per_criterion, **names,
+    )
+    search.notes.append(
+        f"ARX grid: na, nb in 1..{max(orders)}, nk in "
+        + ", ".join(str(list(v)) for v in nk_grid)
+        + f" ({len(search.arx_sweep.rows)} structures from one R factor); the best "
+        f"{options.per_criterion} by each of AIC, BIC and FPE and the BIC-best of each order were validated"
+    )
+    return steps
+
+
+def _arx_candidate(res: Any, k_grid: int | None, validation: Sequence[Experiment], sweep: Any) -> Candidate:
+    """Score an ``ArxResult`` on the validation data; in a grid, rank it by the grid's criteria."""
+    model = res.model
+    vfit = _validation_fit(model, validation, res)
+    crit = res.criteria
+    if sweep is not None:  # rank on the grid's common rows, like the whole grid
+        row = sweep.rows[k_grid]
+        crit = Criteria(aic=row.aic, bic=row.bic, fpe=row.fpe)
+    return Candidate(
+        method="arx",
+        order=max(int(res.na), *(int(v) for v in res.nb)),
+        structure={"na": int(res.na), "nb": [int(v) for v in res.nb],
+                   "nk": [int(v) for v in res.nk]},
+        n_states=model.n_states,
+        n_parameters=int(res.n_parameters),
+        validation_fit=vfit,
+        mean_fit=_mean(vfit),
+        criteria=crit,
+    )
+
+
+# --------------------------------------------------------------------------- subspace candidates
+
+
+def _add_subspace_candidates(prep: PreparedData, options: IdentifyOptions, orders: Sequence[int],
+                             search: _Search) -> None:
+    """Project the data once, then build and score a model of every supported order."""
+    from .subspace import SubspaceOptions, model_of_order
+
+    projection, sub_orders = _subspace_projection(prep, options, orders, search)
+    m, p = prep.n_inputs, prep.n_outputs
+    for n in sub_orders:
+        search.progress(f"subspace order {n}")
+        search.step += 1
+        sopts = SubspaceOptions(
+            order=n, weighting=options.weighting, horizon=projection.horizon,
+            max_order=projection.max_order, stabilize=options.stabilize,
+        )
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            res = model_of_order(projection, prep.estimation, n, prep.sample_time,
+                                 options=sopts, **_signal_names(prep))
+        model = res.model
+        vfit = _validation_fit(model, prep.validation)
+        candidate = Candidate(
+            method="subspace",
+            order=n,
+            structure={"n": n, "weighting": options.weighting,
+                       "horizon": int(projection.horizon)},
+            n_states=model.n_states,
+            n_parameters=_subspace_parameters(n, m, p),
+            validation_fit=vfit,
+            mean_fit=_mean(vfit),
+            criteria=None,
+        )
+        search.add(candidate, model, res, caught)
+
+
+def _subspace_projection(prep: PreparedData, options: IdentifyOptions, orders: Sequence[int],
+                         search: _Search) -> tuple[Any, list[int]]:
+    """Project the estimation data once; return the projection and the orders it supports."""
+    from .subspace import project, suggest_order
+
+    search.progress("subspace projection")
+    search.step += 1
+    projection = project(
+        prep.estimation, horizon=options.horizon, weighting=options.weighting,
+        max_order=max(orders),
+    )
+    search.singular_values = np.asarray(projection.singular_values, dtype=float)
+    search.suggested_order = int(suggest_order(projection).order)
+    search.factorization = {"path": projection.factorization,
+                            "gram_condition": float(projection.gram_condition)}
+    n_supported = int(projection.max_order)
+    sub_orders = [n for n in orders if n <= n_supported]
+    if len(sub_orders) < len(orders):
+        if not sub_orders:
+            raise IdentificationError(
+                f"subspace order {orders[0]} exceeds what horizon "
+                f"{projection.horizon} supports ({n_supported})",
+                hint="give a larger horizon or a lower order",
+            )
+        search.notes.append(
+            f"subspace orders above {n_supported} need a longer horizon and were skipped"
+        )
+    return projection, sub_orders
+
+
+# --------------------------------------------------------------------------- selection
+
+
+def _select_and_assemble(prep: PreparedData, options: IdentifyOptions, search: _Search) -> Identification:
+    """Pick the winner (:func:`select_candidate`), give it names and operating point, and build the result."""
+    chosen = select_candidate(search.candidates, tie_tolerance=options.tie_tolerance)
+    candidates = [replace(c, selected=(k == chosen)) for k, c in enumerate(search.candidates)]
     best = candidates[chosen]
-    model, raw, candidate_warnings = fitted[chosen]
+    model, raw, candidate_warnings = search.fitted[chosen]
     for w in candidate_warnings:  # only the selected candidate's own warnings matter
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     model = model.with_changes(
@@ -898,23 +1001,15 @@ def _identify(
     estimation_fit = _validation_fit(model, prep.estimation,
                                      raw if best.method == "arx" else None)
     if best.method == "subspace" and raw.stabilized:
-        notes.append("unstable subspace poles were reflected into the unit circle "
-                     "(stabilize=True)")
-    unstable = model.poles()[np.abs(model.poles()) > 1.0 + 1e-9]
-    if unstable.size and not any(
-        issubclass(w.category, UnstableModelWarning) for w in candidate_warnings
-    ):
-        _warn(
-            f"the selected model has {unstable.size} unstable pole(s): "
-            + ", ".join(f"{z:.4g}" for z in unstable),
-            UnstableModelWarning,
-        )
-    notes.append(
+        search.notes.append("unstable subspace poles were reflected into the unit circle "
+                            "(stabilize=True)")
+    _warn_if_unstable(model, candidate_warnings)
+    search.notes.append(
         f"selected by mean validation fit; fits within {options.tie_tolerance:g} points of "
         "the best count as tied and the simplest tied model wins (fewer states, then fewer "
         "parameters); the model is not re-estimated on the validation data"
     )
-    report("done", 1.0)
+    search.report("done", 1.0)
     return Identification(
         model=model,
         method=best.method,
@@ -925,13 +1020,26 @@ def _identify(
         prepared=prep,
         arx=raw if best.method == "arx" else None,
         subspace=raw if best.method == "subspace" else None,
-        singular_values=singular_values,
-        suggested_order=suggested,
-        delay=arx_delay,
+        singular_values=search.singular_values,
+        suggested_order=search.suggested_order,
+        delay=search.delay,
         warnings=(),
-        notes=tuple(notes),
+        notes=tuple(search.notes),
         options=options,
         best_by=_best_by(candidates),
-        arx_sweep=arx_sweep,
-        subspace_factorization=factorization,
+        arx_sweep=search.arx_sweep,
+        subspace_factorization=search.factorization,
     )
+
+
+def _warn_if_unstable(model: StateSpaceModel, candidate_warnings: Sequence[warnings.WarningMessage]) -> None:
+    """Warn about unstable poles of the selected model unless its estimator already did."""
+    unstable = model.poles()[np.abs(model.poles()) > 1.0 + 1e-9]
+    if unstable.size and not any(
+        issubclass(w.category, UnstableModelWarning) for w in candidate_warnings
+    ):
+        _warn(
+            f"the selected model has {unstable.size} unstable pole(s): "
+            + ", ".join(f"{z:.4g}" for z in unstable),
+            UnstableModelWarning,
+        )
