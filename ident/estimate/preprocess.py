@@ -321,71 +321,19 @@ def prepare(
     sample_time = positive_float(sample_time, "sample_time")
     records = _as_records(data)
     m, p = records[0][0].shape[1], records[0][1].shape[1]
-    input_names = names_tuple(input_names, "input_names", m, "u")
-    output_names = names_tuple(output_names, "output_names", p, "y")
-    input_units = names_tuple(("",) * m if input_units is None else input_units, "input_units", m, "")
-    output_units = names_tuple(
-        ("",) * p if output_units is None else output_units, "output_units", p, ""
-    )
-    if segment_starts is None:
-        starts = np.concatenate(([0], np.cumsum([r[0].shape[0] for r in records])[:-1]))
-    else:
-        starts = np.asarray(segment_starts)
-        if starts.shape != (len(records),):
-            raise OptionError(
-                f"segment_starts must hold {len(records)} indices; got {starts.size}"
-            )
+    labels = _signal_labels(m, p, input_names, output_names, input_units, output_units)
+    starts = _record_starts(records, segment_starts)
     q = options.decimate
-    holdout = options.holdout
 
-    # 1. split points (raw samples)
-    splits = []
-    for k, (u, _) in enumerate(records):
-        n_raw = u.shape[0]
-        if q > 1 and n_raw < _min_decimate_length(q):
-            raise OptionError(
-                f"experiment {k} has {n_raw} samples; decimation by {q} needs at least "
-                f"{_min_decimate_length(q)}"
-            )
-        n_dec = math.ceil(n_raw / q)
-        s_dec = int(round((1.0 - holdout) * n_dec))
-        if s_dec < 2:
-            raise OptionError(
-                f"experiment {k} has {n_raw} samples; too few to keep an estimation part "
-                f"with holdout {holdout:g} and decimation {q}"
-            )
-        splits.append((s_dec, min(s_dec * q, n_raw)))
-
-    # 2. operating point
-    if options.offset == "mean":
-        total = sum(s_raw for _, s_raw in splits)
-        op_u = sum(column_sums(r[0][:s_raw]) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
-        op_y = sum(column_sums(r[1][:s_raw]) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
-    else:
-        windows = []
-        for _, s_raw in splits:
-            if options.initial_window_s is None:
-                w = max(1, int(round(_DEFAULT_INITIAL_FRACTION * s_raw)))
-            else:
-                w = max(1, int(round(options.initial_window_s / sample_time)))
-            windows.append(min(w, s_raw))
-        total = sum(windows)
-        op_u = sum(column_sums(r[0][:w]) for r, w in zip(records, windows, strict=True)) / total
-        op_y = sum(column_sums(r[1][:w]) for r, w in zip(records, windows, strict=True)) / total
+    splits = _split_points(records, q, options.holdout)  # 1. split points (raw samples)
+    op_u, op_y = _operating_levels(records, splits, options, sample_time)  # 2. operating point
     operating_point = OperatingPoint(inputs=op_u, outputs=op_y)
     level = np.concatenate((op_u, op_y))
 
     estimation, validation, est_ranges, val_ranges, trends = [], [], [], [], []
     for (u, y), (s_dec, s_raw), start in zip(records, splits, starts, strict=True):
-        z = np.hstack((u, y))  # new array: the caller's data is never touched
-        z -= level
-        # 3. detrend, fitted on the estimation part only
-        if options.detrend:
-            t_est = np.arange(s_raw, dtype=float)
-            design = np.column_stack((np.ones(s_raw), t_est))
-            coef, *_ = np.linalg.lstsq(design, z[:s_raw], rcond=None)  # (2, m + p)
-            t_all = np.arange(z.shape[0], dtype=float)
-            z -= coef[0] + np.outer(t_all, coef[1])
+        z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
+        if coef is not None:
             trends.append(coef)
         # 4. decimate the whole experiment, then split
         z = _decimate(z, q)
@@ -411,9 +359,95 @@ def prepare(
         estimation_ranges=tuple(est_ranges),
         validation_ranges=tuple(val_ranges),
         trends=trend_array,
-        input_names=input_names,
-        output_names=output_names,
-        input_units=input_units,
-        output_units=output_units,
+        **labels,
         options=options,
     )
+
+
+def _signal_labels(m: int, p: int, input_names: Sequence[str] | None, output_names: Sequence[str] | None,
+                   input_units: Sequence[str] | None, output_units: Sequence[str] | None) -> dict[str, tuple]:
+    """Check the signal names (default ``u1, ...``, ``y1, ...``) and units (default empty)."""
+    input_names = names_tuple(input_names, "input_names", m, "u")
+    output_names = names_tuple(output_names, "output_names", p, "y")
+    input_units = names_tuple(("",) * m if input_units is None else input_units, "input_units", m, "")
+    output_units = names_tuple(
+        ("",) * p if output_units is None else output_units, "output_units", p, ""
+    )
+    return {"input_names": input_names, "output_names": output_names,
+            "input_units": input_units, "output_units": output_units}
+
+
+def _record_starts(records: Sequence[tuple[np.ndarray, np.ndarray]],
+                   segment_starts: Sequence[int] | None) -> np.ndarray:
+    """Index of each record's first sample in the original log (default: laid end to end)."""
+    if segment_starts is None:
+        starts = np.concatenate(([0], np.cumsum([r[0].shape[0] for r in records])[:-1]))
+    else:
+        starts = np.asarray(segment_starts)
+        if starts.shape != (len(records),):
+            raise OptionError(
+                f"segment_starts must hold {len(records)} indices; got {starts.size}"
+            )
+    return starts
+
+
+def _split_points(records: Sequence[tuple[np.ndarray, np.ndarray]], q: int,
+                  holdout: float) -> list[tuple[int, int]]:
+    """Per record, the estimation/validation split ``(decimated samples, raw samples)``."""
+    splits = []
+    for k, (u, _) in enumerate(records):
+        n_raw = u.shape[0]
+        if q > 1 and n_raw < _min_decimate_length(q):
+            raise OptionError(
+                f"experiment {k} has {n_raw} samples; decimation by {q} needs at least "
+                f"{_min_decimate_length(q)}"
+            )
+        n_dec = math.ceil(n_raw / q)
+        s_dec = int(round((1.0 - holdout) * n_dec))
+        if s_dec < 2:
+            raise OptionError(
+                f"experiment {k} has {n_raw} samples; too few to keep an estimation part "
+                f"with holdout {holdout:g} and decimation {q}"
+            )
+        splits.append((s_dec, min(s_dec * q, n_raw)))
+    return splits
+
+
+def _operating_levels(records: Sequence[tuple[np.ndarray, np.ndarray]], splits: Sequence[tuple[int, int]],
+                      options: PreprocessOptions, sample_time: float) -> tuple[np.ndarray, np.ndarray]:
+    """Input and output levels: means over the estimation parts, or over the initial windows."""
+    if options.offset == "mean":
+        total = sum(s_raw for _, s_raw in splits)
+        op_u = sum(column_sums(r[0][:s_raw]) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
+        op_y = sum(column_sums(r[1][:s_raw]) for r, (_, s_raw) in zip(records, splits, strict=True)) / total
+    else:
+        windows = []
+        for _, s_raw in splits:
+            if options.initial_window_s is None:
+                w = max(1, int(round(_DEFAULT_INITIAL_FRACTION * s_raw)))
+            else:
+                w = max(1, int(round(options.initial_window_s / sample_time)))
+            windows.append(min(w, s_raw))
+        total = sum(windows)
+        op_u = sum(column_sums(r[0][:w]) for r, w in zip(records, windows, strict=True)) / total
+        op_y = sum(column_sums(r[1][:w]) for r, w in zip(records, windows, strict=True)) / total
+    return op_u, op_y
+
+
+def _deviations(u: np.ndarray, y: np.ndarray, level: np.ndarray, s_raw: int,
+                detrend: bool) -> tuple[np.ndarray, np.ndarray | None]:
+    """``[u, y]`` minus the levels and, with ``detrend``, minus the line fitted to the first ``s_raw`` samples.
+
+    Returns the deviations (a new array: the caller's data is never touched)
+    and the trend coefficients ``(2, m + p)`` (``None`` without ``detrend``).
+    """
+    z = np.hstack((u, y))
+    z -= level
+    if not detrend:
+        return z, None
+    t_est = np.arange(s_raw, dtype=float)
+    design = np.column_stack((np.ones(s_raw), t_est))
+    coef, *_ = np.linalg.lstsq(design, z[:s_raw], rcond=None)  # (2, m + p)
+    t_all = np.arange(z.shape[0], dtype=float)
+    z -= coef[0] + np.outer(t_all, coef[1])
+    return z, coef
