@@ -742,34 +742,8 @@ def project(
     if m == 0 or p == 0:
         raise OptionError(f"subspace needs at least one input and one output; got {m} and {p}")
     n_samples = sum(e.n_samples for e in experiments)
-    i_min = _min_horizon(max_order, p)
-    if horizon is None:
-        i = default_horizon(max_order, p)
-        while i > i_min and _columns(experiments, i) < 4 * 2 * i * (m + p):
-            i -= 1
-    else:
-        i = int_in_range(horizon, "horizon", 2)
-        if i < i_min:
-            raise OptionError(
-                f"order {max_order} needs a horizon of at least {i_min} with {p} output(s) "
-                f"(order <= p * (horizon - 1)); got horizon {i}",
-                hint=f"raise the horizon to {i_min} or lower the order",
-            )
-    rows = 2 * i * (m + p)
-    for k, exp in enumerate(experiments):
-        if exp.n_samples < 2 * i:
-            raise OptionError(
-                f"experiment {k} has {exp.n_samples} samples; horizon {i} needs at least "
-                f"{2 * i} per experiment (and {rows} block-Hankel columns in total)",
-                hint="lower the order or the horizon, or drop the short experiment",
-            )
-    n_columns = _columns(experiments, i)
-    if n_columns < rows:
-        raise OptionError(
-            f"order {max_order} with horizon {i} needs at least {rows} block-Hankel columns "
-            f"(about {rows + 2 * i - 1} samples); got {n_columns} from {n_samples} samples",
-            hint="lower the order, or use a longer log",
-        )
+    i = _choose_horizon(experiments, horizon, max_order, m, p)
+    n_columns = _checked_columns(experiments, i, max_order, m, p, n_samples)
 
     with _one_blas_thread():
         gram = _hankel_gram(experiments, i)
@@ -779,53 +753,16 @@ def project(
             R = _accumulate_r(experiments, i, chunk_columns)
             factorization = "householder"
     idx = _index(m, p, i)
-    # per-signal RMS from the diagonal of H H^T
-    energy = np.diag(gram) / n_columns
-    e_u = energy[idx["U"]].reshape(2 * i, m).mean(axis=0)
-    e_y = energy[2 * i * m :].reshape(2 * i, p).mean(axis=0)
-    input_scale = np.where(e_u > 0, np.sqrt(e_u), 1.0)
-    output_scale = np.where(e_y > 0, np.sqrt(e_y), 1.0)
-    if not np.any(e_u > 0):
-        raise IdentificationError(
-            "all inputs are identically zero; a model from inputs to outputs cannot be estimated"
-        )
+    input_scale, output_scale = _signal_scales(gram, idx, n_columns, i, m, p)
     row_scale = np.concatenate([np.tile(input_scale, 2 * i), np.tile(output_scale, 2 * i)])
     L = _scaled_factor(R, row_scale, n_columns)
-
-    s_u = np.linalg.svd(L[idx["U"]], compute_uv=False)
-    rank_u = int(np.sum(s_u > s_u[0] * _PE_RCOND))
-    if rank_u < s_u.size:
-        warnings.warn(
-            f"the inputs are not persistently exciting of order {2 * i} (horizon {i}): the input "
-            f"block-Hankel matrix has numerical rank {rank_u} of {s_u.size}; "
-            "the estimate may be unreliable",
-            PoorExcitationWarning,
-            stacklevel=2,
-        )
+    _warn_if_inputs_not_exciting(L, idx, i)
 
     Wp = np.vstack([L[idx["Up"]], L[idx["Yp"]]])
     Wp_plus = np.vstack([L[idx["Up+"]], L[idx["Yp+"]]])
     O_i = _oblique(L[idx["Yf"]], L[idx["Uf"]], Wp)
     O_next = _oblique(L[idx["Yf-"]], L[idx["Uf-"]], Wp_plus)
-
-    if weighting == "n4sid":
-        weighted = O_i
-        w1_inv = None
-    else:
-        Qu = _row_space_basis(L[idx["Uf"]])
-        weighted = O_i - (O_i @ Qu) @ Qu.T
-        w1_inv = None
-        if weighting == "cva":
-            Yf = L[idx["Yf"]]
-            Yf_perp = Yf - (Yf @ Qu) @ Qu.T
-            cov = Yf_perp @ Yf_perp.T
-            ev, V = np.linalg.eigh(cov)
-            ev = np.maximum(ev, max(ev.max(), np.finfo(float).tiny) * _CVA_FLOOR)
-            w1 = (V / np.sqrt(ev)) @ V.T
-            w1_inv = (V * np.sqrt(ev)) @ V.T
-            weighted = w1 @ weighted
-    U, s, _ = np.linalg.svd(weighted, full_matrices=False)
-    basis = U if w1_inv is None else w1_inv @ U
+    s, basis = _weighted_basis(L, idx, O_i, weighting)
 
     return SubspaceProjection(
         singular_values=s,
@@ -845,6 +782,99 @@ def project(
         factorization=factorization,
         gram_condition=condition,
     )
+
+
+def _choose_horizon(experiments: Sequence[Experiment], horizon: int | None, max_order: int,
+                    m: int, p: int) -> int:
+    """Check the given horizon, or lower :func:`default_horizon` while the data are short."""
+    i_min = _min_horizon(max_order, p)
+    if horizon is None:
+        i = default_horizon(max_order, p)
+        while i > i_min and _columns(experiments, i) < 4 * 2 * i * (m + p):
+            i -= 1
+    else:
+        i = int_in_range(horizon, "horizon", 2)
+        if i < i_min:
+            raise OptionError(
+                f"order {max_order} needs a horizon of at least {i_min} with {p} output(s) "
+                f"(order <= p * (horizon - 1)); got horizon {i}",
+                hint=f"raise the horizon to {i_min} or lower the order",
+            )
+    return i
+
+
+def _checked_columns(experiments: Sequence[Experiment], i: int, max_order: int, m: int, p: int,
+                     n_samples: int) -> int:
+    """Count the block-Hankel columns; refuse data too short for horizon ``i``."""
+    rows = 2 * i * (m + p)
+    for k, exp in enumerate(experiments):
+        if exp.n_samples < 2 * i:
+            raise OptionError(
+                f"experiment {k} has {exp.n_samples} samples; horizon {i} needs at least "
+                f"{2 * i} per experiment (and {rows} block-Hankel columns in total)",
+                hint="lower the order or the horizon, or drop the short experiment",
+            )
+    n_columns = _columns(experiments, i)
+    if n_columns < rows:
+        raise OptionError(
+            f"order {max_order} with horizon {i} needs at least {rows} block-Hankel columns "
+            f"(about {rows + 2 * i - 1} samples); got {n_columns} from {n_samples} samples",
+            hint="lower the order, or use a longer log",
+        )
+    return n_columns
+
+
+def _signal_scales(gram: np.ndarray, idx: dict[str, np.ndarray], n_columns: int, i: int,
+                   m: int, p: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per-signal RMS of the inputs and outputs from the diagonal of ``H H^T`` (1 for a zero signal)."""
+    energy = np.diag(gram) / n_columns
+    e_u = energy[idx["U"]].reshape(2 * i, m).mean(axis=0)
+    e_y = energy[2 * i * m :].reshape(2 * i, p).mean(axis=0)
+    input_scale = np.where(e_u > 0, np.sqrt(e_u), 1.0)
+    output_scale = np.where(e_y > 0, np.sqrt(e_y), 1.0)
+    if not np.any(e_u > 0):
+        raise IdentificationError(
+            "all inputs are identically zero; a model from inputs to outputs cannot be estimated"
+        )
+    return input_scale, output_scale
+
+
+def _warn_if_inputs_not_exciting(L: np.ndarray, idx: dict[str, np.ndarray], i: int) -> None:
+    """Warn when the input block-Hankel rows of ``L`` are rank deficient (called from :func:`project`)."""
+    s_u = np.linalg.svd(L[idx["U"]], compute_uv=False)
+    rank_u = int(np.sum(s_u > s_u[0] * _PE_RCOND))
+    if rank_u < s_u.size:
+        warnings.warn(
+            f"the inputs are not persistently exciting of order {2 * i} (horizon {i}): the input "
+            f"block-Hankel matrix has numerical rank {rank_u} of {s_u.size}; "
+            "the estimate may be unreliable",
+            PoorExcitationWarning,
+            stacklevel=3,
+        )
+
+
+def _weighted_basis(L: np.ndarray, idx: dict[str, np.ndarray], O_i: np.ndarray,
+                    weighting: str) -> tuple[np.ndarray, np.ndarray]:
+    """Singular values of ``W1 O_i W2`` and the observability basis (``W1^-1 U``) for the weighting."""
+    if weighting == "n4sid":
+        weighted = O_i
+        w1_inv = None
+    else:
+        Qu = _row_space_basis(L[idx["Uf"]])
+        weighted = O_i - (O_i @ Qu) @ Qu.T
+        w1_inv = None
+        if weighting == "cva":
+            Yf = L[idx["Yf"]]
+            Yf_perp = Yf - (Yf @ Qu) @ Qu.T
+            cov = Yf_perp @ Yf_perp.T
+            ev, V = np.linalg.eigh(cov)
+            ev = np.maximum(ev, max(ev.max(), np.finfo(float).tiny) * _CVA_FLOOR)
+            w1 = (V / np.sqrt(ev)) @ V.T
+            w1_inv = (V * np.sqrt(ev)) @ V.T
+            weighted = w1 @ weighted
+    U, s, _ = np.linalg.svd(weighted, full_matrices=False)
+    basis = U if w1_inv is None else w1_inv @ U
+    return s, basis
 
 
 def suggest_order(projection: SubspaceProjection) -> OrderSuggestion:
@@ -1346,76 +1376,18 @@ def model_of_order(
         )
     experiments = as_experiments(data)
     sample_time = positive_float(sample_time, "sample_time")
-    m, p, i = projection.n_inputs, projection.n_outputs, projection.horizon
-    if (experiments[0].n_inputs, experiments[0].n_outputs) != (m, p):
-        raise OptionError(
-            f"data have {experiments[0].n_inputs} inputs and {experiments[0].n_outputs} outputs; "
-            f"the projection was computed for {m} and {p}"
-        )
-    order = int_in_range(order, "order", 1, MAX_ORDER_LIMIT)
-    if order > projection.max_order:
-        need = _min_horizon(order, p)
-        raise OptionError(
-            f"order {order} is too high for horizon {i} with {p} output(s): at most "
-            f"{projection.max_order} states can be estimated",
-            hint=f"use a horizon of at least {need} (and enough samples), or a lower order",
-        )
+    n = _checked_order(projection, experiments, order)
     if options is None:
-        options = SubspaceOptions(order=order, weighting=projection.weighting, horizon=i)
+        options = SubspaceOptions(order=n, weighting=projection.weighting, horizon=projection.horizon)
     elif not isinstance(options, SubspaceOptions):
         raise OptionError(f"options must be SubspaceOptions; got {type(options).__name__}")
-    n = order
-    s = projection.singular_values
-    gamma_s = projection.observability_basis[:, :n] * np.sqrt(s[:n])
-    if s[n - 1] <= s[0] * 1e-13:
-        warnings.warn(
-            f"singular value {n} is at rounding level ({s[n - 1]:.3g} of {s[0]:.3g}); "
-            f"order {n} is more than the data support",
-            IllConditionedWarning,
-            stacklevel=2,
-        )
-    A = _regress_left(gamma_s[:-p], gamma_s[p:])
+    p = projection.n_outputs
+    gamma_s = _scaled_observability(projection, n)
+    A, unstable, stabilized = _state_matrix(gamma_s, p, n, options.stabilize)
     C_s = gamma_s[:p]
     C = C_s * projection.output_scale[:, None]
-
-    poles = np.linalg.eigvals(A).astype(complex)
-    unstable = poles[np.abs(poles) > 1.0]
-    stabilized = False
-    if unstable.size:
-        if options.stabilize:
-            A = _reflect_unstable(A)
-            stabilized = True
-            what = "reflected inside the unit circle (stabilize=True)"
-        else:
-            what = "kept as estimated; stabilize=True reflects them"
-        warnings.warn(
-            f"the order-{n} model has {unstable.size} pole(s) outside the unit circle "
-            f"(largest |z| = {np.abs(unstable).max():.6g}); {what}",
-            UnstableModelWarning,
-            stacklevel=2,
-        )
-
-    L = projection.scaled_factor()
-    idx = _index(m, p, i)
-    U_i, Y_i = L[idx["Ui"]], L[idx["Yi"]]
-    X_i, X_next = _state_sequences(projection, gamma_s, p)
-    resid_x = X_next - A @ X_i
-    resid_y = Y_i - C_s @ X_i
-    BD_s = _regress(np.vstack([resid_x, resid_y]), U_i)
-
-    radius = float(np.abs(np.linalg.eigvals(A)).max())
-    if radius < 1.0:
-        B, D, x0 = _fit_bd_simulation(A, C, experiments, 1.0 / projection.output_scale)
-        method = "simulation"
-    else:
-        B = BD_s[:n] / projection.input_scale[None, :]
-        D = (
-            projection.output_scale[:, None]
-            * BD_s[n:]
-            / projection.input_scale[None, :]
-        )
-        x0 = tuple(np.zeros(n) for _ in experiments)
-        method = "state_sequence"
+    U_i, Y_i, resid_x, resid_y, BD_s = _state_regression(projection, gamma_s, A, C_s)
+    B, D, x0, method = _input_matrices(projection, experiments, A, C, BD_s, n)
 
     K = None
     innovation = None
@@ -1447,6 +1419,104 @@ def model_of_order(
         innovation_covariance=innovation,
         input_matrix_method=method,
     )
+
+
+def _checked_order(projection: SubspaceProjection, experiments: Sequence[Experiment], order: int) -> int:
+    """Check that the data match the projection and that it supports ``order`` states."""
+    m, p, i = projection.n_inputs, projection.n_outputs, projection.horizon
+    if (experiments[0].n_inputs, experiments[0].n_outputs) != (m, p):
+        raise OptionError(
+            f"data have {experiments[0].n_inputs} inputs and {experiments[0].n_outputs} outputs; "
+            f"the projection was computed for {m} and {p}"
+        )
+    order = int_in_range(order, "order", 1, MAX_ORDER_LIMIT)
+    if order > projection.max_order:
+        need = _min_horizon(order, p)
+        raise OptionError(
+            f"order {order} is too high for horizon {i} with {p} output(s): at most "
+            f"{projection.max_order} states can be estimated",
+            hint=f"use a horizon of at least {need} (and enough samples), or a lower order",
+        )
+    return order
+
+
+def _scaled_observability(projection: SubspaceProjection, n: int) -> np.ndarray:
+    """``Gamma_i = observability_basis[:, :n] diag(sqrt(s_1..s_n))``; warns when ``s_n`` is rounding noise.
+
+    Called from :func:`model_of_order` (the warning names its caller).
+    """
+    s = projection.singular_values
+    gamma_s = projection.observability_basis[:, :n] * np.sqrt(s[:n])
+    if s[n - 1] <= s[0] * 1e-13:
+        warnings.warn(
+            f"singular value {n} is at rounding level ({s[n - 1]:.3g} of {s[0]:.3g}); "
+            f"order {n} is more than the data support",
+            IllConditionedWarning,
+            stacklevel=3,
+        )
+    return gamma_s
+
+
+def _state_matrix(gamma_s: np.ndarray, p: int, n: int, stabilize: bool) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Estimate ``A`` from the shift invariance of ``Gamma_i``; also its unstable poles and whether they were reflected.
+
+    Called from :func:`model_of_order` (the warning names its caller).
+    """
+    A = _regress_left(gamma_s[:-p], gamma_s[p:])
+    poles = np.linalg.eigvals(A).astype(complex)
+    unstable = poles[np.abs(poles) > 1.0]
+    stabilized = False
+    if unstable.size:
+        if stabilize:
+            A = _reflect_unstable(A)
+            stabilized = True
+            what = "reflected inside the unit circle (stabilize=True)"
+        else:
+            what = "kept as estimated; stabilize=True reflects them"
+        warnings.warn(
+            f"the order-{n} model has {unstable.size} pole(s) outside the unit circle "
+            f"(largest |z| = {np.abs(unstable).max():.6g}); {what}",
+            UnstableModelWarning,
+            stacklevel=3,
+        )
+    return A, unstable, stabilized
+
+
+def _state_regression(projection: SubspaceProjection, gamma_s: np.ndarray, A: np.ndarray,
+                      C_s: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Regress ``[X_{i+1}; Y_i] - [A; C] X_i`` on ``U_i`` (scaled coordinates).
+
+    Returns ``U_i, Y_i``, the residuals ``X_{i+1} - A X_i`` and ``Y_i - C X_i``,
+    and the coefficients ``[B; D]`` of the regression.
+    """
+    m, p, i = projection.n_inputs, projection.n_outputs, projection.horizon
+    L = projection.scaled_factor()
+    idx = _index(m, p, i)
+    U_i, Y_i = L[idx["Ui"]], L[idx["Yi"]]
+    X_i, X_next = _state_sequences(projection, gamma_s, p)
+    resid_x = X_next - A @ X_i
+    resid_y = Y_i - C_s @ X_i
+    BD_s = _regress(np.vstack([resid_x, resid_y]), U_i)
+    return U_i, Y_i, resid_x, resid_y, BD_s
+
+
+def _input_matrices(projection: SubspaceProjection, experiments: Sequence[Experiment], A: np.ndarray,
+                    C: np.ndarray, BD_s: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray, tuple, str]:
+    """``B``, ``D``, initial states and the method: free-run fit when ``A`` is stable, else the state regression."""
+    radius = float(np.abs(np.linalg.eigvals(A)).max())
+    if radius < 1.0:
+        B, D, x0 = _fit_bd_simulation(A, C, experiments, 1.0 / projection.output_scale)
+        method = "simulation"
+    else:
+        B = BD_s[:n] / projection.input_scale[None, :]
+        D = (
+            projection.output_scale[:, None]
+            * BD_s[n:]
+            / projection.input_scale[None, :]
+        )
+        x0 = tuple(np.zeros(n) for _ in experiments)
+        method = "state_sequence"
+    return B, D, x0, method
 
 
 def fit_subspace(
