@@ -995,43 +995,13 @@ def validate_model(
     options = CheckOptions() if options is None else options
     if not isinstance(options, CheckOptions):
         raise OptionError(f"options must be CheckOptions; got {type(options).__name__}")
-    if abs(sample_time - model.sample_time) > SAMPLE_TIME_RTOL * model.sample_time:
-        raise OptionError(
-            f"the data's sample time {sample_time:g} s differs from the model's "
-            f"{model.sample_time:g} s",
-            hint="resample the log or use a model identified at this rate",
-        )
+    _check_validation_data(model, u.shape[0], sample_time, options)
     N = u.shape[0]
     L = options.max_lag
-    need = max(32, MIN_SAMPLES_PER_LAG * L)
-    if N < need:
-        raise OptionError(
-            f"validation needs at least {need} samples for max_lag {L}; got {N}"
-        )
-    seg = options.spectral_segment
-    if seg is not None and seg > N:
-        raise OptionError(f"spectral_segment must be at most the {N} samples; got {seg}")
-
     ins, outs = model.inputs, model.outputs
     p, m = model.n_outputs, model.n_inputs
-    estimate = options.initial_state == "estimate"
-    n = model.n_states
 
-    # free-run simulation
-    x0 = estimate_initial_state(model, u, y) if estimate and n else np.zeros(n)
-    y_sim = simulate(model, u, x0)
-    sim_fit = fit_percent(y, y_sim)
-
-    # predictions (initial predictor state estimated through the predictor itself)
-    if model.noise_gain is not None and estimate and n:
-        pred_model = _predictor(model)
-        xp0 = estimate_initial_state(pred_model, np.hstack([u, y]), y)
-    else:
-        xp0 = x0
-    y_pred = predict(model, u, y, options.prediction_steps, xp0)
-    pred_fit = fit_percent(y, y_pred)
-    y_one = y_pred if options.prediction_steps == 1 else predict(model, u, y, 1, xp0)
-    resid = y - y_one
+    x0, y_sim, sim_fit, y_pred, pred_fit, resid = _simulate_and_predict(model, u, y, options)
 
     # residual tests
     white = tuple(
@@ -1041,14 +1011,8 @@ def validate_model(
         tuple(cross_correlation(resid[:, i], u[:, j], L, options.confidence) for j in range(m))
         for i in range(p)
     )
-    from statsmodels.stats.stattools import jarque_bera
-
-    jb, jb_p, skew, kurt = jarque_bera(resid, axis=0)
-    normality = NormalityResult(
-        _readonly(np.atleast_1d(jb)), _readonly(np.atleast_1d(jb_p)),
-        _readonly(np.atleast_1d(skew)), _readonly(np.atleast_1d(kurt)),
-    )
-    spectral = spectral_comparison(model, u, y, segment=seg)
+    normality = _normality(resid)
+    spectral = spectral_comparison(model, u, y, segment=options.spectral_segment)
 
     verdicts = _verdicts(model, u, y, options, sim_fit, pred_fit, white, xcorr, spectral)
     return ValidationReport(
@@ -1074,6 +1038,64 @@ def validate_model(
     )
 
 
+def _check_validation_data(model: StateSpaceModel, N: int, sample_time: float, options: CheckOptions) -> None:
+    """Refuse data at another sample time than the model's, or too short for the lags and segment asked."""
+    if abs(sample_time - model.sample_time) > SAMPLE_TIME_RTOL * model.sample_time:
+        raise OptionError(
+            f"the data's sample time {sample_time:g} s differs from the model's "
+            f"{model.sample_time:g} s",
+            hint="resample the log or use a model identified at this rate",
+        )
+    L = options.max_lag
+    need = max(32, MIN_SAMPLES_PER_LAG * L)
+    if N < need:
+        raise OptionError(
+            f"validation needs at least {need} samples for max_lag {L}; got {N}"
+        )
+    seg = options.spectral_segment
+    if seg is not None and seg > N:
+        raise OptionError(f"spectral_segment must be at most the {N} samples; got {seg}")
+
+
+def _simulate_and_predict(model: StateSpaceModel, u: np.ndarray, y: np.ndarray,
+                          options: CheckOptions) -> tuple[np.ndarray, ...]:
+    """Run the model on the data.
+
+    Returns the initial state, the free-run simulation and its fit, the
+    ``prediction_steps``-ahead prediction and its fit, and the one-step
+    prediction errors (residuals).
+    """
+    estimate = options.initial_state == "estimate"
+    n = model.n_states
+
+    # free-run simulation
+    x0 = estimate_initial_state(model, u, y) if estimate and n else np.zeros(n)
+    y_sim = simulate(model, u, x0)
+    sim_fit = fit_percent(y, y_sim)
+
+    # predictions (initial predictor state estimated through the predictor itself)
+    if model.noise_gain is not None and estimate and n:
+        pred_model = _predictor(model)
+        xp0 = estimate_initial_state(pred_model, np.hstack([u, y]), y)
+    else:
+        xp0 = x0
+    y_pred = predict(model, u, y, options.prediction_steps, xp0)
+    pred_fit = fit_percent(y, y_pred)
+    y_one = y_pred if options.prediction_steps == 1 else predict(model, u, y, 1, xp0)
+    return x0, y_sim, sim_fit, y_pred, pred_fit, y - y_one
+
+
+def _normality(resid: np.ndarray) -> NormalityResult:
+    """Jarque-Bera test of the residuals of each output (statsmodels)."""
+    from statsmodels.stats.stattools import jarque_bera
+
+    jb, jb_p, skew, kurt = jarque_bera(resid, axis=0)
+    return NormalityResult(
+        _readonly(np.atleast_1d(jb)), _readonly(np.atleast_1d(jb_p)),
+        _readonly(np.atleast_1d(skew)), _readonly(np.atleast_1d(kurt)),
+    )
+
+
 def _verdicts(
     model: StateSpaceModel,
     u: np.ndarray,
@@ -1085,13 +1107,20 @@ def _verdicts(
     xcorr: tuple[tuple[Correlation, ...], ...],
     spectral: SpectralComparison,
 ) -> list[Verdict]:
-    ins, outs = model.inputs, model.outputs
-    p, m = model.n_outputs, model.n_inputs
-    L = options.max_lag
-    out: list[Verdict] = []
+    """All verdicts in report order: fit, input independence and feedback, whiteness, spectra."""
+    out = _fit_verdicts(model.outputs, sim_fit, options)
+    correlation, input_bad = _correlation_verdicts(model, u, y, options, xcorr)
+    out += correlation
+    out += _whiteness_verdicts(model, white, input_bad, options.max_lag)
+    out += _spectral_verdicts(spectral)
+    return out
 
+
+def _fit_verdicts(outs: tuple[str, ...], sim_fit: np.ndarray, options: CheckOptions) -> list[Verdict]:
+    """``min_fit`` verdicts, one per output, when a minimum fit was asked for."""
+    out: list[Verdict] = []
     if options.min_fit is not None:
-        for i in range(p):
+        for i in range(len(outs)):
             ok = bool(sim_fit[i] >= options.min_fit)
             text = (
                 f"simulation fit of {outs[i]} is {sim_fit[i]:.1f} % "
@@ -1103,40 +1132,35 @@ def _verdicts(
                     "verdicts for the likely cause"
                 )
             out.append(Verdict("min_fit", ok, text, outs[i], None, None if ok else "poor_fit"))
+    return out
 
-    # input independence (positive lags) and feedback (negative lags)
+
+def _correlation_verdicts(
+    model: StateSpaceModel,
+    u: np.ndarray,
+    y: np.ndarray,
+    options: CheckOptions,
+    xcorr: tuple[tuple[Correlation, ...], ...],
+) -> tuple[list[Verdict], np.ndarray]:
+    """Input independence (positive lags) and feedback (negative lags) per channel.
+
+    Also returns, per output and input, whether the residuals depend on the
+    input (the whiteness verdicts point at it).
+    """
+    ins, outs = model.inputs, model.outputs
+    p, m = model.n_outputs, model.n_inputs
+    L = options.max_lag
     pos = np.arange(0, L + 1)
     neg = np.arange(-L, 0)
     input_bad = np.zeros((p, m), bool)
-    fir = markov = None
+    responses: dict[str, np.ndarray] = {}  # FIR estimate and Markov parameters, made on the first failure
+    out: list[Verdict] = []
     for i in range(p):
         for j in range(m):
             c = xcorr[i][j]
             if c.fails(pos):
                 input_bad[i, j] = True
-                lag, val = c.peak(pos)
-                if fir is None:
-                    fir = _fir_estimate(u, y, L + 1)
-                    markov = _markov(model, L + 1 + MAX_DELAY_SHIFT)
-                shift = _delay_shift(markov[:, i, j], fir[:, i, j], min(MAX_DELAY_SHIFT, L // 2))
-                head = (
-                    f"residuals of {outs[i]} are correlated with {ins[j]} at lag {lag} "
-                    f"(r = {val:+.3f}, band +-{c.band:.3f})"
-                )
-                if shift:
-                    word = "later" if shift > 0 else "earlier"
-                    msg = (
-                        f"{head}: the measured response to {ins[j]} arrives {abs(shift)} "
-                        f"sample(s) {word} than the model's; the input delay looks wrong"
-                    )
-                    cause = "delay"
-                else:
-                    msg = (
-                        f"{head}: the model misses part of how {ins[j]} drives {outs[i]}; "
-                        "likely too low a model order (or a missing delay)"
-                    )
-                    cause = "order"
-                out.append(Verdict("input_independence", False, msg, outs[i], ins[j], cause))
+                out.append(_input_dependence_verdict(model, u, y, L, c.peak(pos), c.band, i, j, responses))
             else:
                 out.append(Verdict(
                     "input_independence", True,
@@ -1157,7 +1181,49 @@ def _verdicts(
                     "feedback", True,
                     f"no sign of feedback from {outs[i]} to {ins[j]}", outs[i], ins[j],
                 ))
+    return out, input_bad
 
+
+def _input_dependence_verdict(model: StateSpaceModel, u: np.ndarray, y: np.ndarray, L: int,
+                              peak: tuple[int, float], band: float, i: int, j: int,
+                              responses: dict[str, np.ndarray]) -> Verdict:
+    """Failed input independence of output ``i`` on input ``j``: a wrong delay, or too low an order.
+
+    The measured FIR response and the model's Markov parameters are computed
+    once, into ``responses``, and compared for a delay shift.
+    """
+    ins, outs = model.inputs, model.outputs
+    lag, val = peak
+    if not responses:
+        responses["fir"] = _fir_estimate(u, y, L + 1)
+        responses["markov"] = _markov(model, L + 1 + MAX_DELAY_SHIFT)
+    fir, markov = responses["fir"], responses["markov"]
+    shift = _delay_shift(markov[:, i, j], fir[:, i, j], min(MAX_DELAY_SHIFT, L // 2))
+    head = (
+        f"residuals of {outs[i]} are correlated with {ins[j]} at lag {lag} "
+        f"(r = {val:+.3f}, band +-{band:.3f})"
+    )
+    if shift:
+        word = "later" if shift > 0 else "earlier"
+        msg = (
+            f"{head}: the measured response to {ins[j]} arrives {abs(shift)} "
+            f"sample(s) {word} than the model's; the input delay looks wrong"
+        )
+        cause = "delay"
+    else:
+        msg = (
+            f"{head}: the model misses part of how {ins[j]} drives {outs[i]}; "
+            "likely too low a model order (or a missing delay)"
+        )
+        cause = "order"
+    return Verdict("input_independence", False, msg, outs[i], ins[j], cause)
+
+
+def _whiteness_verdicts(model: StateSpaceModel, white: tuple[WhitenessResult, ...],
+                        input_bad: np.ndarray, L: int) -> list[Verdict]:
+    """Residual whiteness per output, with the likely cause when it fails."""
+    outs = model.outputs
+    out: list[Verdict] = []
     for i, w in enumerate(white):
         pval = w.ljung_box_pvalue
         if w.white:
@@ -1190,7 +1256,12 @@ def _verdicts(
             )
             cause = "noise_model"
         out.append(Verdict("whiteness", False, msg, outs[i], None, cause))
+    return out
 
+
+def _spectral_verdicts(spectral: SpectralComparison) -> list[Verdict]:
+    """Coherence and frequency-response verdicts from the spectral comparison."""
+    out: list[Verdict] = []
     if spectral.low_coherence_bands:
         for band in spectral.low_coherence_bands:
             src = band.input if band.input is not None else "the inputs"
