@@ -257,24 +257,15 @@ def _units(spec: PipelineSpec, names: Sequence[str], header: Sequence[str], role
 
 
 def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float], None]) -> dict[str, Any]:
-    from .assess.diagnostics import validate_model
+    """Run every computation of the pipeline, in order, and return what the outputs are made from."""
     from .assess.expectations import check_expectations
     from .assess.modes import mode_table
-    from .estimate.excitation import excitation_report, excited_band
-    from .estimate.identify import identify
 
     report("reading logs", 0.0)
     logs = _read_logs(spec)
     first = logs[0]
     input_units = _units(spec, first.input_names, first.input_units, "input")
     output_units = _units(spec, first.output_names, first.output_units, "output")
-
-    segments, starts, offset = [], [], 0
-    for log in logs:
-        for a, b in log.segments:
-            segments.append((log.u[a:b], log.y[a:b]))
-            starts.append(offset + a)
-        offset += log.n_samples
 
     # baseline first: a missing or unsuitable baseline is bad input, found before the long steps
     baseline_path = Path(baseline_arg).resolve() if baseline_arg is not None else spec.drift.baseline
@@ -284,16 +275,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
 
         baseline = load_model(baseline_path)
 
-    def ident_progress(step: str, fraction: float) -> None:
-        if step != "done":
-            report(step, 0.05 + 0.6 * min(max(fraction, 0.0), 1.0))
-
-    result = identify(
-        segments, first.sample_time, spec.fit,
-        input_names=first.input_names, output_names=first.output_names,
-        input_units=input_units, output_units=output_units,
-        segment_starts=starts, progress=ident_progress,
-    )
+    result = _identify_logs(spec, logs, input_units, output_units, report)
     model = result.model
     prep = result.prepared
     pole_cov = None
@@ -304,6 +286,59 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
         pole_cov = arx_pole_covariance(result.arx, model=model)
 
     report("validating", 0.68)
+    parts, validation = _validate_held_out(spec, model, prep)
+
+    report("modes and expectations", 0.75)
+    duration = max(
+        (b - a - 1) * log.sample_time for log in logs for a, b in log.segments
+    ) or None
+    table = mode_table(model, thresholds=spec.modes.thresholds, log_duration_s=duration,
+                       pole_covariance=pole_cov)
+    expectations = () if spec.expect.is_empty else check_expectations(model, table, spec.expect)
+    band, excitation = _excitation(prep, first.input_names)
+
+    drift = None
+    if baseline is not None:
+        drift = _compare_with_baseline(spec, baseline, baseline_path, model, prep.validation[parts[0]],
+                                       band, pole_cov, report)
+
+    return {
+        "spec": spec, "logs": logs, "result": result, "validation": validation, "parts": parts,
+        "table": table, "expectations": expectations, "band": band, "excitation": excitation,
+        "drift": drift, "baseline": baseline, "log_duration_s": duration, "baseline_path": baseline_path,
+        "input_units": input_units, "output_units": output_units, "pole_covariance": pole_cov,
+    }
+
+
+def _identify_logs(spec: PipelineSpec, logs: Sequence[Any], input_units: tuple[str, ...],
+                   output_units: tuple[str, ...], report: Callable[[str, float], None]) -> Any:
+    """Identify a model from every segment of every log (one experiment each)."""
+    from .estimate.identify import identify
+
+    first = logs[0]
+    segments, starts, offset = [], [], 0
+    for log in logs:
+        for a, b in log.segments:
+            segments.append((log.u[a:b], log.y[a:b]))
+            starts.append(offset + a)
+        offset += log.n_samples
+
+    def ident_progress(step: str, fraction: float) -> None:
+        if step != "done":
+            report(step, 0.05 + 0.6 * min(max(fraction, 0.0), 1.0))
+
+    return identify(
+        segments, first.sample_time, spec.fit,
+        input_names=first.input_names, output_names=first.output_names,
+        input_units=input_units, output_units=output_units,
+        segment_starts=starts, progress=ident_progress,
+    )
+
+
+def _validate_held_out(spec: PipelineSpec, model: Any, prep: Any) -> tuple[list[int], tuple[Any, ...]]:
+    """Validate the model on every held-out part long enough for the check, longest first."""
+    from .assess.diagnostics import validate_model
+
     need = max(32, 4 * spec.check.max_lag)
     parts = sorted(
         (k for k, e in enumerate(prep.validation) if e.n_samples >= need),
@@ -318,49 +353,42 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
         validate_model(model, prep.validation[k].u, prep.validation[k].y, prep.sample_time, spec.check)
         for k in parts
     )
+    return parts, validation
 
-    report("modes and expectations", 0.75)
-    duration = max(
-        (b - a - 1) * log.sample_time for log in logs for a, b in log.segments
-    ) or None
-    table = mode_table(model, thresholds=spec.modes.thresholds, log_duration_s=duration,
-                       pole_covariance=pole_cov)
-    expectations = () if spec.expect.is_empty else check_expectations(model, table, spec.expect)
+
+def _excitation(prep: Any, input_names: Sequence[str]) -> tuple[Any, Any]:
+    """Excited band of the estimation inputs and the per-input excitation report."""
+    from .estimate.excitation import excitation_report, excited_band
 
     est_u = np.vstack([e.u for e in prep.estimation])
     band = excited_band(est_u, prep.sample_time, BAND_POWER_FRACTION)
     excitation = excitation_report(
-        est_u[: min(est_u.shape[0], 20_000)], prep.sample_time, names=first.input_names, max_order=40,
+        est_u[: min(est_u.shape[0], 20_000)], prep.sample_time, names=input_names, max_order=40,
         power_fraction=BAND_POWER_FRACTION,
     )
+    return band, excitation
 
-    drift = None
-    if baseline is not None:
-        from .assess.drift import compare_models
 
-        report("comparing with the baseline", 0.8)
-        base_model = baseline.model
-        if not base_model.is_discrete or abs(base_model.sample_time - model.sample_time) > 1e-6 * model.sample_time:
-            raise IdentError(
-                f"{baseline_path.name}: baseline sample time {base_model.sample_time} s differs from the "
-                f"new model's {model.sample_time:g} s",
-                hint="identify both at the same rate (same [preprocess] decimate)",
-            )
-        val = prep.validation[parts[0]]
-        op = model.operating_point
-        drift = compare_models(
-            base_model, model, thresholds=spec.drift.thresholds, band_hz=band,
-            u=val.u + op.inputs, y=val.y + op.outputs,
-            baseline_pole_covariance=baseline.pole_covariance(),
-            new_pole_covariance=pole_cov,
+def _compare_with_baseline(spec: PipelineSpec, baseline: Any, baseline_path: Path, model: Any, val: Any,
+                           band: Any, pole_cov: Any, report: Callable[[str, float], None]) -> Any:
+    """Drift of the new model from the baseline, on the longest held-out part ``val``."""
+    from .assess.drift import compare_models
+
+    report("comparing with the baseline", 0.8)
+    base_model = baseline.model
+    if not base_model.is_discrete or abs(base_model.sample_time - model.sample_time) > 1e-6 * model.sample_time:
+        raise IdentError(
+            f"{baseline_path.name}: baseline sample time {base_model.sample_time} s differs from the "
+            f"new model's {model.sample_time:g} s",
+            hint="identify both at the same rate (same [preprocess] decimate)",
         )
-
-    return {
-        "spec": spec, "logs": logs, "result": result, "validation": validation, "parts": parts,
-        "table": table, "expectations": expectations, "band": band, "excitation": excitation,
-        "drift": drift, "baseline": baseline, "log_duration_s": duration, "baseline_path": baseline_path,
-        "input_units": input_units, "output_units": output_units, "pole_covariance": pole_cov,
-    }
+    op = model.operating_point
+    return compare_models(
+        base_model, model, thresholds=spec.drift.thresholds, band_hz=band,
+        u=val.u + op.inputs, y=val.y + op.outputs,
+        baseline_pole_covariance=baseline.pole_covariance(),
+        new_pole_covariance=pole_cov,
+    )
 
 
 def _fmt_fit(x: float) -> str:
@@ -435,37 +463,19 @@ def _drift_dict(drift: Any, baseline_path: Path, baseline: Any) -> dict[str, Any
 
 def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: str,
              figures: list[dict[str, str]]) -> dict[str, Any]:
-    from .assess.diagnostics import report_to_dict
+    """Build ``summary.json``: verdict, gates, data, model, validation, modes, drift and provenance."""
     from .assess.modes import mode_table_to_dict
 
     spec: PipelineSpec = state["spec"]
-    logs = state["logs"]
     result = state["result"]
-    prep = result.prepared
-    first = logs[0]
     failed = [g for g in gates if not g.passed]
     if failed:
         headline = f"FAILED: {len(failed)} of {len(gates)} gates failed ({', '.join(g.key_path for g in failed)})"
     else:
         headline = f"PASSED: all {len(gates)} gates passed"
-    sel = result.selected
-    signals = []
-    for j, name in enumerate(first.input_names):
-        signals.append(_signal_stats(name, state["input_units"][j], "input",
-                                     np.concatenate([lg.u[:, j] for lg in logs])))
-    for i, name in enumerate(first.output_names):
-        signals.append(_signal_stats(name, state["output_units"][i], "output",
-                                     np.concatenate([lg.y[:, i] for lg in logs])))
-    band = state["band"]
     table = state["table"]
     modes = mode_table_to_dict(table)
     units = {"inputs": list(state["input_units"]), "outputs": list(state["output_units"])}
-    validation = []
-    for k, rep in zip(state["parts"], state["validation"], strict=True):
-        d = report_to_dict(rep)
-        d["experiment"] = k + 1
-        d["range"] = list(prep.validation_ranges[k])
-        validation.append(d)
     summary = {
         "format": SUMMARY_FORMAT,
         "schema_version": SUMMARY_SCHEMA_VERSION,
@@ -478,62 +488,9 @@ def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: 
         },
         "gates": [g.as_dict() for g in gates],
         "run": {"folder": folder_name, "created_utc": stamp},
-        "data": {
-            "logs": [
-                {
-                    "path": lg.source.path, "file_name": lg.source.file_name, "sha256": lg.source.sha256,
-                    "rows": [lg.source.first_row, lg.source.last_row], "n_samples": lg.n_samples,
-                    "sample_time": lg.sample_time, "duration_s": lg.duration_s,
-                    "segments": [list(s) for s in lg.segments], "dropped_rows": lg.dropped_rows,
-                    "jitter_std_s": lg.timing.jitter_std_s, "jitter_max_s": lg.timing.jitter_max_s,
-                    "time_basis": lg.timing.basis,
-                }
-                for lg in logs
-            ],
-            "signals": signals,
-            "excited_band_hz": None if band is None else list(band),
-            "excitation": [
-                {"input": e.name, "persistent_excitation_order": e.pe_order,
-                 "order_is_lower_bound": e.pe_order_is_lower_bound, "band_hz": e.band_hz,
-                 "power_fraction": e.power_fraction}
-                for e in state["excitation"]
-            ],
-            "estimation_ranges": [list(r) for r in prep.estimation_ranges],
-            "validation_ranges": [list(r) for r in prep.validation_ranges],
-            "operating_point": {"inputs": list(prep.operating_point.inputs),
-                                "outputs": list(prep.operating_point.outputs)},
-            "sample_time": prep.sample_time,
-            "decimation": prep.decimation,
-        },
-        "model": {
-            "file": MODEL_FILE,
-            "method": result.method,
-            "order": result.order,
-            "n_states": result.model.n_states,
-            "structure": sel.structure,
-            "n_parameters": sel.n_parameters,
-            "sample_time": result.model.sample_time,
-            "inputs": list(result.model.inputs),
-            "outputs": list(result.model.outputs),
-            "units": units,
-            "validation_fit": dict(zip(prep.output_names, map(float, result.validation_fit), strict=True)),
-            "estimation_fit": dict(zip(prep.output_names, map(float, result.estimation_fit), strict=True)),
-            "selection": {
-                "rule": (
-                    "best mean simulation fit on the held-out data; candidates within "
-                    f"{result.options.tie_tolerance:g} points of the best are tied and the simplest "
-                    "(fewest states, then fewest parameters) wins"
-                ),
-                "candidates": [c.as_dict() for c in result.candidates],
-                "singular_values": None if result.singular_values is None else list(result.singular_values),
-                "suggested_order": result.suggested_order,
-                "subspace_factorization": result.subspace_factorization,
-            },
-            "delays": None if result.delay is None else getattr(result.delay, "delays", None),
-            "notes": list(result.notes),
-            "warnings": list(result.warnings),
-        },
-        "validation": validation,
+        "data": _data_summary(state),
+        "model": _model_summary(result, units),
+        "validation": _validation_summary(state),
         "modes": {**modes, "units": units, "fail_on": list(spec.modes.fail_on)},
         "expectations": [
             {"name": r.name, "key_path": r.key_path, "met": r.met, "measured": r.measured,
@@ -544,25 +501,120 @@ def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: 
         else _drift_dict(state["drift"], state["baseline_path"], state["baseline"]),
         "figures": figures,
         "warnings": list(state["warnings"]),
-        "provenance": {
-            "tool": "rigfit",
-            "tool_version": __version__,
-            "python": platform.python_version(),
-            "numpy": np.__version__,
-            "pipeline": {"path": None if spec.path is None else str(spec.path),
-                         "file_name": None if spec.path is None else spec.path.name,
-                         "sha256": spec.sha256, "copy": PIPELINE_COPY if spec.path is not None else None},
-            "logs": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in logs],
-            "baseline": None if state["baseline_path"] is None else {
-                "file_name": state["baseline_path"].name,
-                "sha256": hashlib.sha256(state["baseline_path"].read_bytes()).hexdigest(),
-            },
-            "settings": spec.to_dict(),
-        },
+        "provenance": _provenance(spec, state["logs"], state["baseline_path"]),
         "safety": SAFETY_CAUTION,
         "files": {"model": MODEL_FILE, "summary": SUMMARY_FILE, "report": REPORT_FILE},
     }
     return json_ready(summary)
+
+
+def _data_summary(state: dict[str, Any]) -> dict[str, Any]:
+    """Build the ``data`` section: logs, signal statistics, excitation, ranges and preparation."""
+    logs = state["logs"]
+    prep = state["result"].prepared
+    first = logs[0]
+    signals = []
+    for j, name in enumerate(first.input_names):
+        signals.append(_signal_stats(name, state["input_units"][j], "input",
+                                     np.concatenate([lg.u[:, j] for lg in logs])))
+    for i, name in enumerate(first.output_names):
+        signals.append(_signal_stats(name, state["output_units"][i], "output",
+                                     np.concatenate([lg.y[:, i] for lg in logs])))
+    band = state["band"]
+    return {
+        "logs": [
+            {
+                "path": lg.source.path, "file_name": lg.source.file_name, "sha256": lg.source.sha256,
+                "rows": [lg.source.first_row, lg.source.last_row], "n_samples": lg.n_samples,
+                "sample_time": lg.sample_time, "duration_s": lg.duration_s,
+                "segments": [list(s) for s in lg.segments], "dropped_rows": lg.dropped_rows,
+                "jitter_std_s": lg.timing.jitter_std_s, "jitter_max_s": lg.timing.jitter_max_s,
+                "time_basis": lg.timing.basis,
+            }
+            for lg in logs
+        ],
+        "signals": signals,
+        "excited_band_hz": None if band is None else list(band),
+        "excitation": [
+            {"input": e.name, "persistent_excitation_order": e.pe_order,
+             "order_is_lower_bound": e.pe_order_is_lower_bound, "band_hz": e.band_hz,
+             "power_fraction": e.power_fraction}
+            for e in state["excitation"]
+        ],
+        "estimation_ranges": [list(r) for r in prep.estimation_ranges],
+        "validation_ranges": [list(r) for r in prep.validation_ranges],
+        "operating_point": {"inputs": list(prep.operating_point.inputs),
+                            "outputs": list(prep.operating_point.outputs)},
+        "sample_time": prep.sample_time,
+        "decimation": prep.decimation,
+    }
+
+
+def _model_summary(result: Any, units: dict[str, list[str]]) -> dict[str, Any]:
+    """Build the ``model`` section: the selected model, how it was selected, and the notes."""
+    prep = result.prepared
+    sel = result.selected
+    return {
+        "file": MODEL_FILE,
+        "method": result.method,
+        "order": result.order,
+        "n_states": result.model.n_states,
+        "structure": sel.structure,
+        "n_parameters": sel.n_parameters,
+        "sample_time": result.model.sample_time,
+        "inputs": list(result.model.inputs),
+        "outputs": list(result.model.outputs),
+        "units": units,
+        "validation_fit": dict(zip(prep.output_names, map(float, result.validation_fit), strict=True)),
+        "estimation_fit": dict(zip(prep.output_names, map(float, result.estimation_fit), strict=True)),
+        "selection": {
+            "rule": (
+                "best mean simulation fit on the held-out data; candidates within "
+                f"{result.options.tie_tolerance:g} points of the best are tied and the simplest "
+                "(fewest states, then fewest parameters) wins"
+            ),
+            "candidates": [c.as_dict() for c in result.candidates],
+            "singular_values": None if result.singular_values is None else list(result.singular_values),
+            "suggested_order": result.suggested_order,
+            "subspace_factorization": result.subspace_factorization,
+        },
+        "delays": None if result.delay is None else getattr(result.delay, "delays", None),
+        "notes": list(result.notes),
+        "warnings": list(result.warnings),
+    }
+
+
+def _validation_summary(state: dict[str, Any]) -> list[dict[str, Any]]:
+    """One validation report per held-out part used, with its experiment number and range."""
+    from .assess.diagnostics import report_to_dict
+
+    prep = state["result"].prepared
+    validation = []
+    for k, rep in zip(state["parts"], state["validation"], strict=True):
+        d = report_to_dict(rep)
+        d["experiment"] = k + 1
+        d["range"] = list(prep.validation_ranges[k])
+        validation.append(d)
+    return validation
+
+
+def _provenance(spec: PipelineSpec, logs: Sequence[Any], baseline_path: Path | None) -> dict[str, Any]:
+    """Tool versions, input files with their hashes, and the settings used."""
+    return {
+        "tool": "rigfit",
+        "tool_version": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "pipeline": {"path": None if spec.path is None else str(spec.path),
+                     "file_name": None if spec.path is None else spec.path.name,
+                     "sha256": spec.sha256, "copy": PIPELINE_COPY if spec.path is not None else None},
+        "logs": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in logs],
+        "baseline": None if baseline_path is None else {
+            "file_name": baseline_path.name,
+            "sha256": hashlib.sha256(baseline_path.read_bytes()).hexdigest(),
+        },
+        "settings": spec.to_dict(),
+    }
 
 
 # --------------------------------------------------------------------------- figures
