@@ -7,13 +7,18 @@ without loading numpy.
 
 from __future__ import annotations
 
-__all__ = ["METHODS", "WEIGHTINGS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
+__all__ = ["METHODS", "WEIGHTINGS", "NOISE_MODELS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
 
 #: Model families of ``identify`` / ``rigfit fit --method``.
 METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
 
 #: Subspace weightings (``ident.estimate.subspace``).
 WEIGHTINGS: tuple[str, ...] = ("n4sid", "moesp", "cva")
+
+#: What a prediction-error refinement minimises (``ident.estimate.refine``):
+#: the simulation error with no noise model, or the one-step prediction error of
+#: the innovations form with its noise gain estimated too.
+NOISE_MODELS: tuple[str, ...] = ("output_error", "innovations")
 
 #: Discretisation methods, both directions (``rigfit convert --method``).
 DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")

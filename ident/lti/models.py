@@ -91,6 +91,14 @@ class StateSpaceModel:
     noise_gain : array_like, shape (n, p), optional
         Kalman gain ``K`` of the innovation form
         ``x[k+1] = A x + B u + K e``; ``None`` when the model has no noise model.
+    noise_states : int
+        How many of the last states belong to the noise model only (default 0).
+        Such states are driven by the innovations alone (their rows of ``B``
+        are zero and ``A`` couples them to no plant state), as in the
+        innovations form of a Box-Jenkins model, where the disturbance has
+        dynamics of its own. They shape the one-step predictor but not the
+        response to the inputs, so :meth:`poles` leaves them out
+        (:meth:`noise_poles` lists them). Needs ``noise_gain``.
 
     Notes
     -----
@@ -108,6 +116,7 @@ class StateSpaceModel:
     output_units: tuple[str, ...] | None = None
     operating_point: OperatingPoint | None = None
     noise_gain: np.ndarray | None = field(default=None)
+    noise_states: int = 0
 
     def __post_init__(self) -> None:
         A = _frozen_copy(self.A, "A") if np.size(self.A) else np.zeros((0, 0))
@@ -147,6 +156,7 @@ class StateSpaceModel:
         if self.noise_gain is not None:
             _set(self, "noise_gain", as_matrix(self.noise_gain, "noise_gain", (n, p)).copy())
             self.noise_gain.flags.writeable = False
+        _check_noise_states(self)
 
     @property
     def n_states(self) -> int:
@@ -168,11 +178,35 @@ class StateSpaceModel:
         """True for a discrete-time model."""
         return self.sample_time is not None
 
+    @property
+    def n_plant_states(self) -> int:
+        """States that carry the response to the inputs (``n - noise_states``)."""
+        return self.n_states - self.noise_states
+
     def poles(self) -> np.ndarray:
-        """Eigenvalues of ``A``, the poles of the model (complex array, shape (n,))."""
-        if self.n_states == 0:
+        """Poles of the model: eigenvalues of ``A`` (of its plant block when it has noise states).
+
+        Returns
+        -------
+        numpy.ndarray of complex, shape (n - noise_states,)
+        """
+        k = self.n_plant_states
+        if k == 0:
             return np.zeros(0, dtype=complex)
-        return np.linalg.eigvals(self.A).astype(complex)
+        return np.linalg.eigvals(self.A[:k, :k]).astype(complex)
+
+    def noise_poles(self) -> np.ndarray:
+        """Eigenvalues of the noise-model block of ``A`` (empty without noise states)."""
+        k = self.n_plant_states
+        if self.noise_states == 0:
+            return np.zeros(0, dtype=complex)
+        return np.linalg.eigvals(self.A[k:, k:]).astype(complex)
+
+    def without_noise_model(self) -> StateSpaceModel:
+        """Return the same input-output model without noise states and noise gain."""
+        k = self.n_plant_states
+        return replace(self, A=self.A[:k, :k], B=self.B[:k], C=self.C[:, :k], noise_gain=None,
+                       noise_states=0)
 
     def with_changes(self, **changes: Any) -> StateSpaceModel:
         """Return a copy with some fields replaced (arrays are copied again)."""
@@ -264,6 +298,27 @@ class TransferFunctionModel:
     def is_discrete(self) -> bool:
         """True for a discrete-time model."""
         return self.sample_time is not None
+
+
+def _check_noise_states(model: StateSpaceModel) -> None:
+    """Validate ``noise_states``: a count of trailing states driven by the innovations only."""
+    ns = model.noise_states
+    if isinstance(ns, bool) or not isinstance(ns, (int, np.integer)):
+        raise OptionError(f"noise_states must be an integer; got {ns!r}")
+    n = model.n_states
+    if not 0 <= ns <= n:
+        raise OptionError(f"noise_states must be in [0, {n}]; got {ns}")
+    _set(model, "noise_states", int(ns))
+    if ns == 0:
+        return
+    k = n - ns
+    if model.noise_gain is None:
+        raise OptionError("a model with noise states needs a noise_gain")
+    if np.any(model.B[k:] != 0) or np.any(model.A[k:, :k] != 0) or np.any(model.A[:k, k:] != 0):
+        raise OptionError(
+            f"the last {ns} states are declared noise states, but B or A couples them to the "
+            "inputs or to the plant states"
+        )
 
 
 def require_state_space(model: Any, name: str = "model") -> StateSpaceModel:
