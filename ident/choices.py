@@ -7,7 +7,7 @@ without loading numpy.
 
 from __future__ import annotations
 
-__all__ = ["METHODS", "WEIGHTINGS", "NOISE_MODELS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
+__all__ = ["METHODS", "WEIGHTINGS", "NOISE_MODELS", "REFINEMENTS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
 
 #: Model families of ``identify`` / ``rigfit fit --method``.
 METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
@@ -19,6 +19,11 @@ WEIGHTINGS: tuple[str, ...] = ("n4sid", "moesp", "cva")
 #: the simulation error with no noise model, or the one-step prediction error of
 #: the innovations form with its noise gain estimated too.
 NOISE_MODELS: tuple[str, ...] = ("output_error", "innovations")
+
+#: Refinement of the candidates of ``identify`` (``rigfit fit --refine``): the
+#: noise models above, ``"auto"`` (output error for open-loop data, innovations
+#: when the log was taken in closed loop) or ``"none"`` (keep the direct estimates).
+REFINEMENTS: tuple[str, ...] = ("auto", "output_error", "innovations", "none")
 
 #: Discretisation methods, both directions (``rigfit convert --method``).
 DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")

@@ -278,12 +278,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
     result = _identify_logs(spec, logs, input_units, output_units, report)
     model = result.model
     prep = result.prepared
-    pole_cov = None
-    if result.arx is not None:
-        from .estimate.uncertainty import arx_pole_covariance
-
-        # first-order pole covariance from the ARX parameter covariance, in model.poles() order
-        pole_cov = arx_pole_covariance(result.arx, model=model)
+    pole_cov = result.pole_covariance  # first-order, from the parameter covariance, in model.poles() order
 
     report("validating", 0.68)
     parts, validation = _validate_held_out(spec, model, prep)
@@ -567,12 +562,18 @@ def _model_summary(result: Any, units: dict[str, list[str]]) -> dict[str, Any]:
         "units": units,
         "validation_fit": dict(zip(prep.output_names, map(float, result.validation_fit), strict=True)),
         "estimation_fit": dict(zip(prep.output_names, map(float, result.estimation_fit), strict=True)),
+        "stage": sel.stage,
+        "noise_model": result.noise_model,
+        "input_delay": list(result.input_delay),
         "selection": {
             "rule": (
-                "best mean simulation fit on the held-out data; candidates within "
-                f"{result.options.tie_tolerance:g} points of the best are tied and the simplest "
-                "(fewest states, then fewest parameters) wins"
+                "the best few direct estimates are refined; the refined model with the best held-out fit "
+                "wins unless a simpler one is as accurate on the held-out data (one-sided test at "
+                f"{result.options.significance:g}) and the estimation data do not support the extra "
+                "parameters (BIC)"
             ),
+            "reason": None if result.selection is None else result.selection.reason,
+            "record": None if result.selection is None else result.selection.as_dict(),
             "candidates": [c.as_dict() for c in result.candidates],
             "singular_values": None if result.singular_values is None else list(result.singular_values),
             "suggested_order": result.suggested_order,
@@ -674,15 +675,6 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
 # --------------------------------------------------------------------------- output
 
 
-def _pole_covariance_entry(cov: np.ndarray | None) -> dict[str, Any]:
-    """``{"pole_covariance": [...]}`` for the model file's estimation provenance, or nothing."""
-    if cov is None:
-        return {}
-    from .estimate.uncertainty import pole_covariance_to_list
-
-    return {"pole_covariance": pole_covariance_to_list(cov)}
-
-
 def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
     parent.mkdir(parents=True, exist_ok=True)
     base = f"{stamp}-{digest}"
@@ -699,7 +691,7 @@ def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
 def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[str, str], bytes]],
            out_dir: Any) -> RunResult:
     from .io.atomic import write_atomic
-    from .io.modelfile import save_model
+    from .io.modelfile import save_model, uncertainty_provenance
     from .report import render_report
 
     now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
@@ -729,7 +721,8 @@ def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[s
                        "method": result.method, "order": result.order, "options": result.options.to_dict(),
                        "ranges": [list(r) for r in prep.estimation_ranges],
                        "sample_time": prep.sample_time, "decimation": prep.decimation,
-                       **_pole_covariance_entry(state["pole_covariance"])},
+                       "input_delay": list(result.input_delay), "noise_model": result.noise_model,
+                       **uncertainty_provenance(state["pole_covariance"], result.covariance)},
         "validation": {"ranges": [list(r) for r in prep.validation_ranges],
                        "fit_percent": summary["model"]["validation_fit"]},
         "run": {"folder": folder.name, "passed": summary["verdict"]["passed"]},

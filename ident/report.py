@@ -179,35 +179,43 @@ def _model(s: Mapping[str, Any]) -> str:
     m = s["model"]
     sel = m["selection"]
     outs = m["outputs"]
-    chosen = next((c for c in sel["candidates"] if c.get("selected")), None)
-    struct = ", ".join(f"{k} = {v}" for k, v in m["structure"].items())
-    lead = (f"Selected: {m['method']} of order {m['order']} ({m['n_states']} states, {m['n_parameters']} "
-            f"parameters; {struct}), sample time {_num(m['sample_time'])} s, chosen from "
-            f"{len(sel['candidates'])} candidates.")
-    why = f"Why: {sel['rule']}."
-    if chosen is not None:
-        best = max((c["mean_fit"] for c in sel["candidates"] if c["mean_fit"] is not None), default=None)
-        why += (f" The selected model's mean fit is {_pct(chosen['mean_fit'])}; the best candidate's "
-                f"{_pct(best)}.")
+    cands = sel["candidates"]
+    struct = ", ".join(f"{k} = {v}" for k, v in m["structure"].items() if k != "refined_from")
+    how = {"output_error": "refined by output error", "innovations": "refined in innovations form"}
+    delay = m.get("input_delay") or []
+    lead = (f"Selected: {m['method']} start of order {m['order']} ({struct}), "
+            f"{how.get(m.get('noise_model'), 'as estimated')}; {m['n_states']} states"
+            + (f" of which {sum(delay)} hold the input delay" if any(delay) else "")
+            + f", {m['n_parameters']} parameters, sample time {_num(m['sample_time'])} s.")
+    why = f"Rule: {sel['rule']}."
+    if sel.get("reason"):
+        why += f" This model: {sel['reason']}."
+    refined = [c for c in cands if c.get("stage") == "refined"]
+    shown = refined or sorted(cands, key=lambda c: -(c["mean_fit"] or -1e300))[:8]
     rows = []
-    for c in sel["candidates"]:
+    for c in shown:
+        start = cands[c["structure"]["refined_from"]] if c.get("stage") == "refined" else None
         fits = [_pct(v) for v in c["validation_fit"]]
         rows.append((
             ("selected", "ok") if c["selected"] else "",
-            c["method"], c["order"], c["n_states"], c["n_parameters"], *fits, _pct(c["mean_fit"]),
+            c["method"], c["order"], c["n_states"], c["n_parameters"],
+            _pct(start["mean_fit"]) if start is not None else "-", *fits, _pct(c["mean_fit"]),
         ))
-    table = _table(("", "method", "order", "states", "parameters",
+    direct = sum(c.get("stage") != "refined" for c in cands)
+    count = _p(f"{direct} direct estimates (ARX structures and subspace models) were scored on the held-out "
+               f"data; {'the best ' + str(len(refined)) + ' were refined' if refined else 'the best are listed'}.")
+    table = _table(("", "start", "order", "states", "parameters", "held-out fit before refinement",
                     *[f"fit {o}" for o in outs], "mean fit"), rows, cls="candidates")
     fit_rows = [(_label(o, m["units"]["outputs"][i]), _pct(m["validation_fit"].get(o)),
                  _pct(m["estimation_fit"].get(o))) for i, o in enumerate(outs)]
-    parts = [_p(lead), _p(why), table,
-             _table(("output", "fit on held-out data", "fit on estimation data"), fit_rows)]
+    parts = [_p(lead), _p(why), count, table,
+             _table(("output", "held-out fit", "in-sample fit"), fit_rows)]
     sv = sel.get("singular_values")
     if sv:
         parts.append(_p("Subspace singular values: " + ", ".join(_num(v, ".3g") for v in sv[:12])
                         + (f" (largest gap after {sel['suggested_order']})" if sel.get("suggested_order") else "")))
     if m.get("delays") is not None:
-        parts.append(_p(f"Input delays used by ARX [samples]: {m['delays']}"))
+        parts.append(_p(f"Input delays estimated from the data [samples]: {m['delays']}"))
     parts.append(_ul([f"note: {n}" for n in m.get("notes", [])], cls="notes"))
     parts.append(_ul([f"warning: {w}" for w in m.get("warnings", [])], cls="warnings"))
     parts.append(_p(f"Model file: {m['file']} (in this run folder).", cls="file"))

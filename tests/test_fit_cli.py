@@ -42,9 +42,16 @@ def test_fit_json_and_model_file(run_cli, log_file, tmp_path):
     assert set(data["validation_fit"]) == {"flow"}
     # 0.2 % output noise relative to the input: the fit is close to 100 percent
     assert data["validation_fit"]["flow"] > 99.0
-    # subspace orders 1..4, then the ARX grid's best 3 per criterion (at most 9, at least 1)
-    methods = [c["method"] for c in data["candidates"]]
-    assert methods.count("subspace") == 4 and 1 <= methods.count("arx") <= 9
+    # direct estimates: subspace orders 1..4 (three weightings, two horizons) and the ARX grid's
+    # best 3 per criterion (at most 9, at least 1); then the refined ones
+    direct = [c for c in data["candidates"] if c["stage"] == "estimated"]
+    assert {c["order"] for c in direct if c["method"] == "subspace"} == {1, 2, 3, 4}
+    assert {c["structure"]["weighting"] for c in direct if c["method"] == "subspace"} == {"n4sid", "moesp", "cva"}
+    assert 1 <= sum(c["method"] == "arx" for c in direct) <= 9
+    refined = [c for c in data["candidates"] if c["stage"] == "refined"]
+    assert refined and all(c["noise_model"] == "output_error" for c in refined)
+    assert data["stage"] == "refined" and data["refinement"]["noise_model"] == "output_error"
+    assert data["selection"]["reason"]
     assert set(data["best_by"]) == {"aic", "bic", "fpe"}
     assert data["arx_grid"]["n_structures"] == 4 * 4 * 3  # na, nb in 1..4, nk 0..2
     assert sum(c["selected"] for c in data["candidates"]) == 1
@@ -71,13 +78,18 @@ def test_fit_json_and_model_file(run_cli, log_file, tmp_path):
     assert "created_utc" in prov and "tool_version" in prov
     assert loaded.model.operating_point is not None
     assert loaded.model.output_units == ("l/min",)
+    # every refined model carries its one-step predictor and its parameter covariance
+    assert loaded.model.noise_gain is not None
+    cov = loaded.parameter_covariance()
+    assert cov is not None and cov.method == "robust"
+    assert loaded.pole_covariance() is not None
 
 
 def test_fit_readable_summary(run_cli, log_file):
     res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--method", "arx",
                   "--max-order", "3")
     assert res.exit_code == 0, res.output
-    assert "validation" in res.stdout and "flow" in res.stdout
+    assert "held-out" in res.stdout and "flow" in res.stdout
     assert "<- selected" in res.stdout
     assert "f_n [Hz]" in res.stdout  # the modes in physical units
     # the pair 0.9 +- 0.2j at T = 0.01 s: f_n = |ln z| / (2 pi T) = 3.713 Hz (closed form)
@@ -196,7 +208,9 @@ def test_fixed_order_subspace(run_cli, log_file):
     assert res.exit_code == 0, res.output
     data = json.loads(res.stdout)
     assert data["method"] == "subspace" and data["order"] == 2
-    assert len(data["candidates"]) == 1
+    # one order, three weightings and two horizons; every candidate has 2 states before delays
+    assert {c["order"] for c in data["candidates"]} == {2}
+    assert sum(c["stage"] == "refined" for c in data["candidates"]) >= 1
     # which factorisation built the projection is reported (common practice, no source)
     assert data["subspace_factorization"]["path"] in ("gram", "householder")
     assert data["subspace_factorization"]["gram_condition"] >= 1.0

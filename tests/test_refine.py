@@ -95,7 +95,7 @@ def test_refinement_from_the_true_model_stays_there():
     u = np.random.default_rng(1).standard_normal((2000, 1))
     y = simulate(true, u)
     res = refine_state_space(true, Experiment(u, y))
-    assert res.loss <= res.initial_loss
+    assert res.loss <= res.initial_loss * (1 + 1e-9)  # no step may raise the loss (rounding aside)
     # noise-free data: the truth is the minimum (closed form); poles unchanged to rounding level
     assert_allclose(np.sort_complex(res.model.poles()), np.sort_complex(true.poles()), atol=1e-9)
     assert res.error_variance[0] < 1e-20 * np.var(y)

@@ -83,12 +83,19 @@ class ModeThresholds:
         model with more outputs than inputs, which has no transmission zeros),
         relative to the larger of their magnitudes (``|p - q| <= d max(|p|, |q|)``),
         is flagged ``near_cancellation``: the mode hardly shows in the response
-        and the order is probably too high.
+        and the order is probably too high. For a discrete model pole and zero
+        are compared as ``s = ln(z) / T`` (continuous time), where the distance
+        means the same for slow and fast modes.
     negative_real_angle_tolerance_rad : float, default 0.05
         A pole whose angle is within this many radians of pi (about 2.9 degrees
         by default) is flagged ``negative_real``. A real pole on the negative
         axis has no continuous-time equivalent under a zero-order hold; such
         poles usually come from fitting noise or from too high an order.
+    negative_real_min_magnitude : float, default 0.05
+        Poles nearer ``z = 0`` than this are not flagged ``negative_real``:
+        such a pole dies out within a sample whatever its sign (a factor of 20
+        and more per sample), a sub-sample effect of the sampling (an averaging
+        sensor, a computation delay) rather than an oscillation at Nyquist.
     confidence_level : float, default 0.95
         Probability content of the pole confidence region drawn from a pole
         covariance; the mode is flagged ``uncertain_stability`` when that
@@ -102,6 +109,7 @@ class ModeThresholds:
     log_duration_fraction: float = 0.2
     cancellation_distance: float = 0.01
     negative_real_angle_tolerance_rad: float = 0.05
+    negative_real_min_magnitude: float = 0.05
     confidence_level: float = 0.95
 
     def __post_init__(self) -> None:
@@ -139,6 +147,10 @@ class ModeThresholds:
                 "negative_real_angle_tolerance_rad",
                 high=math.pi / 2,
             ),
+        )
+        object.__setattr__(
+            self, "negative_real_min_magnitude",
+            fraction(self.negative_real_min_magnitude, "negative_real_min_magnitude"),
         )
         object.__setattr__(
             self, "confidence_level", fraction(self.confidence_level, "confidence_level")
@@ -337,8 +349,8 @@ def flag_explanation(flag: str, thresholds: ModeThresholds, log_duration_s: floa
         ),
         "negative_real": (
             f"pole on or within {t.negative_real_angle_tolerance_rad:g} rad of the negative real "
-            "axis: no continuous-time equivalent under a zero-order hold; usually noise fitting "
-            "or too high an order"
+            f"axis (and at least {t.negative_real_min_magnitude:g} from z = 0): no continuous-time "
+            "equivalent under a zero-order hold; usually noise fitting or too high an order"
         ),
         "near_nyquist": (
             f"mode at or above {t.nyquist_fraction:g} of the Nyquist frequency: the sample rate "
@@ -540,12 +552,25 @@ def _gradients(z: complex, T: float) -> tuple[np.ndarray | None, np.ndarray | No
     return g_mag / T, g_zeta
 
 
-def _near_zero(p: complex, zeros: np.ndarray, th: ModeThresholds) -> bool:
+def _near_zero(p: complex, zeros: np.ndarray, th: ModeThresholds, T: float | None = None) -> bool:
+    """Tell whether pole ``p`` lies within ``cancellation_distance`` (relative) of one of ``zeros``.
+
+    For a discrete model the distance is measured between ``s = ln(z) / T`` of
+    pole and zero, relative to the larger ``|s|``: near ``z = 1`` (slow modes)
+    the z-plane squeezes distinct dynamics together, and 0.01 there can be a
+    factor of two in time constant. Where ``ln z`` means nothing (``z`` at 0 or
+    on the negative real axis) the z-plane distance is used.
+    """
     if zeros.size == 0:
         return False
-    dist = np.abs(zeros - p)
-    scale = np.maximum(np.abs(zeros), abs(p))
-    return bool(np.any(dist <= th.cancellation_distance * scale))
+    z_near = np.abs(zeros - p) <= th.cancellation_distance * np.maximum(np.abs(zeros), abs(p))
+    if T is None or abs(p) == 0 or (p.imag == 0 and p.real < 0):
+        return bool(np.any(z_near))
+    s_p = np.log(complex(p)) / T
+    usable = (np.abs(zeros) > 0) & ~((zeros.imag == 0) & (zeros.real < 0))
+    s_z = np.log(np.where(usable, zeros, 1.0).astype(complex)) / T
+    s_near = np.abs(s_z - s_p) <= th.cancellation_distance * np.maximum(np.abs(s_z), abs(s_p))
+    return bool(np.any(np.where(usable, s_near, z_near)))
 
 
 def _make_mode(
@@ -583,15 +608,15 @@ def _make_mode(
         flags.append("integrator")
     if is_pair and zeta is not None and "unstable" not in flags and zeta < th.lightly_damped_below:
         flags.append("lightly_damped")
-    if r > 0 and ang >= math.pi - th.negative_real_angle_tolerance_rad:
+    if r >= th.negative_real_min_magnitude and ang >= math.pi - th.negative_real_angle_tolerance_rad:
         flags.append("negative_real")
     if wn is not None and wn >= th.nyquist_fraction * math.pi / T:
         flags.append("near_nyquist")
     if log_duration_s is not None and tau is not None and tau > th.log_duration_fraction * log_duration_s:
         flags.append("slow_for_log")
     members = (z, z.conjugate()) if is_pair else (z,)
-    near = any(_near_zero(p, zeros, th) for p in members) or (
-        bool(live_channels) and all(any(_near_zero(p, zc, th) for p in members) for zc in live_channels)
+    near = any(_near_zero(p, zeros, th, T) for p in members) or (
+        bool(live_channels) and all(any(_near_zero(p, zc, th, T) for p in members) for zc in live_channels)
     )
     if near:
         flags.append("near_cancellation")

@@ -7,7 +7,7 @@ from typing import Any
 
 import click
 
-from ..choices import METHODS
+from ..choices import METHODS, REFINEMENTS, WEIGHTINGS
 from ._common import echo_json, log_options, progress_enabled, read_log_kwargs
 
 #: Environment variables through which a user chooses the BLAS thread count.
@@ -52,13 +52,27 @@ def _parse_order(value: str) -> int | None:
               help="Output column (repeatable; the order is kept).")
 @log_options
 @click.option("--method", type=click.Choice(METHODS), default="auto", show_default=True,
-              help="Model family; 'auto' fits both and keeps the best on validation data.")
+              help="Model family. 'auto' fits ARX and subspace candidates and refines the best; "
+                   "'arx' keeps least-squares ARX models; 'subspace' starts from subspace estimates only.")
 @click.option("--order", "order_text", default="auto", show_default=True, metavar="N|auto",
-              help="Model order (ARX: na = nb = N; subspace: N states), or 'auto' to select.")
+              help="Model order (ARX: na = nb = N; otherwise N states), or 'auto' to select it. "
+                   "A fixed order is always fitted; weak excitation only gives a warning.")
 @click.option("--max-order", type=int, default=10, show_default=True, metavar="N",
               help="Largest order tried with --order auto.")
 @click.option("--delay", type=int, default=None, metavar="SAMPLES",
-              help="ARX input delay in samples (default: estimated from the data).")
+              help="Input delay in samples for every input. By default the delays estimated from "
+                   "the data are tried together with 0 and 1 sample.")
+@click.option("--refine", "refinement", type=click.Choice(REFINEMENTS), default="auto", show_default=True,
+              help="What the refinement of the best candidates minimises: the simulation error "
+                   "('output_error', what 'auto' does), the one-step prediction error with a noise "
+                   "model ('innovations', for logs taken in closed loop), or nothing ('none').")
+@click.option("--weighting", type=click.Choice(WEIGHTINGS), default=None,
+              help="Subspace weighting. By default all three are tried.")
+@click.option("--horizon", type=int, default=None, metavar="N",
+              help="Subspace past and future horizon. By default the horizon for --max-order and "
+                   "twice it are tried.")
+@click.option("--stabilize", is_flag=True,
+              help="Reflect unstable poles of direct subspace estimates into the unit circle.")
 @click.option("--holdout", type=float, default=0.3, show_default=True, metavar="FRACTION",
               help="Fraction at the end of the log (of each segment) held out for validation.")
 @click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part.")
@@ -82,6 +96,10 @@ def fit(
     order_text: str,
     max_order: int,
     delay: int | None,
+    refinement: str,
+    weighting: str | None,
+    horizon: int | None,
+    stabilize: bool,
     holdout: float,
     detrend: bool,
     decimate: int,
@@ -92,16 +110,18 @@ def fit(
 ) -> None:
     """Identify a linear model of the OUTPUTs driven by the INPUTs in LOG.
 
-    The last --holdout fraction of the log is held out. ARX structures (na and
-    nb in 1 .. --max-order, delays estimated and their neighbours) are ranked
-    by AIC, BIC and FPE from one factorisation; the best 3 by each, and the
-    BIC-best of each order, are validated with subspace models (1 .. --max-order states); the candidate
-    with the best fit on the held-out part is kept (within 0.5 points, the
-    simpler model wins).
+    The last --holdout fraction of the log (of each segment) is held out. ARX
+    structures and subspace models of every order up to --max-order (three
+    weightings, a few horizons, the estimated input delays and no delay) are
+    fitted and scored on the held-out part; the best few are refined by
+    minimising their simulation error, and the refined model with the best
+    held-out fit is kept unless a simpler one is statistically as accurate
+    there and the estimation data do not support the extra parameters. The
+    model gets a one-step predictor and a parameter covariance.
 
     Exit status: 0 ok; 2 bad input (unreadable log, missing column, a gap or
     dropped row without --split-at-gaps, output equal to an input, collinear
-    or non-exciting inputs, order too high).
+    or constant inputs, an order too high for the log).
     """
     import warnings
 
@@ -126,6 +146,10 @@ def fit(
         order=order,
         max_order=max_order,
         delay=delay,
+        refinement=refinement,
+        weighting=weighting,
+        horizon=horizon,
+        stabilize=stabilize,
         preprocess=PreprocessOptions(holdout=holdout, detrend=detrend, decimate=decimate),
     )
     show_progress = progress_enabled(quiet)
@@ -163,18 +187,14 @@ def fit(
 
     from ..assess.modes import mode_table
 
-    pole_cov = None
-    if result.arx is not None:
-        from ..estimate.uncertainty import arx_pole_covariance
-
-        pole_cov = arx_pole_covariance(result.arx, model=result.model)
-    table = mode_table(result.model, log_duration_s=log.duration_s or None, pole_covariance=pole_cov)
+    table = mode_table(result.model, log_duration_s=log.duration_s or None,
+                       pole_covariance=result.pole_covariance)
     written = None
     if model_out is not None:
         from ..io.modelfile import save_model
 
         written = save_model(
-            model_out, result.model, provenance=_provenance(log, result, pole_cov),
+            model_out, result.model, provenance=_provenance(log, result),
             force=force, protected=(log_path,),
         )
     for text in messages:
@@ -195,7 +215,9 @@ def _fit_dict(names, values) -> dict[str, float]:
     return {name: float(v) for name, v in zip(names, values, strict=True)}
 
 
-def _provenance(log, result, pole_cov=None) -> dict[str, Any]:
+def _provenance(log, result) -> dict[str, Any]:
+    from ..io.modelfile import uncertainty_provenance
+
     prep = result.prepared
     prov = {
         "log": {
@@ -219,7 +241,11 @@ def _provenance(log, result, pole_cov=None) -> dict[str, Any]:
             "n_samples": prep.n_estimation_samples,
             "sample_time": prep.sample_time,
             "decimation": prep.decimation,
+            "input_delay": list(result.input_delay),
+            "noise_model": result.noise_model,
             "selection": [c.as_dict() for c in result.candidates],
+            "selection_rule": None if result.selection is None else result.selection.as_dict(),
+            **uncertainty_provenance(result.pole_covariance, result.covariance),
         },
         "validation": {
             "ranges": [list(r) for r in prep.validation_ranges],
@@ -228,10 +254,6 @@ def _provenance(log, result, pole_cov=None) -> dict[str, Any]:
             "estimation_fit_percent": _fit_dict(prep.output_names, result.estimation_fit),
         },
     }
-    if pole_cov is not None:
-        from ..estimate.uncertainty import pole_covariance_to_list
-
-        prov["estimation"]["pole_covariance"] = pole_covariance_to_list(pole_cov)
     return prov
 
 
@@ -252,13 +274,18 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
         "inputs": list(prep.input_names),
         "outputs": list(prep.output_names),
         "method": result.method,
+        "stage": result.selected.stage,
+        "noise_model": result.noise_model,
         "order": result.order,
         "n_states": result.model.n_states,
+        "input_delay": list(result.input_delay),
         "structure": result.selected.structure,
         "sample_time": prep.sample_time,
         "validation_fit": _fit_dict(prep.output_names, result.validation_fit),
-        "mean_validation_fit": float(result.selected.mean_fit),
+        "mean_validation_fit": float(sum(result.validation_fit) / len(result.validation_fit)),
         "estimation_fit": _fit_dict(prep.output_names, result.estimation_fit),
+        "selection": None if result.selection is None else result.selection.as_dict(),
+        "refinement": _refinement_summary(result.refinement),
         "candidates": [c.as_dict() for c in result.candidates],
         "best_by": dict(result.best_by),
         "arx_grid": None if result.arx_sweep is None else {
@@ -270,6 +297,7 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
         "singular_values": None if result.singular_values is None else result.singular_values,
         "suggested_subspace_order": result.suggested_order,
         "subspace_factorization": result.subspace_factorization,
+        "excitation": result.excitation,
         "delays": None if result.delay is None else result.delay.delays,
         "delay_evidence": _delay_evidence(result.delay, prep.input_names, prep.output_names),
         "operating_point": {
@@ -285,6 +313,23 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
         "warnings": messages,
         "notes": list(result.notes),
         "model_file": None if written is None else str(written),
+    }
+
+
+def _refinement_summary(res) -> dict[str, Any] | None:
+    """Return the final refinement's record (``None`` for a direct estimate)."""
+    if res is None:
+        return None
+    return {
+        "noise_model": res.options.noise_model,
+        "iterations": res.iterations,
+        "stop_reason": res.stop_reason,
+        "loss": res.loss,
+        "initial_loss": res.initial_loss,
+        "error_variance": res.error_variance,
+        "n_parameters": res.n_parameters,
+        "n_samples": res.n_samples,
+        "covariance_method": None if res.covariance is None else res.covariance.method,
     }
 
 
@@ -339,73 +384,103 @@ def _fmt_fit(value: float) -> str:
     return f"{value:7.2f} %" if value > -1e6 else "   diverged"
 
 
+def _candidate_lines(result) -> list[str]:
+    """List the refined candidates with their starts, after a count of the direct estimates."""
+    cands = list(result.candidates)
+    direct = [c for c in cands if c.stage == "estimated"]
+    refined = [c for c in cands if c.stage == "refined"]
+    kinds = ", ".join(f"{sum(c.method == k for c in direct)} {k}" for k in dict.fromkeys(c.method for c in direct))
+    lines = [f"candidates: {len(direct)} direct estimates ({kinds}) scored on the held-out data"]
+    if refined:
+        lines.append(f"  the best {len(refined)} refined (held-out fit %, direct -> refined):")
+        rows = refined
+    else:
+        lines.append("  the best by held-out fit:")
+        rows = sorted(direct, key=lambda c: -c.mean_fit if c.mean_fit > -1e6 else 1e9)[:8]
+        if not any(c.selected for c in rows):
+            rows.append(next(c for c in direct if c.selected))
+    with_criteria = not refined and any(c.criteria is not None for c in rows)
+    if with_criteria:
+        lines.append(f"  {'#':>4}  {'structure':<48}{'states':>6} {'params':>6}"
+                     f"{'AIC':>11}{'BIC':>11}{'FPE':>12}  fit %")
+    for c in rows:
+        k = cands.index(c)
+        start = cands[c.structure["refined_from"]] if c.stage == "refined" else None
+        before = f"{start.mean_fit:7.2f} -> " if start is not None else ""
+        mark = "  <- selected" if c.selected else ""
+        crit = ""
+        if with_criteria:
+            crit = (f"{c.criteria.aic:>11.5g}{c.criteria.bic:>11.5g}{c.criteria.fpe:>12.5g}  "
+                    if c.criteria is not None else f"{'-':>11}{'-':>11}{'-':>12}  ")
+            lines.append(f"  {k:>4}  {_describe(c):<48}{c.n_states:>6} {c.n_parameters:>6}{crit}"
+                         f"{c.mean_fit:5.2f}{mark}")
+            continue
+        lines.append(f"  {k:>4}  {_describe(c):<48}{c.n_states:>3} states {c.n_parameters:>4} params  "
+                     f"{before}{c.mean_fit:7.2f}{mark}")
+    if result.best_by:
+        chosen = next(k for k, c in enumerate(cands) if c.selected)
+        prefs = ", ".join(f"{name.upper()} -> #{k}" for name, k in result.best_by.items())
+        lines.append(f"  preferred: {prefs}, held-out test -> #{chosen}")
+    if result.selection is not None and result.selection.tied:
+        tied = ", ".join(f"#{cands.index(refined[k]) if refined else k}" for k in result.selection.tied)
+        lines.append(f"  statistically as accurate as the best on the held-out data: {tied}")
+    grid = result.arx_sweep
+    if grid is not None:
+        lines.append(f"  ({len(grid.rows)} ARX structures ranked by AIC, BIC and FPE on {grid.n_samples} rows; "
+                     "--json lists every candidate and structure)")
+    return lines
+
+
+def _describe(c) -> str:
+    """Describe a candidate's start in one phrase: ARX orders and delays, or subspace order and settings."""
+    st = c.structure
+    if c.method == "arx":
+        text = f"ARX na = {st['na']}, nb = {_short(st['nb'])}, nk = {_short(st['nk'])}"
+    else:
+        text = f"subspace n = {st['n']} ({st['weighting']}, horizon {st['horizon']})"
+    if c.stage == "refined" and any(c.input_delay):
+        text += f", input delay {_short(c.input_delay)}"
+    return text
+
+
 def _text(log, result, table, written) -> str:
     prep = result.prepared
-    lines = []
     seg = f", {len(log.segments)} segments" if len(log.segments) > 1 else ""
-    lines.append(
+    lines = [
         f"{log.source.file_name}: {log.n_samples} samples{seg}, T = {log.sample_time:g} s"
-        + (f", decimated by {prep.decimation} to T = {prep.sample_time:g} s"
-           if prep.decimation > 1 else "")
+        + (f", decimated by {prep.decimation} to T = {prep.sample_time:g} s" if prep.decimation > 1 else "")
         + (f", {log.dropped_rows} bad rows dropped" if log.dropped_rows else "")
-    )
+    ]
     sel = result.selected
-    if result.method == "arx":
-        what = (f"ARX na = {sel.structure['na']}, nb = {sel.structure['nb']}, "
-                f"nk = {sel.structure['nk']}")
-    else:
-        what = f"subspace ({sel.structure['weighting']}), horizon {sel.structure['horizon']}"
-    lines.append(
-        f"model: {what}; {result.model.n_states} states, {sel.n_parameters} parameters "
-        f"(chosen from {len(result.candidates)} candidates by validation fit)"
-    )
+    how = {"output_error": "refined by output error", "innovations": "refined in innovations form"}
+    extra = f" + {sum(result.input_delay)} input-delay" if any(result.input_delay) else ""
+    lines.append(f"model: {_describe(sel)}, {how.get(sel.noise_model, 'as estimated')}; "
+                 f"{result.model.n_states - sum(result.input_delay)}{extra} states, {sel.n_parameters} parameters")
+    if result.selection is not None:
+        lines.append(f"why: {result.selection.reason}")
     lines.append("")
     held = prep.options.holdout
-    lines.append(f"fit percent     validation (last {100 * held:g} %)   estimation")
+    lines.append(f"fit percent     held-out (last {100 * held:g} %)   in-sample")
     for k, name in enumerate(prep.output_names):
         unit = prep.output_units[k]
         label = f"{name} [{unit}]" if unit else name
-        lines.append(f"  {label:<16}{_fmt_fit(result.validation_fit[k]):>12}"
-                     f"{_fmt_fit(result.estimation_fit[k]):>20}")
+        lines.append(f"  {label:<16}{_fmt_fit(result.validation_fit[k]):>12}{_fmt_fit(result.estimation_fit[k]):>20}")
     lines.append("")
-    lines.append("candidates (criteria on the estimation data, smaller is better; fit on the "
-                 "validation data):")
-    lines.append(f"  {'#':>3}  {'method':<9}{'na':>4}{'nb':>4}{'nk':>4}{'':6}{'states':>7}"
-                 f"{'params':>8}{'AIC':>12}{'BIC':>12}{'FPE':>13}{'fit %':>9}")
-    for k, c in enumerate(result.candidates):
-        mark = "  <- selected" if c.selected else ""
-        fit_text = f"{c.mean_fit:7.2f}" if c.mean_fit > -1e6 else "diverged"
-        if c.method == "arx":
-            st = c.structure
-            shape = f"{st['na']:>4}{_short(st['nb']):>4}{_short(st['nk']):>4}      "
-        else:
-            shape = f"{'n = ' + str(c.order):>18}"
-        if c.criteria is not None:
-            crit = (f"{c.criteria.aic:>12.5g}{c.criteria.bic:>12.5g}"
-                    f"{c.criteria.fpe:>13.5g}")
-        else:
-            crit = f"{'-':>12}{'-':>12}{'-':>13}"
-        lines.append(f"  {k:>3}  {c.method:<9}{shape}{c.n_states:>7}{c.n_parameters:>8}"
-                     f"{crit}{fit_text:>9}{mark}")
-    chosen = next(k for k, c in enumerate(result.candidates) if c.selected)
-    if result.best_by:
-        prefs = ", ".join(f"{name.upper()} -> #{k}" for name, k in result.best_by.items())
-        lines.append(f"  preferred: {prefs}, validation fit -> #{chosen}")
-    grid = result.arx_sweep
-    if grid is not None:
-        lines.append(f"  ({len(grid.rows)} ARX structures ranked on {grid.n_samples} rows; the "
-                     f"best {result.options.per_criterion} by each criterion and the BIC-best of each order validated; "
-                     "--json lists them all)")
+    lines += _candidate_lines(result)
+    ref = result.refinement
+    if ref is not None:
+        stop = {"converged": "converged", "small_step": "converged", "boundary": "stopped at the stability boundary",
+                "max_iterations": "stopped at the step limit", "no_progress": "no further progress"}
+        lines.append(f"refinement: {ref.iterations} steps in all, last on {ref.n_samples} estimation samples "
+                     f"({stop.get(ref.stop_reason, ref.stop_reason)}); parameter covariance: "
+                     f"{'none' if ref.covariance is None else ref.covariance.method}")
     if result.singular_values is not None:
         sv = ", ".join(f"{v:.3g}" for v in result.singular_values[: result.options.max_order + 1])
-        lines.append(f"subspace singular values: {sv} (largest gap after "
-                     f"{result.suggested_order})")
+        lines.append(f"subspace singular values: {sv} (largest gap after {result.suggested_order})")
         fact = result.subspace_factorization
         if fact is not None:
-            how = ("data covariance + Cholesky" if fact["path"] == "gram"
-                   else "block Householder QR")
-            lines.append(f"  projection by {how} (scaled data covariance condition "
-                         f"{fact['gram_condition']:.2g})")
+            way = "data covariance + Cholesky" if fact["path"] == "gram" else "block Householder QR"
+            lines.append(f"  projection by {way} (scaled data covariance condition {fact['gram_condition']:.2g})")
     delay_lines = _delay_lines(result)
     if delay_lines:
         lines.append("")

@@ -38,6 +38,8 @@ from ._common import GateFailed, echo_json
 @click.option("--negative-real-angle", "negative_real_angle_tolerance_rad", type=float, default=0.05,
               show_default=True, metavar="RAD",
               help="Flag poles whose angle is within this many radians of pi as negative_real.")
+@click.option("--negative-real-min-magnitude", type=float, default=0.05, show_default=True, metavar="R",
+              help="Do not flag poles nearer z = 0 than this as negative_real (they die out within a sample).")
 @click.option("--confidence-level", type=float, default=0.95, show_default=True, metavar="P",
               help="Probability content of the pole confidence region (used when the model file "
                    "holds a pole covariance); flag uncertain_stability when it crosses |z| = 1.")
@@ -56,6 +58,7 @@ def modes(
     marginal_tolerance: float,
     stability_tolerance: float,
     negative_real_angle_tolerance_rad: float,
+    negative_real_min_magnitude: float,
     confidence_level: float,
 ) -> None:
     """Tabulate the poles of MODEL (a model file) in physical units and flag implausible ones.
@@ -88,6 +91,7 @@ def modes(
         log_duration_fraction=log_duration_fraction,
         cancellation_distance=cancellation_distance,
         negative_real_angle_tolerance_rad=negative_real_angle_tolerance_rad,
+        negative_real_min_magnitude=negative_real_min_magnitude,
         confidence_level=confidence_level,
     )
     if log_duration_s is None:

@@ -471,6 +471,7 @@ def arx_state_space(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
     StateSpaceModel
         Output ``i`` gets ``n_i = max(na, max_j(nk_j + nb_j - 1))`` states in
         observer canonical form; the blocks are stacked block-diagonally.
+        ``noise_gain`` holds the ARX one-step predictor (see Notes).
 
     Notes
     -----
@@ -486,6 +487,13 @@ def arx_state_space(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
     numerators have no common root. With several outputs the blocks are
     independent, so poles shared by the outputs appear once per output.
 
+    The noise of an ARX model is ``e / A(q)``: in the same coordinates its
+    innovations form has ``K = [-a_1, ..., -a_n]^T`` in output ``i``'s column
+    and block ([1]_, sec. 6.3 with ``C(q) = 1``), so ``A - K C`` is nilpotent
+    and the predictor ``x[k+1] = (A - K C) x + (B - K D) u + K y``,
+    ``yhat = C x + D u`` is the ARX one-step predictor
+    ``yhat[k] = -sum a_l y[k-l] + sum beta_l^T u[k-l]`` exactly.
+
     References
     ----------
     .. [1] G. F. Franklin, J. D. Powell and M. L. Workman, *Digital Control of
@@ -494,7 +502,7 @@ def arx_state_space(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
     """
     sample_time = positive_float(sample_time, "sample_time")
     p, m = len(a), len(nk)
-    blocks_A, blocks_B, blocks_C, D = [], [], [], np.zeros((p, m))
+    blocks_A, blocks_B, blocks_C, blocks_K, D = [], [], [], [], np.zeros((p, m))
     for i in range(p):
         ai = np.asarray(a[i], dtype=float)
         na = ai.size - 1
@@ -515,13 +523,17 @@ def arx_state_space(a: Sequence[np.ndarray], b: Sequence[Sequence[np.ndarray]],
         if n:
             Ci[0, 0] = 1.0
         blocks_C.append(Ci)
+        Ki = np.zeros((n, p))
+        Ki[:, i] = -alpha[1:]
+        blocks_K.append(Ki)
         D[i] = beta[0]
     A = block_diag(blocks_A) if sum(x.shape[0] for x in blocks_A) else np.zeros((0, 0))
     B = np.vstack(blocks_B) if blocks_B else np.zeros((0, m))
     C = block_diag(blocks_C)
     C = C.reshape(p, A.shape[0])
+    K = np.vstack(blocks_K) if blocks_K else np.zeros((0, p))
     return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=sample_time,
-                           inputs=input_names, outputs=output_names)
+                           inputs=input_names, outputs=output_names, noise_gain=K)
 
 
 # --------------------------------------------------------------------------- fit

@@ -14,7 +14,7 @@ import numpy as np
 from .._validate import as_signal
 from ..errors import OptionError
 
-__all__ = ["Experiment", "as_experiments"]
+__all__ = ["Experiment", "as_experiments", "shift_inputs", "working_stretches"]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -76,3 +76,55 @@ def as_experiments(data: Experiment | Sequence[Experiment]) -> tuple[Experiment,
                 f"experiment 0 has {m} and {p}"
             )
     return items
+
+
+def shift_inputs(data: Experiment | Sequence[Experiment], shifts: Sequence[int]) -> tuple[Experiment, ...]:
+    """Experiments whose input ``j`` is delayed by ``shifts[j]`` samples.
+
+    Each experiment loses its first ``max(shifts)`` samples (where some shifted
+    input would reach before the record starts); input ``j`` at sample ``k`` is
+    then the recorded ``u_j[k - shifts[j]]``. A model fitted to the result,
+    put behind :func:`ident.lti.input_delay.with_input_delays` with the same
+    shifts, explains the original record.
+    """
+    items = as_experiments(data)
+    shifts = tuple(int(s) for s in shifts)
+    if len(shifts) != items[0].n_inputs or any(s < 0 for s in shifts):
+        raise OptionError(f"shifts must hold {items[0].n_inputs} non-negative sample counts; got {list(shifts)!r}")
+    top = max(shifts)
+    if top == 0:
+        return items
+    out = []
+    for e in items:
+        N = e.n_samples
+        if N <= top + 1:
+            raise OptionError(f"an experiment of {N} samples is too short for an input delay of {top} samples")
+        u = np.column_stack([e.u[top - s:N - s, j] for j, s in enumerate(shifts)])
+        out.append(Experiment(u, e.y[top:]))
+    return tuple(out)
+
+
+def working_stretches(data: Experiment | Sequence[Experiment], limit: int, *,
+                      stretches: int = 4, min_length: int = 2000) -> tuple[Experiment, ...]:
+    """At most ``limit`` samples of the data as up to ``stretches`` evenly spread pieces per experiment.
+
+    The data themselves when they hold at most ``limit`` samples. Otherwise each
+    experiment contributes its share of ``limit`` as contiguous stretches of at
+    least ``min_length`` samples (fewer stretches when the share is small), spread
+    evenly from its start to its end, so slow drifts and changes along the record
+    are represented. The stretches are separate experiments.
+    """
+    items = as_experiments(data)
+    total = sum(e.n_samples for e in items)
+    if total <= limit:
+        return items
+    out = []
+    for e in items:
+        take = int(e.n_samples * limit / total)
+        if take < 50:
+            continue
+        count = max(1, min(stretches, take // max(min_length, 1)))
+        length = take // count
+        starts = np.linspace(0, e.n_samples - length, count).astype(int)
+        out.extend(Experiment(e.u[s:s + length], e.y[s:s + length]) for s in starts)
+    return tuple(out) if out else items

@@ -90,10 +90,12 @@ import numpy as np
 from .._validate import int_in_range, one_of
 from ..choices import NOISE_MODELS
 from ..errors import IdentificationError, OptionError
+from ..lti._linalg import one_blas_thread
 from ..lti.covariance import ParameterCovariance, theta_layout
 from ..lti.models import StateSpaceModel
-from .data import Experiment, as_experiments
+from .data import Experiment, as_experiments, working_stretches
 from .gauss_newton import minimize
+from .hac import long_run_covariance
 from .sensitivity import STABLE_RADIUS, Point, PredictionProblem, pack_theta, unpack_theta
 
 __all__ = [
@@ -103,9 +105,6 @@ __all__ = [
     "refine_state_space",
     "fit_noise_gain",
 ]
-
-#: Stretches of a long log the working stage iterates on.
-_WORKING_STRETCHES = 4
 
 #: Samples of each stretch used to fit its initial state before the search.
 _X0_SAMPLES = 200
@@ -134,6 +133,12 @@ class RefineOptions:
         Iterate on at most this many samples (default 40 000), then polish on all.
     polish_iterations : int
         Largest number of steps on all the data after a working stage (default 3).
+    output_offsets : bool
+        With output error, estimate a constant output offset per experiment
+        alongside its initial state (default ``True``): the operating point
+        subtracted from a finite record is not exactly an equilibrium of the
+        plant, and a model without an offset fits the difference with a spurious
+        slow mode.
     """
 
     noise_model: Literal["output_error", "innovations"] = "output_error"
@@ -142,6 +147,7 @@ class RefineOptions:
     step_tolerance: float = 0.01
     working_samples: int = 40_000
     polish_iterations: int = 3
+    output_offsets: bool = True
 
     def __post_init__(self) -> None:
         one_of(self.noise_model, "noise_model", NOISE_MODELS)
@@ -162,6 +168,9 @@ class RefineOptions:
         object.__setattr__(self, "working_samples", int_in_range(self.working_samples, "working_samples", 100))
         object.__setattr__(self, "polish_iterations",
                            int_in_range(self.polish_iterations, "polish_iterations", 0, 1000))
+        if not isinstance(self.output_offsets, (bool, np.bool_)):
+            raise OptionError(f"output_offsets must be true or false; got {self.output_offsets!r}")
+        object.__setattr__(self, "output_offsets", bool(self.output_offsets))
 
     def feedthrough_inputs(self, m: int) -> tuple[bool, ...]:
         """Per input, whether its column of ``D`` is estimated."""
@@ -187,6 +196,10 @@ class RefineResult:
         for output error), names and units as the start.
     initial_states : tuple of numpy.ndarray
         Estimated initial state of each experiment, in ``model``'s coordinates.
+    output_offsets : tuple of numpy.ndarray
+        Estimated constant output offset (p,) of each experiment, in the
+        outputs' units (zeros when not estimated): the model explains
+        ``y - operating_point - offset``.
     loss, initial_loss : float
         The criterion ``(1/N) sum ||W e||^2`` on all the data at the end and at
         the start (see the module Notes).
@@ -215,6 +228,7 @@ class RefineResult:
 
     model: StateSpaceModel
     initial_states: tuple[np.ndarray, ...]
+    output_offsets: tuple[np.ndarray, ...]
     loss: float
     initial_loss: float
     error_variance: np.ndarray
@@ -290,13 +304,14 @@ def refine_state_space(
     feed = options.feedthrough_inputs(m)
     theta0 = _start_theta(model, scaled, innovations, feed)
     problem = PredictionProblem(scaled.parts, (n, m, p), _free_mask(n, m, p, feed, innovations),
-                                innovations, np.eye(p))
+                                innovations, np.eye(p), offsets=options.output_offsets)
     if not problem.admissible(theta0):
         raise IdentificationError(
             "the starting model's predictor A - K C is unstable; it cannot be refined in innovations form",
             hint="start from an output-error refinement, or from a model with a stabilising noise gain",
         )
-    return _search(model, problem, theta0, scaled, options)
+    with one_blas_thread():
+        return _search(model, problem, theta0, scaled, options, experiments)
 
 
 def fit_noise_gain(
@@ -347,7 +362,8 @@ def fit_noise_gain(
     opts = RefineOptions(noise_model="innovations", max_iterations=options.max_iterations,
                          step_tolerance=options.step_tolerance, working_samples=options.working_samples,
                          polish_iterations=options.polish_iterations)
-    return _search(model, problem, theta0, scaled, opts)
+    with one_blas_thread():
+        return _search(model, problem, theta0, scaled, opts, experiments)
 
 
 def _check_inputs(model: StateSpaceModel, experiments: Sequence[Experiment]) -> Sequence[Experiment]:
@@ -381,8 +397,11 @@ class _Scaled:
     def of(experiments: Sequence[Experiment]) -> _Scaled:
         su = _rms([e.u for e in experiments])
         sy = _rms([e.y for e in experiments])
-        parts = tuple((np.ascontiguousarray(e.u / su), np.ascontiguousarray(e.y / sy)) for e in experiments)
-        return _Scaled(parts, su, sy)
+        return _Scaled(_scale_parts(experiments, su, sy), su, sy)
+
+
+def _scale_parts(experiments: Sequence[Experiment], su: np.ndarray, sy: np.ndarray):
+    return tuple((np.ascontiguousarray(e.u / su), np.ascontiguousarray(e.y / sy)) for e in experiments)
 
 
 def _rms(parts: Sequence[np.ndarray]) -> np.ndarray:
@@ -470,20 +489,21 @@ def _balancing(A: np.ndarray, B: np.ndarray, C: np.ndarray) -> np.ndarray | None
 
 
 def _fit_x0(problem: PredictionProblem, theta: np.ndarray, u: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Least-squares initial state of the predictor from the first samples of one experiment."""
-    n, p = problem.n, problem.p
-    if n == 0:
+    """Least-squares nuisance vector (initial state, and output offsets) from the first samples of one experiment."""
+    n, p, w = problem.n, problem.p, problem.nuisance
+    if w == 0:
         return np.zeros(0)
     Ab, _, C, _ = problem.predictor(theta)
-    count = min(u.shape[0], max(20 * n, _X0_SAMPLES))
-    e = problem.errors(theta, np.zeros(n), u[:count], y[:count])
-    obs = np.empty((count, p, n))
+    count = min(u.shape[0], max(20 * w, _X0_SAMPLES))
+    e = problem.errors(theta, np.zeros(w), u[:count], y[:count])
+    obs = np.empty((count, p, w))
+    obs[:, :, n:] = np.eye(p)[None, :, :] if w > n else 0.0
     M = C.copy()
     for k in range(count):
-        obs[k] = M
+        obs[k, :, :n] = M
         M = M @ Ab
     W = problem.weight
-    lhs = np.einsum("ab,tbn->tan", W, obs).reshape(-1, n)
+    lhs = np.einsum("ab,tbn->tan", W, obs).reshape(-1, w)
     x0, *_ = np.linalg.lstsq(lhs, (e @ W.T).reshape(-1), rcond=None)
     return x0
 
@@ -497,26 +517,9 @@ def _weight(problem: PredictionProblem, point: Point) -> np.ndarray:
     return np.linalg.inv(np.linalg.cholesky(cov))
 
 
-def _working_parts(parts, limit: int):
-    """Up to :data:`_WORKING_STRETCHES` evenly spread stretches with at most ``limit`` samples in all."""
-    total = sum(u.shape[0] for u, _ in parts)
-    if total <= limit:
-        return parts
-    share = limit / total
-    out = []
-    for u, y in parts:
-        take = int(u.shape[0] * share)
-        if take < 50:
-            continue
-        count = min(_WORKING_STRETCHES, max(1, take // 2000))
-        length = take // count
-        starts = np.linspace(0, u.shape[0] - length, count).astype(int)
-        out.extend((u[s:s + length], y[s:s + length]) for s in starts)
-    return tuple(out) if out else parts
-
-
-def _search(model, problem: PredictionProblem, theta0, scaled: _Scaled, options: RefineOptions) -> RefineResult:
-    """Weighting, working stage, polish on all data, and the result."""
+def _search(model, problem: PredictionProblem, theta0, scaled: _Scaled, options: RefineOptions,
+            experiments: Sequence[Experiment]) -> RefineResult:
+    """Weighting, working stage on :func:`ident.estimate.data.working_stretches`, polish on all data, result."""
     x0 = [_fit_x0(problem, theta0, u, y) for u, y in problem.parts]
     problem = problem.with_weight(_weight(problem, Point(theta0, x0)))
     start = Point(theta0, [_fit_x0(problem, theta0, u, y) for u, y in problem.parts])
@@ -525,9 +528,11 @@ def _search(model, problem: PredictionProblem, theta0, scaled: _Scaled, options:
     history: list[float] = []
     iterations = 0
     point = start
-    work_parts = _working_parts(problem.parts, options.working_samples)
+    working = working_stretches(experiments, options.working_samples)
     budget = options.max_iterations
-    if work_parts is not problem.parts:
+    work_parts = problem.parts
+    if sum(e.n_samples for e in working) < problem.n_samples:
+        work_parts = _scale_parts(working, scaled.u_scale, scaled.y_scale)
         work = problem.with_parts(work_parts)
         res = minimize(Point(theta0, [_fit_x0(work, theta0, u, y) for u, y in work_parts]),
                        work.loss, work.linearize, work.step, max_iterations=options.max_iterations,
@@ -563,7 +568,8 @@ def _result(model, problem, final, scaled: _Scaled, options, start, history, ite
         covariance = ParameterCovariance(_theta_unscaling(n, m, p, su, sy)[:, None] * factor, method, n, m, p)
     return RefineResult(
         model=refined,
-        initial_states=tuple(np.array(x) for x in final.point.x0),
+        initial_states=tuple(np.array(x[:n]) for x in final.point.x0),
+        output_offsets=tuple(np.array(x[n:]) * sy if problem.offsets else np.zeros(p) for x in final.point.x0),
         loss=final.loss / problem.n_samples,
         initial_loss=start[0],
         error_variance=np.diag(cov_e) * sy**2,
@@ -618,7 +624,7 @@ def _covariance_factor(problem: PredictionProblem, final, innovations: bool) -> 
 
 def _gradient_covariance(problem: PredictionProblem, point: Point, Q: np.ndarray) -> np.ndarray:
     """Newey-West estimate of ``cov(J^T W^T W e)`` (Bartlett weights, Andrews' bandwidth)."""
-    d, n = Q.shape[1], problem.n
+    d, n = Q.shape[1], problem.nuisance
     width = d + n * len(problem.parts)
     W = problem.weight
     per_exp = [np.zeros((u.shape[0], width)) for u, _ in problem.parts]
@@ -628,29 +634,6 @@ def _gradient_covariance(problem: PredictionProblem, point: Point, Q: np.ndarray
         T = e.shape[0]
         g[t0:t0 + T, :d] = np.einsum("tak,ta->tk", np.einsum("ab,tbk->tak", W, J), ew)
         g[t0:t0 + T, d + k * n:d + (k + 1) * n] = np.einsum("tak,ta->tk", np.einsum("ab,tbk->tak", W, Jx), ew)
-    bandwidth = _andrews_bandwidth(per_exp)
-    S = np.zeros((width, width))
-    for g in per_exp:
-        S += g.T @ g
-        for lag in range(1, min(bandwidth, g.shape[0] - 1) + 1):
-            G = g[lag:].T @ g[:-lag]
-            S += (1.0 - lag / (bandwidth + 1.0)) * (G + G.T)
-    return S
+    return long_run_covariance(per_exp)
 
 
-def _andrews_bandwidth(parts: Sequence[np.ndarray]) -> int:
-    """Bartlett-kernel bandwidth by Andrews' AR(1) plug-in rule (1991, eq. 6.4 with eq. 6.2)."""
-    num = den = 0.0
-    N = sum(g.shape[0] for g in parts)
-    for col in range(parts[0].shape[1]):
-        a = sum(float(g[1:, col] @ g[:-1, col]) for g in parts)
-        b = sum(float(g[:-1, col] @ g[:-1, col]) for g in parts)
-        if b <= 0:
-            continue
-        rho = min(max(a / b, -0.97), 0.97)
-        s2 = sum(float(np.sum((g[1:, col] - rho * g[:-1, col]) ** 2)) for g in parts) / max(N, 1)
-        num += 4.0 * rho**2 * s2**2 / ((1 - rho) ** 6 * (1 + rho) ** 2)
-        den += s2**2 / (1 - rho) ** 4
-    if den <= 0:
-        return 0
-    return int(min(1.1447 * (num / den * N) ** (1.0 / 3.0), N // 4))

@@ -133,7 +133,11 @@ def local_coordinates(theta: np.ndarray, n: int, m: int, p: int, free: np.ndarra
         Q[idx, np.arange(idx.size)] = 1.0
         return Q
     M = _gauge_tangent(theta, n, m, p)[idx]
-    U, s, _ = np.linalg.svd(M, full_matrices=True)
+    Q_full, R = np.linalg.qr(M, mode="complete")
+    diag = np.abs(np.diag(R))
+    if diag.size and np.min(diag) > M.shape[0] * np.finfo(float).eps * np.max(diag) * 1e3:
+        return _embed(Q_full[:, M.shape[1]:], idx, theta.size)
+    U, s, _ = np.linalg.svd(M, full_matrices=True)  # rank deficient (a non-minimal point): the SVD decides
     tol = max(M.shape) * np.finfo(float).eps * (float(s[0]) if s.size else 0.0)
     rank = int(np.sum(s > tol))
     return _embed(U[:, rank:], idx, theta.size)
@@ -147,7 +151,11 @@ def _embed(basis: np.ndarray, idx: np.ndarray, q: int) -> np.ndarray:
 
 @dataclass(slots=True)
 class Point:
-    """A point of the search: ``theta`` and the initial state of each experiment."""
+    """A point of the search: ``theta`` and the nuisance parameters of each experiment.
+
+    ``x0[k]`` holds experiment ``k``'s initial state and, for a problem with
+    output offsets, its constant output offsets after it (``n + p`` values).
+    """
 
     theta: np.ndarray
     x0: list[np.ndarray]
@@ -170,27 +178,37 @@ class PredictionProblem:
         ``W``: the criterion is ``sum_k ||W e[k]||^2``.
     gauge : bool
         Remove similarity directions from the local coordinates (see :func:`local_coordinates`).
+    offsets : bool
+        Estimate a constant output offset per experiment with its initial state
+        (output error only): the levels subtracted as the operating point need
+        not be an equilibrium of the model over a finite record, and a constant
+        left over must not be fitted as a slow mode.
     """
 
     def __init__(self, parts: Sequence[tuple[np.ndarray, np.ndarray]], dims: tuple[int, int, int],
-                 free: np.ndarray, innovations: bool, weight: np.ndarray, *, gauge: bool = True) -> None:
+                 free: np.ndarray, innovations: bool, weight: np.ndarray, *, gauge: bool = True,
+                 offsets: bool = False) -> None:
         self.parts = tuple(parts)
         self.n, self.m, self.p = dims
         self.free = free
         self.innovations = innovations
         self.weight = weight
         self.gauge = gauge
+        self.offsets = bool(offsets) and not innovations
+        self.nuisance = self.n + (self.p if self.offsets else 0)
         self.n_samples = sum(u.shape[0] for u, _ in self.parts)
+
+    def _like(self, parts, weight) -> PredictionProblem:
+        return PredictionProblem(parts, (self.n, self.m, self.p), self.free, self.innovations, weight,
+                                 gauge=self.gauge, offsets=self.offsets)
 
     def with_parts(self, parts) -> PredictionProblem:
         """Return the same criterion on other experiments."""
-        return PredictionProblem(parts, (self.n, self.m, self.p), self.free, self.innovations,
-                                 self.weight, gauge=self.gauge)
+        return self._like(parts, self.weight)
 
     def with_weight(self, weight: np.ndarray) -> PredictionProblem:
         """Return the same criterion with another output weighting."""
-        return PredictionProblem(self.parts, (self.n, self.m, self.p), self.free, self.innovations,
-                                 weight, gauge=self.gauge)
+        return self._like(self.parts, weight)
 
     # ------------------------------------------------------------------ predictor
 
@@ -213,11 +231,13 @@ class PredictionProblem:
         return self.n == 0 or float(np.max(np.abs(np.linalg.eigvals(Ab)))) < STABLE_RADIUS
 
     def errors(self, theta: np.ndarray, x0: np.ndarray, u: np.ndarray, y: np.ndarray) -> np.ndarray:
-        """Prediction errors ``y - yhat`` (unweighted) of one experiment."""
+        """Prediction errors ``y - yhat`` (unweighted) of one experiment (``x0``: its nuisance vector)."""
         Ab, Bb, C, D = self.predictor(theta)
         e = np.empty_like(y)
-        for k0, k1, x in state_chunks(Ab, Bb, self.drive(u, y), x0):
+        for k0, k1, x in state_chunks(Ab, Bb, self.drive(u, y), x0[:self.n]):
             e[k0:k1] = y[k0:k1] - x @ C.T - u[k0:k1] @ D.T
+        if self.offsets:
+            e -= x0[self.n:][None, :]
         return e
 
     def all_errors(self, point: Point) -> list[np.ndarray]:
@@ -237,10 +257,10 @@ class PredictionProblem:
         return total if math.isfinite(total) else math.inf
 
     def step(self, point: Point, h: np.ndarray, lin: Linearization) -> Point:
-        """``point`` moved by ``h`` in the local coordinates of ``lin`` (then the initial states)."""
+        """Return ``point`` moved by ``h`` in the local coordinates of ``lin`` (then the nuisance parameters)."""
         Q = lin.context
-        d = Q.shape[1]
-        x0 = [x + h[d + k * self.n: d + (k + 1) * self.n] for k, x in enumerate(point.x0)]
+        d, w = Q.shape[1], self.nuisance
+        x0 = [x + h[d + k * w: d + (k + 1) * w] for k, x in enumerate(point.x0)]
         return Point(point.theta + Q @ h[:d], x0)
 
     # ------------------------------------------------------------------ linearisation
@@ -256,23 +276,27 @@ class PredictionProblem:
         return Linearization(R=R[:-1, :-1], z=R[:-1, -1], loss=loss, context=Q)
 
     def row_blocks(self, point: Point, Q: np.ndarray) -> Iterator[np.ndarray]:
-        """Rows ``[-W dyhat/dbeta, -W dyhat/dx0 (all experiments), W e]``, chunk by chunk."""
-        d, n, p = Q.shape[1], self.n, self.p
-        width = d + n * len(self.parts) + 1
+        """Rows ``[-W dyhat/dbeta, -W dyhat/dnuisance (all experiments), W e]``, chunk by chunk."""
+        d, w, p = Q.shape[1], self.nuisance, self.p
+        width = d + w * len(self.parts) + 1
         for k, (_, J, Jx, e) in self.jacobian_chunks(point, Q):
             rows = e.shape[0] * p
             block = np.zeros((rows, width))
             block[:, :d] = -np.einsum("ab,tbk->tak", self.weight, J).reshape(rows, d)
-            block[:, d + k * n:d + (k + 1) * n] = -np.einsum("ab,tbk->tak", self.weight, Jx).reshape(rows, n)
+            block[:, d + k * w:d + (k + 1) * w] = -np.einsum("ab,tbk->tak", self.weight, Jx).reshape(rows, w)
             block[:, -1] = (e @ self.weight.T).reshape(rows)
             yield block
 
     def jacobian_chunks(self, point: Point, Q: np.ndarray):
-        """Yield ``(experiment, (t0, dyhat/dbeta (T, p, d), dyhat/dx0 (T, p, n), e (T, p)))``."""
+        """Yield ``(experiment, (t0, dyhat/dbeta (T, p, d), dyhat/dnuisance (T, p, n [+ p]), e (T, p)))``."""
         gamma, direct = self.directions(point.theta, Q)
+        n, p = self.n, self.p
         for k, ((u, y), x0) in enumerate(zip(self.parts, point.x0, strict=True)):
-            for chunk in self._chunks(point.theta, x0, u, y, gamma, direct):
-                yield k, chunk
+            for t0, J, Jx, e in self._chunks(point.theta, x0[:n], u, y, gamma, direct):
+                if self.offsets:
+                    e = e - x0[n:][None, :]
+                    Jx = np.concatenate([Jx, np.broadcast_to(np.eye(p), (e.shape[0], p, p))], axis=2)
+                yield k, (t0, J, Jx, e)
 
     def directions(self, theta: np.ndarray, Q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per coordinate: ``Gamma_k`` (n, width) driving ``dx`` and ``[dC dD]_k`` (p, n + m)."""

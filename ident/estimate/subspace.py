@@ -79,7 +79,6 @@ References
 
 from __future__ import annotations
 
-import contextlib
 import math
 import warnings
 from collections.abc import Mapping, Sequence
@@ -98,6 +97,7 @@ from ..errors import (
     PoorExcitationWarning,
     UnstableModelWarning,
 )
+from ..lti._linalg import one_blas_thread
 from ..lti.models import StateSpaceModel
 from ..lti.simulate import first_order_recursion, state_chunks
 from .data import Experiment, as_experiments
@@ -111,6 +111,7 @@ __all__ = [
     "OrderSuggestion",
     "SubspaceResult",
     "project",
+    "project_weightings",
     "suggest_order",
     "model_of_order",
     "fit_subspace",
@@ -428,26 +429,6 @@ class SubspaceResult:
 # --------------------------------------------------------------------------- helpers
 
 
-_BLAS_CONTROLLER: Any = None
-
-
-def _one_blas_thread() -> contextlib.AbstractContextManager:
-    """Limit BLAS/LAPACK to one thread for the many small QR updates.
-
-    A multi-threaded OpenBLAS spends more time synchronising than computing
-    on factorisations this narrow, and on a busy machine it can be 5-20x
-    slower. Uses ``threadpoolctl`` when it is installed; else does nothing.
-    """
-    global _BLAS_CONTROLLER
-    if _BLAS_CONTROLLER is None:
-        try:
-            from threadpoolctl import ThreadpoolController
-        except ImportError:  # pragma: no cover - optional dependency
-            return contextlib.nullcontext()
-        _BLAS_CONTROLLER = ThreadpoolController()  # finds the loaded BLAS libraries once
-    return _BLAS_CONTROLLER.limit(limits=1, user_api="blas")
-
-
 def default_horizon(order: int, n_outputs: int) -> int:
     """Horizon chosen when none is given.
 
@@ -734,8 +715,34 @@ def project(
        filtering, and adaptive control", *Proc. 29th IEEE Conference on
        Decision and Control*, 596-604, 1990.
     """
-    experiments = as_experiments(data)
     weighting = one_of(weighting, "weighting", WEIGHTINGS)
+    return project_weightings(data, (weighting,), horizon=horizon, max_order=max_order,
+                              chunk_columns=chunk_columns)[0]
+
+
+def project_weightings(
+    data: Experiment | Sequence[Experiment],
+    weightings: Sequence[str] = WEIGHTINGS,
+    *,
+    horizon: int | None = None,
+    max_order: int = 12,
+    chunk_columns: int = _CHUNK_COLUMNS,
+) -> tuple[SubspaceProjection, ...]:
+    """One :class:`SubspaceProjection` per weighting from a single pass over the data.
+
+    The R factor, the scales and the oblique projections do not depend on the
+    weighting; only the weighted SVD does. Parameters and errors as
+    :func:`project` (``weightings`` instead of one ``weighting``).
+
+    Returns
+    -------
+    tuple of SubspaceProjection
+        In the order of ``weightings``.
+    """
+    experiments = as_experiments(data)
+    weightings = tuple(one_of(w, "weighting", WEIGHTINGS) for w in weightings)
+    if not weightings:
+        raise OptionError("weightings must name at least one weighting")
     max_order = int_in_range(max_order, "max_order", 1, MAX_ORDER_LIMIT)
     chunk_columns = int_in_range(chunk_columns, "chunk_columns", 1)
     m, p = experiments[0].n_inputs, experiments[0].n_outputs
@@ -744,8 +751,7 @@ def project(
     n_samples = sum(e.n_samples for e in experiments)
     i = _choose_horizon(experiments, horizon, max_order, m, p)
     n_columns = _checked_columns(experiments, i, max_order, m, p, n_samples)
-
-    with _one_blas_thread():
+    with one_blas_thread():
         gram = _hankel_gram(experiments, i)
         R, condition = _gram_factor(gram, _GRAM_MAX_CONDITION)
         factorization = "gram"
@@ -757,31 +763,19 @@ def project(
     row_scale = np.concatenate([np.tile(input_scale, 2 * i), np.tile(output_scale, 2 * i)])
     L = _scaled_factor(R, row_scale, n_columns)
     _warn_if_inputs_not_exciting(L, idx, i)
-
     Wp = np.vstack([L[idx["Up"]], L[idx["Yp"]]])
     Wp_plus = np.vstack([L[idx["Up+"]], L[idx["Yp+"]]])
     O_i = _oblique(L[idx["Yf"]], L[idx["Uf"]], Wp)
     O_next = _oblique(L[idx["Yf-"]], L[idx["Uf-"]], Wp_plus)
-    s, basis = _weighted_basis(L, idx, O_i, weighting)
-
-    return SubspaceProjection(
-        singular_values=s,
-        horizon=i,
-        weighting=weighting,
-        n_samples=n_samples,
-        n_columns=n_columns,
-        max_order=min(max_order, p * (i - 1)),
-        n_inputs=m,
-        n_outputs=p,
-        r_factor=R,
-        input_scale=input_scale,
-        output_scale=output_scale,
-        observability_basis=basis,
-        oblique_current=O_i,
-        oblique_next=O_next,
-        factorization=factorization,
-        gram_condition=condition,
-    )
+    common = dict(horizon=i, n_samples=n_samples, n_columns=n_columns,
+                  max_order=min(max_order, p * (i - 1)), n_inputs=m, n_outputs=p, r_factor=R,
+                  input_scale=input_scale, output_scale=output_scale, oblique_current=O_i,
+                  oblique_next=O_next, factorization=factorization, gram_condition=condition)
+    out = []
+    for w in weightings:
+        s_w, basis = _weighted_basis(L, idx, O_i, w)
+        out.append(SubspaceProjection(singular_values=s_w, weighting=w, observability_basis=basis, **common))
+    return tuple(out)
 
 
 def _choose_horizon(experiments: Sequence[Experiment], horizon: int | None, max_order: int,
@@ -961,7 +955,7 @@ def _fit_bd_simulation(
     # outputs needs no features: one product per experiment); upper triangle only
     cols_u, cols_y = slice(nf, nf + m), slice(q - p, q)
     gram = np.zeros((q, q))
-    with _one_blas_thread():
+    with one_blas_thread():
         for e, exp in enumerate(experiments):
             cols_x0 = slice(nf + m + e * nx0, nf + m + (e + 1) * nx0)
             gram[cols_u, cols_u] += exp.u.T @ exp.u

@@ -22,6 +22,7 @@ import numpy as np
 
 from .._validate import as_matrix
 from ..errors import OptionError
+from ..lti.covariance import ParameterCovariance, theta_layout
 from ..lti.models import StateSpaceModel
 
 __all__ = [
@@ -29,6 +30,7 @@ __all__ = [
     "root_jacobian",
     "root_covariance",
     "arx_pole_covariance",
+    "arx_parameter_covariance",
     "pole_covariance_to_list",
     "pole_covariance_from_list",
 ]
@@ -328,3 +330,77 @@ def _nearest_pairs(dist: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
                 break
     rank = np.argsort(rows)
     return np.asarray(rows)[rank], np.asarray(cols)[rank]
+
+
+def arx_parameter_covariance(result: Any) -> ParameterCovariance:
+    """Covariance of the state-space parameters of an ARX model's realisation.
+
+    Parameters
+    ----------
+    result : ident.estimate.arx.ArxResult
+        A fitted ARX model with its parameter covariance.
+
+    Returns
+    -------
+    ParameterCovariance
+        Of ``theta`` of ``result.model`` (the observer form of
+        :func:`ident.estimate.arx.arx_state_space`, noise gain included), method
+        ``"arx"``.
+
+    Notes
+    -----
+    In the observer form every entry of ``A, B, D, K`` is a fixed linear or
+    bilinear function of ``a`` and ``b`` (``A[r, 0] = K[r] = -a_{r+1}``,
+    ``B[r] = beta_{r+1} - a_{r+1} beta_0``, ``D = beta_0``), so the covariance
+    maps through the exact Jacobian; the outputs are fitted separately, so
+    their blocks are independent.
+    """
+    from .arx import ArxResult
+
+    if not isinstance(result, ArxResult):
+        raise OptionError(f"result must be an ArxResult; got {type(result).__name__}")
+    model = result.model
+    n, m, p = model.n_states, model.n_inputs, model.n_outputs
+    lay = theta_layout(n, m, p)
+    blocks, offset = [], 0
+    for i in range(p):
+        J, size = _arx_output_jacobian(result, i, offset, lay, (n, m, p))
+        cov = np.asarray(result.covariance[i], dtype=float)
+        w, V = np.linalg.eigh(0.5 * (cov + cov.T))
+        blocks.append(J @ (V * np.sqrt(np.maximum(w, 0.0))[None, :]))
+        offset += size
+    return ParameterCovariance(np.hstack(blocks), "arx", n, m, p)
+
+
+def _arx_output_jacobian(result: Any, i: int, offset: int, lay: dict, dims: tuple[int, int, int]):
+    """Jacobian of ``theta`` with respect to output ``i``'s ARX parameters, and that output's state count."""
+    n, m, p = dims
+    na, nb, nk = int(result.na), result.nb, result.nk
+    size = max([na] + [nk[j] + nb[j] - 1 for j in range(m) if nb[j]])
+    alpha = np.zeros(size + 1)
+    alpha[: na + 1] = np.asarray(result.a[i], dtype=float)
+    beta0 = np.array([result.b[i][j][0] if nk[j] == 0 and nb[j] else 0.0 for j in range(m)])
+    d = na + sum(nb)
+    J = np.zeros((lay["K"].stop, d))
+
+    def at(block: str, r: int, c: int, cols: int) -> int:
+        return lay[block].start + r * cols + c
+
+    for lag in range(1, na + 1):
+        row = offset + lag - 1
+        J[at("A", row, offset, n), lag - 1] = -1.0
+        J[at("K", row, i, p), lag - 1] = -1.0
+        for j in range(m):
+            J[at("B", row, j, m), lag - 1] = -beta0[j]
+    col = na
+    for j in range(m):
+        for t in range(nb[j]):
+            lag = nk[j] + t
+            if lag == 0:
+                J[at("D", i, j, m), col] = 1.0
+                for r in range(size):
+                    J[at("B", offset + r, j, m), col] = -alpha[r + 1]
+            else:
+                J[at("B", offset + lag - 1, j, m), col] = 1.0
+            col += 1
+    return J, size

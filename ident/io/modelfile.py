@@ -12,6 +12,7 @@ Layout (schema version 1)::
       "operating_point": {"inputs": [...], "outputs": [...]},   # or null
       "state_space": {"A": [[...]], "B": [[...]], "C": [[...]], "D": [[...]]},
       "noise_gain": [[...]] or null,        # innovation-form Kalman gain K (n x p)
+      "noise_states": 0,                    # trailing states of the noise model only (optional)
       "provenance": {"tool": "rigfit", "tool_version": ..., "created_utc": ..., "log": {...},
                      "estimation": {...}, "validation": {...}}
     }
@@ -36,6 +37,7 @@ import numpy as np
 from .._json import json_ready
 from .._version import __version__
 from ..errors import IdentError, ModelFileError
+from ..lti.covariance import ParameterCovariance
 from ..lti.models import OperatingPoint, StateSpaceModel
 from .atomic import write_atomic
 
@@ -48,6 +50,7 @@ __all__ = [
     "save_model",
     "load_model",
     "dumps_model",
+    "uncertainty_provenance",
 ]
 
 FORMAT_NAME = "rigfit-model"
@@ -84,7 +87,45 @@ class ModelFile:
 
         block = self.provenance.get("estimation") if isinstance(self.provenance, dict) else None
         raw = block.get("pole_covariance") if isinstance(block, dict) else None
-        return pole_covariance_from_list(raw, self.model.n_states)
+        return pole_covariance_from_list(raw, len(self.model.poles()))
+
+    def parameter_covariance(self) -> ParameterCovariance | None:
+        """Return the stored parameter covariance (``provenance.estimation.parameter_covariance``), if usable.
+
+        ``None`` when the file holds none, or one that does not match the model's
+        dimensions or is not finite.
+        """
+        block = self.provenance.get("estimation") if isinstance(self.provenance, dict) else None
+        raw = block.get("parameter_covariance") if isinstance(block, dict) else None
+        if not isinstance(raw, dict):
+            return None
+        m = self.model
+        try:
+            return ParameterCovariance(np.array(raw.get("factor"), dtype=float), str(raw.get("method")),
+                                       m.n_states, m.n_inputs, m.n_outputs)
+        except (IdentError, TypeError, ValueError):
+            return None
+
+
+def uncertainty_provenance(pole_covariance: np.ndarray | None,
+                           covariance: ParameterCovariance | None) -> dict[str, Any]:
+    """Entries for ``provenance["estimation"]``: the pole covariance and the parameter covariance factor.
+
+    ``{"pole_covariance": [[[...]]], "parameter_covariance": {"method": ..., "layout": ...,
+    "factor": [[...]]}}``, each only when known.
+    """
+    from ..estimate.uncertainty import pole_covariance_to_list
+
+    out: dict[str, Any] = {}
+    if pole_covariance is not None:
+        out["pole_covariance"] = pole_covariance_to_list(pole_covariance)
+    if covariance is not None:
+        out["parameter_covariance"] = {
+            "method": covariance.method,
+            "layout": "theta = [vec A, vec B, vec C, vec D, vec K], row-major; cov(theta) = factor factor^T",
+            "factor": _matrix(covariance.factor),
+        }
+    return out
 
 
 def _matrix(arr: np.ndarray) -> list[list[float]]:
@@ -135,6 +176,7 @@ def model_to_dict(model: StateSpaceModel, provenance: dict | None = None) -> dic
             "D": _matrix(model.D),
         },
         "noise_gain": None if model.noise_gain is None else _matrix(model.noise_gain),
+        "noise_states": model.noise_states,
         "provenance": prov,
     }
 
@@ -238,6 +280,9 @@ def model_from_dict(data: Any, *, path: str | os.PathLike | None = None) -> Mode
         op = OperatingPoint(op_in[0], op_out[0])
     K_raw = data.get("noise_gain")
     K = None if K_raw is None else _as_matrix(K_raw, "noise_gain", n, p, where)
+    noise_states = data.get("noise_states", 0)
+    if isinstance(noise_states, bool) or not isinstance(noise_states, int) or not 0 <= noise_states <= n:
+        raise ModelFileError(f"noise_states must be an integer in [0, {n}]; got {noise_states!r}", path=where)
     provenance = data.get("provenance") or {}
     if not isinstance(provenance, dict):
         raise ModelFileError("provenance must be an object", path=where)
@@ -254,6 +299,7 @@ def model_from_dict(data: Any, *, path: str | os.PathLike | None = None) -> Mode
             output_units=tuple(str(u) for u in out_units),
             operating_point=op,
             noise_gain=K,
+            noise_states=noise_states,
         )
     except IdentError as exc:
         raise ModelFileError(str(exc), path=where) from exc

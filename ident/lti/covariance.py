@@ -164,15 +164,20 @@ def pole_covariance(model: StateSpaceModel, covariance: ParameterCovariance) -> 
     out = np.full((poles.size, 2, 2), np.nan)
     if k == 0:
         return out
-    lam, V = np.linalg.eig(model.A[:k, :k])
-    W = np.linalg.inv(V)
+    Ak = model.A[:k, :k]
+    lam, V = np.linalg.eig(Ak)
+    lam_left, W = np.linalg.eig(Ak.T)  # left eigenvectors: columns w with w^T A = lambda w^T
     n = model.n_states
     rows = covariance.block("A").reshape(n, n, -1)[:k, :k].reshape(k * k, -1)
     for r, c in enumerate(_pair(poles, lam)):
         others = np.delete(lam, c)
         if others.size and np.min(np.abs(others - lam[c])) <= 1e-6 * max(1.0, abs(lam[c])):
+            continue  # repeated pole (a delay chain, a double root): no first-order sensitivity
+        w = W[:, int(np.argmin(np.abs(lam_left - lam[c])))]
+        scale = w @ V[:, c]
+        if abs(scale) <= 1e-12 * np.linalg.norm(w) * np.linalg.norm(V[:, c]):
             continue
-        g = np.outer(W[c], V[:, c]).ravel()
+        g = np.outer(w, V[:, c]).ravel() / scale
         G = np.vstack([g.real, g.imag]) @ rows
         out[r] = G @ G.T
         if poles[r].imag == 0:
