@@ -7,7 +7,9 @@ without loading numpy.
 
 from __future__ import annotations
 
-__all__ = ["METHODS", "WEIGHTINGS", "NOISE_MODELS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
+__all__ = [
+    "METHODS", "WEIGHTINGS", "NOISE_MODELS", "POLYNOMIAL_STRUCTURES", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS",
+]
 
 #: Model families of ``identify`` / ``rigfit fit --method``.
 METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
@@ -19,6 +21,10 @@ WEIGHTINGS: tuple[str, ...] = ("n4sid", "moesp", "cva")
 #: the simulation error with no noise model, or the one-step prediction error of
 #: the innovations form with its noise gain estimated too.
 NOISE_MODELS: tuple[str, ...] = ("output_error", "innovations")
+
+#: Polynomial model structures fitted by prediction error
+#: (``ident.estimate.polynomial``): output-error, ARMAX and Box-Jenkins.
+POLYNOMIAL_STRUCTURES: tuple[str, ...] = ("oe", "armax", "bj")
 
 #: Discretisation methods, both directions (``rigfit convert --method``).
 DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")

@@ -94,6 +94,7 @@ from ..lti.covariance import ParameterCovariance, theta_layout
 from ..lti.models import StateSpaceModel
 from .data import Experiment, as_experiments
 from .gauss_newton import minimize
+from .hac import newey_west
 from .sensitivity import STABLE_RADIUS, Point, PredictionProblem, pack_theta, unpack_theta
 
 __all__ = [
@@ -628,29 +629,4 @@ def _gradient_covariance(problem: PredictionProblem, point: Point, Q: np.ndarray
         T = e.shape[0]
         g[t0:t0 + T, :d] = np.einsum("tak,ta->tk", np.einsum("ab,tbk->tak", W, J), ew)
         g[t0:t0 + T, d + k * n:d + (k + 1) * n] = np.einsum("tak,ta->tk", np.einsum("ab,tbk->tak", W, Jx), ew)
-    bandwidth = _andrews_bandwidth(per_exp)
-    S = np.zeros((width, width))
-    for g in per_exp:
-        S += g.T @ g
-        for lag in range(1, min(bandwidth, g.shape[0] - 1) + 1):
-            G = g[lag:].T @ g[:-lag]
-            S += (1.0 - lag / (bandwidth + 1.0)) * (G + G.T)
-    return S
-
-
-def _andrews_bandwidth(parts: Sequence[np.ndarray]) -> int:
-    """Bartlett-kernel bandwidth by Andrews' AR(1) plug-in rule (1991, eq. 6.4 with eq. 6.2)."""
-    num = den = 0.0
-    N = sum(g.shape[0] for g in parts)
-    for col in range(parts[0].shape[1]):
-        a = sum(float(g[1:, col] @ g[:-1, col]) for g in parts)
-        b = sum(float(g[:-1, col] @ g[:-1, col]) for g in parts)
-        if b <= 0:
-            continue
-        rho = min(max(a / b, -0.97), 0.97)
-        s2 = sum(float(np.sum((g[1:, col] - rho * g[:-1, col]) ** 2)) for g in parts) / max(N, 1)
-        num += 4.0 * rho**2 * s2**2 / ((1 - rho) ** 6 * (1 + rho) ** 2)
-        den += s2**2 / (1 - rho) ** 4
-    if den <= 0:
-        return 0
-    return int(min(1.1447 * (num / den * N) ** (1.0 / 3.0), N // 4))
+    return newey_west(per_exp)
