@@ -298,7 +298,7 @@ def test_armax_standard_errors_are_calibrated_over_a_monte_carlo():
 
 
 def test_output_error_is_consistent_under_coloured_noise_with_calibrated_robust_errors():
-    # OE is consistent for open-loop data whatever the noise colour (Ljung 1999 sec. 8.3)
+    # OE is consistent for open-loop data whatever the noise colour (Ljung 1999 ch. 8, from memory)
     rng = np.random.default_rng(51)
     u, y = _oe_data(rng, 6000, noise=0.3, colour=0.9)
     res = fit_polynomial(Experiment(u, y), 1.0, OE_OPTIONS)
@@ -441,3 +441,27 @@ def test_from_mapping():
         PolynomialOptions.from_mapping({"nb": 2}, key_path="fit.poly")
     with pytest.raises(PipelineError, match="na must be 0"):
         PolynomialOptions.from_mapping({"structure": "oe", "na": 1}, key_path="fit.poly")
+
+
+# ---------------------------------------------------------------------------- starting values
+
+
+def test_output_error_start_is_exact_on_noise_free_data_and_unbiased_by_coloured_noise():
+    rng = np.random.default_rng(91)
+    u = rng.standard_normal(20000)
+    x = lfilter(_delayed(B1, 1), F1, u)
+    b, f = P._steiglitz_mcbride([(u, x)], 2, 2, 1)
+    assert_allclose(np.concatenate([b, f]), TRUE_OE[[0, 1, 3, 4]], atol=1e-9)  # noise-free: LS is exact
+    v = lfilter([1.0], [1.0, -0.9], 0.5 * rng.standard_normal(20000))  # strongly coloured noise
+    b, f = P._steiglitz_mcbride([(u, x + v)], 2, 2, 1)
+    # instrumental variables are consistent under coloured noise (Young & Jakeman 1979); on 20000
+    # samples the spread is about 0.01 here, so 0.05 is five of its standard deviations
+    assert_allclose(np.concatenate([b, f]), TRUE_OE[[0, 1, 3, 4]], atol=0.05)
+
+
+def test_armax_start_by_hannan_rissanen_is_consistent():
+    rng = np.random.default_rng(92)
+    u, y = _armax_data(rng, 20000)
+    a, b, c = P._hannan_rissanen([(u, y)], 2, (2, 1), (1, 3), 2)
+    # Hannan & Rissanen 1982: consistent; on 20000 samples within 0.05 of the invented truth
+    assert_allclose(np.concatenate([a, *b, c]), TRUE_ARMAX, atol=0.05)

@@ -24,7 +24,7 @@ Criterion and gradient
 ----------------------
 The parameters ``theta = [a, b_1 .. b_m, c, d, f_1 .. f_m]`` of one output
 minimise ``sum_t eps(t)^2`` over all experiments, with the prediction error
-([1]_ sec. 10.3, eq. 10.40 ff.)::
+([1]_ sec. 10.3)::
 
     w_j = (B_j / F_j) u_j(t - nk_j),   v = A y - sum_j w_j,   eps = (D / C) v
 
@@ -62,8 +62,10 @@ Starting values
 ---------------
 ARMAX: Hannan-Rissanen [2]_: a long ARX model estimates the innovations,
 then ``y`` is regressed on lagged ``y``, ``u`` and estimated innovations.
-Output error: Steiglitz-McBride iterations [3]_ (least squares on data
-prefiltered by ``1/F`` of the previous iterate), one input at a time against
+Output error: Steiglitz-McBride iterations [3]_ (data prefiltered by ``1/F``
+of the previous iterate) solved with instruments from the previous
+iterate's noise-free output, the simplified refined instrumental-variable
+method [5]_, which coloured noise does not bias; one input at a time against
 the output less the other inputs' current responses when there are several.
 Box-Jenkins: the output-error estimate, refined, plus an ARMA model of its
 residuals by Hannan-Rissanen.
@@ -112,6 +114,9 @@ References
    linear systems", *IEEE Trans. Automatic Control* 10(4), 461-464, 1965.
 .. [4] G. F. Franklin, J. D. Powell and M. L. Workman, *Digital Control of
    Dynamic Systems*, 3rd ed., Addison-Wesley, 1998, sec. 4.3 and 6.3.
+.. [5] P. C. Young and A. J. Jakeman, "Refined instrumental variable methods
+   of recursive time-series analysis. Part I: Single input, single output
+   systems", *Int. J. Control* 29(1), 1-30, 1979.
 """
 
 from __future__ import annotations
@@ -643,23 +648,32 @@ def _hannan_rissanen(parts, na: int, nb: Sequence[int], nk: Sequence[int], nc: i
 
 
 def _steiglitz_mcbride(parts, nb: int, nf: int, nk: int) -> tuple[np.ndarray, np.ndarray]:
-    """``b, f`` (no leading 1) of ``y = q^-nk B/F u`` by Steiglitz-McBride iterations.
+    """``b, f`` (no leading 1) of ``y = q^-nk B/F u`` by prefiltered instrumental-variable iterations.
 
-    ``parts`` holds ``(u (N,), y (N,))`` per experiment. Each iteration solves
-    the least-squares problem ``F yf = q^-nk B uf`` on data prefiltered by
-    ``1/F`` of the previous iterate (the first is the ARX estimate); ``F`` is
-    kept stable by reflecting its roots.
+    ``parts`` holds ``(u (N,), y (N,))`` per experiment. The first iteration is
+    the least-squares (ARX) estimate; each further one prefilters ``y`` and
+    ``u`` by ``1/F`` of the previous iterate as Steiglitz and McBride do, and
+    solves the normal equations with instruments built from the noise-free
+    output ``x = q^-nk B/F u`` of that iterate (the simplified refined
+    instrumental-variable method), so coloured noise biases it no more than
+    white. ``F`` is kept stable by reflecting its roots.
     """
-    f = np.ones(1)
+    f, b = np.ones(1), np.zeros(nb)
     t0 = max(nf, nk + nb - 1)
     previous = None
-    b = np.zeros(nb)
-    for _ in range(_SM_ITERATIONS if nf else 1):
-        rows = []
+    for it in range(_SM_ITERATIONS if nf else 1):
+        lhs, rhs = 0.0, 0.0
         for u, y in parts:
             yf, uf = _lfilter([1.0], f, y), _lfilter([1.0], f, u)
-            rows.append((np.hstack([-_lagged(yf, 1, nf, t0), _lagged(uf, nk, nb, t0)]), yf[t0:]))
-        sol = _least_squares(rows)
+            inputs = _lagged(uf, nk, nb, t0)
+            Phi = np.hstack([-_lagged(yf, 1, nf, t0), inputs])
+            Z = Phi
+            if it:
+                xf = _lfilter([1.0], f, _lfilter(np.concatenate([np.zeros(nk), b]), f, u))
+                Z = np.hstack([-_lagged(xf, 1, nf, t0), inputs])
+            lhs = lhs + Z.T @ Phi
+            rhs = rhs + Z.T @ yf[t0:]
+        sol = np.linalg.lstsq(lhs, rhs, rcond=None)[0]
         f = _inside(np.concatenate([[1.0], sol[:nf]]))
         b = sol[nf:]
         current = np.concatenate([f, b])
