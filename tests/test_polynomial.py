@@ -465,3 +465,12 @@ def test_armax_start_by_hannan_rissanen_is_consistent():
     a, b, c = P._hannan_rissanen([(u, y)], 2, (2, 1), (1, 3), 2)
     # Hannan & Rissanen 1982: consistent; on 20000 samples within 0.05 of the invented truth
     assert_allclose(np.concatenate([a, *b, c]), TRUE_ARMAX, atol=0.05)
+
+
+def test_result_arrays_are_read_only():
+    rng = np.random.default_rng(93)
+    u, y = _bj_data(rng, 300)
+    res = fit_polynomial(Experiment(u, y), 1.0, BJ_OPTIONS)
+    for arr in (res.parameters[0], res.std_errors[0], res.parameter_covariance[0], res.loss, res.b[0][0], res.f[0][0]):
+        with pytest.raises(ValueError, match="read-only"):
+            arr[0] = 1.0

@@ -1030,6 +1030,13 @@ def _check_samples(experiments: Sequence[Experiment], layout: _Layout) -> None:
         raise OptionError(f"{d} coefficients per output need more than {d} prediction errors; the data give {total}")
 
 
+def _ro(x: Any) -> np.ndarray:
+    """Return a read-only float copy (results hold no array the caller can change)."""
+    arr = np.array(x, dtype=float, copy=True)
+    arr.flags.writeable = False
+    return arr
+
+
 def _result(options, layout: _Layout, fits: Sequence[_OutputFit], m: int, sample_time: float,
             inputs, outputs, n_samples: int) -> PolynomialResult:
     p, size = len(fits), layout.slices()["size"]
@@ -1052,15 +1059,16 @@ def _result(options, layout: _Layout, fits: Sequence[_OutputFit], m: int, sample
     return PolynomialResult(
         model=model, options=options, structure=options.structure,
         na=layout.na, nb=layout.nb, nc=layout.nc, nd=layout.nd, nf=layout.nf, nk=layout.nk,
-        a=tuple(P.a for P in polys), b=tuple(P.b for P in polys), c=tuple(P.c for P in polys),
-        d=tuple(P.d for P in polys), f=tuple(P.f for P in polys),
-        parameters=tuple(thetas),
-        std_errors=tuple(np.full(size, np.nan) if fit.covariance is None else np.sqrt(np.diag(fit.covariance))
+        a=tuple(_ro(P.a) for P in polys), b=tuple(tuple(map(_ro, P.b)) for P in polys),
+        c=tuple(_ro(P.c) for P in polys), d=tuple(_ro(P.d) for P in polys),
+        f=tuple(tuple(map(_ro, P.f)) for P in polys),
+        parameters=tuple(map(_ro, thetas)),
+        std_errors=tuple(_ro(np.full(size, np.nan) if fit.covariance is None else np.sqrt(np.diag(fit.covariance)))
                          for fit in fits),
-        parameter_covariance=tuple(fit.covariance for fit in fits),
+        parameter_covariance=tuple(None if fit.covariance is None else _ro(fit.covariance) for fit in fits),
         covariance=covariance,
-        loss=np.array([fit.loss for fit in fits]),
-        noise_variance=np.array([fit.noise_variance for fit in fits]),
+        loss=_ro([fit.loss for fit in fits]),
+        noise_variance=_ro([fit.noise_variance for fit in fits]),
         iterations=tuple(fit.iterations for fit in fits),
         stop_reason=tuple(fit.stop_reason for fit in fits),
         history=tuple(fit.history for fit in fits),
