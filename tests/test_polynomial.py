@@ -474,3 +474,27 @@ def test_result_arrays_are_read_only():
     for arr in (res.parameters[0], res.std_errors[0], res.parameter_covariance[0], res.loss, res.b[0][0], res.f[0][0]):
         with pytest.raises(ValueError, match="read-only"):
             arr[0] = 1.0
+
+
+def test_frequency_response_covariance_equals_gauss_formula_on_the_polynomials():
+    from scipy.signal import freqz
+
+    from ident.lti.covariance import frequency_response_covariance
+
+    rng = np.random.default_rng(94)
+    u, y = _oe_data(rng, 1500, noise=0.3, colour=0.5)
+    res = fit_polynomial(Experiment(u[:, :1], y - lfilter(_delayed(B2, 3), F2, u[:, 1])), 0.01,
+                         PolynomialOptions(structure="oe", nb=2, nf=2, nk=1))
+    freqs = np.array([1.0, 5.0, 20.0])  # Hz, below Nyquist (50 Hz)
+    G, cov = frequency_response_covariance(res.model, res.covariance, freqs)
+
+    def response(theta):  # scipy.signal.freqz of q^-1 B / F
+        return freqz(_delayed(theta[:2], 1), np.concatenate([[1.0], theta[2:]]), worN=freqs, fs=100.0)[1]
+
+    theta = np.asarray(res.parameters[0])
+    assert_allclose(G[:, 0, 0], response(theta), rtol=1e-10)
+    h = 1e-6
+    J = np.column_stack([(response(theta + h * e) - response(theta - h * e)) / (2 * h) for e in np.eye(4)])
+    parts = np.stack([J.real, J.imag], axis=1)  # (F, 2, 4)
+    expected = np.einsum("fak,kl,fbl->fab", parts, res.parameter_covariance[0], parts)  # Gauss' formula
+    assert_allclose(cov[:, 0, 0], expected, rtol=1e-5)
