@@ -7,7 +7,10 @@ without loading numpy.
 
 from __future__ import annotations
 
-__all__ = ["METHODS", "WEIGHTINGS", "NOISE_MODELS", "REFINEMENTS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
+__all__ = [
+    "METHODS", "WEIGHTINGS", "NOISE_MODELS", "REFINEMENTS", "POLYNOMIAL_STRUCTURES", "DISCRETIZE_METHODS",
+    "REALIZATIONS", "FLAGS",
+]
 
 #: Model families of ``identify`` / ``rigfit fit --method``.
 METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
@@ -24,6 +27,10 @@ NOISE_MODELS: tuple[str, ...] = ("output_error", "innovations")
 #: noise models above, ``"auto"`` (output error for open-loop data, innovations
 #: when the log was taken in closed loop) or ``"none"`` (keep the direct estimates).
 REFINEMENTS: tuple[str, ...] = ("auto", "output_error", "innovations", "none")
+
+#: Polynomial model structures fitted by prediction error
+#: (``ident.estimate.polynomial``): output-error, ARMAX and Box-Jenkins.
+POLYNOMIAL_STRUCTURES: tuple[str, ...] = ("oe", "armax", "bj")
 
 #: Discretisation methods, both directions (``rigfit convert --method``).
 DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")

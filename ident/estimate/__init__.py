@@ -7,7 +7,9 @@ detrending, decimation and the estimation/validation split
 that ARX and delay estimation share (:mod:`~ident.estimate.regression`), ARX
 (:mod:`~ident.estimate.arx`), input-delay estimation
 (:mod:`~ident.estimate.delay`), order criteria (:mod:`~ident.estimate.order`),
-subspace identification (:mod:`~ident.estimate.subspace`), parameter to pole
+subspace identification (:mod:`~ident.estimate.subspace`), output-error,
+ARMAX and Box-Jenkins models (:mod:`~ident.estimate.polynomial`), the
+Newey-West gradient covariance (:mod:`~ident.estimate.hac`), parameter to pole
 uncertainty (:mod:`~ident.estimate.uncertainty`) and the top-level
 identification job (:mod:`~ident.estimate.identify`). Modules here may import
 each other (without loops), :mod:`ident.assess`, :mod:`ident.lti` and the
