@@ -7,7 +7,7 @@ without loading numpy.
 
 from __future__ import annotations
 
-__all__ = ["METHODS", "WEIGHTINGS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS"]
+__all__ = ["METHODS", "WEIGHTINGS", "DISCRETIZE_METHODS", "REALIZATIONS", "FLAGS", "UPSAMPLE_METHODS"]
 
 #: Model families of ``identify`` / ``rigfit fit --method``.
 METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
@@ -20,6 +20,10 @@ DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")
 
 #: State coordinates offered by ``ident.lti.realization.realize`` (``rigfit convert --realization``).
 REALIZATIONS: tuple[str, ...] = ("controllable", "observable", "modal", "balanced")
+
+#: Ways to bring a slower channel up to the common rate (``rigfit fit --upsample``,
+#: ``[log] upsample``): zero-order hold or linear interpolation between its samples.
+UPSAMPLE_METHODS: tuple[str, ...] = ("zoh", "linear")
 
 #: Every plausibility flag a mode can carry, in the order they are reported.
 FLAGS: tuple[str, ...] = (
