@@ -73,6 +73,8 @@ __all__ = [
     "read_log",
     "read_table",
     "read_recording",
+    "log_from_recording",
+    "resample_log",
     "read_column_names",
     "time_base",
     "log_from_table",
@@ -713,12 +715,27 @@ class Recording:
         Format version (MDF), ``""`` otherwise.
     skipped : tuple of str
         Channels that are not numeric (text, byte arrays) and were not read.
+    entries : tuple of ident.io.columns.Entry
+        Every selectable column in listing order (what ``#N`` counts).
+    names : tuple of str
+        The name each entry has in the tables (``group/name`` where the bare
+        name is not unique).
     """
 
     source: LogSource
     blocks: tuple[Block, ...]
     version: str = ""
     skipped: tuple[str, ...] = ()
+    entries: tuple[Entry, ...] = ()
+    names: tuple[str, ...] = ()
+
+    def find(self, name: str) -> tuple[int, Column] | None:
+        """Return ``(block index, column)`` of the column named ``name`` (``None`` when not read)."""
+        for b, block in enumerate(self.blocks):
+            for c in block.table.columns:
+                if c.name == name and not (block.label and c.name == block.time):
+                    return b, c
+        return None
 
 
 def read_recording(
@@ -754,7 +771,9 @@ def read_recording(
     if kind not in ("mdf", "hdf5"):
         header = _read_header(path)
         table = _read_columns(path, header, list(range(len(header.names))), drop_bad_rows=drop_bad_rows)
-        return Recording(table.source, (Block("", table, time, sample_rate),))
+        entries = tuple(Entry(n, u) for n, u in zip(header.names, header.units, strict=True))
+        return Recording(table.source, (Block("", table, time, sample_rate),), entries=entries,
+                         names=tuple(header.names))
     cat = _catalogue(path, kind, time, sample_rate)
     wanted = list(range(len(cat.entries)))
     names = {k: cat.display_name(k) for k in wanted}
@@ -764,7 +783,43 @@ def read_recording(
     blocks = tuple(_block(path, sha, cat, d, names, drop_bad_rows) for d in data)
     records = max((b.table.n_rows for b in blocks), default=0)
     source = LogSource(path, os.path.basename(path), sha, 1, records, kind)
-    return Recording(source, blocks, cat.version, tuple(skipped))
+    return Recording(source, blocks, cat.version, tuple(skipped), cat.entries,
+                     tuple(names[k] for k in wanted))
+
+
+def log_from_recording(rec: Recording, inputs: str | Sequence[str], outputs: str | Sequence[str],
+                       **options) -> Log:
+    """Build a :class:`Log` from a recording already read, as :func:`read_log` would.
+
+    A CSV or Parquet table is used as read; the chosen channels of an MDF or
+    HDF5 file are read again (only those), so bad samples are judged on them
+    alone, as :func:`read_log` does. ``options`` are :func:`read_log`'s keywords.
+    """
+    if rec.source.format in ("mdf", "hdf5"):
+        return read_log(rec.source.path, inputs, outputs, **options)
+    opt = _ReadOptions(options.get("time"), options.get("sample_rate"), options.get("drop_bad_rows", False),
+                       options.get("split_at_gaps", False), options.get("jitter_tolerance", 0.1),
+                       options.get("resample_hz"), options.get("upsample"),
+                       options.get("expand_patterns", True))
+    _check_time_args(opt.time, opt.sample_rate, opt.jitter_tolerance)
+    _check_resample_args(opt.resample_hz, opt.upsample)
+    path = rec.source.path
+    names = [e.name for e in rec.entries]
+    time_index = None
+    if opt.time is not None:
+        time_index = resolve(opt.time, rec.entries, path=path)[0]
+    elif opt.sample_rate is None:
+        time_index = _auto_time_index(names)
+    skip = () if time_index is None else (time_index,)
+    single = not opt.expand_patterns
+    in_idx = resolve_all(_names_arg(inputs, "inputs"), rec.entries, path=path, single=single, exclude=skip)
+    out_idx = resolve_all(_names_arg(outputs, "outputs"), rec.entries, path=path, single=single, exclude=skip)
+    log = log_from_table(
+        rec.blocks[0].table, [names[k] for k in in_idx], [names[k] for k in out_idx],
+        time=None if opt.time is None else names[time_index], sample_rate=opt.sample_rate,
+        split_at_gaps=opt.split_at_gaps, jitter_tolerance=opt.jitter_tolerance,
+    )
+    return log if opt.resample_hz is None else _resampled_log(log, opt)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -975,6 +1030,25 @@ def _multi_block_log(path: str, sha: str, kind: str, blocks: list[Block], in_nam
         input_rates_hz=tuple(rates[:m]), output_rates_hz=tuple(rates[m:]),
         resampling=ResampleRecord(rate, res.channels, res.edge_samples, opt.resample_hz is not None),
     )
+
+
+def resample_log(log: Log, resample_hz: float, *, upsample: str | None = None,
+                 jitter_tolerance: float = 0.1) -> Log:
+    """Bring a log read from one time base to ``resample_hz``, segment by segment.
+
+    As ``read_log(..., resample_hz=..., upsample=...)``, for a log already read
+    (see :mod:`ident.estimate.resample` for the methods).
+
+    Raises
+    ------
+    LogFormatError
+        A segment too short for the anti-alias filter, or a rate that needs an
+        upsampling method that was not given.
+    """
+    _check_resample_args(resample_hz, upsample)
+    fraction(jitter_tolerance, "jitter_tolerance")
+    opt = _ReadOptions(None, None, False, False, jitter_tolerance, float(resample_hz), upsample, True)
+    return _resampled_log(log, opt)
 
 
 def _resampled_log(log: Log, opt: _ReadOptions) -> Log:
@@ -1693,7 +1767,8 @@ def _rate_segments(table: Table, t_s: float, stats: TimingStats, split: bool) ->
         i = int(breaks[0]) + 1
         missing = int(steps[i - 1]) - 1
         raise LogFormatError(
-            f"{missing} dropped row(s) just before this row break the sample sequence "
+            f"{missing} dropped {_row_word(table)}(s) just before this {_row_word(table)} break the "
+            "sample sequence "
             f"(sample rate {_fmt(1.0 / t_s)} Hz)",
             path=table.source.path, **table.location(i),
             hint="split the log at gaps (--split-at-gaps / split_at_gaps=True)",
@@ -1713,7 +1788,7 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
         what = "duplicated time stamp" if dt[i - 1] == 0 else "time goes backwards"
         raise LogFormatError(
             f"{what} ({_fmt(stamps[i])} s after {_fmt(stamps[i - 1])} s on the "
-            f"{'row' if 'row' in table.location(i) else 'sample'} before)",
+            f"{_row_word(table)} before)",
             path=path, **table.location(i, name),
         )
     t_s = _median(dt)
@@ -1729,7 +1804,8 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
     if gaps.size and not split:
         i = int(gaps[0]) + 1
         raise LogFormatError(
-            f"gap of {_fmt(dt[i - 1])} s ({dt[i - 1] / t_s:.3g} sample times) before this row; "
+            f"gap of {_fmt(dt[i - 1])} s ({dt[i - 1] / t_s:.3g} sample times) before this "
+            f"{_row_word(table)}; "
             f"sample time {_fmt(t_s)} s, tolerance {tol:.0%}",
             path=path, **table.location(i, name),
             hint="split the log at gaps (--split-at-gaps / split_at_gaps=True)"
@@ -1752,6 +1828,10 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
     else:
         out = _readonly(stamps)
     return TimeBase(out, name, stats, segments)
+
+
+def _row_word(table: Table) -> str:
+    return "sample" if table.source.format in ("mdf", "hdf5") else "row"
 
 
 def _fmt(x: float) -> str:
