@@ -380,7 +380,9 @@ def _grid(chans: list[Channel], plans: list[ChannelPlan], rate: float, tol: floa
         names = ", ".join(repr(ch.name) for ch in chans)
         raise ResampleError(f"the channels {names} do not overlap in time (latest start {start:g} s, "
                             f"earliest end {end:g} s)")
-    n = int(math.floor((end - t0) * rate + tol)) + 1
+    # a grid time may pass a channel's last stamp by the jitter tolerance of the finer of the two steps
+    n = min(int(math.floor((float(ch.time[-1]) + tol * min(ch.sample_time, step) - t0) * rate)) + 1
+            for ch in chans)
     return t0, n
 
 

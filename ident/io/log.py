@@ -100,7 +100,7 @@ _PREVIEW_BYTES = 1 << 16
 _SNIFF_ROWS = 50
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\))\s*$")
 _DECIMAL_COMMA_RE = re.compile(r"^\s*[-+]?\d*,\d+(?:[eE][-+]?\d+)?\s*$")
-_INSTALL_PARQUET = "pip install pyarrow (from a rigfit checkout: pip install '.[parquet]')"
+_INSTALL_PARQUET = "pip install pyarrow (a dependency of rigfit: reinstalling it with pip installs it)"
 #: Bytes per pyarrow parse block (the blocks are parsed in parallel threads).
 _ARROW_BLOCK = 1 << 20
 #: Parse clean UTF-8 CSV logs with ``pyarrow.csv`` when pyarrow is installed (no pandas
