@@ -6,8 +6,8 @@ A selector is one of
   case-insensitively; in a measurement file (ASAM MDF, HDF5) also the qualified
   ``group/name``, which is needed when the bare name occurs in several groups;
 * a **pattern** holding ``*``, ``?`` or ``[...]``: a shell-style glob
-  (:mod:`fnmatch`), case-insensitive, matched against the bare and the qualified
-  names; where several columns may be given (``--input`` of ``fit``, pipeline
+  (:mod:`fnmatch`), case-insensitive, matched against the bare names (against
+  ``group/name`` when it holds a ``/``); where several columns may be given (``--input`` of ``fit``, pipeline
   ``inputs``) it takes every match in file order, where one column is expected
   (``--time``, the columns of ``check``) a pattern matching several is an error
   listing them;
@@ -32,6 +32,8 @@ __all__ = ["Entry", "is_pattern", "resolve", "resolve_all"]
 _GLOB_CHARS = frozenset("*?[")
 _POSITION_RE = re.compile(r"^#\s*(\d+)$")
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[[^\]]*\]|\([^)]*\))\s*$")
+#: A unit after a selector: ``[unit]`` after a space (``name[12]`` is a glob class), or ``(unit)``.
+_SELECTOR_UNIT_RE = re.compile(r"^(?P<name>.*?)(?:\s+\[[^\]]*\]|\s*\([^)]*\))\s*$")
 #: Columns listed in full in a "no such column" message before it says "... and N more".
 _LISTED = 40
 
@@ -51,8 +53,17 @@ class Entry:
 
 
 def is_pattern(selector: str) -> bool:
-    """Tell whether ``selector`` is a shell-style pattern (holds ``*``, ``?`` or ``[``)."""
-    return bool(_GLOB_CHARS & set(selector))
+    """Tell whether ``selector`` is a shell-style pattern (holds ``*``, ``?`` or ``[``).
+
+    A unit written after the name (``"speed [rad/s]"``) does not make it a pattern.
+    """
+    return bool(_GLOB_CHARS & set(_without_unit(selector)))
+
+
+def _without_unit(selector: str) -> str:
+    text = selector.strip()
+    m = _SELECTOR_UNIT_RE.match(text)
+    return m.group("name").strip() if m and m.group("name").strip() else text
 
 
 def resolve(
@@ -101,7 +112,7 @@ def resolve(
                                  path=path, hint=f"'rigfit inspect {_base(path)}' lists them with their numbers")
         return [k - 1]
     if is_pattern(text):
-        return _glob(text, entries, path=path, single=single, exclude=set(exclude), word=word)
+        return _glob(_without_unit(text), entries, path=path, single=single, exclude=set(exclude), word=word)
     return [_by_name(text, entries, path=path, word=word)]
 
 
@@ -172,10 +183,10 @@ def _by_name(text: str, entries: Sequence[Entry], *, path: str, word: str) -> in
 def _glob(text: str, entries: Sequence[Entry], *, path: str, single: bool, exclude: set[int],
           word: str) -> list[int]:
     pattern = text.lower()
+    # a pattern with a '/' is matched against group/name, any other against the bare names
     found = [
         k for k, e in enumerate(entries)
-        if k not in exclude and (fnmatch.fnmatchcase(e.name.lower(), pattern)
-                                 or fnmatch.fnmatchcase(e.qualified.lower(), pattern))
+        if k not in exclude and fnmatch.fnmatchcase((e.qualified if "/" in pattern else e.name).lower(), pattern)
     ]
     if not found:
         plain = re.sub(r"[*?\[\]]", "", pattern)

@@ -115,7 +115,7 @@ def mdf_catalogue(path: str | os.PathLike) -> Catalogue:
             for j, ch in enumerate(group.channels):
                 if j == master:
                     continue
-                entries.append(Entry(str(ch.name), _unit(ch), labels[g]))
+                entries.append(Entry(str(ch.name), _unit(mdf, g, j, ch), labels[g]))
                 blocks.append(g)
                 keys.append((g, j))
             times.append(_time_source(mdf, g, master, labels[g]))
@@ -135,9 +135,13 @@ def _labels(mdf) -> list[str]:
     return out
 
 
-def _unit(ch) -> str:
-    unit = getattr(ch, "unit", "") or ""
-    return str(unit).strip()
+def _unit(mdf, g: int, j: int, ch) -> str:
+    """The channel's unit (MDF 3 keeps it in the conversion block; asammdf finds it either way)."""
+    try:
+        unit = mdf.get_channel_unit(group=g, index=j)
+    except Exception:  # a damaged or unusual conversion block: fall back to the channel's own field
+        unit = getattr(ch, "unit", "")
+    return str(unit or "").strip()
 
 
 def _time_source(mdf, g: int, master: int | None, label: str) -> TimeSource:
@@ -148,9 +152,9 @@ def _time_source(mdf, g: int, master: int | None, label: str) -> TimeSource:
     ch = group.channels[master]
     sync = getattr(ch, "sync_type", 1)
     if sync in _SYNC_NAMES:
-        return TimeSource(label, "none", str(ch.name), _unit(ch), None, n,
+        return TimeSource(label, "none", str(ch.name), _unit(mdf, g, master, ch), None, n,
                           note=f"its master channel {str(ch.name)!r} is {_SYNC_NAMES[sync]}, not time")
-    return TimeSource(label, "master", str(ch.name), _unit(ch) or "s", None, n)
+    return TimeSource(label, "master", str(ch.name), _unit(mdf, g, master, ch) or "s", None, n)
 
 
 def read_mdf(path: str | os.PathLike, catalogue: Catalogue, indices: Sequence[int],
