@@ -136,7 +136,7 @@ def _labels(mdf) -> list[str]:
 
 
 def _unit(mdf, g: int, j: int, ch) -> str:
-    """The channel's unit (MDF 3 keeps it in the conversion block; asammdf finds it either way)."""
+    """Return the channel's unit (MDF 3 keeps it in the conversion block; asammdf finds it)."""
     try:
         unit = mdf.get_channel_unit(group=g, index=j)
     except Exception:  # a damaged or unusual conversion block: fall back to the channel's own field
