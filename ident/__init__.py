@@ -20,6 +20,8 @@ from .errors import (
     OptionError,
     PipelineError,
     PoorExcitationWarning,
+    ResampleError,
+    ResamplingWarning,
     UnstableModelWarning,
 )
 
@@ -50,6 +52,8 @@ __all__ = [
     "OptionError",
     "PipelineError",
     "PoorExcitationWarning",
+    "ResampleError",
+    "ResamplingWarning",
     "UnstableModelWarning",
     "OperatingPoint",
     "StateSpaceModel",

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 __all__ = [
     "METHODS", "WEIGHTINGS", "NOISE_MODELS", "REFINEMENTS", "POLYNOMIAL_STRUCTURES", "DISCRETIZE_METHODS",
-    "REALIZATIONS", "FLAGS",
+    "REALIZATIONS", "FLAGS", "UPSAMPLE_METHODS",
 ]
 
 #: Model families of ``identify`` / ``rigfit fit --method``.
@@ -37,6 +37,10 @@ DISCRETIZE_METHODS: tuple[str, ...] = ("zoh", "foh", "tustin", "matched")
 
 #: State coordinates offered by ``ident.lti.realization.realize`` (``rigfit convert --realization``).
 REALIZATIONS: tuple[str, ...] = ("controllable", "observable", "modal", "balanced")
+
+#: Ways to bring a slower channel up to the common rate (``rigfit fit --upsample``,
+#: ``[log] upsample``): zero-order hold or linear interpolation between its samples.
+UPSAMPLE_METHODS: tuple[str, ...] = ("zoh", "linear")
 
 #: Every plausibility flag a mode can carry, in the order they are reported.
 FLAGS: tuple[str, ...] = (

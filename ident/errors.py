@@ -14,6 +14,7 @@ __all__ = [
     "IdentError",
     "OptionError",
     "LogFormatError",
+    "ResampleError",
     "ModelFileError",
     "ModelError",
     "PipelineError",
@@ -22,6 +23,7 @@ __all__ = [
     "PoorExcitationWarning",
     "IllConditionedWarning",
     "UnstableModelWarning",
+    "ResamplingWarning",
 ]
 
 
@@ -75,6 +77,11 @@ class LogFormatError(IdentError, ValueError):
         Column name as written in the header.
     hint : str, optional
         What the user can do about it.
+    channel : str, optional
+        Channel of a measurement file (ASAM MDF, HDF5), as the log lists it
+        (``group/name`` when the bare name is not unique); said instead of a column.
+    sample : int, optional
+        1-based sample (record) number within that channel, for files without lines.
     """
 
     def __init__(
@@ -85,11 +92,15 @@ class LogFormatError(IdentError, ValueError):
         row: int | None = None,
         column: str | None = None,
         hint: str | None = None,
+        channel: str | None = None,
+        sample: int | None = None,
     ) -> None:
         self.reason = reason
         self.path = None if path is None else os.fspath(path)
         self.row = row
         self.column = column
+        self.channel = channel
+        self.sample = sample
         super().__init__(self._compose(), hint=hint)
 
     def _compose(self) -> str:
@@ -100,7 +111,31 @@ class LogFormatError(IdentError, ValueError):
             where.append(f"row {self.row}")
         if self.column is not None:
             where.append(f"column {self.column!r}")
+        if self.channel is not None:
+            where.append(f"channel {self.channel!r}")
+        if self.sample is not None:
+            where.append(f"sample {self.sample}")
         return ", ".join(where) + ": " + self.reason if where else self.reason
+
+
+class ResampleError(IdentError, ValueError):
+    """Channels cannot be brought to one sample rate as asked.
+
+    Parameters
+    ----------
+    reason : str
+        What is wrong, in one line.
+    channel : str, optional
+        The channel concerned.
+    hint : str, optional
+        What the user can do about it.
+    """
+
+    def __init__(self, reason: str, *, channel: str | None = None, hint: str | None = None) -> None:
+        self.reason = reason
+        self.channel = channel
+        message = f"channel {channel!r}: {reason}" if channel is not None else reason
+        super().__init__(message, hint=hint)
 
 
 class ModelFileError(IdentError, ValueError):
@@ -175,3 +210,12 @@ class IllConditionedWarning(IdentWarning):
 
 class UnstableModelWarning(IdentWarning):
     """An estimated model has a pole outside the unit circle."""
+
+
+class ResamplingWarning(IdentWarning):
+    """A channel was brought to a higher rate (zero-order hold or linear interpolation).
+
+    Samples made up between the recorded ones carry no information above the
+    channel's own Nyquist frequency, and the method leaves its mark on the
+    identified dynamics (a hold adds delay, interpolation looks ahead).
+    """

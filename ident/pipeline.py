@@ -48,6 +48,7 @@ from typing import Any
 import numpy as np
 
 from ._json import json_ready
+from ._validate import did_you_mean
 from ._version import __version__
 from .errors import IdentError, IdentWarning, PipelineError
 from .io.pipelinefile import PipelineSpec, load_pipeline
@@ -226,13 +227,23 @@ def _read_logs(spec: PipelineSpec) -> list[Any]:
     logs = []
     for path in ls.files:
         logs.append(
-            read_log(
-                path, list(ls.inputs), list(ls.outputs), time=ls.time, sample_rate=ls.sample_rate_hz,
-                drop_bad_rows=ls.drop_bad_rows, split_at_gaps=ls.split_at_gaps,
-                jitter_tolerance=ls.jitter_tolerance,
-            )
+            read_log(path, list(ls.inputs), list(ls.outputs), **ls.read_log_kwargs())
         )
     first = logs[0]
+    for log in logs[1:]:
+        if [n.lower() for n in (*log.input_names, *log.output_names)] != \
+                [n.lower() for n in (*first.input_names, *first.output_names)]:
+            raise PipelineError(
+                f"the columns chosen in {log.source.file_name} ({', '.join(log.input_names)} -> "
+                f"{', '.join(log.output_names)}) differ from those in {first.source.file_name} "
+                f"({', '.join(first.input_names)} -> {', '.join(first.output_names)})",
+                path=spec.path, key_path="log.inputs",
+            )
+    known = {n.lower() for n in (*first.input_names, *first.output_names)}
+    for key in ls.units:
+        if key not in known:
+            raise PipelineError("names no input or output column", path=spec.path, key_path=f"log.units.{key}",
+                                hint=did_you_mean(key, (*first.input_names, *first.output_names)))
     for log in logs[1:]:
         if abs(log.sample_time - first.sample_time) > 1e-3 * first.sample_time:
             raise PipelineError(
@@ -524,7 +535,9 @@ def _data_summary(state: dict[str, Any]) -> dict[str, Any]:
                 "sample_time": lg.sample_time, "duration_s": lg.duration_s,
                 "segments": [list(s) for s in lg.segments], "dropped_rows": lg.dropped_rows,
                 "jitter_std_s": lg.timing.jitter_std_s, "jitter_max_s": lg.timing.jitter_max_s,
-                "time_basis": lg.timing.basis,
+                "time_basis": lg.timing.basis, "format": lg.source.format,
+                "resampling": None if lg.resampling is None else lg.resampling.to_dict(),
+                "resampling_text": None if lg.resampling is None else lg.resampling.describe(),
             }
             for lg in logs
         ],

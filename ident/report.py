@@ -168,8 +168,10 @@ def _data(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
              f"validation {', '.join(f'{a}–{b}' for a, b in d['validation_ranges'])} (sample indices, "
              "files laid end to end)."
              + (f" Decimated by {d['decimation']} to T = {_num(d['sample_time'])} s." if d["decimation"] > 1 else ""))
+    resampled = [_p(f"{lg['file_name']}: {lg['resampling_text']}.") for lg in d["logs"]
+                 if lg.get("resampling_text")]
     return _section(
-        "data", "Data", logs, sig, _p(band_text), exc,
+        "data", "Data", logs, *resampled, sig, _p(band_text), exc,
         _p("Operating point (subtracted before fitting): " + "; ".join(op_in + op_out) + "."),
         _p(split), _figures(s, figures, "data"),
     )

@@ -39,8 +39,9 @@ def test_text_summary(run_cli, axis_log):
     assert "motor_torque_cmd  N m" in out and "motor_speed       rad/s" in out
     # per-column statistics: reference pandas describe on the same data (ddof=0 std)
     u = frame["motor_torque_cmd [N m]"]
-    line = next(ln for ln in out.splitlines() if ln.startswith("motor_torque_cmd  N m"))
-    values = [float(v) for v in line.split()[3:]]
+    # the column's position (#2, as --input '#2' chooses it) comes first
+    line = next(ln for ln in out.splitlines() if ln.startswith(" 2  motor_torque_cmd  N m"))
+    values = [float(v) for v in line.split()[4:]]
     assert_allclose(values, [u.min(), u.mean(), u.max(), u.std(ddof=0)], rtol=1e-5)  # 6 digits
     assert "excitation" in out and ">= 50" in out
 

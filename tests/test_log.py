@@ -482,7 +482,8 @@ def test_parquet_without_pyarrow_says_how_to_install(tmp_path, monkeypatch):
     with pytest.raises(LogFormatError) as info:
         read_log(path, "u", "y")
     assert "needs the pyarrow package" in str(info.value)
-    assert info.value.hint == "install it with: pip install pyarrow (from a rigfit checkout: pip install '.[parquet]')"
+    assert info.value.hint == ("install it with: pip install pyarrow (a dependency of rigfit: reinstalling "
+                               "it with pip installs it)")
 
 
 # --------------------------------------------------------------------------- round trip

@@ -489,6 +489,7 @@ def mode_table(
         raise OptionError(f"thresholds must be a ModeThresholds; got {type(th).__name__}")
     log_duration_s = None if log_duration_s is None else positive_float(log_duration_s, "log_duration_s")
     T = float(model.sample_time)
+    model = model.without_noise_model() if model.noise_states else model  # noise poles are not plant modes
     poles = model.poles()
     n = poles.size
     cov = None

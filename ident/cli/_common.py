@@ -12,6 +12,7 @@ from typing import Any
 
 import click
 
+from ..choices import UPSAMPLE_METHODS
 from ..errors import IdentError
 
 EXIT_OK = 0
@@ -132,16 +133,21 @@ def reraise_as_data_error(exc: IdentError) -> DataError:
 #: Keyword arguments of :func:`ident.io.log.read_log` set by :func:`log_options`,
 #: by the parameter name click passes to the command.
 LOG_OPTION_NAMES = ("time_column", "sample_rate", "drop_bad_rows", "split_at_gaps",
-                    "jitter_tolerance")
+                    "jitter_tolerance", "resample_hz", "upsample")
+
+#: Help text shared by the commands' --input/--output options: how columns are chosen.
+SELECTOR_HELP = ("a name (group/name in MDF and HDF5 files), a shell-style pattern such as "
+                 "'u*' (case-insensitive) or a position such as '#2' (as 'rigfit inspect' numbers them)")
 
 
 def log_options(command: Any) -> Any:
     """Add the options every log-reading command shares (one spelling everywhere).
 
     ``--time NAME``, ``--sample-rate HZ``, ``--drop-bad-rows``,
-    ``--split-at-gaps`` and ``--jitter-tolerance FRACTION``; the command
-    receives them as ``time_column``, ``sample_rate``, ``drop_bad_rows``,
-    ``split_at_gaps`` and ``jitter_tolerance`` (see :func:`read_log_kwargs`).
+    ``--split-at-gaps``, ``--jitter-tolerance FRACTION``, ``--resample HZ`` and
+    ``--upsample zoh|linear``; the command receives them as ``time_column``,
+    ``sample_rate``, ``drop_bad_rows``, ``split_at_gaps``, ``jitter_tolerance``,
+    ``resample_hz`` and ``upsample`` (see :func:`read_log_kwargs`).
     """
     decorators = [
         click.option("--time", "time_column", default=None, metavar="NAME",
@@ -156,6 +162,14 @@ def log_options(command: Any) -> Any:
                           "instead of refusing it."),
         click.option("--jitter-tolerance", type=float, default=0.1, show_default=True,
                      metavar="FRACTION", help="Largest accepted |dt - T| / T."),
+        click.option("--resample", "resample_hz", type=float, default=None, metavar="HZ",
+                     help="Bring every chosen channel to this rate: anti-alias filtered decimation "
+                          "going down, --upsample going up. Without it, channels at different "
+                          "rates are an error."),
+        click.option("--upsample", type=click.Choice(UPSAMPLE_METHODS), default=None,
+                     help="How to bring a slower channel up to the common rate (or onto its grid): "
+                          "zero-order hold or linear interpolation (a warning says what it does to "
+                          "the dynamics)."),
     ]
     for deco in reversed(decorators):
         command = deco(command)
@@ -170,4 +184,6 @@ def read_log_kwargs(params: dict[str, Any]) -> dict[str, Any]:
         "drop_bad_rows": params["drop_bad_rows"],
         "split_at_gaps": params["split_at_gaps"],
         "jitter_tolerance": params["jitter_tolerance"],
+        "resample_hz": params["resample_hz"],
+        "upsample": params["upsample"],
     }

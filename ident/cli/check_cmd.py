@@ -15,7 +15,8 @@ from ._common import GateFailed, echo_json, log_options, read_log_kwargs
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("--input", "input_columns", multiple=True, metavar="NAME",
               help="Log column for each model input, in the model's input order "
-                   "(repeatable; default: the model's input names).")
+                   "(repeatable; default: the model's input names); a name, group/name, a "
+                   "pattern matching one column, or a position such as '#2'.")
 @click.option("--output", "output_columns", multiple=True, metavar="NAME",
               help="Log column for each model output, in the model's output order "
                    "(repeatable; default: the model's output names).")
@@ -42,6 +43,8 @@ def check(
     drop_bad_rows: bool,
     split_at_gaps: bool,
     jitter_tolerance: float,
+    resample_hz: float | None,
+    upsample: str | None,
     min_fit: float | None,
     require_white: bool,
     prediction_steps: int,
@@ -154,15 +157,18 @@ def _read(path: str, inputs: tuple, outputs: tuple, log_kwargs: dict[str, Any]) 
     from ..io.log import read_log
 
     try:
-        return read_log(path, inputs, outputs, **log_kwargs)
+        return read_log(path, inputs, outputs, **log_kwargs, expand_patterns=False)
     except LogFormatError as exc:
-        if not exc.reason.startswith("no column named"):
+        if not exc.reason.startswith(("no column named", "no channel named")):
             raise
         columns = _log_columns(path)
         if columns is None:
             raise
         lower = {c.lower() for c in columns}
-        missing = [n for n in (*inputs, *outputs) if n.lower() not in lower]
+        from ..io.columns import is_pattern
+
+        missing = [n for n in (*inputs, *outputs)
+                   if n.lower() not in lower and not is_pattern(n) and not n.strip().startswith("#")]
         if not missing:
             raise
         raise LogFormatError(
@@ -192,7 +198,7 @@ def _check_sample_time(log_T: float, model_T: float, log_path: str, model_path: 
         raise IdentError(
             f"{log_path}: sample time {log_T:g} s ({1 / log_T:g} Hz) differs from the model's "
             f"{model_T:g} s ({1 / model_T:g} Hz) in {model_path}",
-            hint="validate on a log recorded at the model's rate, or refit at this rate",
+            hint=f"resample the log to the model's rate (--resample {1 / model_T:g}), or refit at this rate",
         )
 
 

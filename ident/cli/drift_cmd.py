@@ -35,6 +35,8 @@ def drift(
     drop_bad_rows: bool,
     split_at_gaps: bool,
     jitter_tolerance: float,
+    resample_hz: float | None,
+    upsample: str | None,
     band_hz: tuple[float, float] | None,
     frequency_shift_percent: float,
     damping_shift: float,
@@ -68,7 +70,8 @@ def drift(
         from ..estimate.excitation import excited_band
         from ..io.log import read_log
 
-        log = read_log(log_path, list(new.inputs), list(new.outputs), **log_kwargs)
+        log = read_log(log_path, list(new.inputs), list(new.outputs), **log_kwargs,
+                       expand_patterns=False)
         # with --split-at-gaps both models are scored on the longest segment
         start, stop = max(log.segments, key=lambda seg: seg[1] - seg[0])
         if len(log.segments) > 1:

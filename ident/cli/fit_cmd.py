@@ -47,9 +47,10 @@ def _parse_order(value: str) -> int | None:
 @click.command()
 @click.argument("log_path", metavar="LOG", type=click.Path(dir_okay=False))
 @click.option("--input", "inputs", multiple=True, required=True, metavar="NAME",
-              help="Input column (repeatable; the order is kept).")
+              help="Input column (repeatable; the order is kept): a name, group/name, a pattern "
+                   "such as 'u*' (every match, in file order) or a position such as '#2'.")
 @click.option("--output", "outputs", multiple=True, required=True, metavar="NAME",
-              help="Output column (repeatable; the order is kept).")
+              help="Output column (repeatable; the order is kept), chosen as --input.")
 @log_options
 @click.option("--method", type=click.Choice(METHODS), default="auto", show_default=True,
               help="Model family. 'auto' fits ARX and subspace candidates and refines the best; "
@@ -92,6 +93,8 @@ def fit(
     drop_bad_rows: bool,
     split_at_gaps: bool,
     jitter_tolerance: float,
+    resample_hz: float | None,
+    upsample: str | None,
     method: str,
     order_text: str,
     max_order: int,
@@ -199,6 +202,8 @@ def fit(
         )
     for text in messages:
         click.echo(f"warning: {text}", err=True)
+    if log.resampling is not None:
+        click.echo(f"note: {log.resampling.describe()}", err=True)
     if as_json:
         echo_json(_summary(log, result, table, messages, written))
     else:
@@ -230,6 +235,8 @@ def _provenance(log, result) -> dict[str, Any]:
             "sample_time": log.sample_time,
             "segments": [list(s) for s in log.segments],
             "dropped_rows": log.dropped_rows,
+            "format": log.source.format,
+            "resampling": None if log.resampling is None else log.resampling.to_dict(),
         },
         "estimation": {
             "command": "fit",
@@ -270,6 +277,8 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
             "sample_time": log.sample_time,
             "segments": [list(s) for s in log.segments],
             "dropped_rows": log.dropped_rows,
+            "format": log.source.format,
+            "resampling": None if log.resampling is None else log.resampling.to_dict(),
         },
         "inputs": list(prep.input_names),
         "outputs": list(prep.output_names),

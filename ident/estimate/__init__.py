@@ -2,7 +2,8 @@
 
 What lives here: experiment records (:mod:`~ident.estimate.data`), offsets,
 detrending, decimation and the estimation/validation split
-(:mod:`~ident.estimate.preprocess`), excitation measures
+(:mod:`~ident.estimate.preprocess`), bringing channels recorded at several
+rates to one grid (:mod:`~ident.estimate.resample`), excitation measures
 (:mod:`~ident.estimate.excitation`), the lagged least-squares regression
 that ARX and delay estimation share (:mod:`~ident.estimate.regression`), ARX
 (:mod:`~ident.estimate.arx`), input-delay estimation

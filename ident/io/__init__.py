@@ -1,4 +1,4 @@
-"""File input and output: rig logs, model files, pipeline files.
+"""File input and output: rig logs (CSV, Parquet, ASAM MDF, HDF5), model files, pipeline files.
 
-This layer may use pandas; the numeric core never imports it.
+This layer may use pandas, asammdf and h5py; the numeric core never imports them.
 """

@@ -1,4 +1,4 @@
-"""Reading rig logs (CSV in the usual logger dialects, or Parquet) into a :class:`Log`.
+"""Reading rig logs (CSV in the usual logger dialects, Parquet, ASAM MDF, HDF5) into a :class:`Log`.
 
 A rig log is a table with one header line naming the columns, optionally with a
 unit in brackets or parentheses (``motor_torque_cmd [N m]``, ``temp (degC)``),
@@ -24,6 +24,18 @@ inside the data, another encoding) goes to the pandas C engine path, which gives
 the same values and the precise error; object-dtype text is read only to locate
 a bad cell after that parse has failed. Either way the ``u``/``y`` matrices are
 the one extra copy of the parsed columns.
+
+Measurement files: ASAM MDF 3/4 (:mod:`ident.io.mdf`, through asammdf) and
+HDF5 (:mod:`ident.io.hdf5`, through h5py) hold channels in groups, each group
+with its own time base. Each group becomes a :class:`Table` with its time
+column, so the checks and messages above are shared (a message names the
+channel and the 1-based sample instead of a column and a file line). Channels
+chosen from several groups are brought to one grid by
+:func:`ident.estimate.resample.resample_channels`: with ``resample_hz`` (anti-alias
+decimation going down, an explicit ``upsample`` method going up), or, without
+it, only when they share one rate and their samples fall on one grid; mixed
+rates without ``resample_hz`` are an error listing the rates. Columns are chosen
+by name, shell-style pattern or position (:mod:`ident.io.columns`).
 """
 
 from __future__ import annotations
@@ -40,8 +52,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validate import fraction, optional_positive_float
-from ..errors import LogFormatError, OptionError
+from .._validate import fraction, one_of, optional_positive_float
+from ..choices import UPSAMPLE_METHODS
+from ..errors import LogFormatError, OptionError, ResampleError
+from .channels import FORMAT_NAMES, BlockData, Catalogue, TimeSource
+from .columns import Entry, resolve, resolve_all
 
 __all__ = [
     "TIME_UNITS",
@@ -52,8 +67,14 @@ __all__ = [
     "Table",
     "TimeBase",
     "Log",
+    "ResampleRecord",
+    "Block",
+    "Recording",
     "read_log",
     "read_table",
+    "read_recording",
+    "log_from_recording",
+    "resample_log",
     "read_column_names",
     "time_base",
     "log_from_table",
@@ -72,14 +93,14 @@ TIME_UNITS: dict[str, float] = {
 #: Bare column names taken as the time column when none is named (case-insensitive).
 TIME_COLUMN_NAMES: tuple[str, ...] = ("time", "t")
 #: Timing bases reported in :class:`TimingStats`.
-TIMING_BASES: tuple[str, ...] = ("time column", "sample rate")
+TIMING_BASES: tuple[str, ...] = ("time column", "sample rate", "common grid")
 
 _PARQUET_MAGIC = b"PAR1"
 _PREVIEW_BYTES = 1 << 16
 _SNIFF_ROWS = 50
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\))\s*$")
 _DECIMAL_COMMA_RE = re.compile(r"^\s*[-+]?\d*,\d+(?:[eE][-+]?\d+)?\s*$")
-_INSTALL_PARQUET = "pip install pyarrow (from a rigfit checkout: pip install '.[parquet]')"
+_INSTALL_PARQUET = "pip install pyarrow (a dependency of rigfit: reinstalling it with pip installs it)"
 #: Bytes per pyarrow parse block (the blocks are parsed in parallel threads).
 _ARROW_BLOCK = 1 << 20
 #: Parse clean UTF-8 CSV logs with ``pyarrow.csv`` when pyarrow is installed (no pandas
@@ -106,7 +127,9 @@ class TimingStats:
     jitter_relative : float
         ``jitter_max_s / T``.
     basis : str
-        ``"time column"`` or ``"sample rate"``.
+        ``"time column"``, ``"sample rate"``, or ``"common grid"`` for channels
+        brought to one grid from several time bases (the jitter figures are then
+        the largest of those time bases').
     """
 
     sample_time: float
@@ -130,7 +153,11 @@ class LogSource:
         Hex SHA-256 of the file bytes.
     first_row, last_row : int
         1-based file line numbers of the first and last data row used (for
-        Parquet: 1-based row numbers in the table).
+        Parquet: 1-based row numbers in the table; for MDF and HDF5: 1-based
+        sample numbers of the channel group, or of the common grid when the
+        channels came from several groups).
+    format : str
+        ``"csv"``, ``"parquet"``, ``"mdf"`` or ``"hdf5"``.
     """
 
     path: str
@@ -138,6 +165,17 @@ class LogSource:
     sha256: str
     first_row: int
     last_row: int
+    format: str = "csv"
+
+    @property
+    def format_name(self) -> str:
+        """Readable format name (``"ASAM MDF"``)."""
+        return FORMAT_NAMES.get(self.format, self.format)
+
+    @property
+    def has_lines(self) -> bool:
+        """True for a text log, whose rows are file lines."""
+        return self.format == "csv"
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -187,10 +225,19 @@ class Table:
         return tuple(c.name for c in self.columns)
 
     def line_of(self, index: int) -> int:
-        """1-based file line (or Parquet row) of data row ``index`` (0-based)."""
+        """1-based file line (Parquet row, MDF/HDF5 sample) of data row ``index`` (0-based)."""
         if self.line_numbers is not None:
             return int(self.line_numbers[index])
         return self.source.first_row + int(index)
+
+    def location(self, index: int, column: str | None = None) -> dict:
+        """Where data row ``index`` is, as :class:`~ident.errors.LogFormatError` keywords.
+
+        Row and column for CSV and Parquet; channel and sample for MDF and HDF5.
+        """
+        if self.source.format in ("mdf", "hdf5"):
+            return {"channel": column, "sample": self.line_of(index)}
+        return {"row": self.line_of(index), "column": column}
 
     def column(self, name: str) -> Column:
         """Return the column whose bare name matches ``name`` case-insensitively.
@@ -227,6 +274,44 @@ class TimeBase:
 
 
 @dataclass(frozen=True, slots=True, eq=False)
+class ResampleRecord:
+    """How the chosen channels of a log were brought to its sample time.
+
+    Attributes
+    ----------
+    rate_hz : float
+        The log's rate after resampling.
+    channels : tuple of ident.estimate.resample.ChannelPlan
+        Per channel (inputs, then outputs): native rate and what was done
+        (``kept``, ``decimated``, ``zoh``, ``linear``).
+    edge_samples : int
+        Samples dropped at each end (of each segment) after the anti-alias filter.
+    requested : bool
+        True when a rate was asked for (``resample_hz``); False when channels of
+        several groups at one rate were only put on one grid.
+    """
+
+    rate_hz: float
+    channels: tuple
+    edge_samples: int
+    requested: bool
+
+    def to_dict(self) -> dict:
+        """Plain data for summaries and model-file provenance."""
+        return {"rate_hz": self.rate_hz, "requested": self.requested, "edge_samples": self.edge_samples,
+                "channels": [p.to_dict() for p in self.channels]}
+
+    def describe(self) -> str:
+        """One line: the rate and what was done to each channel."""
+        parts = [f"{p.name} {p.native_rate_hz:.6g} Hz {p.action}" for p in self.channels]
+        head = (f"resampled to {self.rate_hz:g} Hz" if self.requested
+                else f"channels of several groups on one {self.rate_hz:g} Hz grid")
+        edge = (f"; {self.edge_samples} samples dropped at each end after the anti-alias filter"
+                if self.edge_samples else "")
+        return f"{head}: " + ", ".join(parts) + edge
+
+
+@dataclass(frozen=True, slots=True, eq=False)
 class Log:
     """A rig log ready for identification.
 
@@ -251,6 +336,12 @@ class Log:
         unless the log was split at gaps.
     dropped_rows : int
         Rows dropped by ``drop_bad_rows`` (0 otherwise).
+    input_rates_hz, output_rates_hz : tuple of float
+        Native sample rate of each channel in the file, in Hz (all ``1 /
+        sample_time`` unless the log was resampled).
+    resampling : ResampleRecord or None
+        What was done to bring the channels to ``sample_time``; ``None`` when
+        they were read at their own rate from one time base.
     """
 
     time: np.ndarray
@@ -265,6 +356,9 @@ class Log:
     source: LogSource
     segments: tuple[tuple[int, int], ...]
     dropped_rows: int = 0
+    input_rates_hz: tuple[float, ...] = ()
+    output_rates_hz: tuple[float, ...] = ()
+    resampling: ResampleRecord | None = None
 
     @property
     def n_samples(self) -> int:
@@ -300,29 +394,47 @@ def read_log(
     drop_bad_rows: bool = False,
     split_at_gaps: bool = False,
     jitter_tolerance: float = 0.1,
+    resample_hz: float | None = None,
+    upsample: str | None = None,
+    expand_patterns: bool = True,
 ) -> Log:
-    """Read the named input and output columns of a rig log.
+    """Read the chosen input and output columns (channels) of a rig log.
 
     Parameters
     ----------
     path : path-like
-        CSV (comma, semicolon, tab; see the module notes) or Parquet file.
+        CSV (comma, semicolon, tab; see the module notes), Parquet, ASAM MDF 3/4
+        or HDF5 file (told apart by their first bytes).
     inputs, outputs : str or sequence of str
-        Bare column names (units in the header are ignored for matching;
-        case-insensitive). At least one of each; no name in both.
+        Column selectors (:mod:`ident.io.columns`): bare names (units in the
+        header are ignored; case-insensitive), ``group/name`` in MDF and HDF5
+        files, shell-style patterns (``"u*"``, case-insensitive) or positions
+        (``"#2"``). At least one of each; no column in both.
     time : str, optional
-        Name of the time column. Default: a column named ``time`` or ``t`` when
-        ``sample_rate`` is not given.
+        Name of the time column (in HDF5: of the time dataset in each group).
+        Default: a column named ``time`` or ``t`` when ``sample_rate`` is not
+        given. Not for MDF, whose groups carry their master channel.
     sample_rate : float, optional
         Samples per second, for logs without a time column. Exclusive with ``time``.
     drop_bad_rows : bool, default False
-        Drop rows holding a non-numeric, empty, NaN or inf cell in a used column
-        (the count is in ``Log.dropped_rows``) instead of refusing the log.
+        Drop rows holding a non-numeric, empty, NaN or inf cell (an invalid
+        sample in MDF) in a used column (the count is in ``Log.dropped_rows``)
+        instead of refusing the log.
     split_at_gaps : bool, default False
         Split the log into ``segments`` at intervals longer than
         ``(1 + jitter_tolerance) * T`` instead of refusing it.
     jitter_tolerance : float, default 0.1
         Largest accepted ``|dt - T| / T``.
+    resample_hz : float, optional
+        Bring every chosen channel to this rate (anti-alias decimation going
+        down; ``upsample`` going up), see :mod:`ident.estimate.resample`.
+        Without it, channels at different rates are an error.
+    upsample : {"zoh", "linear"}, optional
+        How to make up samples for channels slower than ``resample_hz`` (or off
+        the common grid); without it such channels are an error.
+    expand_patterns : bool, default True
+        A pattern may stand for several columns; ``False`` expects one column per
+        selector (each names one model signal, as in ``rigfit check``).
 
     Returns
     -------
@@ -331,44 +443,70 @@ def read_log(
     Raises
     ------
     LogFormatError
-        Unreadable file, missing or duplicate column, bad cell, bad time stamps.
+        Unreadable file, missing, ambiguous or duplicate column, bad cell, bad
+        time stamps, channels at several rates without ``resample_hz``, or
+        channels that cannot be resampled as asked.
     OptionError
         Invalid arguments (for example a name both input and output).
+
+    Warns
+    -----
+    ResamplingWarning
+        A channel was brought up to the common rate (or interpolated onto it).
     """
-    in_names = _names_arg(inputs, "inputs")
-    out_names = _names_arg(outputs, "outputs")
-    if not in_names:
+    in_sel = _names_arg(inputs, "inputs")
+    out_sel = _names_arg(outputs, "outputs")
+    if not in_sel:
         raise OptionError("inputs must name at least one column; got none")
-    if not out_names:
+    if not out_sel:
         raise OptionError("outputs must name at least one column; got none")
     _check_time_args(time, sample_rate, jitter_tolerance)
+    _check_resample_args(resample_hz, upsample)
     path = os.fspath(path)
+    options = _ReadOptions(time, sample_rate, drop_bad_rows, split_at_gaps, jitter_tolerance,
+                           resample_hz, upsample, expand_patterns)
+    kind = _format_of(path)
+    if kind in ("mdf", "hdf5"):
+        return _channel_log(path, kind, in_sel, out_sel, options)
     header = _read_header(path)
-    # resolve every requested name against the header before parsing the data
-    wanted = [*in_names, *out_names]
+    entries = [Entry(n, u) for n, u in zip(header.names, header.units, strict=True)]
+    time_index = None
     if time is not None:
-        wanted.append(time)
+        time_index = resolve(time, entries, path=path)[0]
     elif sample_rate is None:
-        auto = _auto_time_index(header.names)
-        if auto is not None:
-            wanted.append(header.names[auto])
-    indices = sorted({_match_name(n, header.names, header.units, path) for n in wanted})
+        time_index = _auto_time_index(header.names)
+    skip = () if time_index is None else (time_index,)
+    single = not expand_patterns
+    in_idx = resolve_all(in_sel, entries, path=path, single=single, exclude=skip)
+    out_idx = resolve_all(out_sel, entries, path=path, single=single, exclude=skip)
+    indices = sorted({*in_idx, *out_idx, *skip})
     table = _read_columns(path, header, indices, drop_bad_rows=drop_bad_rows)
-    return log_from_table(
-        table, in_names, out_names, time=time, sample_rate=sample_rate,
+    log = log_from_table(
+        table, [header.names[k] for k in in_idx], [header.names[k] for k in out_idx],
+        time=None if time is None else header.names[time_index], sample_rate=sample_rate,
         split_at_gaps=split_at_gaps, jitter_tolerance=jitter_tolerance,
     )
+    if resample_hz is None:
+        return log
+    return _resampled_log(log, options)
 
 
 def read_column_names(path: str | os.PathLike) -> tuple[str, ...]:
-    """Return the bare column names of a log from its header alone (no data parsed).
+    """Return the bare column (channel) names of a log without parsing its data.
+
+    MDF and HDF5 channels are named ``group/name`` where the bare name is not unique.
 
     Raises
     ------
     LogFormatError
-        The header cannot be read.
+        The header (channel list) cannot be read.
     """
-    return tuple(_read_header(os.fspath(path)).names)
+    path = os.fspath(path)
+    kind = _format_of(path)
+    if kind in ("mdf", "hdf5"):
+        cat = _catalogue(path, kind, None, None)
+        return tuple(cat.display_name(k) for k in range(len(cat.entries)))
+    return tuple(_read_header(path).names)
 
 
 def read_table(path: str | os.PathLike, *, drop_bad_rows: bool = False) -> Table:
@@ -377,7 +515,8 @@ def read_table(path: str | os.PathLike, *, drop_bad_rows: bool = False) -> Table
     Parameters
     ----------
     path : path-like
-        CSV or Parquet file.
+        CSV or Parquet file, or an MDF or HDF5 file whose channels share one
+        time base (see :func:`read_recording` for the general case).
     drop_bad_rows : bool, default False
         Drop rows with a non-numeric, empty, NaN or inf cell instead of refusing.
 
@@ -388,9 +527,17 @@ def read_table(path: str | os.PathLike, *, drop_bad_rows: bool = False) -> Table
     Raises
     ------
     LogFormatError
-        As :func:`read_log`.
+        As :func:`read_log`; an MDF or HDF5 file with several time bases.
     """
     path = os.fspath(path)
+    if _format_of(path) in ("mdf", "hdf5"):
+        rec = read_recording(path, drop_bad_rows=drop_bad_rows)
+        if len(rec.blocks) != 1:
+            raise LogFormatError(
+                f"the channels come in {len(rec.blocks)} groups with their own time bases",
+                path=path, hint="read it with ident.io.log.read_recording",
+            )
+        return rec.blocks[0].table
     header = _read_header(path)
     return _read_columns(path, header, list(range(len(header.names))), drop_bad_rows=drop_bad_rows)
 
@@ -515,6 +662,427 @@ def log_from_table(
         source=table.source,
         segments=base.segments,
         dropped_rows=table.dropped_rows,
+        input_rates_hz=(1.0 / base.timing.sample_time,) * len(in_cols),
+        output_rates_hz=(1.0 / base.timing.sample_time,) * len(out_cols),
+    )
+
+
+# --------------------------------------------------------------------------- measurement files
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Block:
+    """Channels of a log that share one time base (an MDF channel group, an HDF5 group).
+
+    Attributes
+    ----------
+    label : str
+        The group's label (``""`` for a CSV or Parquet table).
+    table : Table
+        Its time column first (when it has one), then its channels.
+    time : str or None
+        Name of the table's time column; ``None`` for a sample rate or a CSV
+        log's automatic time column.
+    sample_rate : float or None
+        The block's sample rate when it has no time column (HDF5 attribute,
+        ``--sample-rate``).
+    note : str
+        Why the block has no time base, when it has none.
+    """
+
+    label: str
+    table: Table
+    time: str | None
+    sample_rate: float | None
+    note: str = ""
+
+    @property
+    def has_time_base(self) -> bool:
+        """True when the block carries a time column or a sample rate."""
+        return self.time is not None or self.sample_rate is not None or self.label == ""
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Recording:
+    """Everything numeric in a log, block by block (for ``rigfit inspect``).
+
+    Attributes
+    ----------
+    source : LogSource
+    blocks : tuple of Block
+        One for a CSV or Parquet table; one per channel group in MDF and HDF5.
+    version : str
+        Format version (MDF), ``""`` otherwise.
+    skipped : tuple of str
+        Channels that are not numeric (text, byte arrays) and were not read.
+    entries : tuple of ident.io.columns.Entry
+        Every selectable column in listing order (what ``#N`` counts).
+    names : tuple of str
+        The name each entry has in the tables (``group/name`` where the bare
+        name is not unique).
+    """
+
+    source: LogSource
+    blocks: tuple[Block, ...]
+    version: str = ""
+    skipped: tuple[str, ...] = ()
+    entries: tuple[Entry, ...] = ()
+    names: tuple[str, ...] = ()
+
+    def find(self, name: str) -> tuple[int, Column] | None:
+        """Return ``(block index, column)`` of the column named ``name`` (``None`` when not read)."""
+        for b, block in enumerate(self.blocks):
+            for c in block.table.columns:
+                if c.name == name and not (block.label and c.name == block.time):
+                    return b, c
+        return None
+
+
+def read_recording(
+    path: str | os.PathLike,
+    *,
+    time: str | None = None,
+    sample_rate: float | None = None,
+    drop_bad_rows: bool = False,
+) -> Recording:
+    """Read every numeric column (channel) of a log, grouped by time base.
+
+    Parameters
+    ----------
+    path : path-like
+        CSV, Parquet, MDF or HDF5 file.
+    time, sample_rate : optional
+        As in :func:`read_log` (they decide what an HDF5 file's time datasets are).
+    drop_bad_rows : bool, default False
+        As in :func:`read_log`.
+
+    Returns
+    -------
+    Recording
+
+    Raises
+    ------
+    LogFormatError
+        As :func:`read_log`.
+    """
+    _check_time_args(time, sample_rate, 0.1)
+    path = os.fspath(path)
+    kind = _format_of(path)
+    if kind not in ("mdf", "hdf5"):
+        header = _read_header(path)
+        table = _read_columns(path, header, list(range(len(header.names))), drop_bad_rows=drop_bad_rows)
+        entries = tuple(Entry(n, u) for n, u in zip(header.names, header.units, strict=True))
+        return Recording(table.source, (Block("", table, time, sample_rate),), entries=entries,
+                         names=tuple(header.names))
+    cat = _catalogue(path, kind, time, sample_rate)
+    wanted = list(range(len(cat.entries)))
+    names = {k: cat.display_name(k) for k in wanted}
+    skipped: list[str] = []
+    data = _read_blocks(path, cat, wanted, names, skipped)
+    sha = _sha256(path)
+    blocks = tuple(_block(path, sha, cat, d, names, drop_bad_rows) for d in data)
+    records = max((b.table.n_rows for b in blocks), default=0)
+    source = LogSource(path, os.path.basename(path), sha, 1, records, kind)
+    return Recording(source, blocks, cat.version, tuple(skipped), cat.entries,
+                     tuple(names[k] for k in wanted))
+
+
+def log_from_recording(rec: Recording, inputs: str | Sequence[str], outputs: str | Sequence[str],
+                       **options) -> Log:
+    """Build a :class:`Log` from a recording already read, as :func:`read_log` would.
+
+    A CSV or Parquet table is used as read; the chosen channels of an MDF or
+    HDF5 file are read again (only those), so bad samples are judged on them
+    alone, as :func:`read_log` does. ``options`` are :func:`read_log`'s keywords.
+    """
+    if rec.source.format in ("mdf", "hdf5"):
+        return read_log(rec.source.path, inputs, outputs, **options)
+    opt = _ReadOptions(options.get("time"), options.get("sample_rate"), options.get("drop_bad_rows", False),
+                       options.get("split_at_gaps", False), options.get("jitter_tolerance", 0.1),
+                       options.get("resample_hz"), options.get("upsample"),
+                       options.get("expand_patterns", True))
+    _check_time_args(opt.time, opt.sample_rate, opt.jitter_tolerance)
+    _check_resample_args(opt.resample_hz, opt.upsample)
+    path = rec.source.path
+    names = [e.name for e in rec.entries]
+    time_index = None
+    if opt.time is not None:
+        time_index = resolve(opt.time, rec.entries, path=path)[0]
+    elif opt.sample_rate is None:
+        time_index = _auto_time_index(names)
+    skip = () if time_index is None else (time_index,)
+    single = not opt.expand_patterns
+    in_idx = resolve_all(_names_arg(inputs, "inputs"), rec.entries, path=path, single=single, exclude=skip)
+    out_idx = resolve_all(_names_arg(outputs, "outputs"), rec.entries, path=path, single=single, exclude=skip)
+    log = log_from_table(
+        rec.blocks[0].table, [names[k] for k in in_idx], [names[k] for k in out_idx],
+        time=None if opt.time is None else names[time_index], sample_rate=opt.sample_rate,
+        split_at_gaps=opt.split_at_gaps, jitter_tolerance=opt.jitter_tolerance,
+    )
+    return log if opt.resample_hz is None else _resampled_log(log, opt)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _ReadOptions:
+    time: str | None
+    sample_rate: float | None
+    drop_bad_rows: bool
+    split_at_gaps: bool
+    jitter_tolerance: float
+    resample_hz: float | None
+    upsample: str | None
+    expand_patterns: bool
+
+
+def _check_resample_args(resample_hz: float | None, upsample: str | None) -> None:
+    optional_positive_float(resample_hz, "resample_hz")
+    if upsample is not None:
+        one_of(upsample, "upsample", UPSAMPLE_METHODS)
+
+
+def _format_of(path: str) -> str:
+    """``"csv"``, ``"parquet"``, ``"mdf"`` or ``"hdf5"``, from the first bytes of the file."""
+    from .hdf5 import is_hdf5
+    from .mdf import is_mdf
+
+    with open(path, "rb") as fh:
+        head = fh.read(_PREVIEW_BYTES)
+    if head.startswith(_PARQUET_MAGIC):
+        return "parquet"
+    if is_mdf(head):
+        return "mdf"
+    if is_hdf5(head):
+        return "hdf5"
+    return "csv"
+
+
+def _catalogue(path: str, kind: str, time: str | None, sample_rate: float | None) -> Catalogue:
+    if kind == "mdf":
+        if time is not None or sample_rate is not None:
+            raise LogFormatError(
+                f"every channel group of an ASAM MDF file has its own time (its master channel); "
+                f"{'a time column' if time is not None else 'a sample rate'} cannot be given",
+                path=path, hint="leave out --time/--sample-rate ([log] time, sample_rate_hz)",
+            )
+        from .mdf import mdf_catalogue
+
+        return mdf_catalogue(path)
+    from .hdf5 import hdf5_catalogue
+
+    return hdf5_catalogue(path, time=time, sample_rate=sample_rate)
+
+
+def _read_blocks(path: str, cat: Catalogue, indices: list[int], names: dict[int, str],
+                 skipped: list[str] | None = None) -> list[BlockData]:
+    if cat.format == "mdf":
+        from .mdf import read_mdf
+
+        return read_mdf(path, cat, indices, [names[k] for k in indices], skipped)
+    from .hdf5 import read_hdf5
+
+    return read_hdf5(path, cat, indices, [names[k] for k in indices])
+
+
+def _block(path: str, sha: str, cat: Catalogue, data: BlockData, names: dict[int, str],
+           drop_bad_rows: bool) -> Block:
+    """One block of channels as a :class:`Table`, with bad samples refused or dropped."""
+    src: TimeSource = cat.times[data.block]
+    keys = list(data.values)
+    arrays = [data.values[k] for k in keys]
+    labels = [names[k] for k in keys]
+    masks = [data.invalid.get(k) for k in keys]
+    if data.time is not None:
+        arrays.insert(0, data.time)
+        labels.insert(0, src.name)
+        masks.insert(0, None)
+    n = arrays[0].shape[0]
+    bad = np.zeros(n, dtype=bool)
+    for a, mask in zip(arrays, masks, strict=True):
+        bad |= ~np.isfinite(a)
+        if mask is not None:
+            bad |= mask
+    lines = None
+    dropped = int(bad.sum())
+    if dropped and not drop_bad_rows:
+        _raise_bad_sample(path, arrays, masks, labels, int(np.argmax(bad)), is_time=data.time is not None)
+    if dropped:
+        keep = ~bad
+        arrays = [a[keep] for a in arrays]
+        lines = _readonly(np.flatnonzero(keep) + 1)
+    if not arrays[0].size:
+        raise LogFormatError("no valid samples", path=path, channel=labels[-1])
+    first = 1 if lines is None else int(lines[0])
+    last = n if lines is None else int(lines[-1])
+    source = LogSource(path, os.path.basename(path), sha, first, last, cat.format)
+    units = [cat.entries[k].unit for k in keys]
+    if data.time is not None:
+        units.insert(0, src.unit)
+    columns = tuple(Column(name, unit, _readonly(a)) for name, unit, a in zip(labels, units, arrays, strict=True))
+    time = src.name if data.time is not None else None
+    return Block(src.label, Table(columns, source, dropped, lines), time, src.rate_hz, src.note)
+
+
+def _raise_bad_sample(path, arrays, masks, labels, i: int, *, is_time: bool) -> None:
+    for j, (a, mask) in enumerate(zip(arrays, masks, strict=True)):
+        if mask is not None and mask[i]:
+            reason = "invalid sample (the file marks it invalid: its invalidation bit is set)"
+        elif not np.isfinite(a[i]):
+            reason = ("time stamp is not finite" if is_time and j == 0
+                      else _bad_cell_reason(repr(float(a[i])), float(a[i])))
+        else:
+            continue
+        raise LogFormatError(
+            reason, path=path, channel=labels[j], sample=i + 1,
+            hint="fix the file, or drop such samples (--drop-bad-rows / drop_bad_rows=True)",
+        )
+
+
+def _require_time(block: Block, path: str) -> None:
+    if not block.has_time_base:
+        raise LogFormatError(
+            f"channel group {block.label!r} has no time base: {block.note}", path=path,
+            channel=block.table.columns[0].name,
+            hint="give the sample rate (--sample-rate HZ / [log] sample_rate_hz)",
+        )
+
+
+def _channel_log(path: str, kind: str, in_sel, out_sel, opt: _ReadOptions) -> Log:
+    """:func:`read_log` for MDF and HDF5 files."""
+    cat = _catalogue(path, kind, opt.time, opt.sample_rate)
+    single = not opt.expand_patterns
+    in_idx = resolve_all(in_sel, cat.entries, path=path, single=single, word="channel")
+    out_idx = resolve_all(out_sel, cat.entries, path=path, single=single, word="channel")
+    names = {k: cat.display_name(k) for k in (*in_idx, *out_idx)}
+    in_names = [names[k] for k in in_idx]
+    out_names = [names[k] for k in out_idx]
+    _check_role_names(in_names, out_names)
+    wanted = sorted(names)
+    sha = _sha256(path)
+    blocks = [_block(path, sha, cat, d, names, opt.drop_bad_rows) for d in _read_blocks(path, cat, wanted, names)]
+    if len(blocks) == 1:
+        b = blocks[0]
+        _require_time(b, path)
+        log = log_from_table(b.table, in_names, out_names, time=b.time, sample_rate=b.sample_rate,
+                             split_at_gaps=opt.split_at_gaps, jitter_tolerance=opt.jitter_tolerance)
+        return log if opt.resample_hz is None else _resampled_log(log, opt)
+    return _multi_block_log(path, sha, kind, blocks, in_names, out_names, opt)
+
+
+def _block_bases(path: str, blocks: list[Block], opt: _ReadOptions) -> list[TimeBase]:
+    bases = []
+    for b in blocks:
+        _require_time(b, path)
+        tb = time_base(b.table, time=b.time, sample_rate=b.sample_rate,
+                       split_at_gaps=opt.split_at_gaps, jitter_tolerance=opt.jitter_tolerance)
+        if len(tb.segments) > 1:
+            start = tb.segments[1][0]
+            raise LogFormatError(
+                f"a gap in channel group {b.label!r} before this sample; channels of several groups "
+                "are only combined over a stretch without gaps",
+                path=path, **b.table.location(start, b.table.columns[-1].name),
+                hint="choose channels of one group, or cut the file at the gap",
+            )
+        bases.append(tb)
+    return bases
+
+
+def _multi_block_log(path: str, sha: str, kind: str, blocks: list[Block], in_names: list[str],
+                     out_names: list[str], opt: _ReadOptions) -> Log:
+    """Channels from several time bases on one grid (see :mod:`ident.estimate.resample`)."""
+    from ..estimate.resample import Channel, resample_channels
+
+    bases = _block_bases(path, blocks, opt)
+    channels, units = [], []
+    for name in (*in_names, *out_names):
+        b, tb = next((b, tb) for b, tb in zip(blocks, bases, strict=True)
+                     if any(c.name == name for c in b.table.columns))
+        col = b.table.column(name)
+        channels.append(Channel(name, tb.time, col.values, tb.timing.sample_time))
+        units.append(col.unit)
+    rates = [ch.rate_hz for ch in channels]
+    rate = opt.resample_hz
+    if rate is None:
+        if max(rates) - min(rates) > 1e-3 * min(rates):
+            listed = ", ".join(f"{ch.name} {ch.rate_hz:.6g} Hz" for ch in channels)
+            raise LogFormatError(
+                f"the chosen channels come at several rates ({listed}); they are never interpolated "
+                "silently", path=path,
+                hint="bring them to one rate with --resample HZ ([log] resample_hz); going up also "
+                     "needs --upsample zoh|linear",
+            )
+        rate = rates[0]
+    try:
+        res = resample_channels(channels, rate, upsample=opt.upsample, tolerance=opt.jitter_tolerance)
+    except ResampleError as exc:
+        raise LogFormatError(exc.reason, path=path, channel=exc.channel, hint=exc.hint) from exc
+    m = len(in_names)
+    worst = max(bases, key=lambda tb: tb.timing.jitter_relative).timing
+    t_s = 1.0 / rate
+    timing = TimingStats(t_s, worst.jitter_std_s, worst.jitter_max_s, worst.jitter_max_s / t_s, "common grid")
+    n = res.time.shape[0]
+    return Log(
+        time=_readonly(res.time), u=_readonly(np.ascontiguousarray(res.values[:, :m])),
+        y=_readonly(np.ascontiguousarray(res.values[:, m:])),
+        input_names=tuple(in_names), output_names=tuple(out_names),
+        input_units=tuple(units[:m]), output_units=tuple(units[m:]), sample_time=t_s, timing=timing,
+        source=LogSource(path, os.path.basename(path), sha, 1, n, kind), segments=((0, n),),
+        dropped_rows=sum(b.table.dropped_rows for b in blocks),
+        input_rates_hz=tuple(rates[:m]), output_rates_hz=tuple(rates[m:]),
+        resampling=ResampleRecord(rate, res.channels, res.edge_samples, opt.resample_hz is not None),
+    )
+
+
+def resample_log(log: Log, resample_hz: float, *, upsample: str | None = None,
+                 jitter_tolerance: float = 0.1) -> Log:
+    """Bring a log read from one time base to ``resample_hz``, segment by segment.
+
+    As ``read_log(..., resample_hz=..., upsample=...)``, for a log already read
+    (see :mod:`ident.estimate.resample` for the methods).
+
+    Raises
+    ------
+    LogFormatError
+        A segment too short for the anti-alias filter, or a rate that needs an
+        upsampling method that was not given.
+    """
+    _check_resample_args(resample_hz, upsample)
+    fraction(jitter_tolerance, "jitter_tolerance")
+    opt = _ReadOptions(None, None, False, False, jitter_tolerance, float(resample_hz), upsample, True)
+    return _resampled_log(log, opt)
+
+
+def _resampled_log(log: Log, opt: _ReadOptions) -> Log:
+    """Bring a log of one time base to ``opt.resample_hz``, segment by segment."""
+    from ..estimate.resample import Channel, resample_channels
+
+    m = log.n_inputs
+    names = (*log.input_names, *log.output_names)
+    pieces = []
+    for k, (a, b) in enumerate(log.segments):
+        cols = [log.u[a:b, j] for j in range(m)] + [log.y[a:b, j] for j in range(log.n_outputs)]
+        try:
+            chans = [Channel(name, log.time[a:b], c, log.sample_time) for name, c in zip(names, cols, strict=True)]
+            pieces.append(resample_channels(chans, opt.resample_hz, upsample=opt.upsample,
+                                            tolerance=opt.jitter_tolerance))
+        except (ResampleError, OptionError) as exc:
+            where = f" (segment {k + 1} of {len(log.segments)})" if len(log.segments) > 1 else ""
+            raise LogFormatError(getattr(exc, "reason", str(exc)) + where, path=log.source.path,
+                                 channel=getattr(exc, "channel", None), hint=exc.hint) from exc
+    values = np.concatenate([p.values for p in pieces]) if len(pieces) > 1 else pieces[0].values
+    time = np.concatenate([p.time for p in pieces]) if len(pieces) > 1 else pieces[0].time
+    stops = np.cumsum([p.time.shape[0] for p in pieces])
+    segments = tuple((int(s - p.time.shape[0]), int(s)) for s, p in zip(stops, pieces, strict=True))
+    t_s = 1.0 / opt.resample_hz
+    timing = TimingStats(t_s, log.timing.jitter_std_s, log.timing.jitter_max_s,
+                         log.timing.jitter_max_s / t_s, log.timing.basis)
+    return Log(
+        time=_readonly(time), u=_readonly(np.ascontiguousarray(values[:, :m])),
+        y=_readonly(np.ascontiguousarray(values[:, m:])), input_names=log.input_names,
+        output_names=log.output_names, input_units=log.input_units, output_units=log.output_units,
+        sample_time=t_s, timing=timing, source=log.source, segments=segments,
+        dropped_rows=log.dropped_rows, input_rates_hz=log.input_rates_hz,
+        output_rates_hz=log.output_rates_hz,
+        resampling=ResampleRecord(opt.resample_hz, pieces[0].channels, pieces[0].edge_samples, True),
     )
 
 
@@ -544,17 +1112,21 @@ def _check_time_args(time: str | None, sample_rate: float | None, jitter_toleran
 
 
 def _check_roles(in_cols: list[Column], out_cols: list[Column]) -> None:
+    _check_role_names([c.name for c in in_cols], [c.name for c in out_cols])
+
+
+def _check_role_names(in_names: Sequence[str], out_names: Sequence[str]) -> None:
     seen: dict[str, str] = {}
-    for role, cols in (("input", in_cols), ("output", out_cols)):
-        for c in cols:
-            key = c.name.lower()
+    for role, names in (("input", in_names), ("output", out_names)):
+        for name in names:
+            key = name.lower()
             if key in seen:
                 other = seen[key]
                 if other != role:
                     raise OptionError(
-                        f"column {c.name!r} is named both as an input and as an output"
+                        f"column {name!r} is named both as an input and as an output"
                     )
-                raise OptionError(f"column {c.name!r} is named twice as an {role}")
+                raise OptionError(f"column {name!r} is named twice as an {role}")
             seen[key] = role
 
 
@@ -606,7 +1178,8 @@ def _read_header(path: str) -> _Header:
     if not head.strip():
         raise LogFormatError("the file is empty", path=path)
     if b"\x00" in head:
-        raise LogFormatError("not a text file (binary content); expected CSV or Parquet", path=path)
+        raise LogFormatError("not a text file (binary content); expected CSV, Parquet, ASAM MDF or HDF5",
+                             path=path)
     if head.startswith(b"\xef\xbb\xbf"):
         head_body, bom = head[3:], 3
     else:
@@ -757,7 +1330,7 @@ def _read_columns(path: str, header: _Header, indices: list[int], *, drop_bad_ro
         first_line = int(lines[0])
     if sha is None:
         sha = _sha256(path)
-    source = LogSource(path, os.path.basename(path), sha, first_line, last_line)
+    source = LogSource(path, os.path.basename(path), sha, first_line, last_line, header.kind)
     columns = tuple(
         Column(header.names[k], header.units[k], _readonly(a))
         for k, a in zip(indices, arrays, strict=True)
@@ -1194,9 +1767,10 @@ def _rate_segments(table: Table, t_s: float, stats: TimingStats, split: bool) ->
         i = int(breaks[0]) + 1
         missing = int(steps[i - 1]) - 1
         raise LogFormatError(
-            f"{missing} dropped row(s) just before this row break the sample sequence "
+            f"{missing} dropped {_row_word(table)}(s) just before this {_row_word(table)} break the "
+            "sample sequence "
             f"(sample rate {_fmt(1.0 / t_s)} Hz)",
-            path=table.source.path, row=table.line_of(i),
+            path=table.source.path, **table.location(i),
             hint="split the log at gaps (--split-at-gaps / split_at_gaps=True)",
         )
     stamps = (lines - lines[0]).astype(float) * t_s
@@ -1213,8 +1787,9 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
         i = int(bad[0]) + 1
         what = "duplicated time stamp" if dt[i - 1] == 0 else "time goes backwards"
         raise LogFormatError(
-            f"{what} ({_fmt(stamps[i])} s after {_fmt(stamps[i - 1])} s on the row before)",
-            path=path, row=table.line_of(i), column=name,
+            f"{what} ({_fmt(stamps[i])} s after {_fmt(stamps[i - 1])} s on the "
+            f"{_row_word(table)} before)",
+            path=path, **table.location(i, name),
         )
     t_s = _median(dt)
     short = np.flatnonzero(dt < (1.0 - tol) * t_s)
@@ -1223,15 +1798,16 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
         raise LogFormatError(
             f"irregular sampling: interval {_fmt(dt[i - 1])} s is more than {tol:.0%} shorter "
             f"than the sample time {_fmt(t_s)} s",
-            path=path, row=table.line_of(i), column=name,
+            path=path, **table.location(i, name),
         )
     gaps = np.flatnonzero(dt > (1.0 + tol) * t_s)
     if gaps.size and not split:
         i = int(gaps[0]) + 1
         raise LogFormatError(
-            f"gap of {_fmt(dt[i - 1])} s ({dt[i - 1] / t_s:.3g} sample times) before this row; "
+            f"gap of {_fmt(dt[i - 1])} s ({dt[i - 1] / t_s:.3g} sample times) before this "
+            f"{_row_word(table)}; "
             f"sample time {_fmt(t_s)} s, tolerance {tol:.0%}",
-            path=path, row=table.line_of(i), column=name,
+            path=path, **table.location(i, name),
             hint="split the log at gaps (--split-at-gaps / split_at_gaps=True)"
             + (" or raise the jitter tolerance" if dt[i - 1] < 2 * t_s else ""),
         )
@@ -1252,6 +1828,10 @@ def _check_stamps(stamps: np.ndarray, name: str, table: Table, split: bool, tol:
     else:
         out = _readonly(stamps)
     return TimeBase(out, name, stats, segments)
+
+
+def _row_word(table: Table) -> str:
+    return "sample" if table.source.format in ("mdf", "hdf5") else "row"
 
 
 def _fmt(x: float) -> str:

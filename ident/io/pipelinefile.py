@@ -11,7 +11,8 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     [log]
     paths = ["../sample_data/belt_axis_before.csv"]  # relative to this file; globs allowed;
                                                      # several files = several experiments
-    inputs = ["motor_torque_cmd"]           # column names (units in the header are ignored)
+    inputs = ["motor_torque_cmd"]           # column names (units in the header are ignored), group/name
+                                            # in MDF/HDF5, shell-style patterns ("u*") or positions ("#2")
     outputs = ["motor_speed", "carriage_speed"]
     time = "time"                           # time column; default: auto-detect time/t
     # sample_rate_hz = 1000                 # instead of a time column
@@ -19,6 +20,8 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     split_at_gaps = false
     jitter_tolerance = 0.1
     units = { motor_torque_cmd = "N m" }    # fill in units the header does not carry
+    # resample_hz = 100                     # bring every chosen channel to one rate
+    # upsample = "zoh"                      # or "linear": for channels slower than resample_hz
 
     [preprocess]   # ident.estimate.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
                    # decimate, holdout
@@ -55,9 +58,11 @@ from ..assess.diagnostics import CheckOptions
 from ..assess.drift import DriftThresholds
 from ..assess.expectations import Expectations
 from ..assess.modes import FLAGS, ModeThresholds
+from ..choices import UPSAMPLE_METHODS
 from ..errors import IdentError, PipelineError
 from ..estimate.identify import IdentifyOptions
 from ..estimate.preprocess import PreprocessOptions
+from .columns import is_pattern
 
 __all__ = [
     "SECTIONS",
@@ -78,7 +83,7 @@ SECTIONS: tuple[str, ...] = (
 #: Keys of the ``[log]`` table.
 LOG_KEYS: tuple[str, ...] = (
     "paths", "inputs", "outputs", "time", "sample_rate_hz", "drop_bad_rows", "split_at_gaps",
-    "jitter_tolerance", "units",
+    "jitter_tolerance", "units", "resample_hz", "upsample",
 )
 #: Mode flags that fail a run when ``[modes] fail_on`` is not given.
 DEFAULT_FAIL_ON: tuple[str, ...] = ("unstable",)
@@ -98,7 +103,8 @@ class LogSpec:
         The files they match, absolute, in order (each pattern's matches
         sorted by name; duplicates removed). Each file is one experiment.
     inputs, outputs : tuple of str
-        Column names.
+        Column selectors: names, ``group/name``, shell-style patterns or
+        ``#N`` positions (see :mod:`ident.io.columns`).
     time : str or None
         Time column; ``None`` auto-detects ``time``/``t`` unless
         ``sample_rate_hz`` is given.
@@ -110,6 +116,11 @@ class LogSpec:
         As in :func:`ident.io.log.read_log`.
     units : dict
         Column name -> unit, used where the header carries no unit.
+    resample_hz : float or None
+        Bring every chosen channel to this rate (as ``rigfit fit --resample``).
+    upsample : str or None
+        ``"zoh"`` or ``"linear"`` for channels slower than the common rate
+        (as ``rigfit fit --upsample``).
     """
 
     patterns: tuple[str, ...]
@@ -122,6 +133,16 @@ class LogSpec:
     split_at_gaps: bool = False
     jitter_tolerance: float = 0.1
     units: dict[str, str] = field(default_factory=dict)
+    resample_hz: float | None = None
+    upsample: str | None = None
+
+    def read_log_kwargs(self) -> dict[str, Any]:
+        """Keyword arguments of :func:`ident.io.log.read_log` for these settings."""
+        return {
+            "time": self.time, "sample_rate": self.sample_rate_hz, "drop_bad_rows": self.drop_bad_rows,
+            "split_at_gaps": self.split_at_gaps, "jitter_tolerance": self.jitter_tolerance,
+            "resample_hz": self.resample_hz, "upsample": self.upsample,
+        }
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -200,6 +221,8 @@ class PipelineSpec:
                 "split_at_gaps": self.log.split_at_gaps,
                 "jitter_tolerance": self.log.jitter_tolerance,
                 "units": dict(self.log.units),
+                "resample_hz": self.log.resample_hz,
+                "upsample": self.log.upsample,
             },
             "preprocess": self.fit.preprocess.to_dict(),
             "fit": {k: v for k, v in self.fit.to_dict().items() if k != "preprocess"},
@@ -475,8 +498,10 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
         raise PipelineError("must be a table of column name = \"unit\" strings", path=src,
                             key_path="log.units")
     known = {n.lower(): n for n in (*inputs, *outputs)}
+    selectors = any(is_pattern(n) or n.strip().startswith("#") for n in (*inputs, *outputs))
     for key in units:
-        if key.lower() not in known:
+        # with patterns the names are known only once a log is read (checked then)
+        if key.lower() not in known and not selectors:
             raise PipelineError(
                 "names no input or output column", path=src, key_path=f"log.units.{key}",
                 hint=did_you_mean(key, tuple(known.values())),
@@ -492,7 +517,29 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
         split_at_gaps=_bool(table, "split_at_gaps", "log", src),
         jitter_tolerance=jitter,
         units={k.lower(): v for k, v in units.items()},
+        resample_hz=_resample(table, src),
+        upsample=_upsample(table, src),
     )
+
+
+def _resample(table: Mapping[str, Any], src: Path | None) -> float | None:
+    rate = table.get("resample_hz")
+    if rate is None:
+        return None
+    rate = _number(rate, "log.resample_hz", src, what="a positive number of samples per second")
+    if rate <= 0:
+        raise PipelineError(f"must be a positive number; got {rate!r}", path=src, key_path="log.resample_hz")
+    return rate
+
+
+def _upsample(table: Mapping[str, Any], src: Path | None) -> str | None:
+    method = table.get("upsample")
+    if method is not None and method not in UPSAMPLE_METHODS:
+        raise PipelineError(
+            f"must be one of {', '.join(UPSAMPLE_METHODS)}; got {method!r}", path=src,
+            key_path="log.upsample", hint=did_you_mean(str(method), UPSAMPLE_METHODS),
+        )
+    return method
 
 
 def _parse_modes(table: Mapping[str, Any], src: Path | None) -> ModesSpec:

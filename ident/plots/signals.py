@@ -53,6 +53,7 @@ def plot_signals(
     fig: Any | None = None,
     axes: Sequence[Any] | None = None,
     title: str | None = None,
+    times: Sequence[Any] | None = None,
 ) -> Any:
     """Draw signals against time, one strip each.
 
@@ -74,6 +75,10 @@ def plot_signals(
         One axes per signal, used instead of creating strips.
     title : str, optional
         Figure title.
+    times : sequence of array_like, optional
+        One time axis per signal, for signals recorded at different rates (a
+        measurement file's channel groups); replaces ``time`` and excludes
+        ``segments``.
 
     Returns
     -------
@@ -81,7 +86,12 @@ def plot_signals(
     """
     from matplotlib.figure import Figure
 
-    t = np.asarray(time, dtype=float).ravel()
+    if times is not None:
+        if len(times) != len(signals):
+            raise OptionError(f"times must hold {len(signals)} entries; got {len(times)}")
+        if segments:
+            raise OptionError("segments apply to one shared time axis; got times per signal")
+    t = np.asarray(time if times is None else times[0], dtype=float).ravel()
     if not signals:
         raise OptionError("signals must hold at least one (label, values) pair")
     roles = tuple(roles) if roles is not None else ("other",) * len(signals)
@@ -100,7 +110,10 @@ def plot_signals(
         if fig is None:
             fig = Figure(figsize=(9.0, 1.0 + 1.45 * len(signals)), layout="constrained")
         axes = list(fig.subplots(len(signals), 1, sharex=True, squeeze=False)[:, 0])
-    for ax, (label, values), role in zip(axes, signals, roles, strict=True):
+    for k, (ax, (label, values), role) in enumerate(zip(axes, signals, roles, strict=True)):
+        if times is not None:
+            t = np.asarray(times[k], dtype=float).ravel()
+            segs = ((0, t.shape[0]),)
         x = np.asarray(values, dtype=float).ravel()
         if x.shape != t.shape:
             raise OptionError(f"signal {label!r} has {x.shape[0]} samples; time has {t.shape[0]}")
