@@ -57,8 +57,9 @@ __all__ = [
 #: consecutive odd lines (common practice; groups of 3 or 4 are usual, see [4]_).
 ODD_RANDOM_GROUP = 4
 
-#: Exponents of the Lp norms minimised after clipping (the last approximates L-infinity).
-_LP_EXPONENTS = (4, 8, 16, 32, 64, 128)
+#: Exponents of the Lp norms minimised after clipping (the last approximates L-infinity); two
+#: stages of at most 30 L-BFGS iterations gained as much as six longer ones in trials here.
+_LP_EXPONENTS = (32, 128)
 #: Work budgets (samples x iterations) that cap the clipping and Lp stages for long periods.
 _CLIP_BUDGET = 3e7
 _LP_BUDGET = 1e7
@@ -308,7 +309,7 @@ def low_crest_phases(n_samples: int, lines: Any, amplitudes: Any = None, start: 
 
     Starts from ``start`` (default Schroeder's phases), runs the
     time/frequency-domain clipping iteration [2]_, then minimises the Lp norm
-    of the signal for ``p`` = 4, 8, ... 128 [3]_, and returns the phases of
+    of the signal for ``p`` = 32 and then 128 [3]_, and returns the phases of
     the lowest crest factor met on the way (never worse than the start).
 
     Parameters
@@ -350,7 +351,7 @@ def low_crest_phases(n_samples: int, lines: Any, amplitudes: Any = None, start: 
         raise OptionError(f"start must hold {k.size} phases; got {phi.size}")
     best = _Best(n, k, amp, phi)
     _clip_iterations(best, int(np.clip(_CLIP_BUDGET / n, 20, 300)))
-    _lp_descent(best, int(np.clip(_LP_BUDGET / n, 5, 100)))
+    _lp_descent(best, int(np.clip(_LP_BUDGET / n, 5, 30)))
     return np.mod(best.phases, 2 * np.pi)
 
 

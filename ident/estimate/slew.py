@@ -84,7 +84,7 @@ def _ramp_length(target: np.ndarray, k: int, prev: float, sign: float, step: flo
         width *= 4
 
 
-def periodic_rate_limit(x: Any, max_step: float, *, max_passes: int = 100) -> np.ndarray:
+def periodic_rate_limit(x: Any, max_step: float, *, passes: int = 5) -> np.ndarray:
     """Periodic steady state of the slew limiter driven by a periodic signal.
 
     Parameters
@@ -94,25 +94,60 @@ def periodic_rate_limit(x: Any, max_step: float, *, max_passes: int = 100) -> np
     max_step : float
         Largest change between consecutive samples, the wrap-around from the
         last sample to the first included.
-    max_passes : int
-        Passes over the period before giving up (default 100).
+    passes : int
+        Plain passes over the period tried first (default 5); most signals
+        settle within them.
 
     Returns
     -------
     numpy.ndarray, shape (N,)
         One period ``y`` that the limiter repeats: every step of ``y``,
-        ``y[0] - y[-1]`` included, is at most ``max_step``.
+        ``y[0] - y[-1]`` included, is at most ``max_step`` (to rounding).
 
     Raises
     ------
     IdentificationError
-        No periodic state within ``max_passes`` passes.
+        No periodic state found (not expected: one always exists).
+
+    Notes
+    -----
+    The value ``F(a)`` at the end of a period started from ``a`` is
+    non-decreasing in ``a`` and moves less than ``a`` does (the limiter never
+    expands differences), and maps the range of the target into itself, so
+    ``F(a) = a`` has a solution, found by bisection when plain passes have
+    not settled. The solutions form an interval (a limiter that never catches
+    up with its target can run at any level); the middle one is returned.
     """
     target = np.asarray(x, dtype=float).ravel()
-    y = rate_limit(target, max_step, start=target[-1])
-    for _ in range(int_in_range(max_passes, "max_passes", 1)):
-        nxt = rate_limit(target, max_step, start=y[-1])
+    step = positive_float(max_step, "max_step")
+    y = rate_limit(target, step, start=target[-1])
+    for _ in range(int_in_range(passes, "passes", 0)):
+        nxt = rate_limit(target, step, start=y[-1])
         if np.array_equal(nxt, y):
             return y
         y = nxt
-    raise IdentificationError("the rate-limited signal did not settle into a periodic state")
+    low, high = float(target.min()), float(target.max())
+    tol = 1e-12 * max(1.0, abs(low), abs(high))
+
+    def gap(a: float) -> float:
+        return rate_limit(target, step, start=a)[-1] - a
+
+    first = _bisect(lambda a: gap(a) > tol, low, high)  # lowest start that comes back to itself
+    last = _bisect(lambda a: gap(a) >= -tol, low, high)  # highest
+    y = rate_limit(target, step, start=0.5 * (first + last))
+    if abs(y[0] - y[-1]) > step * (1 + 1e-9):
+        raise IdentificationError("the rate-limited signal did not settle into a periodic state")
+    return y
+
+
+def _bisect(below: Any, low: float, high: float) -> float:
+    """Return the boundary in ``[low, high]`` where the monotone predicate ``below`` turns false."""
+    for _ in range(200):
+        mid = 0.5 * (low + high)
+        if mid in (low, high):
+            break
+        if below(mid):
+            low = mid
+        else:
+            high = mid
+    return 0.5 * (low + high)

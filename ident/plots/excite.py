@@ -304,4 +304,4 @@ def _draw_output(ax: Any, analysis: Any, i: int, comparison: Any) -> None:
     ax.set_yscale("log")
     ax.set_ylabel(f"{analysis.outputs[i]} amplitude", fontsize=8, color=_INK)
     ax.set_xlabel("frequency [Hz]", fontsize=8, color=_INK)
-    ax.legend(fontsize=7, frameon=False)
+    ax.legend(fontsize=7, frameon=True, framealpha=0.85, edgecolor="none", loc="upper right")
