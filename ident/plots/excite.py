@@ -69,11 +69,14 @@ def zoom_window(signal: Any) -> tuple[int, int]:
     return start, start + length
 
 
-def _bands(t: np.ndarray, x: np.ndarray, bins: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Bin start times and the smallest and largest value in each bin (the last bin takes the rest)."""
+def _envelope(t: np.ndarray, x: np.ndarray, bins: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return the smallest and largest sample of each of ``bins`` stretches, in time order."""
     edges = np.linspace(0, x.size, bins + 1).astype(int)
     starts = edges[:-1]
-    return t[starts], np.minimum.reduceat(x, starts), np.maximum.reduceat(x, starts)
+    lo_idx = starts + np.array([np.argmin(x[a:b]) for a, b in zip(edges[:-1], edges[1:], strict=True)])
+    hi_idx = starts + np.array([np.argmax(x[a:b]) for a, b in zip(edges[:-1], edges[1:], strict=True)])
+    order = np.sort(np.column_stack([lo_idx, hi_idx]), axis=1).ravel()
+    return t[order], x[order]
 
 
 def _label(name: str, unit: str) -> str:
@@ -140,10 +143,8 @@ def _draw_overview(ax: Any, signal: Any, label: str) -> None:
         ax.axvline(k * n * dt, color=_GRID, lw=0.6, zorder=0.6)
     if x.size <= _OVERVIEW_POINTS:
         ax.step(t, x, where="post", color=_SIGNAL, lw=0.7)
-    else:  # too many samples to draw one by one: the band each stretch sweeps, as in the zoom below
-        tb, lo, hi = _bands(t, x, _OVERVIEW_POINTS // 2)
-        ax.fill_between(np.append(tb, t[-1]), np.append(lo, lo[-1]), np.append(hi, hi[-1]), step="post",
-                        color=_SIGNAL, alpha=0.85, lw=0)
+    else:  # too many samples to draw one by one: the extremes of each short stretch, in time order
+        ax.plot(*_envelope(t, x, _OVERVIEW_POINTS // 2), color=_SIGNAL, lw=0.6)
     low, high = signal.options.amplitude_range
     for level in (low, high):
         ax.axhline(level, color=_LIMIT, lw=0.7, ls=":")
@@ -151,7 +152,7 @@ def _draw_overview(ax: Any, signal: Any, label: str) -> None:
     ax.set_ylabel(label, fontsize=8, color=_INK)
     ax.set_xlabel("time [s]", fontsize=8, color=_INK)
     ax.set_title(
-        "whole signal (the range each stretch sweeps): transient periods shaded grey, period boundaries thin lines"
+        "whole signal: transient periods shaded grey, period boundaries thin lines"
         + (", blocks split by dashes" if signal.blocks > 1 else "") + "; the zoomed stretch marked in blue",
         fontsize=8, loc="left", color=_INK,
     )
