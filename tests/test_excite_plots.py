@@ -42,18 +42,27 @@ def _design(**kw):
 
 @pytest.mark.parametrize("kind", ["prbs", "multisine", "chirp"])
 def test_zoom_is_a_readable_stretch_not_the_whole_record(kind):
-    sig = _design(kind=kind, n_inputs=2)
+    sig = _design(kind=kind)
     start, stop = zoom_window(sig)
     assert stop - start <= sig.period_samples
     assert stop - start < 0.2 * sig.n_samples
+    # about twelve cycles of the band's top, so single samples can be told apart (by design)
+    assert (stop - start) / sig.sample_rate_hz * sig.options.band_hz[1] <= 40
+    if kind == "chirp":  # the fastest part of the sweep: the end of the first measured period
+        assert stop == (sig.transient_periods + 1) * sig.period_samples
+
+
+def test_signal_figure_draws_each_input_and_keeps_text_inside():
+    sig = _design(kind="prbs", n_inputs=2)
     fig = designed_signal_figure(sig, ["valve_a", "valve_b"], ["V", "V"])
     renderer = _render(fig)
     zoom_axes = [ax for ax in fig.axes if ax.get_title(loc="left").startswith("zoom")]
     assert len(zoom_axes) == 2
+    start, stop = zoom_window(sig)
     for ax in zoom_axes:
         left, right = ax.get_xlim()
-        # about twelve cycles of the band's top, so single samples can be told apart (by design)
-        assert (right - left) * sig.options.band_hz[1] <= 40
+        assert right - left == pytest.approx((stop - start) / sig.sample_rate_hz)
+    assert [ax.get_ylabel() for ax in zoom_axes] == ["valve_a [V]", "valve_b [V]"]
     for ax in fig.axes:
         for text in (ax._left_title, ax.xaxis.label, ax.yaxis.label):
             if text.get_text():

@@ -135,6 +135,13 @@ def test_two_inputs_from_orthogonal_blocks(rng):
             assert_allclose(an.frf[:, i, j], np.asarray(hij).ravel(), rtol=1e-8)
 
 
+def test_orthogonal_blocks_not_given_are_noticed():
+    sig = _design(kind="multisine", n_inputs=2, periods=4)
+    y = _simulate((np.diag([0.9, 0.7]), np.eye(2), np.ones((1, 2)), np.zeros((1, 2))), sig.values)
+    an = analyse_periodic(sig.values, y, T, period=sig.period_samples)  # blocks=2 forgotten
+    assert any("changes from period to period" in note for note in an.notes)
+
+
 def test_two_inputs_on_interleaved_lines():
     A = np.diag([0.9, 0.7])
     B = np.eye(2)

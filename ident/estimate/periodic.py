@@ -59,6 +59,7 @@ __all__ = [
     "PERIOD_MATCH",
     "EXCITED_LEVEL_DB",
     "DISTORTION_CONFIDENCE",
+    "INPUT_SCATTER_NOTE",
     "DistortionLevel",
     "PeriodicAnalysis",
     "LineComparison",
@@ -74,6 +75,8 @@ PERIOD_MATCH = 0.9
 EXCITED_LEVEL_DB = -30.0
 #: Confidence level of the test "the unexcited lines hold more than noise".
 DISTORTION_CONFIDENCE = 0.99
+#: A note is added when an input's period-to-period variance exceeds this share of its variance.
+INPUT_SCATTER_NOTE = 0.01
 #: Frequency responses at lines whose block equations are worse conditioned are not given.
 _MAX_CONDITION = 1e8
 
@@ -351,8 +354,8 @@ def analyse_periodic(
     transient_periods : int
         Leading periods of each block to leave out (default 1).
     blocks : int
-        Blocks of periods in the record (an orthogonal design's block count;
-        default 1).
+        Blocks of periods in the record (an orthogonal design's block count,
+        which must be given: the inputs change sign between blocks; default 1).
     periods_per_block : int, optional
         Periods in each block; default: as many whole periods as fit.
     start : int
@@ -399,6 +402,8 @@ def analyse_periodic(
     y_var = _pooled_variance(y_periods) if measured > 1 else None
     spectra = _Spectra.of(u_periods, y_periods)
     notes = list(layout.notes)
+    if u_var is not None:
+        notes.extend(_input_scatter(u_var, u_periods.mean(axis=1), data.inputs))
     excited = _excited(spectra, excited_lines, data.m, notes)
     lines = np.flatnonzero(excited.any(axis=1))
     if lines.size == 0:
@@ -494,6 +499,19 @@ def _layout(data: _Inputs) -> _Layout:
     if periods - data.transient < 2:
         notes.append("one measured period: no noise estimate, no standard deviations, no distortion level")
     return _Layout(periods=periods, first=data.start, last=last, unused=unused, notes=notes)
+
+
+def _input_scatter(u_var: np.ndarray, u_average: np.ndarray, names: tuple[str, ...]) -> list[str]:
+    """Warn when an input is far from periodic: a wrong period, or blocks not given."""
+    power = np.mean(u_average.var(axis=1), axis=0)
+    notes = []
+    for name, scatter, level in zip(names, u_var, power, strict=True):
+        if level > 0 and scatter > INPUT_SCATTER_NOTE * level:
+            notes.append(
+                f"input {name} changes from period to period by {100 * scatter / level:.0f} % of its "
+                "variance: check the period (and give the blocks of an orthogonal design)"
+            )
+    return notes
 
 
 def _pooled_variance(periods: np.ndarray) -> np.ndarray:
