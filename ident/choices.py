@@ -9,7 +9,7 @@ from __future__ import annotations
 
 __all__ = [
     "METHODS", "WEIGHTINGS", "NOISE_MODELS", "REFINEMENTS", "POLYNOMIAL_STRUCTURES", "DISCRETIZE_METHODS",
-    "REALIZATIONS", "FLAGS", "UPSAMPLE_METHODS",
+    "REALIZATIONS", "FLAGS", "UPSAMPLE_METHODS", "SIGNAL_KINDS", "SPACINGS", "HARMONICS", "PHASES", "ARRANGEMENTS",
 ]
 
 #: Model families of ``identify`` / ``rigfit fit --method``.
@@ -54,3 +54,18 @@ FLAGS: tuple[str, ...] = (
     "near_cancellation",
     "uncertain_stability",
 )
+
+#: Test-signal families of ``ident.estimate.signal_design`` (``rigfit excite --kind``).
+SIGNAL_KINDS: tuple[str, ...] = ("prbs", "binary", "noise", "multisine", "chirp")
+
+#: Spacing of a multisine's frequency lines, or of a sweep's frequency over time.
+SPACINGS: tuple[str, ...] = ("linear", "log")
+
+#: Which harmonics of the period a multisine may excite.
+HARMONICS: tuple[str, ...] = ("all", "odd", "odd-random")
+
+#: Phases of a multisine: Schroeder's formula, a low crest factor found from it, or random.
+PHASES: tuple[str, ...] = ("low-crest", "schroeder", "random")
+
+#: How the signals of several inputs are made distinguishable in one test.
+ARRANGEMENTS: tuple[str, ...] = ("orthogonal", "interleaved", "shifted", "independent")

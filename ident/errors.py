@@ -18,12 +18,14 @@ __all__ = [
     "ModelFileError",
     "ModelError",
     "PipelineError",
+    "SignalFileError",
     "IdentificationError",
     "IdentWarning",
     "PoorExcitationWarning",
     "IllConditionedWarning",
     "UnstableModelWarning",
     "ResamplingWarning",
+    "SignalDesignWarning",
 ]
 
 
@@ -192,6 +194,18 @@ class PipelineError(IdentError, ValueError):
         super().__init__(message, hint=hint)
 
 
+class SignalFileError(IdentError, ValueError):
+    """A test-signal description (the JSON written by ``rigfit excite``) is missing or malformed."""
+
+    def __init__(
+        self, reason: str, *, path: str | os.PathLike | None = None, hint: str | None = None
+    ) -> None:
+        self.reason = reason
+        self.path = None if path is None else os.fspath(path)
+        message = f"{os.path.basename(self.path)}: {reason}" if self.path else reason
+        super().__init__(message, hint=hint)
+
+
 class IdentificationError(IdentError, RuntimeError):
     """An estimate failed numerically or the data cannot support it."""
 
@@ -219,3 +233,7 @@ class ResamplingWarning(IdentWarning):
     channel's own Nyquist frequency, and the method leaves its mark on the
     identified dynamics (a hold adds delay, interpolation looks ahead).
     """
+
+
+class SignalDesignWarning(IdentWarning):
+    """A designed test signal works but is compromised (band near the sample rate, rate-limit distortion)."""

@@ -32,6 +32,7 @@ _COMMANDS: dict[str, str] = {
     "drift": "drift_cmd:drift",
     "run": "run_cmd:run",
     "demo": "demo_cmd:demo",
+    "excite": "excite_cmd:excite",
 }
 
 _SHORT_HELP: dict[str, str] = {
@@ -43,6 +44,7 @@ _SHORT_HELP: dict[str, str] = {
     "drift": "Compare a model with a baseline model after a hardware change.",
     "run": "Run a pipeline file end to end into a new run folder with a report.",
     "demo": "Run the bundled demo pipelines on the sample data.",
+    "excite": "Design a test signal (PRBS, multisine, chirp, ...) and write it for the rig.",
 }
 
 

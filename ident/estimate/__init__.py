@@ -10,9 +10,12 @@ that ARX and delay estimation share (:mod:`~ident.estimate.regression`), ARX
 (:mod:`~ident.estimate.delay`), order criteria (:mod:`~ident.estimate.order`),
 subspace identification (:mod:`~ident.estimate.subspace`), output-error,
 ARMAX and Box-Jenkins models (:mod:`~ident.estimate.polynomial`), the
-Newey-West gradient covariance (:mod:`~ident.estimate.hac`), parameter to pole
-uncertainty (:mod:`~ident.estimate.uncertainty`) and the top-level
-identification job (:mod:`~ident.estimate.identify`). Modules here may import
+long-run covariances (:mod:`~ident.estimate.hac`), parameter to pole
+uncertainty (:mod:`~ident.estimate.uncertainty`), the top-level
+identification job (:mod:`~ident.estimate.identify`), test-signal design
+(:mod:`~ident.estimate.signal_design`, with :mod:`~ident.estimate.multisine`
+and :mod:`~ident.estimate.slew`) and the analysis of periodic logs
+(:mod:`~ident.estimate.periodic`). Modules here may import
 each other (without loops), :mod:`ident.assess`, :mod:`ident.lti` and the
 base modules (:mod:`ident.errors`, :mod:`ident.choices`,
 :mod:`ident._validate`, :mod:`ident._json`), never :mod:`ident.io`,
