@@ -197,13 +197,13 @@ def _screen_validation(prep: PreparedData, limit: int) -> tuple[tuple[Experiment
     """Held-out records to score on, and the warm-up (end of the estimation part before) of each.
 
     When the held-out data fit in ``limit`` samples they are scored whole, each
-    continued from at most ``limit`` estimation samples before it; otherwise
+    continued from at most ``limit / 2`` estimation samples before it; otherwise
     evenly spread stretches are scored after an initial-state window.
     """
     total = sum(e.n_samples for e in prep.validation)
     if total <= limit:
         warm = warmups_for(prep.validation, prep.estimation, prep.validation_ranges, prep.estimation_ranges,
-                           limit)
+                           max(limit // 2, 1))
         return tuple(prep.validation), warm
     stretches = working_stretches(prep.validation, limit)
     return stretches, [None] * len(stretches)

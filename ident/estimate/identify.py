@@ -98,8 +98,12 @@ _MAX_DELAY = 20
 #: Refinement of the candidates on the screening data: at most this many steps,
 #: stopping when the remaining step is this many standard deviations (the chosen
 #: one is polished to the refinement default on all the data).
-_SCREEN_ITERATIONS = 25
+_SCREEN_ITERATIONS = 10
 _SCREEN_STEP_TOLERANCE = 0.1
+
+#: Samples the screening refinements iterate on (at most); their losses and
+#: scores are those of all the screening data.
+_SCREEN_WORKING_SAMPLES = 10_000
 
 #: Relative precision asked of the parameters when judging excitation against
 #: the noise: an input direction counts when its eigenvalue exceeds
@@ -171,7 +175,7 @@ class IdentifyOptions:
     significance: float = 0.05
     per_criterion: int = PER_CRITERION
     refine_count: int = 4
-    screen_samples: int = 20_000
+    screen_samples: int = 10_000
     preprocess: PreprocessOptions = field(default_factory=PreprocessOptions)
 
     def __post_init__(self) -> None:
@@ -657,19 +661,35 @@ def _add_subspace(prep, options: IdentifyOptions, orders, delays, screen: Screen
     search.subspace = evidence
 
 
-def _refinement_starts(raw: Sequence[Fitted], count: int) -> list[Fitted]:
-    """Pick the best candidate of each of the ``count`` best (order, shift) classes and of every shift."""
-    ranked = sorted(raw, key=lambda f: -f.candidate.mean_fit)
+def _refinement_starts(raw: Sequence[Fitted], count: int, output_variance: np.ndarray,
+                       significance: float) -> list[Fitted]:
+    """Pick the starts to refine: the best direct estimate, the simplest ones as accurate, the best of every shift.
+
+    Per (order, shift) class the best-scoring estimate stands for the class.
+    Besides the best class, the classes whose estimate is statistically as
+    accurate on the held-out data (:func:`ident.estimate.selection.equal_accuracy_pvalue`)
+    are refined simplest first, then the next best by fit, ``count`` in all;
+    finally the best class of every input shift not yet represented.
+    """
+    from .selection import equal_accuracy_pvalue
+
+    ranked = sorted((f for f in raw if np.isfinite(f.candidate.mean_fit)), key=lambda f: -f.candidate.mean_fit)
+    if not ranked:
+        return []
     best_per: dict[tuple, Fitted] = {}
     for f in ranked:
-        if np.isfinite(f.candidate.mean_fit):
-            best_per.setdefault((f.core.n_states, f.shift), f)
-    starts = list(best_per.values())[:count]
+        best_per.setdefault((f.core.n_states, f.shift), f)
+    classes = list(best_per.values())
+    best = classes[0]
+    scales = np.where(output_variance > 0, output_variance, 1.0)
+    tied = [f for f in classes[1:] if f.score.errors and
+            equal_accuracy_pvalue(f.score.errors, best.score.errors, scales) > significance]
+    tied.sort(key=lambda f: (f.candidate.n_states, -f.candidate.mean_fit))
+    starts = [best] + tied[: count - 1]
+    starts += [f for f in classes if f not in starts][: max(count - len(starts), 0)]
     for shift in dict.fromkeys(f.shift for f in ranked):
         if not any(s.shift == shift for s in starts):
-            extra = next((f for f in best_per.values() if f.shift == shift), None)
-            if extra is not None:
-                starts.append(extra)
+            starts.append(next(f for f in classes if f.shift == shift))
     return starts
 
 
@@ -677,11 +697,11 @@ def _refine_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
     """Refine the best few candidates on the screening data and score them again."""
     from .refine import RefineOptions
 
-    starts = _refinement_starts(search.raw, options.refine_count)
+    starts = _refinement_starts(search.raw, options.refine_count, screen.output_variance, options.significance)
     for k, start in enumerate(starts):
         search.report(f"refining candidate {k + 1} of {len(starts)}", 0.4 + 0.4 * k / max(len(starts), 1))
         opts = RefineOptions(noise_model=search.noise_model, feedthrough=start.feedthrough,
-                             working_samples=options.screen_samples, polish_iterations=0,
+                             working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
                              max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
         refined = _refine_one(start, screen.estimation_for(start.shift), opts)
         if refined is None:
@@ -762,14 +782,13 @@ def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, 
             return chosen.result.model, None, _arx_covariance(chosen)
         return chosen.model, None, None
     data = screen.estimation_for(chosen.shift, full=True)
-    opts = RefineOptions(noise_model=search.noise_model, feedthrough=chosen.feedthrough,
-                         working_samples=max(sum(e.n_samples for e in data), 100), max_iterations=5)
+    opts = RefineOptions(noise_model=search.noise_model, feedthrough=chosen.feedthrough, polish_iterations=1)
     search.report("polishing on all estimation data", 0.9)
     res = refine_state_space(chosen.core, data, opts)
     core, cov = res.model, res.covariance
     if search.noise_model == "output_error":
         gain = fit_noise_gain(core, data, RefineOptions(working_samples=options.screen_samples,
-                                                        polish_iterations=2))
+                                                        polish_iterations=0, covariance=False))
         core = gain.model
     model = with_input_delays(core, chosen.shift)
     if cov is not None:
