@@ -216,6 +216,7 @@ def _base_row(record: UnitRecord) -> dict[str, Any]:
 
 def _modes_summary(fleet: FleetModes | None, screen: RobustScreen | None, n_ok: int,
                    rule: OutlierRule) -> list[dict[str, Any]]:
+    """Per fleet mode: kind, how many units have it, the reference, and median and scale of every figure."""
     if fleet is None or screen is None:
         return []
     index = {q.name: i for i, q in enumerate(screen.quantities)}
@@ -304,6 +305,9 @@ def analyse_fleet(
     for row in rows:
         for name, _ in columns:
             row.setdefault(name, None)
+    # medians of every column (also those not screened, such as a real mode's frequency) for the summary
+    every = None if not ok else robust_screen(
+        [[np.nan if v.get(q.name) is None else v[q.name] for q in value_columns] for v in values], value_columns, rule)
     quantities_summary = [] if screen is None else [
         {"name": q.name, "label": q.label, "unit": q.unit, "side": q.side, "median": _finite(screen.median[i]),
          "mad": _finite(screen.mad[i]), "scale": _finite(screen.scale[i]), "count": int(screen.n_values[i])}
@@ -311,6 +315,6 @@ def analyse_fleet(
     ]
     return FleetAnalysis(
         records=records, rows=rows, columns=columns, outliers=tuple(outliers), modes=fleet, screen=screen,
-        quantities_summary=quantities_summary, modes_summary=_modes_summary(fleet, screen, len(ok), rule),
+        quantities_summary=quantities_summary, modes_summary=_modes_summary(fleet, every, len(ok), rule),
         reference=ref_info,
     )

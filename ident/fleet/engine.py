@@ -86,7 +86,7 @@ def open_client(scheduler: str | None = None, workers: int | None = None) -> Ite
         return
     n = workers if workers is not None else (os.cpu_count() or 1)
     cluster = distributed.LocalCluster(
-        n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None,
+        n_workers=n, threads_per_worker=1, processes=True, dashboard_address=":0",
         silence_logs=logging.ERROR,
     )
     with cluster, distributed.Client(cluster) as client:

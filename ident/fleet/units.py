@@ -402,6 +402,9 @@ def evaluate_unit(spec: PipelineSpec, job: UnitJob, digest: str) -> UnitOutcome:
             evaluation = evaluate_pipeline(unit_spec(spec, job.log_path), run_folder=f"units/{job.folder}")
     except IdentError as exc:
         return _failed(job, digest, str(exc), start)
+    except OSError as exc:  # a log that is missing or unreadable on the worker
+        name = Path(exc.filename).name if exc.filename else Path(job.log_path).name
+        return _failed(job, digest, f"{name}: {exc.strerror or exc}", start)
     except Exception as exc:  # one unit must never stop the fleet: recorded with its message
         return _failed(job, digest, f"internal error: {type(exc).__name__}: {exc}", start)
     summary = evaluation.summary
