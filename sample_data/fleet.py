@@ -8,7 +8,8 @@ and its rod speed is logged. Every unit follows the same continuous-time model
 
 (a compliant coupling between motor and rod gives the resonance ``wn``; the current
 loop and the rod friction give the real time constant ``tau``), with unit-to-unit
-spread of the parameters (normal, relative standard deviations in ``SPREAD``). A few
+spread of the parameters (normal, relative standard deviations in ``SPREAD``, draws
+clipped at +-``TOLERANCE_SIGMAS`` standard deviations: the production tolerance). A few
 units are planted as odd (``PLANTS``):
 
 * ``low_resonance`` - the resonance 8 % below the unit's drawn value (a loose coupling);
@@ -46,6 +47,8 @@ NOMINAL_DAMPING = 0.06
 NOMINAL_TIME_CONSTANT_S = 0.05
 #: Relative standard deviation of each parameter over the fleet.
 SPREAD = {"gain": 0.02, "resonance": 0.015, "damping": 0.08, "time_constant": 0.03}
+#: Draws beyond this many standard deviations are clipped (units outside it never leave the line).
+TOLERANCE_SIGMAS = 2.5
 #: The additional mode of an ``extra_mode`` unit.
 EXTRA_MODE_HZ = 70.0
 EXTRA_MODE_DAMPING = 0.05
@@ -89,7 +92,7 @@ def draw_fleet(n_units: int, seed: int, plants: dict[int, str] | None = None) ->
     rng = np.random.default_rng(seed)
     units = []
     for k in range(1, n_units + 1):
-        draw = rng.standard_normal(4)
+        draw = np.clip(rng.standard_normal(4), -TOLERANCE_SIGMAS, TOLERANCE_SIGMAS)
         a = Actuator(
             serial=f"AX-{seed}-{k:04d}",
             gain_mm_s_per_a=NOMINAL_GAIN_MM_S_PER_A * (1 + SPREAD["gain"] * draw[0]),

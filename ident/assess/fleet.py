@@ -436,8 +436,12 @@ def _mode_words(mode: ModePoint) -> str:
 
 
 def presence_reasons(modes: FleetModes, unit: int, unit_modes: Sequence[ModePoint],
-                     rule: OutlierRule | None = None) -> list[str]:
+                     rule: OutlierRule | None = None, *, band_hz: Sequence[float] | None = None) -> list[str]:
     """Extra and missing modes of unit number ``unit`` under the rule's rare-mode fraction.
+
+    Only modes inside the band the unit's input excited count: outside it the data
+    cannot pin a mode down (a fit may add or drop one there by chance), as in the
+    drift comparison.
 
     Parameters
     ----------
@@ -448,6 +452,8 @@ def presence_reasons(modes: FleetModes, unit: int, unit_modes: Sequence[ModePoin
     unit_modes : sequence of ModePoint
         That unit's modes (as given to :func:`match_fleet_modes`).
     rule : OutlierRule, optional
+    band_hz : (float, float), optional
+        The unit's excited band; default: every frequency counts.
 
     Returns
     -------
@@ -459,10 +465,14 @@ def presence_reasons(modes: FleetModes, unit: int, unit_modes: Sequence[ModePoin
     n_units = modes.assignment.shape[0]
     if n_units < rule.min_units:
         return []
+    lo, hi = (0.0, math.inf) if band_hz is None else (float(band_hz[0]), float(band_hz[1]))
     reasons = []
     for k, count in enumerate(modes.counts):
         common = count >= rule.rare_mode_fraction * n_units
         j = modes.assignment[unit, k]
+        mode = unit_modes[j] if j >= 0 else modes.reference[k]
+        if not lo <= mode.natural_frequency_hz <= hi:
+            continue
         if j >= 0 and not common:
             reasons.append(f"extra mode {k + 1} ({_mode_words(unit_modes[j])}), present in {count} of "
                            f"{n_units} units")

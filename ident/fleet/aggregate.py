@@ -9,7 +9,8 @@ outlier:
   :func:`ident.assess.fleet.robust_screen`): each mode's natural frequency and
   damping ratio (oscillating modes) or time constant (real modes), each output's
   validation fit (low side only), each channel's DC gain;
-- an extra mode, or a missing one (:func:`ident.assess.fleet.presence_reasons`);
+- an extra mode, or a missing one, inside the unit's excited band
+  (:func:`ident.assess.fleet.presence_reasons`);
 - with a reference model: a matched mode or DC gain that differs from the
   reference's by more than the pipeline's ``[drift]`` thresholds.
 
@@ -287,7 +288,8 @@ def analyse_fleet(
         row = _base_row(record)
         u = by_unit.get(record.unit)
         if u is not None:
-            reasons = screen_reasons(screen, u) + presence_reasons(fleet, u, points[u], rule)
+            reasons = screen_reasons(screen, u) + presence_reasons(fleet, u, points[u], rule,
+                                                                       band_hz=record.excited_band_hz)
             if reference_modes is not None:
                 reasons += _reference_reasons(fleet, u, points[u], record, reference_gains or {},
                                               drift_thresholds or DriftThresholds())
