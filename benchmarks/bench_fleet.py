@@ -45,7 +45,7 @@ spec = load_pipeline(sys.argv[1], expand_logs=False)
 logs = collect_logs([sys.argv[2]])
 names = name_units(logs)
 out = Path(sys.argv[3]); out.mkdir(parents=True, exist_ok=True)
-write = _writer(out, ())
+write = _writer(out)
 digest = settings_hash(spec)
 start = time.perf_counter()
 for name, path, folder in zip(names, logs, unit_folders(names)):

@@ -26,8 +26,10 @@ import io
 import json
 import os
 import platform
+import threading
 import time
 from collections.abc import Callable, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -148,11 +150,13 @@ def _reusable(folder: Path, job: UnitJob, digest: str) -> UnitRecord | None:
     return record if digest_now is not None and digest_now == record.log_sha256 else None
 
 
-def _writer(folder: Path, protected: tuple[Path, ...]) -> Callable[[UnitOutcome], UnitRecord]:
+def _writer(folder: Path) -> Callable[[UnitOutcome], UnitRecord]:
+    """Return the function that writes one unit's files (the unit's own log is never written)."""
     from ..io.atomic import write_atomic
 
     def write(outcome: UnitOutcome) -> UnitRecord:
         record = outcome.record
+        protected = (Path(record.log_path),)
         where = folder / UNITS_FOLDER / record.folder
         where.mkdir(parents=True, exist_ok=True)
         if outcome.model_text is not None:
@@ -174,23 +178,40 @@ def _engine_description(scheduler: str | None, workers: int | None) -> str:
 
 def _compute(spec: PipelineSpec, jobs: list[UnitJob], digest: str, folder: Path, scheduler: str | None,
              workers: int | None, records: list[UnitRecord], progress: Progress) -> dict[str, float]:
-    """Run the jobs on the engine, writing each unit as it arrives; the timing of the engine."""
+    """Run the jobs on the engine, writing each unit as it arrives; return the timing of the engine.
+
+    The files of a unit are written by a writer thread (each ``write_atomic`` waits for its
+    ``fsync``), so collecting results and sending new jobs never waits for the disk.
+    """
     from .engine import open_client, require_dask, run_jobs
 
     require_dask()
     total = len(records) + len(jobs)
     failed = [sum(1 for r in records if not r.ok)]
-    write = _writer(folder, tuple(Path(j.log_path) for j in jobs))
+    write = _writer(folder)
+    lock = threading.Lock()
 
-    def arrived(outcome: UnitOutcome) -> None:
-        records.append(write(outcome))
-        failed[0] += 0 if outcome.record.ok else 1
-        progress(len(records), total, failed[0])
+    def written(future: Future) -> None:
+        if future.exception() is not None:
+            return  # raised after the engine is done
+        with lock:
+            records.append(future.result())
+            failed[0] += 0 if records[-1].ok else 1
+            progress(len(records), total, failed[0])
 
+    pending: list[Future] = []
     start = time.perf_counter()
-    with open_client(scheduler, workers) as client:
-        ready = time.perf_counter()
-        busy = run_jobs(client, spec, jobs, digest, arrived)
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="rigfit-fleet-writer") as writer:
+        def arrived(outcome: UnitOutcome) -> None:
+            future = writer.submit(write, outcome)
+            future.add_done_callback(written)
+            pending.append(future)
+
+        with open_client(scheduler, workers) as client:
+            ready = time.perf_counter()
+            busy = run_jobs(client, spec, jobs, digest, arrived)
+    for future in pending:
+        future.result()  # a unit that could not be written (disk full, permissions) stops the run here
     return {"engine_start_s": ready - start, "units_s": busy, "engine_total_s": time.perf_counter() - start}
 
 
