@@ -154,6 +154,19 @@ def test_report_embeds_every_figure_and_fetches_nothing(fleet_run):
         assert unit in page
 
 
+def test_report_escapes_names_and_errors(fleet_run):
+    from ident.fleet_report import render_fleet_report
+
+    summary = json.loads(fleet_run.summary_path.read_text(encoding="utf-8"))
+    evil = "<img src=x onerror=alert(1)>"
+    summary["name"] = evil
+    summary["failed"] = [{"unit": evil, "log": evil + ".csv", "error": f"{evil}.csv: not a number ('<b>')"}]
+    summary["units"][0]["unit"] = evil
+    page = render_fleet_report(summary, {})
+    assert "<img src=x" not in page and "<b>" not in page
+    assert "&lt;img src=x onerror=alert(1)&gt;" in page
+
+
 def test_a_corrupt_and_a_missing_log_fail_alone(tmp_path, fleet_dir, cluster, run_cli):
     d, _, pipeline = fleet_dir
     logs = [d / "logs" / f"eol_{k:04d}.csv" for k in (1, 2, 4, 5, 6)]
