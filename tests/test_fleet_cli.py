@@ -49,6 +49,7 @@ def test_without_dask_the_error_names_the_extra(tmp_path, run_cli, monkeypatch):
     monkeypatch.setitem(sys.modules, "distributed", None)  # import distributed now raises ImportError
     err = _one_error(run_cli("fleet", _pipeline(tmp_path), _log(tmp_path / "a.csv"), "--out", tmp_path / "runs"))
     assert "rigfit fleet runs on Dask" in err and "pip install 'rigfit[fleet]'" in err
+    assert not list(tmp_path.glob("runs/fleet-*"))  # nothing written
 
 
 @pytest.mark.parametrize("args, words", [

@@ -176,9 +176,12 @@ def _engine_description(scheduler: str | None, workers: int | None) -> str:
     return f"embedded Dask cluster, {workers or os.cpu_count() or 1} worker processes"
 
 
-def _compute(spec: PipelineSpec, jobs: list[UnitJob], digest: str, folder: Path, scheduler: str | None,
-             workers: int | None, records: list[UnitRecord], progress: Progress) -> dict[str, float]:
-    """Run the jobs on the engine, writing each unit as it arrives; return the timing of the engine.
+def _compute(spec: PipelineSpec, jobs: list[UnitJob], digest: str, start_folder: Callable[[], Path],
+             scheduler: str | None, workers: int | None, records: list[UnitRecord],
+             progress: Progress) -> tuple[Path, dict[str, float]]:
+    """Run the jobs on the engine, writing each unit as it arrives; return the folder and the engine's timing.
+
+    ``start_folder`` is called once the engine is up and gives the run folder.
 
     The files of a unit are written by a writer thread (each ``write_atomic`` waits for its
     ``fsync``), so collecting results and sending new jobs never waits for the disk.
@@ -188,7 +191,6 @@ def _compute(spec: PipelineSpec, jobs: list[UnitJob], digest: str, folder: Path,
     require_dask()
     total = len(records) + len(jobs)
     failed = [sum(1 for r in records if not r.ok)]
-    write = _writer(folder)
     lock = threading.Lock()
 
     def written(future: Future) -> None:
@@ -202,17 +204,21 @@ def _compute(spec: PipelineSpec, jobs: list[UnitJob], digest: str, folder: Path,
     pending: list[Future] = []
     start = time.perf_counter()
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="rigfit-fleet-writer") as writer:
-        def arrived(outcome: UnitOutcome) -> None:
-            future = writer.submit(write, outcome)
-            future.add_done_callback(written)
-            pending.append(future)
-
         with open_client(scheduler, workers) as client:
             ready = time.perf_counter()
+            folder = start_folder()
+            write = _writer(folder)
+
+            def arrived(outcome: UnitOutcome) -> None:
+                future = writer.submit(write, outcome)
+                future.add_done_callback(written)
+                pending.append(future)
+
             busy = run_jobs(client, spec, jobs, digest, arrived)
     for future in pending:
         future.result()  # a unit that could not be written (disk full, permissions) stops the run here
-    return {"engine_start_s": ready - start, "units_s": busy, "engine_total_s": time.perf_counter() - start}
+    return folder, {"engine_start_s": ready - start, "units_s": busy,
+                    "engine_total_s": time.perf_counter() - start}
 
 
 def run_fleet(
@@ -291,17 +297,27 @@ def run_fleet(
 
         ref_model = load_model(ref_path)
     digest = settings_hash(spec)
-    folder = _open_folder(spec, digest, paths, out_dir, resume)
     stamp = _now()
-    _write_marker(spec, folder, digest, stamp, resume is not None)
-    report = progress if progress is not None else (lambda done, total, failed: None)
-    records = [r for r in (_reusable(folder, j, digest) if resume is not None else None for j in jobs_all) if r]
+    records: list[UnitRecord] = []
+    if resume is not None:
+        folder = _open_folder(spec, digest, paths, None, resume)
+        records = [r for r in (_reusable(folder, j, digest) for j in jobs_all) if r is not None]
     done = {r.unit for r in records}
     jobs = [j for j in jobs_all if j.unit not in done]
-    report(len(records), len(jobs_all), 0)
+    report = progress if progress is not None else (lambda done, total, failed: None)
+
+    def start() -> Path:
+        # called once the engine is up: bad input and an unreachable engine leave no folder behind
+        where = folder if resume is not None else _open_folder(spec, digest, paths, out_dir, None)
+        _write_marker(spec, where, digest, stamp, resume is not None)
+        report(len(records), len(jobs_all), 0)
+        return where
+
     timing: dict[str, float] = {}
     if jobs:
-        timing = _compute(spec, jobs, digest, folder, scheduler, workers, records, report)
+        folder, timing = _compute(spec, jobs, digest, start, scheduler, workers, records, report)
+    else:
+        folder = start()
     return _finish(spec, folder, records, digest, stamp, ref_model, ref_path, timing,
                    computed=len(jobs), reused=len(jobs_all) - len(jobs),
                    engine=_engine_description(scheduler, workers))
