@@ -141,7 +141,8 @@ def _print(row: dict, workers: list[int]) -> None:
         r = row[w]
         print(f"  {w} worker(s): whole command {r['wall_s']:.1f} s ({n / r['wall_s']:.1f} units/s); "
               f"jobs {r['units_s']:.1f} s ({n / r['units_s']:.1f} units/s); cluster start {r['start_s']:.1f} s; "
-              f"driver peak {r['peak_rss_mib']:.0f} MiB, CPU {1000 * r['driver_cpu_s'] / n:.1f} ms per unit; failed {r['failed']}; planted units found exactly: "
+              f"driver peak {r['peak_rss_mib']:.0f} MiB, CPU {1000 * r['driver_cpu_s'] / n:.1f} ms per unit; "
+              f"failed {r['failed']}; planted units found exactly: "
               f"{r['found']}" + (f" (also flagged {r['extra']}, missed {r['missed']})" if not r["found"] else ""))
     if 1 in workers:
         over = row[1]["units_s"] / loop_s - 1

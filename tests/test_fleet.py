@@ -240,3 +240,17 @@ def test_embedded_cluster_from_the_command_line(tmp_path, fleet_dir, run_cli):
     assert {"fleet.csv", "fleet.parquet", "fleet.html", "fleet.json", "pipeline.toml"} <= {
         p.name for p in folder.iterdir()}
     assert "run folder:" in result.stdout and "fleet of 6 units" in result.stdout
+
+
+def test_scenario_units_have_the_documented_dynamics():
+    # the generator's transfer function against the parameters it documents (closed form:
+    # poles of the quadratic at -zeta wn +- j wn sqrt(1 - zeta^2), the real pole at -1/tau, DC gain K)
+    a = FLEET.Actuator("AX", 40.0, 24.0, 0.06, 0.05)
+    num, den = FLEET.actuator_tf(a)
+    poles = np.roots(den)
+    pair = poles[np.argmax(poles.imag)]
+    assert abs(abs(pair) / (2 * np.pi) - 24.0) < 1e-9 and abs(-pair.real / abs(pair) - 0.06) < 1e-12
+    assert np.min(np.abs(poles + 1 / 0.05)) < 1e-9
+    assert num[-1] / den[-1] == pytest.approx(40.0, rel=1e-12)
+    extra = FLEET.actuator_tf(FLEET.Actuator("AX", 40.0, 24.0, 0.06, 0.05, extra_mode_hz=70.0))
+    assert extra[0][-1] / extra[1][-1] == pytest.approx(40.0, rel=1e-12)  # unity DC gain of the extra mode

@@ -410,6 +410,7 @@ def evaluate_unit(spec: PipelineSpec, job: UnitJob, digest: str) -> UnitOutcome:
     summary = evaluation.summary
     summary["run"]["unit"] = job.unit
     summary["run"]["settings_hash"] = digest
+    summary["files"] = {"model": "model.json", "summary": "summary.json", "report": None}  # no figures per unit
     return UnitOutcome(
         record=_record(job, digest, summary, start),
         model_text=dumps_model(evaluation.model, evaluation.model_provenance),
