@@ -7,10 +7,12 @@ The engine is the ``dask`` / ``distributed`` pair (an optional extra,
 address it connects to a running cluster instead, whose workers must have the same
 rigfit version installed and see the log paths the driver gives them.
 
-:func:`run_jobs` keeps a bounded number of jobs in flight (a few per worker thread)
-and hands every finished unit to a callback as soon as it arrives, so the driver
-holds only what the callback keeps, whatever the number of units. A job the engine
-itself loses (a worker that died, a cancelled task) becomes a failed unit.
+:func:`run_jobs` sends the units in small batches (one task computes a few units,
+so the engine's fixed cost per task is shared; about 16 tasks per worker thread keep
+the load balanced), keeps a bounded number of tasks in flight (a few per worker
+thread) and hands every finished unit to a callback as soon as its task returns, so
+the driver holds only what the callback keeps, whatever the number of units. A task
+the engine itself loses (a worker that died, a cancelled task) makes its units failed.
 """
 
 from __future__ import annotations
@@ -19,7 +21,7 @@ import contextlib
 import logging
 import os
 import time
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from typing import Any
 
 from .._version import __version__
@@ -27,12 +29,17 @@ from ..errors import IdentError
 from ..io.pipelinefile import PipelineSpec
 from .units import UnitJob, UnitOutcome, UnitRecord, evaluate_unit, file_sha256
 
-__all__ = ["INSTALL_HINT", "require_dask", "open_client", "run_jobs", "worker_version"]
+__all__ = ["INSTALL_HINT", "require_dask", "open_client", "batch_size", "evaluate_units", "run_jobs",
+           "worker_version"]
 
 #: How to install the engine.
 INSTALL_HINT = "pip install 'rigfit[fleet]'  (or: pip install dask distributed)"
-#: Jobs kept in flight per worker thread.
-JOBS_PER_THREAD = 4
+#: Tasks kept in flight per worker thread.
+JOBS_PER_THREAD = 3
+#: Aim for about this many tasks per worker thread over a run ...
+BATCHES_PER_THREAD = 16
+#: ... with at most this many units in one task.
+MAX_BATCH = 8
 #: Seconds to wait for a scheduler to answer.
 CONNECT_TIMEOUT_S = 15
 
@@ -118,10 +125,23 @@ def _lost(job: UnitJob, digest: str, exc: BaseException) -> UnitOutcome:
     ))
 
 
+def batch_size(n_jobs: int, threads: int) -> int:
+    """Units per task: enough to make the engine's per-task cost small, few enough to balance the load.
+
+    About ``BATCHES_PER_THREAD`` tasks per worker thread, at most ``MAX_BATCH`` units each.
+    """
+    return max(1, min(MAX_BATCH, n_jobs // (BATCHES_PER_THREAD * max(1, threads))))
+
+
+def evaluate_units(spec: PipelineSpec, jobs: list[UnitJob], digest: str) -> list[UnitOutcome]:
+    """Compute a batch of units in one task (each as :func:`ident.fleet.units.evaluate_unit`)."""
+    return [evaluate_unit(spec, job, digest) for job in jobs]
+
+
 def run_jobs(
     client: Any,
     spec: PipelineSpec,
-    jobs: Iterable[UnitJob],
+    jobs: Sequence[UnitJob],
     digest: str,
     on_outcome: Callable[[UnitOutcome], None],
 ) -> float:
@@ -132,8 +152,9 @@ def run_jobs(
     client : distributed.Client
     spec : PipelineSpec
         The fleet's pipeline, sent to every worker once.
-    jobs : iterable of UnitJob
-        Read lazily; at most ``JOBS_PER_THREAD`` per worker thread are in flight.
+    jobs : sequence of UnitJob
+        Sent in batches of :func:`batch_size` units per task; at most
+        ``JOBS_PER_THREAD`` tasks per worker thread are in flight.
     digest : str
         The settings hash recorded with every result.
     on_outcome : callable
@@ -148,30 +169,31 @@ def run_jobs(
 
     start = time.perf_counter()
     threads = max(1, sum(client.nthreads().values()))
-    window = JOBS_PER_THREAD * threads
+    size = batch_size(len(jobs), threads)
+    batches = iter([list(jobs[k:k + size]) for k in range(0, len(jobs), size)])
     spec_future = client.scatter(spec, broadcast=True)
-    pending = iter(jobs)
-    by_key: dict[str, UnitJob] = {}
+    by_key: dict[str, list[UnitJob]] = {}
 
     def submit() -> Any:
-        job = next(pending, None)
-        if job is None:
+        batch = next(batches, None)
+        if batch is None:
             return None
-        future = client.submit(evaluate_unit, spec_future, job, digest, pure=False,
-                               key=f"rigfit-unit-{job.folder}-{time.monotonic_ns()}")
-        by_key[future.key] = job
+        future = client.submit(evaluate_units, spec_future, batch, digest, pure=False,
+                               key=f"rigfit-units-{batch[0].folder}-{time.monotonic_ns()}")
+        by_key[future.key] = batch
         return future
 
-    first = [f for f in (submit() for _ in range(window)) if f is not None]
+    first = [f for f in (submit() for _ in range(JOBS_PER_THREAD * threads)) if f is not None]
     queue = as_completed(first)
     for future in queue:
-        job = by_key.pop(future.key)
+        batch = by_key.pop(future.key)
         try:
-            outcome = future.result()
-        except Exception as exc:  # the engine lost the job (dead worker, cancellation): a failed unit
-            outcome = _lost(job, digest, exc)
+            outcomes = future.result()
+        except Exception as exc:  # the engine lost the task (dead worker, cancellation): failed units
+            outcomes = [_lost(job, digest, exc) for job in batch]
         future.release()
-        on_outcome(outcome)
+        for outcome in outcomes:
+            on_outcome(outcome)
         nxt = submit()
         if nxt is not None:
             queue.add(nxt)

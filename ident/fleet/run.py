@@ -24,6 +24,7 @@ import datetime as _dt
 import hashlib
 import io
 import json
+import math
 import os
 import platform
 import threading
@@ -437,7 +438,7 @@ def _panels(a: FleetAnalysis, names: Sequence[str], rule: Any) -> dict[str, Any]
 
 
 def _is_finite(x: Any) -> bool:
-    return x is not None and bool(x == x) and abs(float(x)) != float("inf")
+    return x is not None and math.isfinite(float(x))
 
 
 def _figures(a: FleetAnalysis, rule: Any) -> list[tuple[dict[str, str], bytes]]:
