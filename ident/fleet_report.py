@@ -105,6 +105,11 @@ def _tiles(s: Mapping[str, Any]) -> str:
 def _outliers(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     rule = s["rule"]
     parts: list[Any] = [_p("Rule: " + rule["statement"] + ".", cls="rule")]
+    if rule.get("chance_flags") is not None:
+        parts.append(_p(f"In a fleet of this size whose units all came from one normal distribution, this rule "
+                        f"would flag about {rule['chance_flags']:.2g} values by chance; when that is near 1 or "
+                        "more, a flag with |z| close to the threshold may be a healthy unit (raise the threshold "
+                        "for large fleets)."))
     out = s.get("outliers", [])
     if not out:
         parts.append(_p("No unit is an outlier under this rule.", cls="good"))

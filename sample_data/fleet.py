@@ -12,8 +12,8 @@ spread of the parameters (normal, relative standard deviations in ``SPREAD``, dr
 clipped at +-``TOLERANCE_SIGMAS`` standard deviations: the production tolerance). A few
 units are planted as odd (``PLANTS``):
 
-* ``low_resonance`` - the resonance 8 % below the unit's drawn value (a loose coupling);
-* ``high_damping`` - twice the unit's drawn damping ratio (a dragging seal);
+* ``low_resonance`` - the resonance 8 % below the design value (a loose coupling);
+* ``high_damping`` - twice the design damping ratio (a dragging seal);
 * ``extra_mode`` - an additional lightly damped mode at ``EXTRA_MODE_HZ`` in series
   (a cracked mounting bracket), unity DC gain.
 
@@ -102,9 +102,9 @@ def draw_fleet(n_units: int, seed: int, plants: dict[int, str] | None = None) ->
         )
         kind = (plants or {}).get(k)
         if kind == "low_resonance":
-            a = replace(a, resonance_hz=0.92 * a.resonance_hz, plant=kind)
+            a = replace(a, resonance_hz=0.92 * NOMINAL_RESONANCE_HZ, plant=kind)
         elif kind == "high_damping":
-            a = replace(a, damping_ratio=2.0 * a.damping_ratio, plant=kind)
+            a = replace(a, damping_ratio=2.0 * NOMINAL_DAMPING, plant=kind)
         elif kind == "extra_mode":
             a = replace(a, extra_mode_hz=EXTRA_MODE_HZ, plant=kind)
         elif kind is not None:

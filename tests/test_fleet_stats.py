@@ -12,6 +12,7 @@ from ident.assess.fleet import (
     ModePoint,
     OutlierRule,
     Quantity,
+    chance_flags,
     match_fleet_modes,
     median_unit,
     presence_reasons,
@@ -134,3 +135,11 @@ def test_presence_reasons_name_extra_and_missing_modes():
     assert len(extra) == 1 and extra[0].startswith("extra mode 3 (70 Hz") and "1 of 7 units" in extra[0]
     missing = presence_reasons(fleet, 6, units[6], rule)
     assert len(missing) == 1 and missing[0].startswith("lacks mode 2 (24 Hz") and "6 of 7 units" in missing[0]
+
+
+def test_chance_flags_counts_the_normal_tail():
+    x = np.column_stack([np.linspace(-1, 1, 101), np.linspace(90, 99, 101)])
+    qs = [Quantity("a", "a", ""), Quantity("fit", "fit", "%", side="low")]
+    screen = robust_screen(x, qs, OutlierRule(threshold=3.0))
+    # 101 * 2 * Q(3) + 101 * Q(3), Q(3) = 1.3499e-3 (scipy.stats.norm.sf(3))
+    assert chance_flags(screen) == pytest.approx(101 * 3 * stats.norm.sf(3.0), rel=1e-12)

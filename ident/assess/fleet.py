@@ -44,6 +44,7 @@ __all__ = [
     "robust_screen",
     "screen_reasons",
     "presence_reasons",
+    "chance_flags",
 ]
 
 #: Factor that turns the median absolute deviation into a standard-deviation estimate
@@ -480,3 +481,24 @@ def presence_reasons(modes: FleetModes, unit: int, unit_modes: Sequence[ModePoin
             reasons.append(f"lacks mode {k + 1} ({_mode_words(modes.reference[k])}), present in {count} of "
                            f"{n_units} units")
     return reasons
+
+
+def chance_flags(screen: RobustScreen) -> float:
+    """Return the expected number of values the rule flags by chance alone in a fleet of normal units.
+
+    ``sum over screened quantities of n_values * P(flag | x normal)``, where the
+    probability is ``2 Q(threshold)`` for a two-sided quantity and ``Q(threshold)`` for
+    a one-sided one (``Q`` the upper tail of the standard normal distribution,
+    :func:`scipy.stats.norm.sf`), taking the robust scale as the standard
+    deviation. A number near or above 1 says that in a fleet this large the
+    threshold flags healthy units now and then; raising it (e.g. to the
+    ``t`` with ``chance_flags < 0.05``) keeps the false alarms rare.
+    """
+    from scipy.stats import norm
+
+    tail = float(norm.sf(screen.rule.threshold))
+    total = 0.0
+    for q, quantity in enumerate(screen.quantities):
+        if np.isfinite(screen.scale[q]):
+            total += int(screen.n_values[q]) * (2 * tail if quantity.side == "both" else tail)
+    return total

@@ -37,6 +37,7 @@ from typing import Any
 
 from .._json import json_ready
 from .._version import __version__
+from ..assess.fleet import chance_flags
 from ..errors import IdentError
 from ..io.pipelinefile import PipelineSpec, load_pipeline
 from .aggregate import FleetAnalysis, analyse_fleet, reference_of_model
@@ -397,7 +398,8 @@ def _fleet_summary(spec: PipelineSpec, folder: Path, a: FleetAnalysis, digest: s
         "format": FLEET_FORMAT, "schema_version": 1, "name": spec.name, "notes": spec.notes,
         "run": {"folder": folder.name, "created_utc": stamp.isoformat().replace("+00:00", "Z")},
         "passed": passed, "headline": headline, "counts": counts,
-        "rule": {**spec.fleet.rule.to_dict(), "statement": spec.fleet.rule.statement()},
+        "rule": {**spec.fleet.rule.to_dict(), "statement": spec.fleet.rule.statement(),
+                 "chance_flags": None if a.screen is None else chance_flags(a.screen)},
         "reference": reference, "modes": a.modes_summary, "quantities": a.quantities_summary,
         "outliers": [{"unit": u, "reasons": rows[u]["reason"].split("; "),
                       "largest_robust_z": rows[u]["largest_robust_z"]} for u in a.outliers],
