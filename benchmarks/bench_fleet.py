@@ -73,6 +73,7 @@ def _pipeline(folder: Path) -> Path:
         [fit]
         method = "subspace"
         max_order = 6
+        tie_tolerance = 1.0
         [check]
         max_lag = 25
         """), encoding="utf-8")

@@ -44,6 +44,7 @@ def write_pipeline(folder: Path, first_log: str) -> Path:
         [fit]
         method = "subspace"
         max_order = 6
+        tie_tolerance = 1.0
         [check]
         max_lag = 25
         """), encoding="utf-8")
