@@ -237,7 +237,7 @@ def test_embedded_cluster_from_the_command_line(tmp_path, fleet_dir, run_cli):
     summary = json.loads((folder / "fleet.json").read_text(encoding="utf-8"))
     assert result.exit_code == (0 if summary["passed"] else 3), result.stderr
     assert summary["counts"]["units"] == 6 and summary["counts"]["ok"] == 6
-    assert summary["engine"]["description"] == "embedded Dask cluster, 1 worker processes"
+    assert summary["engine"]["description"] == "embedded Dask cluster, 1 worker process"
     assert {"fleet.csv", "fleet.parquet", "fleet.html", "fleet.json", "pipeline.toml"} <= {
         p.name for p in folder.iterdir()}
     assert "run folder:" in result.stdout and "fleet of 6 units" in result.stdout

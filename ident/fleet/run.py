@@ -175,7 +175,8 @@ def _writer(folder: Path) -> Callable[[UnitOutcome], UnitRecord]:
 def _engine_description(scheduler: str | None, workers: int | None) -> str:
     if scheduler is not None:
         return f"Dask scheduler at {scheduler}"
-    return f"embedded Dask cluster, {workers or os.cpu_count() or 1} worker processes"
+    n = workers or os.cpu_count() or 1
+    return f"embedded Dask cluster, {n} worker process" + ("" if n == 1 else "es")
 
 
 def _compute(spec: PipelineSpec, jobs: list[UnitJob], digest: str, start_folder: Callable[[], Path],
