@@ -62,7 +62,9 @@ __all__ = [
     "SAFETY_CAUTION",
     "Gate",
     "RunResult",
+    "Evaluation",
     "run_pipeline",
+    "evaluate_pipeline",
 ]
 
 #: ``format`` field of ``summary.json``.
@@ -157,6 +159,31 @@ class RunResult:
         return tuple(g for g in self.gates if not g.passed)
 
 
+@dataclass(frozen=True, slots=True, eq=False)
+class Evaluation:
+    """What :func:`evaluate_pipeline` computed, before anything is written.
+
+    Attributes
+    ----------
+    passed : bool
+        True when every gate passed.
+    gates : tuple of Gate
+    summary : dict
+        The content ``summary.json`` would have, with no figures (``figures`` is
+        empty and ``files`` names the usual file names).
+    model : ident.lti.models.StateSpaceModel
+        The selected model.
+    model_provenance : dict
+        The ``provenance`` argument for :func:`ident.io.modelfile.save_model`.
+    """
+
+    passed: bool
+    gates: tuple[Gate, ...]
+    summary: dict[str, Any]
+    model: Any
+    model_provenance: dict[str, Any]
+
+
 # --------------------------------------------------------------------------- public API
 
 
@@ -198,6 +225,74 @@ def run_pipeline(
     if out_dir is not None and Path(out_dir).exists() and not Path(out_dir).is_dir():
         raise IdentError(f"{out_dir}: exists and is not a folder", hint="give a folder for the run folders")
     report = progress if progress is not None else (lambda step, fraction: None)
+    state = _compute_and_warn(spec, baseline, report)
+    report("drawing figures", 0.85)
+    figures = _figures(state)
+    report("writing the run folder", 0.95)
+    result = _write(spec, state, figures, out_dir)
+    report("done", 1.0)
+    return result
+
+
+def evaluate_pipeline(
+    spec: PipelineSpec | str | os.PathLike,
+    *,
+    baseline: str | os.PathLike | None = None,
+    run_folder: str | None = None,
+    progress: Callable[[str, float], None] | None = None,
+) -> Evaluation:
+    """Run every computation of a pipeline and evaluate its gates, writing nothing.
+
+    The same steps as :func:`run_pipeline` without the figures and the run
+    folder, for callers that write their own outputs (``rigfit fleet`` runs this
+    once per unit).
+
+    Parameters
+    ----------
+    spec : PipelineSpec or path-like
+        The parsed pipeline, or the path of a pipeline file.
+    baseline : path-like, optional
+        Model file to compare with; overrides ``[drift] baseline``.
+    run_folder : str, optional
+        Name recorded as the run folder in the summary and the model provenance.
+    progress : callable, optional
+        Called as ``progress(step, fraction_done)`` between steps.
+
+    Returns
+    -------
+    Evaluation
+        The summary (as ``summary.json`` would hold it, with no figures), the
+        gates, the model and what the model file records about it.
+
+    Raises
+    ------
+    ident.errors.IdentError
+        As :func:`run_pipeline`.
+
+    Warns
+    -----
+    IdentWarning
+        Every warning of the steps, once each (they are also listed in
+        ``summary["warnings"]``).
+    """
+    if not isinstance(spec, PipelineSpec):
+        spec = load_pipeline(spec)
+    report = progress if progress is not None else (lambda step, fraction: None)
+    state = _compute_and_warn(spec, baseline, report)
+    created = _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    gates = _gates(state)
+    summary = _summary(state, gates, created, run_folder, [])
+    return Evaluation(
+        passed=summary["verdict"]["passed"], gates=tuple(gates), summary=summary,
+        model=state["result"].model, model_provenance=_model_provenance(spec, state, summary, run_folder),
+    )
+
+
+# --------------------------------------------------------------------------- steps
+
+
+def _compute_and_warn(spec: PipelineSpec, baseline: Any, report: Callable[[str, float], None]) -> dict[str, Any]:
+    """:func:`_compute` with its warnings collected in ``state["warnings"]`` and re-issued once each."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         state = _compute(spec, baseline, report)
@@ -207,17 +302,9 @@ def run_pipeline(
         if text not in texts:
             texts.append(text)
             category = w.category if issubclass(w.category, IdentWarning) else IdentWarning
-            warnings.warn(text, category, stacklevel=2)
+            warnings.warn(text, category, stacklevel=3)
     state["warnings"] = texts
-    report("drawing figures", 0.85)
-    figures = _figures(state)
-    report("writing the run folder", 0.95)
-    result = _write(spec, state, figures, out_dir)
-    report("done", 1.0)
-    return result
-
-
-# --------------------------------------------------------------------------- steps
+    return state
 
 
 def _read_logs(spec: PipelineSpec) -> list[Any]:
@@ -467,7 +554,7 @@ def _drift_dict(drift: Any, baseline_path: Path, baseline: Any) -> dict[str, Any
     }
 
 
-def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: str,
+def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: str | None,
              figures: list[dict[str, str]]) -> dict[str, Any]:
     """Build ``summary.json``: verdict, gates, data, model, validation, modes, drift and provenance."""
     from .assess.modes import mode_table_to_dict
@@ -688,6 +775,30 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
 # --------------------------------------------------------------------------- output
 
 
+def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[str, Any],
+                      folder_name: str | None) -> dict[str, Any]:
+    """Return what the model file records about the logs, the estimation, the validation and the run."""
+    from .io.modelfile import uncertainty_provenance
+
+    result = state["result"]
+    prep = result.prepared
+    return {
+        "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in state["logs"]],
+                "sample_time": state["logs"][0].sample_time,
+                # longest contiguous segment: what `rigfit modes` judges slow time constants against
+                "duration_s": state["log_duration_s"]},
+        "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
+                       "method": result.method, "order": result.order, "options": result.options.to_dict(),
+                       "ranges": [list(r) for r in prep.estimation_ranges],
+                       "sample_time": prep.sample_time, "decimation": prep.decimation,
+                       "input_delay": list(result.input_delay), "noise_model": result.noise_model,
+                       **uncertainty_provenance(state["pole_covariance"], result.covariance)},
+        "validation": {"ranges": [list(r) for r in prep.validation_ranges],
+                       "fit_percent": summary["model"]["validation_fit"]},
+        "run": {"folder": folder_name, "passed": summary["verdict"]["passed"]},
+    }
+
+
 def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
     parent.mkdir(parents=True, exist_ok=True)
     base = f"{stamp}-{digest}"
@@ -704,7 +815,7 @@ def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
 def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[str, str], bytes]],
            out_dir: Any) -> RunResult:
     from .io.atomic import write_atomic
-    from .io.modelfile import save_model, uncertainty_provenance
+    from .io.modelfile import save_model
     from .report import render_report
 
     now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
@@ -724,22 +835,8 @@ def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[s
     summary = _summary(state, gates, created, folder.name, [meta for meta, _ in figures])
     summary["run"]["inputs_hash"] = digest
     result = state["result"]
-    prep = result.prepared
-    model_path = save_model(folder / MODEL_FILE, result.model, protected=protected, provenance={
-        "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in state["logs"]],
-                "sample_time": state["logs"][0].sample_time,
-                # longest contiguous segment: what `rigfit modes` judges slow time constants against
-                "duration_s": state["log_duration_s"]},
-        "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
-                       "method": result.method, "order": result.order, "options": result.options.to_dict(),
-                       "ranges": [list(r) for r in prep.estimation_ranges],
-                       "sample_time": prep.sample_time, "decimation": prep.decimation,
-                       "input_delay": list(result.input_delay), "noise_model": result.noise_model,
-                       **uncertainty_provenance(state["pole_covariance"], result.covariance)},
-        "validation": {"ranges": [list(r) for r in prep.validation_ranges],
-                       "fit_percent": summary["model"]["validation_fit"]},
-        "run": {"folder": folder.name, "passed": summary["verdict"]["passed"]},
-    })
+    model_path = save_model(folder / MODEL_FILE, result.model, protected=protected,
+                            provenance=_model_provenance(spec, state, summary, folder.name))
     figure_paths = [write_atomic(folder / meta["file"], data, protected=protected) for meta, data in figures]
     if spec.path is not None and spec.path.is_file():
         write_atomic(folder / PIPELINE_COPY, spec.path.read_bytes(), protected=protected)

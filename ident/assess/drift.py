@@ -13,6 +13,7 @@ given) how well each model explains the new data complete the comparison.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -36,6 +37,7 @@ __all__ = [
     "DriftReport",
     "compare_models",
     "drift_report_to_dict",
+    "match_modes",
 ]
 
 #: How a mode of one model relates to the other model.
@@ -190,11 +192,11 @@ class DriftReport:
         return not self.breaches
 
 
-def _log_freq(mode: Mode) -> float:
+def _log_freq(mode: Any) -> float:
     return math.log(max(mode.natural_frequency_hz or 0.0, 1e-300))
 
 
-def _damping(mode: Mode) -> float:
+def _damping(mode: Any) -> float:
     # an integrator (z = 1) has no damping ratio; it sits with the non-oscillating modes
     return 1.0 if mode.damping_ratio is None else mode.damping_ratio
 
@@ -208,7 +210,36 @@ def _comparable(modes: tuple[Mode, ...]) -> tuple[Mode, ...]:
 _PAIR_MISMATCH_COST = 10.0
 
 
-def _match(base: tuple[Mode, ...], new: tuple[Mode, ...], limit: float) -> list[tuple[int | None, int | None]]:
+def match_modes(base: Sequence[Any], new: Sequence[Any], limit: float) -> list[tuple[int | None, int | None]]:
+    """Pair the modes of two models by an optimal assignment on frequency and damping.
+
+    Parameters
+    ----------
+    base, new : sequence of Mode
+        The modes to pair; anything with ``natural_frequency_hz`` (not None),
+        ``damping_ratio`` (None for an integrator) and ``is_pair`` attributes.
+    limit : float
+        Pairs whose cost exceeds this are not paired
+        (:attr:`DriftThresholds.match_cost_limit`).
+
+    Returns
+    -------
+    list of (int or None, int or None)
+        Index pairs ``(i, j)`` of paired modes, then ``(i, None)`` for every
+        unpaired mode of ``base`` and ``(None, j)`` for every unpaired one of ``new``.
+
+    Notes
+    -----
+    The cost of pairing is ``|ln(f_new / f_base)| + |zeta_new - zeta_base|`` (a real
+    pole counts as damping ratio 1), plus 10 when a complex pair would meet a real
+    pole; the total cost of the one-to-one pairing is minimised exactly by
+    :func:`scipy.optimize.linear_sum_assignment` [1]_.
+
+    References
+    ----------
+    .. [1] H. W. Kuhn, "The Hungarian method for the assignment problem", Naval
+       Research Logistics Quarterly 2, 83-97, 1955.
+    """
     if not base or not new:
         return [(i, None) for i in range(len(base))] + [(None, j) for j in range(len(new))]
     cost = np.array(
@@ -386,7 +417,7 @@ def compare_models(
     new_modes = _comparable(mode_table(new, pole_covariance=new_pole_covariance).modes)
     shifts = tuple(
         _mode_shift(None if i is None else base_modes[i], None if j is None else new_modes[j], th, band_hz)
-        for i, j in _match(base_modes, new_modes, th.match_cost_limit)
+        for i, j in match_modes(base_modes, new_modes, th.match_cost_limit)
     )
     shifts = tuple(
         sorted(shifts, key=lambda s: (s.baseline or s.new).natural_frequency_hz)  # type: ignore[union-attr]

@@ -31,6 +31,7 @@ _COMMANDS: dict[str, str] = {
     "check": "check_cmd:check",
     "drift": "drift_cmd:drift",
     "run": "run_cmd:run",
+    "fleet": "fleet_cmd:fleet",
     "demo": "demo_cmd:demo",
     "excite": "excite_cmd:excite",
 }
@@ -43,6 +44,7 @@ _SHORT_HELP: dict[str, str] = {
     "check": "Validate a model on a log: fit percent, residual whiteness, spectra.",
     "drift": "Compare a model with a baseline model after a hardware change.",
     "run": "Run a pipeline file end to end into a new run folder with a report.",
+    "fleet": "Run one pipeline on every unit's log (on Dask) and find the odd units out.",
     "demo": "Run the bundled demo pipelines on the sample data.",
     "excite": "Design a test signal (PRBS, multisine, chirp, ...) and write it for the rig.",
 }

@@ -161,10 +161,15 @@ def equal_accuracy_pvalue(errors_a: Sequence[np.ndarray], errors_b: Sequence[np.
         and ``se`` from the Bartlett long-run variance; small when ``a`` is
         clearly worse than ``b``. 1.0 when the differential is identically zero.
     """
-    d = [np.sum((a**2 - b**2) / scales[None, :], axis=1) for a, b in zip(errors_a, errors_b, strict=True)]
+    with np.errstate(over="ignore", invalid="ignore"):
+        d = [np.sum((a**2 - b**2) / scales[None, :], axis=1) for a, b in zip(errors_a, errors_b, strict=True)]
     N = sum(x.size for x in d)
     if N < 2:
         return 1.0
+    if not all(np.all(np.isfinite(x)) for x in d):  # one model's errors are astronomically larger
+        worse_a = sum(float(np.sum(a**2, dtype=float)) for a in errors_a) > sum(
+            float(np.sum(b**2, dtype=float)) for b in errors_b)
+        return 0.0 if worse_a else 1.0
     mean = sum(float(x.sum()) for x in d) / N
     lrv = float(long_run_covariance([x[:, None] for x in d], demean=True)[0, 0]) / N
     if not lrv > 0:

@@ -76,6 +76,7 @@ __all__ = [
     "log_from_recording",
     "resample_log",
     "read_column_names",
+    "read_first_text",
     "time_base",
     "log_from_table",
 ]
@@ -507,6 +508,44 @@ def read_column_names(path: str | os.PathLike) -> tuple[str, ...]:
         cat = _catalogue(path, kind, None, None)
         return tuple(cat.display_name(k) for k in range(len(cat.entries)))
     return tuple(_read_header(path).names)
+
+
+def read_first_text(path: str | os.PathLike, column: str) -> str | None:
+    """Return the text of ``column`` in the first data row of a log, or ``None`` without that column.
+
+    For labels logged beside the signals, such as a ``unit`` column holding the
+    serial number of the unit under test. Only the header and the first data
+    line are read. The column is matched by its bare name, ignoring case.
+
+    Raises
+    ------
+    LogFormatError
+        The header cannot be read, or the log has no data row.
+    """
+    path = os.fspath(path)
+    header = _read_header(path)
+    lower = [n.lower() for n in header.names]
+    if column.lower() not in lower:
+        return None
+    k = lower.index(column.lower())
+    if header.kind == "parquet":
+        pq = _import_parquet(path)
+        values = pq.read_table(path, columns=[header.raw[k]]).column(0)
+        if len(values) == 0:
+            raise LogFormatError("the log has no data rows", path=path)
+        value = values[0].as_py()
+        return "" if value is None else str(value)
+    with open(path, "rb") as fh:
+        fh.seek(header.data_offset)
+        for number, raw_line in enumerate(fh, start=header.header_line + 1):
+            line = raw_line.decode(header.encoding, errors="replace").rstrip("\r\n")
+            if line.strip():
+                fields = next(csv.reader([line], delimiter=header.sep, quotechar='"'))
+                if k >= len(fields):
+                    raise LogFormatError(f"the row has {len(fields)} fields, the header {len(header.raw)}",
+                                         path=path, row=number, column=header.names[k])
+                return fields[k].strip()
+    raise LogFormatError("the log has no data rows", path=path)
 
 
 def read_table(path: str | os.PathLike, *, drop_bad_rows: bool = False) -> Table:

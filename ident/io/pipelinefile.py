@@ -26,7 +26,8 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     [preprocess]   # ident.estimate.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
                    # decimate, holdout
     [fit]          # ident.estimate.identify.IdentifyOptions: method, order ("auto" or N), max_order,
-                   # delay, weighting, horizon, stabilize, tie_tolerance
+                   # delay, refinement, weighting, horizon, stabilize, significance, per_criterion,
+                   # refine_count, screen_samples
     [check]        # ident.assess.diagnostics.CheckOptions: gates min_fit, require_white; and
                    # prediction_steps, max_lag, confidence, initial_state, spectral_segment
     [modes]        # ident.assess.modes.ModeThresholds, plus fail_on = ["unstable", ...] (flags
@@ -34,6 +35,8 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     [expect]       # ident.assess.expectations.Expectations
     [drift]        # baseline = "model.json" (relative to this file) and
                    # ident.assess.drift.DriftThresholds
+    [fleet]        # for rigfit fleet only: unit_from (regex), workers, scheduler, reference
+                   # (model file), and ident.assess.fleet.OutlierRule
 
 Unknown keys and wrong types raise :class:`ident.errors.PipelineError` naming
 the file, the dotted key path (``fit.ordr``) and, for unknown keys, the
@@ -47,6 +50,7 @@ import glob
 import hashlib
 import math
 import os
+import re
 import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
@@ -57,6 +61,7 @@ from .._validate import did_you_mean
 from ..assess.diagnostics import CheckOptions
 from ..assess.drift import DriftThresholds
 from ..assess.expectations import Expectations
+from ..assess.fleet import OutlierRule
 from ..assess.modes import FLAGS, ModeThresholds
 from ..choices import UPSAMPLE_METHODS
 from ..errors import IdentError, PipelineError
@@ -71,6 +76,8 @@ __all__ = [
     "LogSpec",
     "ModesSpec",
     "DriftSpec",
+    "FleetSpec",
+    "FLEET_KEYS",
     "PipelineSpec",
     "load_pipeline",
     "parse_pipeline",
@@ -78,13 +85,15 @@ __all__ = [
 
 #: Top-level keys of a pipeline file.
 SECTIONS: tuple[str, ...] = (
-    "name", "notes", "log", "preprocess", "fit", "check", "modes", "expect", "drift",
+    "name", "notes", "log", "preprocess", "fit", "check", "modes", "expect", "drift", "fleet",
 )
 #: Keys of the ``[log]`` table.
 LOG_KEYS: tuple[str, ...] = (
     "paths", "inputs", "outputs", "time", "sample_rate_hz", "drop_bad_rows", "split_at_gaps",
     "jitter_tolerance", "units", "resample_hz", "upsample",
 )
+#: Keys of the ``[fleet]`` table besides those of :class:`ident.assess.fleet.OutlierRule`.
+FLEET_KEYS: tuple[str, ...] = ("unit_from", "workers", "scheduler", "reference")
 #: Mode flags that fail a run when ``[modes] fail_on`` is not given.
 DEFAULT_FAIL_ON: tuple[str, ...] = ("unstable",)
 
@@ -162,6 +171,32 @@ class DriftSpec:
 
 
 @dataclass(frozen=True, slots=True, eq=False)
+class FleetSpec:
+    """The ``[fleet]`` section, read by ``rigfit fleet`` only (``rigfit run`` ignores it).
+
+    Attributes
+    ----------
+    unit_from : str or None
+        Regular expression that takes a unit's name from its log path (its first
+        group, or the whole match without groups).
+    workers : int or None
+        Worker processes of the embedded cluster (default: one per core).
+    scheduler : str or None
+        Address of a running ``distributed`` scheduler to send the work to.
+    reference : pathlib.Path or None
+        Reference model file (absolute) the units' modes are matched against.
+    rule : ident.assess.fleet.OutlierRule
+        The outlier rule.
+    """
+
+    unit_from: str | None = None
+    workers: int | None = None
+    scheduler: str | None = None
+    reference: Path | None = None
+    rule: OutlierRule = field(default_factory=OutlierRule)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
 class PipelineSpec:
     """A parsed pipeline file.
 
@@ -184,6 +219,7 @@ class PipelineSpec:
     modes : ModesSpec
     expect : Expectations
     drift : DriftSpec
+    fleet : FleetSpec
     """
 
     name: str
@@ -196,6 +232,7 @@ class PipelineSpec:
     modes: ModesSpec
     expect: Expectations
     drift: DriftSpec
+    fleet: FleetSpec = field(default_factory=FleetSpec)
 
     @property
     def base_dir(self) -> Path:
@@ -238,19 +275,30 @@ class PipelineSpec:
                 **{f.name: getattr(self.drift.thresholds, f.name)
                    for f in dataclasses.fields(self.drift.thresholds)},
             },
+            "fleet": {
+                "unit_from": self.fleet.unit_from,
+                "workers": self.fleet.workers,
+                "scheduler": self.fleet.scheduler,
+                "reference": None if self.fleet.reference is None else str(self.fleet.reference),
+                **self.fleet.rule.to_dict(),
+            },
         }
 
 
 # --------------------------------------------------------------------------- public API
 
 
-def load_pipeline(path: str | os.PathLike) -> PipelineSpec:
+def load_pipeline(path: str | os.PathLike, *, expand_logs: bool = True) -> PipelineSpec:
     """Read and check a pipeline file.
 
     Parameters
     ----------
     path : path-like
         The TOML file. Relative paths inside it are relative to its folder.
+    expand_logs : bool, default True
+        Resolve ``[log] paths`` to files (each must exist). ``False`` keeps the
+        patterns only (``LogSpec.files`` empty), for callers that supply the logs
+        themselves, as ``rigfit fleet`` does.
 
     Returns
     -------
@@ -279,12 +327,13 @@ def load_pipeline(path: str | os.PathLike) -> PipelineSpec:
     except tomllib.TOMLDecodeError as exc:
         raise PipelineError(f"not valid TOML: {exc}", path=where) from exc
     return parse_pipeline(
-        mapping, path=where.resolve(), sha256=hashlib.sha256(data).hexdigest()
+        mapping, path=where.resolve(), sha256=hashlib.sha256(data).hexdigest(), expand_logs=expand_logs
     )
 
 
 def parse_pipeline(
-    mapping: Mapping[str, Any], *, path: str | os.PathLike | None = None, sha256: str = ""
+    mapping: Mapping[str, Any], *, path: str | os.PathLike | None = None, sha256: str = "",
+    expand_logs: bool = True,
 ) -> PipelineSpec:
     """Build a :class:`PipelineSpec` from a parsed TOML document.
 
@@ -297,6 +346,8 @@ def parse_pipeline(
         against its folder (the current folder without it).
     sha256 : str
         Hash of the file bytes, recorded in the spec.
+    expand_logs : bool, default True
+        As in :func:`load_pipeline`.
 
     Returns
     -------
@@ -315,7 +366,7 @@ def parse_pipeline(
     if "log" not in mapping:
         raise PipelineError("missing section [log] (the log files and their columns)", path=src,
                             key_path="log")
-    log = _parse_log(mapping["log"], base, src)
+    log = _parse_log(mapping["log"], base, src, expand=expand_logs)
 
     prep_table = _section(mapping, "preprocess", src)
     _parse_options(PreprocessOptions, prep_table, "preprocess", src,
@@ -343,9 +394,10 @@ def parse_pipeline(
     except PipelineError as exc:
         raise _with_path(exc, src) from exc
     drift = _parse_drift(_section(mapping, "drift", src), base, src)
+    fleet = _parse_fleet(_section(mapping, "fleet", src), base, src)
     return PipelineSpec(
         name=name, notes=notes, path=src, sha256=sha256, log=log, fit=fit, check=check,
-        modes=modes, expect=expect, drift=drift,
+        modes=modes, expect=expect, drift=drift, fleet=fleet,
     )
 
 
@@ -461,7 +513,7 @@ def _expand(patterns: tuple[str, ...], base: Path, src: Path | None) -> tuple[Pa
     return tuple(files)
 
 
-def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
+def _parse_log(table: Any, base: Path, src: Path | None, *, expand: bool = True) -> LogSpec:
     _check_keys(table, "log", LOG_KEYS, src)
     for key in ("paths", "inputs", "outputs"):
         if key not in table:
@@ -508,7 +560,7 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
             )
     return LogSpec(
         patterns=patterns,
-        files=_expand(patterns, base, src),
+        files=_expand(patterns, base, src) if expand else (),
         inputs=inputs,
         outputs=outputs,
         time=time,
@@ -584,3 +636,38 @@ def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None) -> Drif
     rest = {k: v for k, v in table.items() if k != "baseline"}
     thresholds = _parse_options(DriftThresholds, rest, "drift", src, DriftThresholds.from_mapping)
     return DriftSpec(baseline=baseline, thresholds=thresholds)
+
+
+def _parse_fleet(table: Mapping[str, Any], base: Path, src: Path | None) -> FleetSpec:
+    valid = (*FLEET_KEYS, *(f.name for f in dataclasses.fields(OutlierRule)))
+    _check_keys(table, "fleet", valid, src)
+    unit_from = table.get("unit_from")
+    if unit_from is not None:
+        if not isinstance(unit_from, str) or not unit_from:
+            raise PipelineError(f"must be a regular expression; got {unit_from!r}", path=src,
+                                key_path="fleet.unit_from")
+        try:
+            re.compile(unit_from)
+        except re.error as exc:
+            raise PipelineError(f"not a valid regular expression ({exc})", path=src,
+                                key_path="fleet.unit_from") from exc
+    workers = table.get("workers")
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
+        raise PipelineError(f"must be a whole number >= 1; got {workers!r}", path=src, key_path="fleet.workers")
+    scheduler = table.get("scheduler")
+    if scheduler is not None and (not isinstance(scheduler, str) or not scheduler):
+        raise PipelineError(f"must be a scheduler address such as 'tcp://host:8786'; got {scheduler!r}",
+                            path=src, key_path="fleet.scheduler")
+    if scheduler is not None and workers is not None:
+        raise PipelineError("give either 'workers' (embedded cluster) or 'scheduler', not both", path=src,
+                            key_path="fleet.workers")
+    reference = table.get("reference")
+    if reference is not None:
+        if not isinstance(reference, str) or not reference:
+            raise PipelineError(f"must be the path of a model file; got {reference!r}", path=src,
+                                key_path="fleet.reference")
+        target = Path(reference).expanduser()
+        reference = (target if target.is_absolute() else base / target).resolve()
+    rest = {k: v for k, v in table.items() if k not in FLEET_KEYS}
+    rule = _parse_options(OutlierRule, rest, "fleet", src, OutlierRule.from_mapping)
+    return FleetSpec(unit_from=unit_from, workers=workers, scheduler=scheduler, reference=reference, rule=rule)
