@@ -12,8 +12,10 @@ __all__ = [
     "REALIZATIONS", "FLAGS", "UPSAMPLE_METHODS", "SIGNAL_KINDS", "SPACINGS", "HARMONICS", "PHASES", "ARRANGEMENTS",
 ]
 
-#: Model families of ``identify`` / ``rigfit fit --method``.
-METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
+#: Model families of ``identify`` / ``rigfit fit --method``: ``"auto"`` (ARX and
+#: subspace candidates, refined), ARX alone, subspace starts alone, or one of the
+#: polynomial structures of ``POLYNOMIAL_STRUCTURES`` fitted by prediction error.
+METHODS: tuple[str, ...] = ("arx", "subspace", "auto", "oe", "armax", "bj")
 
 #: Subspace weightings (``ident.estimate.subspace``).
 WEIGHTINGS: tuple[str, ...] = ("n4sid", "moesp", "cva")

@@ -74,6 +74,10 @@ def _parse_order(value: str) -> int | None:
                    "twice it are tried.")
 @click.option("--stabilize", is_flag=True,
               help="Reflect unstable poles of direct subspace estimates into the unit circle.")
+@click.option("--reference", "references", multiple=True, metavar="NAME",
+              help="Column holding the set point a controller acted on (repeatable). The plant is then "
+                   "fitted from the part of the input this reference explains (the two-stage method for "
+                   "logs taken in closed loop).")
 @click.option("--holdout", type=float, default=0.3, show_default=True, metavar="FRACTION",
               help="Fraction at the end of the log (of each segment) held out for validation.")
 @click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part.")
@@ -103,6 +107,7 @@ def fit(
     weighting: str | None,
     horizon: int | None,
     stabilize: bool,
+    references: tuple[str, ...],
     holdout: float,
     detrend: bool,
     decimate: int,
@@ -168,6 +173,9 @@ def fit(
             "input_units": log.input_units, "output_units": log.output_units,
             "segment_starts": starts,
         }
+        if references:  # the set points, read as columns of the same log (same rows, same segments)
+            ref_log = read_log(log_path, list(references), list(outputs)[:1], **log_kwargs)
+            kwargs["references"] = [ref_log.u[a:b] for a, b in log.segments]
         if show_progress:
             with click.progressbar(length=1000, label="identifying", file=click.get_text_stream("stderr")) as bar:
                 done = [0]

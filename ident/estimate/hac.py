@@ -46,10 +46,12 @@ def andrews_bandwidth(parts: Sequence[np.ndarray]) -> int:
     num = den = 0.0
     N = sum(g.shape[0] for g in cols)
     for c in range(cols[0].shape[1]):
-        rms = float(np.sqrt(sum(float(g[:, c] @ g[:, c]) for g in cols) / max(N, 1)))
-        if not (rms > 0 and np.isfinite(rms)):
+        peak = max(float(np.max(np.abs(g[:, c]))) if g.shape[0] else 0.0 for g in cols)
+        if not (peak > 0 and np.isfinite(peak)):
             continue
-        col = [g[:, c] / rms for g in cols]  # each column at unit RMS: the rule weighs them alike
+        col = [g[:, c] / peak for g in cols]  # scaled before squaring: no overflow
+        rms = float(np.sqrt(sum(float(x @ x) for x in col) / max(N, 1)))
+        col = [x / rms for x in col]  # each column at unit RMS: the rule weighs them alike
         a = sum(float(x[1:] @ x[:-1]) for x in col)
         b = sum(float(x[:-1] @ x[:-1]) for x in col)
         if b <= 0:

@@ -46,7 +46,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .._validate import int_in_range, one_of, options_from_mapping
-from ..choices import METHODS, REFINEMENTS, WEIGHTINGS
+from ..choices import METHODS, POLYNOMIAL_STRUCTURES, REFINEMENTS, WEIGHTINGS
 from ..errors import (
     IdentificationError,
     IllConditionedWarning,
@@ -58,7 +58,16 @@ from ..lti._linalg import column_stds, one_blas_thread
 from ..lti.covariance import ParameterCovariance, pole_covariance
 from ..lti.input_delay import delayed_covariance, with_input_delays
 from ..lti.models import StateSpaceModel
-from .candidates import Candidate, Fitted, Screen, arx_candidates, state_space_parameters, subspace_candidates
+from .candidates import (
+    Candidate,
+    Fitted,
+    Screen,
+    arx_candidates,
+    polynomial_candidates,
+    state_space_parameters,
+    subspace_candidates,
+)
+from .data import Experiment
 from .preprocess import PreparedData, PreprocessOptions, prepare
 from .scoring import IN_SAMPLE_WINDOW, held_out_score, score_window, warmups_for
 from .selection import Contender, SelectionRecord, select
@@ -121,10 +130,13 @@ class IdentifyOptions:
 
     Parameters
     ----------
-    method : {"arx", "subspace", "auto"}
+    method : {"arx", "subspace", "auto", "oe", "armax", "bj"}
         Model family; ``"auto"`` (default) fits both kinds of candidates and
         refines the best. ``"arx"`` keeps ARX least-squares models (no
-        refinement); ``"subspace"`` starts only from subspace estimates.
+        refinement); ``"subspace"`` starts only from subspace estimates;
+        ``"oe"``, ``"armax"`` and ``"bj"`` fit that polynomial structure
+        (:mod:`ident.estimate.polynomial`) with all its orders equal to the
+        order tried and the estimated input delay.
     order : int, optional
         Fixed order; ``None`` (default) selects it. For subspace (and refined)
         models the number of states of the delay-free part; for ARX
@@ -164,7 +176,7 @@ class IdentifyOptions:
         Operating point, detrending, decimation and hold-out.
     """
 
-    method: Literal["arx", "subspace", "auto"] = "auto"
+    method: Literal["arx", "subspace", "auto", "oe", "armax", "bj"] = "auto"
     order: int | None = None
     max_order: int = 10
     delay: int | None = None
@@ -278,6 +290,8 @@ class Identification:
     excitation : dict
         ``{"orders": per-input order of persistent excitation judged against the
         noise, "threshold": relative eigenvalue level used, "snr": signal-to-noise ratio}``.
+    feedback : FeedbackEvidence or None
+        The test for feedback from the outputs to the inputs (closed loop).
     warnings, notes : tuple of str
         Warnings raised (also issued as Python warnings) and remarks.
     options : IdentifyOptions
@@ -306,6 +320,7 @@ class Identification:
     subspace_factorization: dict[str, Any] | None
     delay: Any
     excitation: dict[str, Any]
+    feedback: Any
     warnings: tuple[str, ...]
     notes: tuple[str, ...]
     options: IdentifyOptions
@@ -440,6 +455,7 @@ def identify(
     output_units: Sequence[str] | None = None,
     segment_starts: Sequence[int] | None = None,
     progress: Callable[[str, float], None] | None = None,
+    references: Sequence[Any] | None = None,
 ) -> Identification:
     """Find the model the data support best: candidates, refinement, selection, validation.
 
@@ -457,6 +473,11 @@ def identify(
         First sample of each record in the original log (for the ranges).
     progress : callable, optional
         Called as ``progress(step, fraction_done)`` between steps.
+    references : sequence of array_like, optional
+        Per segment, the logged reference (set point) a controller acted on,
+        shape ``(N_k, r)``: the plant is then fitted from the part of the input
+        the reference explains (the two-stage method of
+        :mod:`ident.estimate.closed_loop`), consistent under feedback.
 
     Returns
     -------
@@ -499,7 +520,7 @@ def identify(
     with warnings.catch_warnings(record=True) as caught, one_blas_thread():
         warnings.simplefilter("always")
         try:
-            result = _identify(segments, sample_time, options, names, report)
+            result = _identify(segments, sample_time, options, names, report, references)
         finally:
             pending = list(caught)
     texts: list[str] = []
@@ -531,38 +552,149 @@ class _Search:
     subspace: dict = field(default_factory=dict)
     excitation: dict = field(default_factory=dict)
     noise_model: str | None = None
+    feedback: Any = None
 
 
-def _identify(segments, sample_time, options: IdentifyOptions, names: dict, report) -> Identification:
+def _identify(segments, sample_time, options: IdentifyOptions, names: dict, report,
+              references: Sequence[Any] | None = None) -> Identification:
     """Run the stages of :func:`identify` in order (the caller records the warnings)."""
     report("preparing data", 0.0)
-    prep = prepare(segments, sample_time, options.preprocess, **names)
-    if not prep.validation:
-        raise OptionError("the hold-out left no validation samples; raise holdout")
-    for text in _check_signals(prep):
-        _warn(text, IllConditionedWarning)
+    prep, refs = _prepare(segments, sample_time, options, names, references)
     search = _Search(report=report)
+    search.feedback = _feedback(prep, refs, search)
+    fit_prep = _through_reference(prep, refs, options, search) if refs is not None else prep
     orders = _orders(prep, options, search)
     report("estimating delays", 0.05)
-    delays = _delay_vectors(prep, options, search)
-    _excitation_evidence(prep, options, orders, search)
-    screen = Screen(prep, options.screen_samples, max(orders) + max(max(v) for v in delays))
+    delays = _delay_vectors(fit_prep, options, search)
+    _excitation_evidence(fit_prep, options, orders, search)
+    screen = Screen(fit_prep, options.screen_samples, max(orders) + max(max(v) for v in delays))
+    if options.method in POLYNOMIAL_STRUCTURES:
+        report("polynomial candidates", 0.1)
+        search.raw.extend(polynomial_candidates(fit_prep, screen, orders, delays[0], options.method))
     if options.method in ("arx", "auto"):
         report("ARX candidates", 0.1)
-        found, search.arx_sweep = arx_candidates(prep, screen, orders, delays, per_criterion=options.per_criterion,
-                                                 fixed_order=options.order)
+        found, search.arx_sweep = arx_candidates(fit_prep, screen, orders, delays,
+                                                 per_criterion=options.per_criterion, fixed_order=options.order)
         search.raw.extend(found)
     if options.method in ("subspace", "auto"):
         report("subspace candidates", 0.3)
-        _add_subspace(prep, options, orders, delays, screen, search)
+        _add_subspace(fit_prep, options, orders, delays, screen, search)
     pool = search.raw
-    if options.method != "arx" and options.refinement != "none":
-        search.noise_model = "innovations" if options.refinement == "innovations" else "output_error"
+    if options.method in ("auto", "subspace") and options.refinement != "none":
+        search.noise_model = _noise_model(options, search, refs is not None)
         _refine_best(options, screen, search)
         pool = search.refined
     report("selecting", 0.85)
     record = select([_contender(f) for f in pool], screen.output_variance, significance=options.significance)
     return _assemble(prep, options, search, pool, record, screen)
+
+
+def _prepare(segments, sample_time, options: IdentifyOptions, names: dict, references):
+    """Prepare the data (references travel as extra inputs through the same preprocessing, then split off)."""
+    if references is None:
+        prep = prepare(segments, sample_time, options.preprocess, **names)
+        refs = None
+    else:
+        prep, refs = _prepare_with_references(segments, sample_time, options, names, references)
+    if not prep.validation:
+        raise OptionError("the hold-out left no validation samples; raise holdout")
+    for text in _check_signals(prep):
+        _warn(text, IllConditionedWarning)
+    return prep, refs
+
+
+def _prepare_with_references(segments, sample_time, options, names, references):
+    from .preprocess import as_records
+
+    records = as_records(segments)
+    if len(references) != len(records):
+        raise OptionError(f"references must hold one array per segment ({len(records)}); got {len(references)}")
+    joined, m = [], records[0][0].shape[1]
+    for (u, y), r in zip(records, references, strict=True):
+        r = np.asarray(r, dtype=float).reshape(u.shape[0], -1)
+        joined.append((np.hstack([u, r]), y))
+    q = joined[0][0].shape[1] - m
+    extra = dict(names)
+    for key, prefix in (("input_names", "r"), ("input_units", "")):
+        if extra.get(key) is not None:
+            extra[key] = tuple(extra[key]) + tuple(f"{prefix}{k + 1}" if prefix else "" for k in range(q))
+    both = prepare(joined, sample_time, options.preprocess, **extra)
+    return _split_references(both, m), tuple(e.u[:, m:] for e in both.estimation)
+
+
+def _split_references(prep: PreparedData, m: int) -> PreparedData:
+    """Return the prepared data without the reference columns appended to the inputs."""
+    from ..lti.models import OperatingPoint
+
+    def cut(parts):
+        return tuple(Experiment(e.u[:, :m], e.y) for e in parts)
+
+    op = OperatingPoint(prep.operating_point.inputs[:m], prep.operating_point.outputs)
+    trends = None if prep.trends is None else np.concatenate(
+        [prep.trends[:, :, :m], prep.trends[:, :, prep.trends.shape[2] - prep.n_outputs:]], axis=2)
+    return replace(prep, estimation=cut(prep.estimation), validation=cut(prep.validation), operating_point=op,
+                   trends=trends, input_names=prep.input_names[:m], input_units=prep.input_units[:m])
+
+
+def _feedback(prep: PreparedData, refs, search: _Search) -> Any:
+    """Feedback evidence on the estimation data (see :mod:`ident.estimate.closed_loop`)."""
+    from .closed_loop import feedback_evidence
+
+    try:
+        evidence = feedback_evidence(prep.estimation, references=refs)
+    except (OptionError, np.linalg.LinAlgError):
+        return None
+    if evidence.closed_loop:
+        search.notes.append(
+            f"the log looks closed-loop: past outputs predict the input (F = {evidence.f_statistic:.3g}, "
+            f"p = {evidence.p_value:.2g}); an output-error fit would be biased by the feedback")
+    return evidence
+
+
+def _through_reference(prep: PreparedData, refs, options: IdentifyOptions, search: _Search) -> PreparedData:
+    """Stage 1 of the two-stage method: estimation inputs replaced by their part the reference explains.
+
+    The input sensitivity ``S`` from reference to input is itself identified by
+    this job (output error, consistent because the reference does not see the
+    loop's disturbances) and simulated from rest on the reference.
+    """
+    from ..lti.simulate import simulate
+    from .closed_loop import explained_share
+
+    sub_options = replace(options, method="auto", order=None, refinement="output_error", delay=None,
+                          max_order=min(options.max_order + 2, MAX_ORDER))
+    records = [(r, e.u) for e, r in zip(prep.estimation, refs, strict=True)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sens = identify(records, prep.sample_time, sub_options)
+    op = sens.model.operating_point
+    parts = []
+    for (r, u), e in zip(records, prep.estimation, strict=True):
+        u_r = simulate(sens.model, r - op.inputs[None, :]) + op.outputs[None, :]
+        if explained_share(u, u_r) < 0.05:
+            raise IdentificationError(
+                f"the reference explains only {100 * explained_share(u, u_r):.1f} % of the input's variation: "
+                "it cannot stand in for the input (is it the controller's set point?)",
+                hint="check the --reference column, or fit without it (prediction error with a noise model)",
+            )
+        parts.append(Experiment(u_r, e.y))
+    search.notes.append(
+        "two-stage fit through the reference: the plant is estimated from the part of the input the "
+        f"reference explains (an order-{sens.order} output-error model from reference to input, held-out fit "
+        f"{float(np.mean(sens.validation_fit)):.1f} %), free of the loop's disturbances; held-out scores use "
+        "the measured input")
+    return replace(prep, estimation=tuple(parts))
+
+
+def _noise_model(options: IdentifyOptions, search: _Search, through_reference: bool) -> str:
+    """Decide what the refinement minimises: as asked, or by the evidence of feedback (``auto``)."""
+    if options.refinement != "auto":
+        return options.refinement
+    if search.feedback is not None and search.feedback.closed_loop and not through_reference:
+        search.notes.append("refined in innovations form (prediction error with a noise model), consistent "
+                            "under feedback")
+        return "innovations"
+    return "output_error"
 
 
 # --------------------------------------------------------------------------- evidence
@@ -777,6 +909,13 @@ def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, 
     """Polish the chosen model on all estimation data, give it a predictor; return (model, refinement, covariance)."""
     from .refine import RefineOptions, fit_noise_gain, refine_state_space
 
+    if chosen.candidate.method in POLYNOMIAL_STRUCTURES:  # refitted on all the estimation data
+        from .polynomial import fit_polynomial
+
+        search.report("fitting on all estimation data", 0.9)
+        res = fit_polynomial(screen.estimation_for(chosen.shift, full=True), prep.sample_time,
+                             chosen.result.options, input_names=prep.input_names, output_names=prep.output_names)
+        return res.model, None, res.covariance
     if chosen.candidate.stage != "refined":
         if chosen.candidate.method == "arx":  # the ARX model in its own coordinates, with its covariance
             return chosen.result.model, None, _arx_covariance(chosen)
@@ -838,7 +977,8 @@ def _assemble(prep: PreparedData, options: IdentifyOptions, search: _Search, poo
         selection=record, singular_values=search.subspace.get("singular_values"),
         suggested_order=search.subspace.get("suggested_order"),
         subspace_factorization=search.subspace.get("factorization"), delay=search.delay,
-        excitation=search.excitation, warnings=(), notes=tuple(search.notes), options=options,
+        excitation=search.excitation, feedback=search.feedback, warnings=(), notes=tuple(search.notes),
+        options=options,
         best_by=_best_by(candidates), arx_sweep=search.arx_sweep,
     )
 

@@ -39,7 +39,7 @@ from ..lti._linalg import column_sums
 from ..lti.models import OperatingPoint
 from .data import Experiment, as_experiments
 
-__all__ = ["OFFSET_METHODS", "PreprocessOptions", "PreparedData", "prepare"]
+__all__ = ["OFFSET_METHODS", "PreprocessOptions", "PreparedData", "prepare", "as_records"]
 
 #: Ways of choosing the operating point that is subtracted from the data.
 OFFSET_METHODS = ("mean", "initial")
@@ -193,7 +193,7 @@ class PreparedData:
         return sum(e.n_samples for e in self.validation)
 
 
-def _as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
+def as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
     """Accept an Experiment, a (u, y) pair of arrays, or a sequence of either."""
     if isinstance(data, Experiment):
         return ((data.u, data.y),)
@@ -319,7 +319,7 @@ def prepare(
     if not isinstance(options, PreprocessOptions):
         raise OptionError(f"options must be PreprocessOptions; got {type(options).__name__}")
     sample_time = positive_float(sample_time, "sample_time")
-    records = _as_records(data)
+    records = as_records(data)
     m, p = records[0][0].shape[1], records[0][1].shape[1]
     labels = _signal_labels(m, p, input_names, output_names, input_units, output_units)
     starts = _record_starts(records, segment_starts)

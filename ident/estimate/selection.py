@@ -170,6 +170,10 @@ def equal_accuracy_pvalue(errors_a: Sequence[np.ndarray], errors_b: Sequence[np.
         worse_a = sum(float(np.sum(a**2, dtype=float)) for a in errors_a) > sum(
             float(np.sum(b**2, dtype=float)) for b in errors_b)
         return 0.0 if worse_a else 1.0
+    peak = max(float(np.max(np.abs(x))) if x.size else 0.0 for x in d)
+    if peak == 0.0:
+        return 1.0
+    d = [x / peak for x in d]  # the statistic is scale free; scaling keeps the squares finite
     mean = sum(float(x.sum()) for x in d) / N
     lrv = float(long_run_covariance([x[:, None] for x in d], demean=True)[0, 0]) / N
     if not lrv > 0:
