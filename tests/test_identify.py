@@ -235,7 +235,7 @@ def test_order_too_high_for_data_length(rng):
 
 
 def test_options_validation_and_mapping():
-    assert METHODS == ("arx", "subspace", "auto")
+    assert METHODS == ("arx", "subspace", "auto", "oe", "armax", "bj")  # ident.choices
     with pytest.raises(OptionError):
         IdentifyOptions(method="best")
     with pytest.raises(OptionError):

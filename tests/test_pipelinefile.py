@@ -116,7 +116,7 @@ def test_unknown_log_key(tmp_path):
     [
         ("[fit]\nmax_order = \"four\"\n", "fit.max_order"),
         ("[fit]\norder = \"three\"\n", "fit.order"),
-        ("[fit]\nmethod = \"armax\"\n", "fit.method"),
+        ("[fit]\nmethod = \"fuzzy\"\n", "fit.method"),
         ("[preprocess]\nholdout = 1.5\n", "preprocess.holdout"),
         ("[preprocess]\ndetrend = \"yes\"\n", "preprocess.detrend"),
         ("[check]\nmin_fit = \"high\"\n", "check.min_fit"),
