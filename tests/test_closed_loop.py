@@ -24,8 +24,9 @@ def _plant():
 def _pi_rig(seed, n=20000):
     """The plant under a PI controller (Kp 0.8, Ki 0.05 per sample), coloured output disturbance.
 
-    The controller acts on the measured output one sample later (computation delay), as a
-    sampled loop does; the reference is a random binary signal held 0.5 s.
+    The controller computes u[k] from the measurement y[k-1] (one sample of computation delay)
+    and the plant answers u[k] from sample k + 1 on; the reference is a random binary signal
+    held 0.5 s.
     """
     rng = np.random.default_rng(seed)
     b, a = _plant()
@@ -35,11 +36,11 @@ def _pi_rig(seed, n=20000):
     zi = np.zeros(max(len(a), len(b)) - 1)
     integral = 0.0
     for k in range(n):
-        out, zi = signal.lfilter(b, a, [u[k - 1] if k else 0.0], zi=zi)
-        y[k] = out[0] + v[k]
-        e = r[k] - y[k]
+        e = r[k] - (y[k - 1] if k else 0.0)
         integral += e
         u[k] = 0.8 * e + 0.05 * integral
+        out, zi = signal.lfilter(b, a, [u[k]], zi=zi)
+        y[k] = out[0] + v[k]
     return u[:, None], y[:, None], r[:, None]
 
 

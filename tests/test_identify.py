@@ -327,3 +327,18 @@ def test_held_out_scores_match_dlsim(rng):
     fast = held_out_score(arx.model, [Experiment(u[2000:], yy[2000:, None])], 60, simulator=arx.simulate)
     slow = held_out_score(arx.model, [Experiment(u[2000:], yy[2000:, None])], 60)
     assert_allclose(fast.errors[0], slow.errors[0], atol=1e-9)
+
+
+def test_a_delay_too_long_for_the_log_is_refused(rng):
+    u, y = _second_order_log(rng, n=600)
+    # 600 samples: 420 estimation, 180 held out; a 100-sample delay needs 100 states
+    with pytest.raises(IdentificationError, match="too long for this log"):
+        identify((u, y), T, IdentifyOptions(method="arx", order=2, delay=100))
+
+
+def test_held_out_fit_of_a_huge_order_is_not_flattered(rng):
+    # a model with many states cannot earn held-out fit from its initial state: the held-out part
+    # continues from the estimation data (nothing of it is used for the state)
+    u, y = _second_order_log(rng, n=1200, noise=0.05)
+    res = identify((u, y), T, IdentifyOptions(method="subspace", order=20, preprocess=AT_REST))
+    assert res.validation_fit[0] < 99.9

@@ -14,11 +14,15 @@ the disturbances: an output-error fit, consistent in open loop, is then biased
   disturbances), is free of the disturbances, so the plant is identified from
   ``u_r`` to ``y`` as if in open loop.
 
-:func:`feedback_evidence` tells open from closed loop: if past outputs help to
-predict the input beyond what its own past (and the reference) predict, an
-F-test of the output lags in a least-squares regression of the input rejects
-"no feedback" (Granger's test of causality [3]_, applied to feedback detection
-in [4]_).
+:func:`feedback_evidence` tells open from closed loop. In open loop the
+disturbances never reach the input, so the innovations of the output (the
+residuals of a high-order ARX model from the inputs to the outputs, which whiten
+the disturbance) do not help to predict the input beyond what its own past
+(and the reference) predict; with feedback their past does. An F-test of the
+lagged residuals in a least-squares regression of the input decides (Granger's
+test of causality [3]_, applied to feedback detection in [4]_). Testing the
+residuals rather than the outputs themselves keeps a strongly coloured or swept
+input, whose long memory the outputs carry, from looking like feedback.
 
 References
 ----------
@@ -93,7 +97,8 @@ def _lagged(x: np.ndarray, lags: int) -> np.ndarray:
 
 
 def feedback_evidence(data: Experiment | Sequence[Experiment], *, references: Sequence[np.ndarray] | None = None,
-                      lags: int = FEEDBACK_LAGS, significance: float = FEEDBACK_SIGNIFICANCE) -> FeedbackEvidence:
+                      lags: int = FEEDBACK_LAGS, significance: float = FEEDBACK_SIGNIFICANCE,
+                      input_delay: int = 0) -> FeedbackEvidence:
     """Test for feedback from the outputs to the inputs (see the module docstring).
 
     Parameters
@@ -107,6 +112,12 @@ def feedback_evidence(data: Experiment | Sequence[Experiment], *, references: Se
         Lags of inputs, outputs (and references) in the regression.
     significance : float
         Level of the test.
+    input_delay : int
+        Smallest delay (samples) from any input to any output. When it is at
+        least one, the plant cannot answer an input within the same sample, so
+        the current output innovation also enters the test (a controller acting
+        on the latest measurement shows there); with a direct term only past
+        innovations do.
 
     Returns
     -------
@@ -114,16 +125,22 @@ def feedback_evidence(data: Experiment | Sequence[Experiment], *, references: Se
 
     Notes
     -----
-    For each input, ``u_j[t]`` is regressed on ``u[t-1..t-L]`` (all inputs),
-    references ``r[t..t-L]`` (when given) and, in the full model, also on
-    ``y[t-1..t-L]``. The F statistic of the added output lags, pooled over the
-    inputs (sums of squares added), is referred to ``F(p L m, N_rows m - d)``.
+    The output innovations ``e`` are the residuals of an ARX model with ``L``
+    lags of every output and input (inputs from lag 1 when ``input_delay >= 1``,
+    else from lag 0). For each input, ``u_j[t]`` is regressed on
+    ``u[t-1..t-L]`` (all inputs), references ``r[t..t-L]`` (when given) and,
+    in the full model, also on ``e[t-1..t-L]`` (and on ``e[t]`` when
+    ``input_delay >= 1``). The F statistic of the added residual lags, pooled
+    over the inputs (sums of squares added), is referred to
+    ``F(p L m, N_rows m - d)``.
     """
     experiments = as_experiments(data)
     lags = int_in_range(lags, "lags", 1, 200)
+    current = int(input_delay) >= 1
+    innovations = _innovations(experiments, lags, current)
     rows_small, rows_full, target = [], [], []
     for k, e in enumerate(experiments):
-        u, y = e.u[:_FEEDBACK_SAMPLES], e.y[:_FEEDBACK_SAMPLES]
+        u, y = e.u[:_FEEDBACK_SAMPLES], innovations[k]
         if u.shape[0] <= 3 * lags:
             continue
         base = [_lagged(u, lags)]
@@ -133,7 +150,8 @@ def feedback_evidence(data: Experiment | Sequence[Experiment], *, references: Se
             base.append(_lagged(r, lags))
         small = np.hstack(base + [np.ones((u.shape[0] - lags, 1))])
         rows_small.append(small)
-        rows_full.append(np.hstack([small, _lagged(y, lags)]))
+        past = _lagged(y, lags)
+        rows_full.append(np.hstack([small, y[lags:], past] if current else [small, past]))
         target.append(u[lags:])
     if not rows_small:
         raise OptionError(f"the feedback test needs more than {3 * lags} samples per experiment")
@@ -154,6 +172,26 @@ def f_survival(f: float, d1: float, d2: float) -> float:
     c = f ** (1.0 / 3.0)
     z = ((1.0 - b) * c - (1.0 - a)) / math.sqrt(b * c * c + a)
     return 0.5 * math.erfc(z / math.sqrt(2.0))
+
+
+def _innovations(experiments: Sequence[Experiment], lags: int, strictly_proper: bool) -> list[np.ndarray]:
+    """Residuals of an ARX model (``lags`` output and input lags) of each output, per experiment.
+
+    Inputs enter from lag 1 for a strictly proper plant, else from lag 0. The
+    first ``lags`` samples of each experiment (no full regressor) are zero.
+    """
+    out = []
+    for e in experiments:
+        u, y = e.u[:_FEEDBACK_SAMPLES], e.y[:_FEEDBACK_SAMPLES]
+        N = u.shape[0]
+        resid = np.zeros_like(y)
+        if N > 3 * lags:
+            now = [] if strictly_proper else [u[lags:]]
+            X = np.hstack([_lagged(y, lags), *now, _lagged(u, lags), np.ones((N - lags, 1))])
+            coef, *_ = np.linalg.lstsq(X, y[lags:], rcond=None)
+            resid[lags:] = y[lags:] - X @ coef
+        out.append(resid)
+    return out
 
 
 def _f_test(small: np.ndarray, full: np.ndarray, target: np.ndarray, lags: int, significance: float):

@@ -552,6 +552,7 @@ class _Search:
     subspace: dict = field(default_factory=dict)
     excitation: dict = field(default_factory=dict)
     noise_model: str | None = None
+    forms: tuple[str, ...] = ()
     feedback: Any = None
 
 
@@ -561,11 +562,11 @@ def _identify(segments, sample_time, options: IdentifyOptions, names: dict, repo
     report("preparing data", 0.0)
     prep, refs = _prepare(segments, sample_time, options, names, references)
     search = _Search(report=report)
-    search.feedback = _feedback(prep, refs, search)
+    report("estimating delays", 0.05)
+    delays = _delay_vectors(prep, options, search)
+    search.feedback = _feedback(prep, refs, min(delays[0]), search)
     fit_prep = _through_reference(prep, refs, options, search) if refs is not None else prep
     orders = _orders(prep, options, search)
-    report("estimating delays", 0.05)
-    delays = _delay_vectors(fit_prep, options, search)
     _excitation_evidence(fit_prep, options, orders, search)
     screen = Screen(fit_prep, options.screen_samples, max(orders) + max(max(v) for v in delays))
     if options.method in POLYNOMIAL_STRUCTURES:
@@ -581,12 +582,46 @@ def _identify(segments, sample_time, options: IdentifyOptions, names: dict, repo
         _add_subspace(fit_prep, options, orders, delays, screen, search)
     pool = search.raw
     if options.method in ("auto", "subspace") and options.refinement != "none":
-        search.noise_model = _noise_model(options, search, refs is not None)
+        search.forms = _refinement_forms(options, search, refs is not None)
         _refine_best(options, screen, search)
         pool = search.refined
     report("selecting", 0.85)
-    record = select([_contender(f) for f in pool], screen.output_variance, significance=options.significance)
+    pool, record = _select_form(pool, screen, options, search)
     return _assemble(prep, options, search, pool, record, screen)
+
+
+def _select_form(pool: list[Fitted], screen: Screen, options: IdentifyOptions, search: _Search):
+    """Select within each refinement form; between forms, the noise model wins unless clearly worse.
+
+    Losses of output-error and innovations models are not comparable, so each form
+    is selected on its own; the innovations model (consistent under feedback) is
+    kept unless the output-error model simulates the held-out data significantly
+    better (:func:`ident.estimate.selection.equal_accuracy_pvalue`).
+    """
+    from .selection import equal_accuracy_pvalue
+
+    forms = list(dict.fromkeys(f.candidate.noise_model for f in pool))
+    picks = {}
+    for form in forms:
+        members = [f for f in pool if f.candidate.noise_model == form]
+        picks[form] = (members, select([_contender(f) for f in members], screen.output_variance,
+                                       significance=options.significance))
+    if len(forms) == 1:
+        return picks[forms[0]]
+    (inn, rec_i), (oe, rec_o) = picks["innovations"], picks["output_error"]
+    best_i, best_o = inn[rec_i.chosen], oe[rec_o.chosen]
+    scales = np.where(screen.output_variance > 0, screen.output_variance, 1.0)
+    p = equal_accuracy_pvalue(best_i.score.errors, best_o.score.errors, scales) if best_i.score.errors else 0.0
+    if p < options.significance:
+        search.notes.append(
+            "feedback was detected, but the output-error model simulates the held-out data significantly better "
+            f"than the model with a noise model (one-sided test, p = {p:.2g}); it is kept, and its estimate may "
+            "carry a bias from the feedback")
+        return oe, rec_o
+    search.notes.append("refined in innovations form (prediction error with a noise model), consistent under "
+                        "feedback; the output-error refinement does not simulate the held-out data significantly "
+                        f"better (p = {p:.2g})")
+    return inn, rec_i
 
 
 def _prepare(segments, sample_time, options: IdentifyOptions, names: dict, references):
@@ -636,12 +671,12 @@ def _split_references(prep: PreparedData, m: int) -> PreparedData:
                    trends=trends, input_names=prep.input_names[:m], input_units=prep.input_units[:m])
 
 
-def _feedback(prep: PreparedData, refs, search: _Search) -> Any:
+def _feedback(prep: PreparedData, refs, input_delay: int, search: _Search) -> Any:
     """Feedback evidence on the estimation data (see :mod:`ident.estimate.closed_loop`)."""
     from .closed_loop import feedback_evidence
 
     try:
-        evidence = feedback_evidence(prep.estimation, references=refs)
+        evidence = feedback_evidence(prep.estimation, references=refs, input_delay=input_delay)
     except (OptionError, np.linalg.LinAlgError):
         return None
     if evidence.closed_loop:
@@ -686,15 +721,17 @@ def _through_reference(prep: PreparedData, refs, options: IdentifyOptions, searc
     return replace(prep, estimation=tuple(parts))
 
 
-def _noise_model(options: IdentifyOptions, search: _Search, through_reference: bool) -> str:
-    """Decide what the refinement minimises: as asked, or by the evidence of feedback (``auto``)."""
+def _refinement_forms(options: IdentifyOptions, search: _Search, through_reference: bool) -> tuple[str, ...]:
+    """Decide what the refinement minimises: as asked, or by the evidence of feedback (``auto``).
+
+    With feedback (and no reference to fit through) both forms are refined and
+    :func:`_select_form` decides, preferring the noise model.
+    """
     if options.refinement != "auto":
-        return options.refinement
+        return (options.refinement,)
     if search.feedback is not None and search.feedback.closed_loop and not through_reference:
-        search.notes.append("refined in innovations form (prediction error with a noise model), consistent "
-                            "under feedback")
-        return "innovations"
-    return "output_error"
+        return ("innovations", "output_error")
+    return ("output_error",)
 
 
 # --------------------------------------------------------------------------- evidence
@@ -731,6 +768,14 @@ def _delay_vectors(prep: PreparedData, options: IdentifyOptions, search: _Search
     """Delay vectors to try: the given delay, else the estimate first, then 0, 1 and the estimate +-1."""
     m = prep.n_inputs
     if options.delay is not None:
+        shortest = min(e.n_samples for e in (*prep.estimation, *prep.validation))
+        if options.delay >= shortest // 4:
+            raise IdentificationError(
+                f"a delay of {options.delay} samples is too long for this log: its shortest estimation or "
+                f"held-out part has {shortest} samples, and the delay's states need far fewer than that to be "
+                "estimated and checked",
+                hint="check the delay (in samples, not seconds), or use a longer log",
+            )
         search.notes.append(f"input delay fixed at {options.delay} samples")
         return [(options.delay,) * m]
     from .delay import estimate_delay
@@ -830,9 +875,10 @@ def _refine_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
     from .refine import RefineOptions
 
     starts = _refinement_starts(search.raw, options.refine_count, screen.output_variance, options.significance)
-    for k, start in enumerate(starts):
-        search.report(f"refining candidate {k + 1} of {len(starts)}", 0.4 + 0.4 * k / max(len(starts), 1))
-        opts = RefineOptions(noise_model=search.noise_model, feedthrough=start.feedthrough,
+    jobs = [(start, form) for form in search.forms for start in starts]
+    for k, (start, form) in enumerate(jobs):
+        search.report(f"refining candidate {k + 1} of {len(jobs)}", 0.4 + 0.4 * k / max(len(jobs), 1))
+        opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
                              working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
                              max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
         refined = _refine_one(start, screen.estimation_for(start.shift), opts)
@@ -841,12 +887,12 @@ def _refine_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
         res, caught = refined
         core = res.model
         m, p = core.n_inputs, core.n_outputs
-        cand = replace(start.candidate, stage="refined", noise_model=search.noise_model,
+        cand = replace(start.candidate, stage="refined", noise_model=form,
                        structure={**start.candidate.structure, "feedthrough": list(start.feedthrough),
                                   "refined_from": next(i for i, f in enumerate(search.raw)
                                                        if f.candidate is start.candidate)},
                        n_parameters=state_space_parameters(core.n_states, m, p, start.feedthrough,
-                                                           search.noise_model == "innovations"))
+                                                           form == "innovations"))
         fitted = Fitted(cand, core, start.shift, start.feedthrough, res, caught)
         screen.score(fitted)
         fitted.estimation_loss = screen.normalised_loss(res.error_variance)  # with its fitted states and offsets
@@ -921,6 +967,7 @@ def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, 
             return chosen.result.model, None, _arx_covariance(chosen)
         return chosen.model, None, None
     data = screen.estimation_for(chosen.shift, full=True)
+    search.noise_model = chosen.candidate.noise_model
     opts = RefineOptions(noise_model=search.noise_model, feedthrough=chosen.feedthrough, polish_iterations=1)
     search.report("polishing on all estimation data", 0.9)
     res = refine_state_space(chosen.core, data, opts)
