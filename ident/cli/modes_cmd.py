@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-from typing import Any
-
 import click
 
 from ..choices import FLAGS
@@ -99,6 +97,8 @@ def modes(
         confidence_level=confidence_level,
     )
     if log_duration_s is None:
+        from ..io.modelfile import log_duration_from_provenance
+
         log_duration_s = log_duration_from_provenance(loaded.provenance, model.sample_time)
     if log_duration_s is None:
         click.echo("slow_for_log not checked: log duration unknown (use --log-duration)", err=True)
@@ -133,36 +133,6 @@ def modes(
     failures += [f"flag {f} present" for f in tripped]
     if failures:
         raise GateFailed("; ".join(failures))
-
-
-def log_duration_from_provenance(provenance: dict, sample_time: float | None) -> float | None:
-    """Log duration in s recorded in a model file's provenance, if any.
-
-    Looks at ``log_duration_s``, then ``log.duration_s``, then
-    ``log.n_samples`` (or ``estimation.n_samples``) times the sample time.
-    """
-    def number(value: Any) -> float | None:
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            return None
-        return float(value) if value > 0 else None
-
-    if not isinstance(provenance, dict):
-        return None
-    direct = number(provenance.get("log_duration_s"))
-    if direct is not None:
-        return direct
-    for section in ("log", "estimation"):
-        block = provenance.get(section)
-        if not isinstance(block, dict):
-            continue
-        for key in ("duration_s", "log_duration_s"):
-            value = number(block.get(key))
-            if value is not None:
-                return value
-        n = number(block.get("n_samples"))
-        if n is not None and sample_time:
-            return n * sample_time
-    return None
 
 
 def _write_plot(table, path: str, *, force: bool, protected: tuple[str, ...]) -> None:
