@@ -486,7 +486,7 @@ class ModelResult:
         method = (self.provenance.get("estimation") or {}).get("method", "model")
         head = (f"{method} model, {m.n_states} states, sample time {m.sample_time:g} s: {self._signals()}"
                 + (f" (from {Path(self.path).name})" if self.path else ""))
-        parts = [table_html(("", ""), [("model", head)])]
+        parts = [f"<h2>{_escape(head)}</h2>"]
         fits = self.held_out_fit
         if fits is not None:
             in_sample = None

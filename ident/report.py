@@ -537,5 +537,6 @@ def validation_html(validation: Mapping[str, Any], *, title: str | None = None) 
     rep.setdefault("range", [0, rep.get("n_samples", 0)])
     html_text = _validation({"validation": [rep], "figures": []}, {})
     if title is not None:
+        html_text = re.sub(r"<h2>.*?</h2>", "<h2>Validation</h2>", html_text, count=1, flags=re.S)
         html_text = re.sub(r"<h3>.*?</h3>", f"<h3>{_e(title)}</h3>", html_text, count=1, flags=re.S)
     return html_text
