@@ -54,7 +54,7 @@ def _split_unit(label: str) -> tuple[str, str]:
 
 
 def _frame_table(frame: Any, units: Mapping[str, str] | None) -> Any:
-    """A :class:`ident.io.log.Table` of the numeric columns of a DataFrame (index as ``time`` when it is one)."""
+    """Build a :class:`ident.io.log.Table` of the numeric columns of a DataFrame (index as ``time`` when it is one)."""
     import pandas as pd
 
     from .io.log import Column, LogSource, Table
@@ -90,7 +90,7 @@ def _frame_table(frame: Any, units: Mapping[str, str] | None) -> Any:
 
 def _read(data: Any, inputs: Sequence[str], outputs: Sequence[str], *, sample_time: float | None,
           time: str | None, units: Mapping[str, str] | None) -> Any:
-    """A :class:`ident.io.log.Log` from a DataFrame or a log file."""
+    """Read a :class:`ident.io.log.Log` from a DataFrame or a log file."""
     if sample_time is not None and time is not None:
         raise OptionError("give sample_time or time, not both")
     rate = None

@@ -51,7 +51,7 @@ def _complex_text(v: complex, digits: int = 6) -> str:
 
 
 def _array_text(values: Any, digits: int = 6) -> str:
-    """A nested list of numbers as text: ``[[1, 2], [3, 4]]``."""
+    """Format a nested list of numbers as text: ``[[1, 2], [3, 4]]``."""
     import numpy as np
 
     a = np.asarray(values, dtype=float)
@@ -61,7 +61,7 @@ def _array_text(values: Any, digits: int = 6) -> str:
 
 
 def ratio_unit(numerator: str, denominator: str) -> str:
-    """Unit of a gain, ``"rad/s/(N m)"``: the denominator in brackets when it is compound."""
+    """Return the unit of a gain, ``"rad/s/(N m)"``: the denominator in brackets when it is compound."""
     num = numerator or "1"
     den = denominator or "1"
     if any(c in den for c in " /*·^"):
@@ -241,7 +241,7 @@ def _kind(m: Any) -> str:
 
 
 def mode_rows(table: Any) -> list[dict[str, Any]]:
-    """The main mode table as records: what a rig engineer reads first.
+    """Return the main mode table as records: what a rig engineer reads first.
 
     Parameters
     ----------

@@ -494,7 +494,8 @@ _FRAGMENT_CSS = """
 .rigfit-fragment table { border-collapse: collapse; margin: 4px 0 8px; }
 .rigfit-fragment th, .rigfit-fragment td { border: 1px solid #d5dbd6; padding: 2px 7px; text-align: left; }
 .rigfit-fragment th { background: #eef0ee; font-weight: 600; }
-.rigfit-fragment td.ok { color: #1f6f43; font-weight: 600; } .rigfit-fragment td.bad { color: #b3261e; font-weight: 600; }
+.rigfit-fragment td.ok { color: #1f6f43; font-weight: 600; }
+.rigfit-fragment td.bad { color: #b3261e; font-weight: 600; }
 .rigfit-fragment ul.warnings li { color: #b3261e; } .rigfit-fragment .caution { font-size: 12px; color: #555; }
 """
 
@@ -505,13 +506,13 @@ def html_fragment(*parts: str) -> str:
 
 
 def table_html(headers: Sequence[Any], rows: Iterable[Sequence[Any]], *, caption: str | None = None) -> str:
-    """An HTML table as in the report; every cell is escaped (a ``(text, "ok"|"bad")`` cell is coloured)."""
+    """Return an HTML table as in the report; every cell is escaped (a ``(text, "ok"|"bad")`` cell is coloured)."""
     head = _p(caption) if caption else ""
     return head + _table(headers, rows)
 
 
 def modes_html(modes: Mapping[str, Any]) -> str:
-    """The report's mode section for one mode table.
+    """Return the report's mode section for one mode table.
 
     Parameters
     ----------
@@ -523,7 +524,7 @@ def modes_html(modes: Mapping[str, Any]) -> str:
 
 
 def validation_html(validation: Mapping[str, Any], *, title: str | None = None) -> str:
-    """The report's validation section for one validation report.
+    """Return the report's validation section for one validation report.
 
     Parameters
     ----------

@@ -8,11 +8,10 @@ import subprocess
 import sys
 import warnings
 
+import click
 import pytest
 
 from ident.cli import cli
-
-import click
 
 _CTX = click.Context(cli)
 COMMANDS = cli.list_commands(_CTX)

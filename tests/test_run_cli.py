@@ -122,9 +122,9 @@ def _fake_checkout(root: Path) -> dict:
 
 
 def test_demo_runs_into_a_fresh_folder(run_cli, tmp_path, monkeypatch):
-    from ident.cli import demo_cmd
-
     import shutil
+
+    from ident.cli import demo_cmd
 
     _fake_checkout(tmp_path / "checkout")
 

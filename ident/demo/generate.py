@@ -289,7 +289,7 @@ def _model_dict(A, B, C, D, states=None) -> dict:
 
 
 def write_csv(path: Path, header: list[str], columns: list[np.ndarray], fmts: list[str]) -> None:
-    """Write columns as comma-separated text with fixed decimals and ``\\n`` line ends."""
+    """Write columns as comma-separated text with fixed decimals and LF line ends."""
     data = np.column_stack(columns)
     with open(path, "w", encoding="utf-8", newline="\n") as fh:
         np.savetxt(fh, data, fmt=fmts, delimiter=",", header=",".join(header), comments="")
@@ -497,7 +497,7 @@ def platen_log(p: HeatedPlaten, seed: int, out: Path, name: str) -> dict:
 
 
 def belt_change(before: dict, after: dict) -> dict:
-    """True shift of the belt resonance between the two belt-axis logs."""
+    """Return the true shift of the belt resonance between the two belt-axis logs."""
 
     def resonance(truth):
         (mode,) = [m for m in truth["modes"] if m["kind"] == "oscillatory"]
