@@ -115,7 +115,7 @@ def check(
 
     written: list[str] = []
     if plot_dir is not None:
-        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path))
+        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path), model=model)
 
     if as_json:
         payload = report_to_dict(report)
@@ -296,7 +296,7 @@ def _safe(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("._") or "signal"
 
 
-def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple) -> list[str]:
+def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple, model: Any = None) -> list[str]:
     import io
     from pathlib import Path
 
@@ -312,15 +312,15 @@ def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple) -> 
 
         raise IdentError(f"{folder}: exists and is not a folder")
     jobs: list[tuple[Path, Any]] = [
-        (target / "outputs.png", lambda: vplots.output_comparison(report)),
-        (target / "verdicts.png", lambda: vplots.verdict_card(report)),
+        (target / "outputs.png", lambda: vplots.output_comparison(report, model=model)),
+        (target / "verdicts.png", lambda: vplots.verdict_grid(report)),
     ]
     for i, oname in enumerate(report.outputs):
         jobs.append((target / f"residuals_{_safe(oname)}.png",
                      lambda i=i: vplots.residual_correlations(report, output=i)))
         for j, iname in enumerate(report.inputs):
             jobs.append((target / f"response_{_safe(iname)}_to_{_safe(oname)}.png",
-                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j)))
+                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j, model=model)))
     if target.is_dir():
         for path, _ in jobs:  # refuse before writing anything
             check_output_path(path, force=force, protected=protected)
