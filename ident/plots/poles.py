@@ -161,7 +161,7 @@ def pole_zero_map(
 
 
 def _zoom_limits(points: list[complex]) -> tuple[tuple[float, float], tuple[float, float]]:
-    """A square view around ``points`` (upper half plane and the real axis), with a margin."""
+    """Return a square view around ``points`` (upper half plane and the real axis), with a margin."""
     re = [p.real for p in points]
     im = [abs(p.imag) for p in points]
     half = 0.5 * max(max(re) - min(re), max(im), 1e-6) * 1.35 + 0.02 * max(max(re) - min(re), max(im), 1e-3)

@@ -50,7 +50,7 @@ def _envelope(t: np.ndarray, x: np.ndarray, max_points: int) -> tuple[np.ndarray
 
 
 def _crossings(x: np.ndarray) -> int:
-    """Number of times a signal crosses its median (a binary signal: its transitions)."""
+    """Count the times a signal crosses its median (a binary signal: its transitions)."""
     if x.size < 2:
         return 0
     above = x > np.median(x)

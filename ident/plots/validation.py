@@ -307,7 +307,7 @@ def _gain_unit(model: Any | None, output: int, input: int) -> str:
 
 
 def _gain_axis(ax: Any, unit: str) -> None:
-    """A right-hand axis giving the gain of the dB scale in output unit per input unit."""
+    """Add a right-hand axis giving the gain of the dB scale in output unit per input unit."""
     from matplotlib.ticker import FixedLocator
 
     sec = ax.secondary_yaxis("right", functions=(lambda db: 10 ** (np.asarray(db) / 20.0),
