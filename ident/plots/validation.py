@@ -368,7 +368,7 @@ def verdict_outcomes(report: ValidationReport) -> tuple[list[str], list[str], di
 
 
 def verdict_grid(report: ValidationReport, *, ax: Any | None = None) -> Any:
-    """Outputs x tests: one pass / fail / cannot-judge mark per cell, for any number of outputs.
+    """Draw outputs x tests with one pass / fail / cannot-judge mark per cell, for any number of outputs.
 
     Parameters
     ----------
