@@ -336,12 +336,17 @@ def _drift(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
             _num(m["frequency_shift_hz"], "+.3g"),
             _num(m["frequency_shift_percent"], "+.1f") + (" %" if m["frequency_shift_percent"] is not None else ""),
             _num(base.get("damping_ratio"), ".3g"), _num(new.get("damping_ratio"), ".3g"),
-            _num(m["damping_shift"], "+.3g"), _num(m["z_score"], ".2g"),
+            _num(m["damping_shift"], "+.3g"),
+            _num(base.get("time_constant_s")) + " → " + _num(new.get("time_constant_s"))
+            + (f" ({_num(m.get('time_constant_shift_percent'), '+.1f')} %)"
+               if m.get("time_constant_shift_percent") is not None else ""),
+            _num(m["z_score"], ".2g"),
             (", ".join(m["breaches"]) or "–", "bad" if m["breaches"] else ""),
         ))
     parts.append(_Raw("<h3>Mode shifts</h3>"))
+    parts.append(_p("Oscillations are judged by natural frequency and damping, real modes by their time constant."))
     parts.append(_table(("status", "baseline [Hz]", "new [Hz]", "shift [Hz]", "shift", "ζ baseline", "ζ new",
-                         "ζ shift", "z-score", "breach"), rows))
+                         "ζ shift", "time constant [s]", "z-score", "breach"), rows))
     parts.append(_Raw("<h3>DC gains</h3>"))
     parts.append(_table(
         ("input", "output", "baseline", "new", "change", ""),
