@@ -684,7 +684,7 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
     if state["drift"] is not None:
         add("drift_magnitude.png", "drift",
             "Magnitude responses of the baseline and the new model over the excited band.",
-            magnitude_overlay(state["drift"], inputs=state["result"].model.inputs))
+            magnitude_overlay(state["drift"], inputs=model.inputs, units=(model.input_units, model.output_units)))
     return out
 
 
