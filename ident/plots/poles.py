@@ -268,7 +268,8 @@ def _place_labels(fig: Any, axes: list[Any], table: ModeTable, crowd: list[compl
     nyquist_hz = 0.5 / table.sample_time
     for k, ax in enumerate(axes):
         box = ax.get_window_extent(renderer)
-        placed: list[Any] = []
+        # the grid's own labels (frequencies, damping ratios) are obstacles too
+        placed: list[Any] = [c.get_window_extent(renderer) for c in ax.texts if c.get_fontsize() < 7]
         for m in table.modes:
             text = pole_label(m, nyquist_hz)
             p = m.z if m.z.imag >= 0 else m.z.conjugate()
