@@ -10,6 +10,7 @@ from __future__ import annotations
 __all__ = [
     "METHODS", "WEIGHTINGS", "NOISE_MODELS", "REFINEMENTS", "POLYNOMIAL_STRUCTURES", "DISCRETIZE_METHODS",
     "REALIZATIONS", "FLAGS", "UPSAMPLE_METHODS", "SIGNAL_KINDS", "SPACINGS", "HARMONICS", "PHASES", "ARRANGEMENTS",
+    "OFFSET_METHODS",
 ]
 
 #: Model families of ``identify`` / ``rigfit fit --method``: ``"auto"`` (ARX and
@@ -71,3 +72,6 @@ PHASES: tuple[str, ...] = ("low-crest", "schroeder", "random")
 
 #: How the signals of several inputs are made distinguishable in one test.
 ARRANGEMENTS: tuple[str, ...] = ("orthogonal", "interleaved", "shifted", "independent")
+
+#: Ways of choosing the operating point that is subtracted from the data.
+OFFSET_METHODS: tuple[str, ...] = ("mean", "initial")

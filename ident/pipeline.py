@@ -731,7 +731,7 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
     from .plots.drift import magnitude_overlay
     from .plots.poles import pole_zero_map
     from .plots.signals import plot_log
-    from .plots.validation import frequency_comparison, output_comparison, residual_correlations, verdict_card
+    from .plots.validation import frequency_comparison, output_comparison, residual_correlations, verdict_grid
 
     out: list[tuple[dict[str, str], bytes]] = []
 
@@ -744,12 +744,15 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
         add(name, "data", f"Logged signals of {log.source.file_name} (inputs amber, outputs blue).",
             plot_log(log))
     rep = state["validation"][0]
+    model = state["result"].model
     exp = state["parts"][0] + 1
     where = f"held-out part of experiment {exp}" if len(state["result"].prepared.validation) > 1 else "held-out data"
     add("validation_outputs.png", "validation",
         f"Measured and simulated outputs on the {where} (deviations from the operating point).",
-        output_comparison(rep))
-    add("validation_verdicts.png", "validation", "Fit per output and the validation verdicts.", verdict_card(rep))
+        output_comparison(rep, model=model))
+    add("validation_verdicts.png", "validation",
+        "Verdicts per output and test (✓ passed, ✗ failed, ? the data cannot judge); the words are in the table "
+        "above.", verdict_grid(rep))
     for i, out_name in enumerate(rep.outputs):
         add(f"validation_residuals_{i + 1}.png", "validation",
             f"Residual correlations of {out_name}: autocorrelation and cross-correlation with the inputs, "
@@ -762,13 +765,13 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
             count += 1
             add(f"validation_frequency_{i + 1}_{j + 1}.png", "validation",
                 f"Frequency response {in_name} → {out_name}: model against the estimate from the data, "
-                "with the coherence.", frequency_comparison(rep, output=i, input=j))
+                "with the coherence.", frequency_comparison(rep, output=i, input=j, model=model))
     add("modes_poles.png", "modes", "Poles (crosses; orange when flagged) and zeros (circles) in the z-plane.",
         pole_zero_map(state["table"]))
     if state["drift"] is not None:
         add("drift_magnitude.png", "drift",
             "Magnitude responses of the baseline and the new model over the excited band.",
-            magnitude_overlay(state["drift"], inputs=state["result"].model.inputs))
+            magnitude_overlay(state["drift"], inputs=model.inputs, units=(model.input_units, model.output_units)))
     return out
 
 

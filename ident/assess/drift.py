@@ -4,7 +4,8 @@ Modes of the two models are paired by an optimal assignment on a cost that
 combines the relative frequency difference and the damping difference
 (:func:`scipy.optimize.linear_sum_assignment`); pairs whose cost exceeds a
 limit are reported as a vanished and an appeared mode instead. For every pair
-the shift of natural frequency and damping ratio is given, with a significance
+the shift of natural frequency and damping ratio is given (and of the time
+constant of a real mode, which real modes are judged by), with a significance
 test when both models carry pole uncertainties. DC gains, the largest
 frequency-response difference in the excited band, and (when a new log is
 given) how well each model explains the new data complete the comparison.
@@ -66,6 +67,11 @@ class DriftThresholds:
         Pairs of modes whose matching cost exceeds this are not paired. The cost is
         ``|ln(f_new / f_base)| + |zeta_new - zeta_base|``; the default 0.7 pairs modes
         within about a factor of two in frequency.
+    time_constant_shift_percent : float
+        Largest allowed change of a matched real (non-oscillating) mode's time
+        constant, in percent of the baseline time constant. Default 10. Real modes
+        are judged by their time constant, oscillations by their natural
+        frequency (``frequency_shift_percent``) and damping.
     """
 
     frequency_shift_percent: float = 10.0
@@ -74,10 +80,11 @@ class DriftThresholds:
     response_difference_db: float = 6.0
     new_modes_allowed: bool = True
     match_cost_limit: float = 0.7
+    time_constant_shift_percent: float = 10.0
 
     def __post_init__(self) -> None:
         for name in ("frequency_shift_percent", "damping_shift", "dc_gain_change_percent",
-                     "response_difference_db", "match_cost_limit"):
+                     "response_difference_db", "match_cost_limit", "time_constant_shift_percent"):
             object.__setattr__(self, name, positive_float(getattr(self, name), name))
         if not isinstance(self.new_modes_allowed, bool):
             raise OptionError(f"new_modes_allowed must be true or false; got {self.new_modes_allowed!r}")
@@ -115,6 +122,9 @@ class ModeShift:
         pin it down.
     breaches : tuple of str
         Which thresholds this mode exceeds.
+    time_constant_shift_s, time_constant_shift_percent : float or None
+        New minus baseline time constant of a matched real mode; ``None``
+        otherwise.
     """
 
     status: str
@@ -126,6 +136,8 @@ class ModeShift:
     z_score: float | None
     in_band: bool
     breaches: tuple[str, ...]
+    time_constant_shift_s: float | None = None
+    time_constant_shift_percent: float | None = None
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -278,7 +290,15 @@ def _breach_text(kind: str, s: ModeShift, th: DriftThresholds) -> str:
             f"{_damping(s.baseline):.3g} -> {_damping(s.new):.3g} ({s.damping_shift:+.3g}, "
             f"limit {th.damping_shift:g})"
         )
+    if kind == "time-constant shift":
+        return (
+            f"time-constant shift: real mode with time constant {s.baseline.time_constant_s:.4g} s -> "
+            f"{s.new.time_constant_s:.4g} s ({s.time_constant_shift_percent:+.1f} %, "
+            f"limit {th.time_constant_shift_percent:g} %)"
+        )
     m = s.baseline or s.new
+    if not m.is_pair and m.time_constant_s is not None:  # type: ignore[union-attr]
+        return f"{kind}: real mode with time constant {m.time_constant_s:.4g} s"  # type: ignore[union-attr]
     return f"{kind}: mode at {m.natural_frequency_hz:.4g} Hz"  # type: ignore[union-attr]
 
 
@@ -300,11 +320,18 @@ def _mode_shift(b: Mode | None, n: Mode | None, th: DriftThresholds, band_hz: tu
     sb, sn = _frequency_std(b), _frequency_std(n)
     z_score = df / math.hypot(sb, sn) if sb is not None and sn is not None and (sb or sn) else None
     breaches = []
-    if in_band and abs(df_pct) > th.frequency_shift_percent:
+    tb, tn = b.time_constant_s, n.time_constant_s
+    real = not b.is_pair and not n.is_pair and tb is not None and tn is not None and tb > 0
+    dtau = tn - tb if real else None
+    dtau_pct = 100.0 * dtau / tb if real else None
+    if real:
+        if in_band and abs(dtau_pct) > th.time_constant_shift_percent:
+            breaches.append("time-constant shift")
+    elif in_band and abs(df_pct) > th.frequency_shift_percent:
         breaches.append("frequency shift")
     if in_band and abs(dz) > th.damping_shift:
         breaches.append("damping shift")
-    return ModeShift("matched", b, n, df, df_pct, dz, z_score, in_band, tuple(breaches))
+    return ModeShift("matched", b, n, df, df_pct, dz, z_score, in_band, tuple(breaches), dtau, dtau_pct)
 
 
 def _response_difference(
@@ -499,6 +526,8 @@ def drift_report_to_dict(report: DriftReport) -> dict:
                 "frequency_shift_hz": s.frequency_shift_hz,
                 "frequency_shift_percent": s.frequency_shift_percent,
                 "damping_shift": s.damping_shift,
+                "time_constant_shift_s": s.time_constant_shift_s,
+                "time_constant_shift_percent": s.time_constant_shift_percent,
                 "z_score": s.z_score,
                 "in_band": s.in_band,
                 "breaches": list(s.breaches),

@@ -47,6 +47,10 @@ class GateFailed(click.ClickException):
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    # Deprecation notices of the libraries underneath (click, numpy, pandas ...) are for
+    # rigfit's developers, who see them as errors in the test suite; a user is not told.
+    if issubclass(category, DeprecationWarning | PendingDeprecationWarning):
+        return
     click.echo(f"warning: {message}", err=True)
 
 
@@ -151,25 +155,26 @@ def log_options(command: Any) -> Any:
     """
     decorators = [
         click.option("--time", "time_column", default=None, metavar="NAME",
-                     help="Time column [s] (default: a column named 'time' or 't')."),
+                     help="Read the time stamps (in s, or in the unit of the header) from this column. By default a "
+                          "column named 'time' or 't' is used."),
         click.option("--sample-rate", "sample_rate", type=float, default=None, metavar="HZ",
-                     help="Sample rate for a log without a time column."),
+                     help="Take this sample rate in Hz for a log that has no time column."),
         click.option("--drop-bad-rows", is_flag=True,
-                     help="Drop rows with a non-numeric, empty, NaN or inf cell (count "
-                          "reported) instead of refusing the log; a dropped row is a gap."),
+                     help="Drop rows with a non-numeric, empty, NaN or inf cell instead of refusing the log. "
+                          "The count is reported, and a dropped row is a gap."),
         click.option("--split-at-gaps", is_flag=True,
-                     help="Split the log into segments at time gaps (and dropped rows) "
-                          "instead of refusing it."),
+                     help="Split the log into segments at time gaps and dropped rows instead of refusing it. "
+                          "Each segment is then a separate experiment."),
         click.option("--jitter-tolerance", type=float, default=0.1, show_default=True,
-                     metavar="FRACTION", help="Largest accepted |dt - T| / T."),
+                     metavar="FRACTION", help="Accept time steps that differ from the sample time T by at most "
+                                                  "this fraction of T."),
         click.option("--resample", "resample_hz", type=float, default=None, metavar="HZ",
-                     help="Bring every chosen channel to this rate: anti-alias filtered decimation "
-                          "going down, --upsample going up. Without it, channels at different "
+                     help="Bring every chosen channel to this rate in Hz, by anti-alias filtered decimation "
+                          "going down and by --upsample going up. Without it, channels at different "
                           "rates are an error."),
         click.option("--upsample", type=click.Choice(UPSAMPLE_METHODS), default=None,
-                     help="How to bring a slower channel up to the common rate (or onto its grid): "
-                          "zero-order hold or linear interpolation (a warning says what it does to "
-                          "the dynamics)."),
+                     help="Bring a slower channel up to the common rate (or onto its grid) by zero-order hold "
+                          "or by linear interpolation. A warning says what this does to the dynamics."),
     ]
     for deco in reversed(decorators):
         command = deco(command)

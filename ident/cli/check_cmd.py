@@ -86,7 +86,7 @@ def check(
         )
     inputs = _columns(input_columns, model.inputs, "--input", "inputs")
     outputs = _columns(output_columns, model.outputs, "--output", "outputs")
-    log = _read(log_path, inputs, outputs, read_log_kwargs(locals()))
+    log, time_note = _read_with_model_rate(log_path, inputs, outputs, read_log_kwargs(locals()), model.sample_time)
     _check_sample_time(log.sample_time, model.sample_time, log_path, model_path)
 
     # with --split-at-gaps the model is validated on the longest segment (a
@@ -115,19 +115,24 @@ def check(
 
     written: list[str] = []
     if plot_dir is not None:
-        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path))
+        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path), model=model)
 
     if as_json:
         payload = report_to_dict(report)
         payload["log"] = log_path
         payload["model"] = model_path
-        payload["columns"] = {"inputs": list(inputs), "outputs": list(outputs)}
+        payload["columns"] = {"inputs": list(log.input_names), "outputs": list(log.output_names)}
+        payload["sample_time_from_model"] = time_note is not None
         payload["figures"] = written
         payload["segment"] = {"start": start, "stop": stop, "n_segments": len(log.segments),
                               "dropped_rows": log.dropped_rows}
         echo_json(payload)
     else:
-        click.echo(report_text(report, log_path=log_path, model_path=model_path))
+        import dataclasses
+
+        shown = dataclasses.replace(report, inputs=tuple(log.input_names), outputs=tuple(log.output_names))
+        click.echo(report_text(shown, log_path=log_path, model_path=model_path,
+                               mapping=_mapping_line(model, log), time_note=time_note))
         if segment_note is not None:
             click.echo(f"note: {segment_note}")
         if log.dropped_rows:
@@ -137,6 +142,30 @@ def check(
     failures = report.gate_failures
     if failures:
         raise GateFailed("; ".join(v.message.split(";")[0] for v in failures))
+
+
+def _read_with_model_rate(path: str, inputs: tuple, outputs: tuple, log_kwargs: dict[str, Any],
+                          model_T: float) -> tuple[Any, str | None]:
+    """Read the log; without a time column (and no --time/--sample-rate) use the model's sample time."""
+    from ..errors import LogFormatError
+
+    try:
+        return _read(path, inputs, outputs, log_kwargs), None
+    except LogFormatError as exc:
+        if not exc.reason.startswith("no time column") or log_kwargs.get("sample_rate") or log_kwargs.get("time"):
+            raise
+    log = _read(path, inputs, outputs, {**log_kwargs, "sample_rate": 1.0 / model_T})
+    return log, f"the log has no time column: sample time {model_T:g} s ({1 / model_T:g} Hz) from the model file"
+
+
+def _mapping_line(model: Any, log: Any) -> str:
+    """``model signal <- log column`` for every signal, units as the log gives them."""
+    def pairs(names, columns, units):
+        return ", ".join(f"{c}{f' [{u}]' if u else ''}" + (f" (model {n})" if n != c else "")
+                         for n, c, u in zip(names, columns, units, strict=True))
+
+    return (f"log columns: inputs {pairs(model.inputs, log.input_names, log.input_units)}; "
+            f"outputs {pairs(model.outputs, log.output_names, log.output_units)}")
 
 
 def _columns(given: tuple[str, ...], names: tuple[str, ...], option: str, what: str) -> tuple:
@@ -202,8 +231,9 @@ def _check_sample_time(log_T: float, model_T: float, log_path: str, model_path: 
         )
 
 
-def report_text(report: Any, *, log_path: str = "", model_path: str = "") -> str:
-    """Human-readable summary of a validation report."""
+def report_text(report: Any, *, log_path: str = "", model_path: str = "", mapping: str | None = None,
+                time_note: str | None = None) -> str:
+    """Human-readable summary of a validation report (signal names as the report holds them)."""
     outs, ins = report.outputs, report.inputs
     k = report.prediction_steps
     T = report.sample_time
@@ -212,6 +242,10 @@ def report_text(report: Any, *, log_path: str = "", model_path: str = "") -> str
         lines.append(f"check of {model_path} on {log_path}")
     x0 = "estimated from the first samples" if report.initial_state == "estimate" else "zero"
     lines.append(f"  {report.n_samples} samples at {1 / T:g} Hz; initial state {x0}")
+    if mapping:
+        lines.append(f"  {mapping}")
+    if time_note:
+        lines.append(f"  note: {time_note}")
     lines.append("")
     w = max(12, *(len(n) for n in outs))
     lines.append(f"{'fit [%]':<{w}}  {'simulation':>10}  {f'{k}-step prediction':>18}")
@@ -262,7 +296,7 @@ def _safe(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("._") or "signal"
 
 
-def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple) -> list[str]:
+def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple, model: Any = None) -> list[str]:
     import io
     from pathlib import Path
 
@@ -278,15 +312,15 @@ def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple) -> 
 
         raise IdentError(f"{folder}: exists and is not a folder")
     jobs: list[tuple[Path, Any]] = [
-        (target / "outputs.png", lambda: vplots.output_comparison(report)),
-        (target / "verdicts.png", lambda: vplots.verdict_card(report)),
+        (target / "outputs.png", lambda: vplots.output_comparison(report, model=model)),
+        (target / "verdicts.png", lambda: vplots.verdict_grid(report)),
     ]
     for i, oname in enumerate(report.outputs):
         jobs.append((target / f"residuals_{_safe(oname)}.png",
                      lambda i=i: vplots.residual_correlations(report, output=i)))
         for j, iname in enumerate(report.inputs):
             jobs.append((target / f"response_{_safe(iname)}_to_{_safe(oname)}.png",
-                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j)))
+                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j, model=model)))
     if target.is_dir():
         for path, _ in jobs:  # refuse before writing anything
             check_output_path(path, force=force, protected=protected)

@@ -34,6 +34,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .._validate import as_signal, int_in_range, names_tuple, one_of, options_from_mapping, positive_float
+from ..choices import OFFSET_METHODS
 from ..errors import OptionError
 from ..lti._linalg import column_sums
 from ..lti.models import OperatingPoint
@@ -41,8 +42,6 @@ from .data import Experiment, as_experiments
 
 __all__ = ["OFFSET_METHODS", "PreprocessOptions", "PreparedData", "prepare", "as_records"]
 
-#: Ways of choosing the operating point that is subtracted from the data.
-OFFSET_METHODS = ("mean", "initial")
 
 #: Largest decimation factor done with the default 8th-order Chebyshev IIR
 #: filter; larger factors use scipy's FIR filter (scipy's own advice).

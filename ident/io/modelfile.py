@@ -51,6 +51,7 @@ __all__ = [
     "load_model",
     "dumps_model",
     "uncertainty_provenance",
+    "log_duration_from_provenance",
 ]
 
 FORMAT_NAME = "rigfit-model"
@@ -358,3 +359,33 @@ def load_model(path: str | os.PathLike) -> ModelFile:
     except json.JSONDecodeError as exc:
         raise ModelFileError(f"not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})", path=where) from exc
     return model_from_dict(data, path=where)
+
+
+def log_duration_from_provenance(provenance: dict, sample_time: float | None) -> float | None:
+    """Log duration in s recorded in a model file's provenance, if any.
+
+    Looks at ``log_duration_s``, then ``log.duration_s``, then
+    ``log.n_samples`` (or ``estimation.n_samples``) times the sample time.
+    """
+    def number(value: Any) -> float | None:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            return None
+        return float(value) if value > 0 else None
+
+    if not isinstance(provenance, dict):
+        return None
+    direct = number(provenance.get("log_duration_s"))
+    if direct is not None:
+        return direct
+    for section in ("log", "estimation"):
+        block = provenance.get(section)
+        if not isinstance(block, dict):
+            continue
+        for key in ("duration_s", "log_duration_s"):
+            value = number(block.get(key))
+            if value is not None:
+                return value
+        n = number(block.get("n_samples"))
+        if n is not None and sample_time:
+            return n * sample_time
+    return None

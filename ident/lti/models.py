@@ -212,6 +212,17 @@ class StateSpaceModel:
         """Return a copy with some fields replaced (arrays are copied again)."""
         return replace(self, **changes)
 
+    def to_scipy(self) -> Any:
+        """Return the equivalent ``scipy.signal.StateSpace`` (discrete with ``dt = sample_time``).
+
+        Names, units and the operating point have no place in scipy's object and stay on this
+        model; the scipy system maps deviations from the operating point.
+        """
+        from scipy import signal
+
+        dt = {} if self.sample_time is None else {"dt": self.sample_time}
+        return signal.StateSpace(np.array(self.A), np.array(self.B), np.array(self.C), np.array(self.D), **dt)
+
 
 @dataclass(frozen=True, slots=True, eq=False)
 class TransferFunctionModel:

@@ -275,7 +275,7 @@ def _draw_frf(ax_mag: Any, ax_ph: Any, analysis: Any, i: int, j: int, comparison
                     zorder=3)
     ax_mag.set_xscale("log")
     ax_mag.set_yscale("log")
-    ax_mag.set_ylabel("|G|", fontsize=8, color=_INK)
+    ax_mag.set_ylabel("|G| [output unit / input unit]", fontsize=8, color=_INK)
     ax_mag.legend(fontsize=7, frameon=False)
     with np.errstate(divide="ignore", invalid="ignore"):
         phase_err = np.degrees(np.arcsin(np.clip(err / np.where(mag > 0, mag, np.inf), 0, 1)))
@@ -303,6 +303,6 @@ def _draw_output(ax: Any, analysis: Any, i: int, comparison: Any) -> None:
                 color=_MODEL, label="model error at excited lines")
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_ylabel(f"{analysis.outputs[i]} amplitude", fontsize=8, color=_INK)
+    ax.set_ylabel(f"{analysis.outputs[i]} amplitude [output unit]", fontsize=8, color=_INK)
     ax.set_xlabel("frequency [Hz]", fontsize=8, color=_INK)
     ax.legend(fontsize=7, frameon=True, framealpha=0.85, edgecolor="none", loc="upper right")

@@ -1,4 +1,4 @@
-"""Figures of a validation report: outputs, residual correlations, spectra, verdict card.
+"""Figures of a validation report: outputs, residual correlations, spectra, the verdict grid.
 
 Every function takes a :class:`ident.assess.diagnostics.ValidationReport`, draws on
 the axes it is given (or on a new figure not registered with pyplot) and
@@ -19,8 +19,10 @@ __all__ = [
     "output_comparison",
     "residual_correlations",
     "frequency_comparison",
-    "verdict_card",
-    "MAX_VERDICTS",
+    "verdict_grid",
+    "verdict_outcomes",
+    "VERDICT_MARKS",
+    "DENSE_POINTS",
     "FIGURES",
 ]
 
@@ -54,19 +56,39 @@ def _style(ax: Any) -> None:
     ax.grid(True, color="#dfe5ea", lw=0.5)
 
 
-def output_comparison(report: ValidationReport, *, axes: Sequence[Any] | None = None) -> Any:
+def _unit_text(units: Sequence[str] | None, k: int) -> str:
+    return units[k] if units is not None and k < len(units) and units[k] else "-"
+
+
+def _zoom_window(n: int, span: int) -> tuple[int, int]:
+    """``[lo, hi)`` of a window of at most ``span`` samples from the middle, never the whole record."""
+    width = max(2, min(span, n // 4)) if n >= 8 else max(1, n - 1)
+    lo = max(0, n // 2 - width // 2)
+    return lo, min(n, lo + width)
+
+
+def output_comparison(report: ValidationReport, *, model: Any | None = None,
+                      axes: Sequence[Any] | None = None, fit_label: str = "held-out fit") -> Any:
     """Measured against simulated (and predicted) output, with a zoomed window.
 
     Parameters
     ----------
     report : ValidationReport
+    model : ident.lti.models.StateSpaceModel, optional
+        The model checked; its output units label the axes.
     axes : sequence of matplotlib.axes.Axes, optional
-        ``2 p`` axes: for each output the whole log, then a window of
-        :data:`ZOOM_SAMPLES` samples from its middle; a new figure when omitted.
+        ``2 p`` axes: for each output the whole log, then a window of at most
+        :data:`ZOOM_SAMPLES` samples (and at most a quarter of the record) from
+        its middle; a new figure when omitted.
+    fit_label : str, default "held-out fit"
+        Name of the fit figures in the box on each plot ("in-sample fit" for
+        data the model was fitted on).
 
     Returns
     -------
     matplotlib.figure.Figure
+        The legend names the curves; the fit percentages stand in a small box
+        in the corner of each full-record plot.
     """
     p = len(report.outputs)
     if axes is None:
@@ -82,26 +104,30 @@ def output_comparison(report: ValidationReport, *, axes: Sequence[Any] | None = 
     T = report.sample_time
     stride = max(1, N // _MAX_POINTS)
     idx = np.arange(0, N, stride)
-    half = min(N, ZOOM_SAMPLES) // 2
-    lo, hi = N // 2 - half, N // 2 + half
+    lo, hi = _zoom_window(N, ZOOM_SAMPLES)
     show_pred = not np.array_equal(report.predicted, report.simulated)
     k = report.prediction_steps
+    units = None if model is None else model.output_units
     for i in range(p):
         full, zoom = axes[2 * i], axes[2 * i + 1]
         for ax, sel in ((full, idx), (zoom, np.arange(lo, hi))):
             t = sel * T
             ax.plot(t, report.measured[sel, i], color=_MEASURED, lw=1.8, label="measured")
-            ax.plot(t, report.simulated[sel, i], color=_SIM, lw=0.8,
-                    label=f"simulated (fit {report.simulation_fit[i]:.1f} %)")
+            ax.plot(t, report.simulated[sel, i], color=_SIM, lw=0.8, label="simulated")
             if show_pred:
-                ax.plot(t, report.predicted[sel, i], color=_PRED, lw=0.8, ls="--",
-                        label=f"{k}-step prediction (fit {report.prediction_fit[i]:.1f} %)")
+                ax.plot(t, report.predicted[sel, i], color=_PRED, lw=0.8, ls="--", label=f"{k}-step prediction")
             _style(ax)
         full.axvspan(lo * T, (hi - 1) * T, color=_LOWCOH, zorder=0)
-        full.set_ylabel(f"{report.outputs[i]}\n(deviation)", fontsize=8, color=_INK)
-        full.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), fontsize=7, frameon=False,
-                    ncol=3)
-        zoom.set_title("zoom (shaded window)", fontsize=8, loc="left", color=_INK)
+        full.set_ylabel(f"{report.outputs[i]}\ndeviation [{_unit_text(units, i)}]", fontsize=8, color=_INK)
+        zoom.set_ylabel(f"[{_unit_text(units, i)}]", fontsize=8, color=_INK)
+        box = f"{fit_label}\nsimulation {report.simulation_fit[i]:.1f} %"
+        if show_pred:
+            box += f"\n{k}-step prediction {report.prediction_fit[i]:.1f} %"
+        full.text(0.99, 0.97, box, transform=full.transAxes, ha="right", va="top", fontsize=7.5, color=_INK,
+                  zorder=10, bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": "#b7c4cf",
+                                   "alpha": 0.9})
+        full.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), fontsize=7, frameon=False, ncol=3)
+        zoom.set_title(f"zoom (shaded window, {hi - lo} samples)", fontsize=8, loc="left", color=_INK)
     axes[2 * p - 2].set_xlabel("time [s]", fontsize=8)
     axes[2 * p - 1].set_xlabel("time [s]", fontsize=8)
     return fig
@@ -168,8 +194,12 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
     return fig
 
 
+#: Points of the dense logarithmic grid on which the model's frequency response is drawn.
+DENSE_POINTS = 2000
+
+
 def frequency_comparison(report: ValidationReport, *, output: int = 0, input: int = 0,
-                         axes: Sequence[Any] | None = None) -> Any:
+                         model: Any | None = None, axes: Sequence[Any] | None = None) -> Any:
     """Model against nonparametric frequency response, with the coherence of the data.
 
     Parameters
@@ -177,14 +207,25 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
     report : ValidationReport
     output, input : int, default 0
         Channel shown.
+    model : ident.lti.models.StateSpaceModel, optional
+        The model checked: its response is drawn on a dense logarithmic grid of
+        :data:`DENSE_POINTS` frequencies (so a sharp resonance keeps its shape)
+        and its units label the gain axis. Without it the model is drawn at the
+        spectral estimate's frequencies.
     axes : sequence of matplotlib.axes.Axes, optional
         Three axes: magnitude, phase, coherence.
 
     Returns
     -------
     matplotlib.figure.Figure
-        Bands where the coherence is low are shaded on all three panels.
+        Bands where the coherence is low are shaded on all three panels; the
+        gain axis is in dB with the gain in output unit per input unit on the
+        right; every line is named in a legend.
     """
+    from matplotlib.patches import Patch
+
+    from ..assess.diagnostics import COHERENCE_LOW
+
     if axes is None:
         fig, grid = _new_figure(3, height=2.2)
         axes = list(grid[:, 0])
@@ -193,179 +234,216 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
         fig = axes[0].figure
     sp = report.spectral
     f = sp.frequencies_hz
-    G = sp.model_response[:, output, input]
     H = sp.estimate[:, output, input]
+    fm, G = _model_curve(report, model, output, input)
     with np.errstate(divide="ignore"):
         g_db, h_db = 20 * np.log10(np.abs(G)), 20 * np.log10(np.abs(H))
     ax_mag, ax_ph, ax_coh = axes[:3]
     oname, iname = report.outputs[output], report.inputs[input]
+    shaded = mismatch = False
     for band in sp.low_coherence_bands:
         if band.output == oname and band.input in (iname, None):
+            shaded = True
             for ax in (ax_mag, ax_ph, ax_coh):
                 ax.axvspan(band.low_hz, band.high_hz, color=_LOWCOH, zorder=0)
     for band in sp.mismatch_bands:
         if band.output == oname and band.input == iname:
+            mismatch = True
             ax_mag.axvspan(band.low_hz, band.high_hz, ymax=0.04, color=_BAD, zorder=1)
     ax_mag.semilogx(f, h_db, color=_MEASURED, lw=1.0, label="estimate from data (H1)")
-    ax_mag.semilogx(f, g_db, color=_SIM, lw=1.4, label="model")
-    ax_mag.set_ylabel("magnitude [dB]", fontsize=8)
-    ax_mag.set_title(f"{iname} → {oname}", fontsize=9, loc="left", color=_INK)
-    ax_mag.legend(fontsize=7, frameon=False)
-    ax_ph.semilogx(f, np.degrees(np.unwrap(np.angle(H))), color=_MEASURED, lw=1.0)
-    ax_ph.semilogx(f, np.degrees(np.unwrap(np.angle(G))), color=_SIM, lw=1.4)
+    ax_mag.semilogx(fm, g_db, color=_SIM, lw=1.4, label="model")
+    extra = []
+    if shaded:
+        extra.append(Patch(color=_LOWCOH, label=f"coherence below {COHERENCE_LOW:g}"))
+    if mismatch:
+        extra.append(Patch(color=_BAD, label="model misses the data"))
+    handles, labels = ax_mag.get_legend_handles_labels()
+    ax_mag.legend(handles + extra, labels + [h.get_label() for h in extra], fontsize=7, frameon=False,
+                  loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=4, borderaxespad=0.2)
+    ratio = _gain_unit(model, output, input)
+    ax_mag.set_ylabel("gain [dB]", fontsize=8)
+    _gain_axis(ax_mag, ratio)
+    ax_mag.set_title(f"{iname} → {oname}", fontsize=9, loc="right", color=_INK)
+    ax_ph.semilogx(f, np.degrees(np.unwrap(np.angle(H))), color=_MEASURED, lw=1.0, label="estimate from data (H1)")
+    ax_ph.semilogx(fm, np.degrees(np.unwrap(np.angle(G))), color=_SIM, lw=1.4, label="model")
     ax_ph.set_ylabel("phase [deg]", fontsize=8)
-    ax_coh.semilogx(f, sp.coherence[:, output, input], color=_PRED, lw=1.1, label="coherence")
+    ax_coh.semilogx(f, sp.coherence[:, output, input], color=_PRED, lw=1.1, label=f"coherence {iname} → {oname}")
     if sp.multiple_coherence.shape[1] and len(report.inputs) > 1:
         ax_coh.semilogx(f, sp.multiple_coherence[:, output], color=_PRED, lw=0.8, ls="--",
-                        label="multiple coherence")
-    from ..assess.diagnostics import COHERENCE_LOW
-
-    ax_coh.axhline(COHERENCE_LOW, color=_BAD, lw=0.7, ls=":")
+                        label=f"multiple coherence of {oname}")
+    ax_coh.axhline(COHERENCE_LOW, color=_BAD, lw=0.7, ls=":", label=f"threshold {COHERENCE_LOW:g}")
     ax_coh.set_ylim(0.0, 1.05)
-    ax_coh.set_ylabel("coherence", fontsize=8)
+    ax_coh.set_ylabel("coherence [-]", fontsize=8)
     ax_coh.set_xlabel("frequency [Hz]", fontsize=8)
+    ax_coh.legend(fontsize=7, frameon=False, loc="lower left")
     for ax in axes[:3]:
         _style(ax)
     return fig
 
 
-#: Largest number of verdicts listed on :func:`verdict_card`; the rest are counted.
-MAX_VERDICTS = 16
-#: Characters per line of a verdict before it wraps.
-_WRAP = 105
-#: Vertical space of one text line and the gap between verdicts [inch].
-_LINE_IN = 0.145
-_GAP_IN = 0.07
-_HEADER_IN = 0.42
+def _model_curve(report: ValidationReport, model: Any | None, output: int, input: int
+                 ) -> tuple[np.ndarray, np.ndarray]:
+    """Frequencies [Hz] and model response: dense and logarithmic when the model is given."""
+    sp = report.spectral
+    f = sp.frequencies_hz
+    if model is None:
+        return f, sp.model_response[:, output, input]
+    from ..lti.analysis import frequency_response
+
+    positive = f[f > 0]
+    lo = positive[0] if positive.size else 1e-3 / report.sample_time
+    dense = np.geomspace(lo, f[-1], DENSE_POINTS)
+    return dense, np.asarray(frequency_response(model, dense))[:, output, input]
 
 
-def _pick_verdicts(verdicts: Sequence[Any], limit: int) -> tuple[list[Any], int]:
-    """Choose the verdicts to list (failures first when too many) and count the rest."""
-    items = list(verdicts)
-    if len(items) <= limit:
-        return items, 0
-    failed = [i for i, v in enumerate(items) if not v.passed]
-    passed = [i for i, v in enumerate(items) if v.passed]
-    keep = sorted((failed + passed)[:limit])
-    return [items[i] for i in keep], len(items) - limit
+def _gain_unit(model: Any | None, output: int, input: int) -> str:
+    if model is None:
+        return "output unit/input unit"
+    from ..display import ratio_unit
+
+    out_u = model.output_units[output] if output < len(model.output_units) else ""
+    in_u = model.input_units[input] if input < len(model.input_units) else ""
+    return ratio_unit(out_u, in_u) if (out_u or in_u) else "output unit/input unit"
 
 
-def verdict_card(report: ValidationReport, *, ax: Any | None = None,
-                 max_verdicts: int = MAX_VERDICTS) -> Any:
-    """One-glance summary: fit bars per output beside the verdicts in plain words.
+def _gain_axis(ax: Any, unit: str) -> None:
+    """Add a right-hand axis giving the gain of the dB scale in output unit per input unit."""
+    from matplotlib.ticker import FixedLocator
+
+    sec = ax.secondary_yaxis("right", functions=(lambda db: 10 ** (np.asarray(db) / 20.0),
+                                                 lambda g: 20 * np.log10(np.maximum(np.asarray(g), 1e-300))))
+    lo, hi = ax.get_ylim()
+    decades = np.arange(math.floor(lo / 20.0), math.ceil(hi / 20.0) + 1)
+    sec.yaxis.set_major_locator(FixedLocator(10.0 ** decades))
+    sec.set_yticklabels([f"{10.0 ** d:g}" for d in decades])
+    sec.set_ylabel(f"gain [{unit}]", fontsize=8)
+    sec.tick_params(labelsize=7, colors=_INK)
+
+
+#: Marks of :func:`verdict_grid`: (symbol, colour, legend text) per outcome.
+VERDICT_MARKS = {
+    "pass": ("✓", _GOOD, "passed"),
+    "fail": ("✗", _BAD, "failed: the model misses something"),
+    "cannot_judge": ("?", "#9a6b00", "cannot judge: the data do not allow it"),
+}
+#: Height of one output row and width of one test column of :func:`verdict_grid` [inch].
+_ROW_IN = 0.36
+_COL_IN = 1.05
+
+
+def verdict_outcomes(report: ValidationReport) -> tuple[list[str], list[str], dict[tuple[str, str], str]]:
+    """Outcome per (output, test): ``"pass"``, ``"fail"`` or ``"cannot_judge"``.
+
+    Several verdicts of one test on one output (one per input, one per band)
+    combine: a failure of a model test is ``"fail"``; a failure of a data test
+    (:data:`ident.assess.diagnostics.DATA_TESTS`: feedback, coherence) is
+    ``"cannot_judge"``; otherwise ``"pass"``. Verdicts about no particular
+    output go in a row ``"all outputs"``.
+
+    Returns
+    -------
+    rows : list of str
+        Outputs (and ``"all outputs"`` when needed), in report order.
+    tests : list of str
+        Tests present, in the order of :data:`~ident.assess.diagnostics.VERDICT_TESTS`.
+    outcome : dict
+        ``{(row, test): outcome}``; a missing key means no verdict there.
+    """
+    from ..assess.diagnostics import DATA_TESTS, VERDICT_TESTS
+
+    rank = {"pass": 0, "cannot_judge": 1, "fail": 2}
+    outcome: dict[tuple[str, str], str] = {}
+    rows = list(report.outputs)
+    for v in report.verdicts:
+        row = v.output if v.output in report.outputs else "all outputs"
+        if row not in rows:
+            rows.append(row)
+        new = "pass" if v.passed else ("cannot_judge" if v.test in DATA_TESTS else "fail")
+        old = outcome.get((row, v.test))
+        if old is None or rank[new] > rank[old]:
+            outcome[(row, v.test)] = new
+    present = {t for _, t in outcome}
+    tests = [t for t in VERDICT_TESTS if t in present] + sorted(present - set(VERDICT_TESTS))
+    return rows, tests, outcome
+
+
+def verdict_grid(report: ValidationReport, *, ax: Any | None = None) -> Any:
+    """Draw outputs x tests with one pass / fail / cannot-judge mark per cell, for any number of outputs.
 
     Parameters
     ----------
     report : ValidationReport
     ax : matplotlib.axes.Axes, optional
-        Axes for the fit bars; the verdict text goes into the figure to its
-        right (leave room there). A new figure, sized to hold every listed
-        line, when omitted.
-    max_verdicts : int, default :data:`MAX_VERDICTS`
-        Verdicts listed at most; failed ones are kept first and the number left
-        out is written as "+N more".
+        Axes to draw the grid on; a new figure, sized to the grid, when omitted.
 
     Returns
     -------
     matplotlib.figure.Figure
+        Rows are the outputs (labelled with their simulation fit), columns the
+        tests; the marks are explained in the legend. The words of each verdict
+        stay in the terminal, the JSON and the HTML report.
     """
-    import textwrap
+    from matplotlib.lines import Line2D
 
-    from matplotlib.transforms import ScaledTranslation, blended_transform_factory
-
-    from ..assess.diagnostics import DATA_TESTS
-
-    items, hidden = _pick_verdicts(report.verdicts, max_verdicts)
-    wrapped = [
-        textwrap.fill(f"{_mark(v, DATA_TESTS)} {v.test}: {v.message}", _WRAP,
-                      subsequent_indent="   ")
-        for v in items
-    ]
-    p = len(report.outputs)
-    n_lines = sum(1 + t.count("\n") for t in wrapped) + (1 if hidden else 0)
-    text_height = 0.2 + _HEADER_IN + _LINE_IN * n_lines + _GAP_IN * (len(items) + 1)
-    bar_height = 1.5 + 0.55 * p
+    rows, tests, outcome = verdict_outcomes(report)
+    own = ax is None
     if ax is None:
         from matplotlib.figure import Figure
 
-        # Rounded up to a tenth of an inch so the pixel size is exact at any whole dpi.
-        height = math.ceil(10.0 * max(3.0, text_height, bar_height)) / 10.0
-        fig = Figure(figsize=(11.0, height), dpi=100,
-                     layout="constrained")
-        ax, text_ax = fig.subplots(1, 2, gridspec_kw={"width_ratios": (1.0, 2.9)})
-        text_ax.set_axis_off()
-        # x from the text column, y from the top of the figure (level with the legend).
-        anchor = blended_transform_factory(text_ax.transAxes, fig.transFigure)
-        x0, y0 = 0.0, 1.0
-        pad_in = 0.08
+        label_in = 0.09 * max([len(r) for r in rows] + [10]) + 0.6
+        width = math.ceil(10 * max(6.0, label_in + _COL_IN * max(1, len(tests)) + 0.4)) / 10
+        height = math.ceil(10 * (1.6 + _ROW_IN * len(rows))) / 10
+        fig = Figure(figsize=(width, height), dpi=100, layout="constrained")
+        ax = fig.add_subplot(1, 1, 1)
     else:
         fig = ax.figure
-        anchor = ax.transAxes
-        x0, y0 = 1.12, 1.0
-        pad_in = 0.0
-    y = np.arange(p)
-    sim = np.clip(report.simulation_fit, -20, 100)
-    pred = np.clip(report.prediction_fit, -20, 100)
-    ax.barh(y + 0.2, sim, height=0.38, color=_SIM, label="simulation")
-    ax.barh(y - 0.2, pred, height=0.38, color=_PRED,
-            label=f"{report.prediction_steps}-step prediction")
-    for yy, vals, raw in ((y + 0.2, sim, report.simulation_fit),
-                          (y - 0.2, pred, report.prediction_fit)):
-        for yi, v, r in zip(yy, vals, raw, strict=True):
-            inside = v > 25
-            ax.text(v - 1.5 if inside else max(v, 0.0) + 1.5, yi, f"{r:.1f} %", fontsize=7,
-                    va="center", ha="right" if inside else "left",
-                    color="white" if inside else _INK)
-    if report.options.min_fit is not None:
-        ax.axvline(report.options.min_fit, color=_BAD, lw=1.0, ls="--",
-                   label=f"required ({report.options.min_fit:g} %)")
-    ax.set_yticks(y, list(report.outputs), fontsize=8)
-    ax.set_ylim(-0.7, p - 0.3)
-    ax.set_xlim(min(0.0, float(min(sim.min(), pred.min()))), 100)
-    ax.set_xlabel("fit [%]", fontsize=8)
-    # Above the bars, inside the figure: constrained layout makes room for it.
-    handles, labels = ax.get_legend_handles_labels()
-    order = sorted(range(len(labels)), key=lambda i: labels[i].startswith("required"))
-    ax.legend([handles[i] for i in order], [labels[i] for i in order], fontsize=7,
-              frameon=False, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=1,
-              borderaxespad=0.2)
-    _style(ax)
-    ax.grid(False, axis="y")
-
-    model_failed = sum(1 for v in report.verdicts if not v.passed and v.test not in DATA_TESTS)
-    verdict = f"{model_failed} model test(s) failed" if model_failed else "model tests passed"
+    fits = dict(zip(report.outputs, report.simulation_fit, strict=True))
+    for r, row in enumerate(rows):
+        for c, test in enumerate(tests):
+            state = outcome.get((row, test))
+            face = {"pass": "#e8f3ef", "fail": "#fbe5dc", "cannot_judge": "#fbf1d9"}.get(state, "#f4f5f6")
+            ax.add_patch(_cell(c, r, face))
+            if state is None:
+                ax.text(c, r, "–", ha="center", va="center", fontsize=9, color="#9aa5ae")
+            else:
+                mark, colour, _ = VERDICT_MARKS[state]
+                ax.text(c, r, mark, ha="center", va="center", fontsize=12, color=colour, weight="bold")
+    ax.set_xlim(-0.5, len(tests) - 0.5 if tests else 0.5)
+    ax.set_ylim(len(rows) - 0.5, -0.5)
+    ax.set_xticks(range(len(tests)), [t.replace("_", " ") for t in tests], fontsize=8, color=_INK)
+    ax.xaxis.tick_top()
+    ax.set_yticks(range(len(rows)),
+                  [f"{row} (fit {fits[row]:.1f} %)" if row in fits else row for row in rows], fontsize=8, color=_INK)
+    ax.tick_params(length=0)
+    for spine in ax.spines.values():
+        spine.set_visible(False)
+    handles = [Line2D([], [], ls="none", marker=f"${m}$", color=col, markersize=8, label=text)
+               for m, col, text in VERDICT_MARKS.values()]
+    handles.append(Line2D([], [], ls="none", marker="$–$", color="#9aa5ae", markersize=8, label="no such test"))
+    model_failed = sum(1 for v in outcome.values() if v == "fail")
+    head = (f"{report.n_samples} samples: " + (f"{model_failed} model test(s) failed" if model_failed
+                                                 else "model tests passed"))
     if report.options.min_fit is not None or report.options.require_white:
-        verdict += "; gates " + ("passed" if report.passed else "FAILED")
-    good = report.passed and not model_failed
-
-    def place(text: str, offset_in: float, **kw: Any) -> Any:
-        shift = ScaledTranslation(0.0, -(offset_in + pad_in), fig.dpi_scale_trans)
-        art = fig.text(x0, y0, text, transform=anchor + shift, va="top", ha="left", **kw)
-        art.set_in_layout(False)
-        return art
-
-    place(f"{report.n_samples} samples — {verdict}", 0.0, fontsize=11,
-          color=_GOOD if good else _BAD, weight="bold")
-    top = _HEADER_IN
-    for v, text in zip(items, wrapped, strict=True):
-        colour = _GOOD if v.passed else ("#9a6b00" if v.test in DATA_TESTS else _BAD)
-        place(text, top, fontsize=7.5, color=colour)
-        top += _LINE_IN * (1 + text.count("\n")) + _GAP_IN
-    if hidden:
-        place(f"+{hidden} more verdict(s) not listed (passed ones first left out; "
-              "all are in the report and in --json)", top, fontsize=7.5, color=_INK,
-              style="italic")
+        head += "; gates " + ("passed" if report.passed else "FAILED")
+    if own:  # below the grid, inside the figure: constrained layout makes room for it
+        fig.legend(handles=handles, loc="outside lower left", ncol=4, fontsize=7.5, frameon=False,
+                   handletextpad=0.3, columnspacing=1.2)
+    else:
+        ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(0.0, 0.0), ncol=4, fontsize=7.5,
+                  frameon=False, handletextpad=0.3, columnspacing=1.2)
+    ax.set_title(head, fontsize=9.5, loc="left", color=_BAD if model_failed or not report.passed else _GOOD,
+                 weight="bold", pad=22)
     return fig
 
 
-def _mark(verdict: Any, data_tests: tuple[str, ...]) -> str:
-    if verdict.passed:
-        return "✓"
-    return "!" if verdict.test in data_tests else "✗"
+def _cell(x: float, y: float, face: str) -> Any:
+    from matplotlib.patches import Rectangle
+
+    return Rectangle((x - 0.47, y - 0.42), 0.94, 0.84, facecolor=face, edgecolor="white", lw=1.0)
 
 
 #: File stem -> figure function, for the figures ``rigfit check --plot`` writes per report.
 FIGURES = {
     "outputs": output_comparison,
-    "verdicts": verdict_card,
+    "verdicts": verdict_grid,
 }
