@@ -437,7 +437,9 @@ def _candidate_lines(result) -> list[str]:
     kinds = ", ".join(f"{sum(c.method == k for c in direct)} {k}" for k in dict.fromkeys(c.method for c in direct))
     lines = [f"candidates: {len(direct)} direct estimates ({kinds}) scored on the held-out data"]
     if refined:
-        lines.append(f"  the best {len(refined)} refined (held-out fit %, direct -> refined):")
+        reduced = sum("reduced_from" in c.structure for c in refined)
+        tried = f", {reduced} of them by reducing the best" if reduced else ""
+        lines.append(f"  {len(refined)} refined{tried} (held-out fit %, start -> refined):")
         rows = refined
     else:
         lines.append("  the best by held-out fit:")
@@ -483,6 +485,8 @@ def _describe(c) -> str:
         text = f"ARX na = {st['na']}, nb = {_short(st['nb'])}, nk = {_short(st['nk'])}"
     else:
         text = f"subspace n = {st['n']} ({st['weighting']}, horizon {st['horizon']})"
+    if "reduced_from" in st:
+        text += f", reduced to {c.order} states"
     if c.stage == "refined" and any(c.input_delay):
         text += f", input delay {_short(c.input_delay)}"
     return text

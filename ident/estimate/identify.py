@@ -584,6 +584,8 @@ def _identify(segments, sample_time, options: IdentifyOptions, names: dict, repo
     if options.method in ("auto", "subspace") and options.refinement != "none":
         search.forms = _refinement_forms(options, search, refs is not None)
         _refine_best(options, screen, search)
+        if options.order is None:
+            _reduce_best(options, screen, search)
         pool = search.refined
     report("selecting", 0.85)
     pool, record = _select_form(pool, screen, options, search)
@@ -595,8 +597,10 @@ def _select_form(pool: list[Fitted], screen: Screen, options: IdentifyOptions, s
 
     Losses of output-error and innovations models are not comparable, so each form
     is selected on its own; the innovations model (consistent under feedback) is
-    kept unless the output-error model simulates the held-out data significantly
-    better (:func:`ident.estimate.selection.equal_accuracy_pvalue`).
+    kept unless the best output-error model simulates the held-out data
+    significantly better than the best innovations model
+    (:func:`ident.estimate.selection.equal_accuracy_pvalue`); the form's own
+    selection then gives the model.
     """
     from .selection import equal_accuracy_pvalue
 
@@ -609,7 +613,7 @@ def _select_form(pool: list[Fitted], screen: Screen, options: IdentifyOptions, s
     if len(forms) == 1:
         return picks[forms[0]]
     (inn, rec_i), (oe, rec_o) = picks["innovations"], picks["output_error"]
-    best_i, best_o = inn[rec_i.chosen], oe[rec_o.chosen]
+    best_i, best_o = inn[rec_i.best_fit], oe[rec_o.best_fit]  # each form at its best
     scales = np.where(screen.output_variance > 0, screen.output_variance, 1.0)
     p = equal_accuracy_pvalue(best_i.score.errors, best_o.score.errors, scales) if best_i.score.errors else 0.0
     if p < options.significance:
@@ -844,11 +848,11 @@ def _refinement_starts(raw: Sequence[Fitted], count: int, output_variance: np.nd
 
     Per (order, shift) class the best-scoring estimate stands for the class.
     Besides the best class, the classes whose estimate is statistically as
-    accurate on the held-out data (:func:`ident.estimate.selection.equal_accuracy_pvalue`)
+    accurate on the held-out data (:func:`ident.estimate.selection.as_accurate_pvalue`)
     are refined simplest first, then the next best by fit, ``count`` in all;
     finally the best class of every input shift not yet represented.
     """
-    from .selection import equal_accuracy_pvalue
+    from .selection import as_accurate_pvalue
 
     ranked = sorted((f for f in raw if np.isfinite(f.candidate.mean_fit)), key=lambda f: -f.candidate.mean_fit)
     if not ranked:
@@ -860,7 +864,7 @@ def _refinement_starts(raw: Sequence[Fitted], count: int, output_variance: np.nd
     best = classes[0]
     scales = np.where(output_variance > 0, output_variance, 1.0)
     tied = [f for f in classes[1:] if f.score.errors and
-            equal_accuracy_pvalue(f.score.errors, best.score.errors, scales) > significance]
+            as_accurate_pvalue(f.score.errors, best.score.errors, scales) > significance]
     tied.sort(key=lambda f: (f.candidate.n_states, -f.candidate.mean_fit))
     starts = [best] + tied[: count - 1]
     starts += [f for f in classes if f not in starts][: max(count - len(starts), 0)]
@@ -884,22 +888,99 @@ def _refine_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
         refined = _refine_one(start, screen.estimation_for(start.shift), opts)
         if refined is None:
             continue
-        res, caught = refined
-        core = res.model
-        m, p = core.n_inputs, core.n_outputs
-        cand = replace(start.candidate, stage="refined", noise_model=form,
-                       structure={**start.candidate.structure, "feedthrough": list(start.feedthrough),
-                                  "refined_from": next(i for i, f in enumerate(search.raw)
-                                                       if f.candidate is start.candidate)},
-                       n_parameters=state_space_parameters(core.n_states, m, p, start.feedthrough,
-                                                           form == "innovations"))
-        fitted = Fitted(cand, core, start.shift, start.feedthrough, res, caught)
-        screen.score(fitted)
-        fitted.estimation_loss = screen.normalised_loss(res.error_variance)  # with its fitted states and offsets
-        fitted.candidate = replace(cand, validation_fit=fitted.score.fit, mean_fit=fitted.score.mean_fit)
-        search.refined.append(fitted)
+        origin = next(i for i, f in enumerate(search.raw) if f.candidate is start.candidate)
+        search.refined.append(_refined(start, *refined, form, {"refined_from": origin}, screen))
     if not search.refined:
         raise IdentificationError("no candidate could be refined", hint="try --refine none, or check the data")
+
+
+def _refined(start: Fitted, res, caught: list, form: str, extra: dict, screen: Screen) -> Fitted:
+    """Build the scored candidate of a refinement result ``res`` begun from ``start``."""
+    core = res.model
+    m, p = core.n_inputs, core.n_outputs
+    cand = replace(start.candidate, stage="refined", noise_model=form, order=core.n_states,
+                   n_states=core.n_states + sum(start.shift),
+                   structure={**start.candidate.structure, "feedthrough": list(start.feedthrough), **extra},
+                   n_parameters=state_space_parameters(core.n_states, m, p, start.feedthrough,
+                                                       form == "innovations"))
+    fitted = Fitted(cand, core, start.shift, start.feedthrough, res, caught)
+    screen.score(fitted)
+    fitted.estimation_loss = screen.normalised_loss(res.error_variance)  # with its fitted states and offsets
+    fitted.candidate = replace(cand, validation_fit=fitted.score.fit, mean_fit=fitted.score.mean_fit)
+    return fitted
+
+
+def _reduce_best(options: IdentifyOptions, screen: Screen, search: _Search) -> None:
+    """Try lower orders below the best refined model of each form: balanced truncation, then refinement.
+
+    Backward elimination on the held-out data: from the best refined model,
+    one state is removed by balanced truncation [1]_ and the truncated model
+    is refined again; this goes on while the reduced model is statistically as
+    accurate as the best (:func:`ident.estimate.selection.as_accurate_pvalue`),
+    at most ``refine_count`` times per form. Subspace starts of a low order can
+    be poor where a reduced refined model is not, and a spurious state (a
+    noise-fitting pole) is removed this way.
+
+    References
+    ----------
+    .. [1] B. C. Moore, "Principal component analysis in linear systems:
+       controllability, observability, and model reduction", IEEE Trans.
+       Automatic Control 26(1), 17-32, 1981.
+    """
+    from .refine import RefineOptions
+    from .selection import as_accurate_pvalue
+
+    scales = np.where(screen.output_variance > 0, screen.output_variance, 1.0)
+    for form in search.forms:
+        members = [f for f in search.refined if f.candidate.noise_model == form and f.score.errors]
+        if not members:
+            continue
+        best = max(members, key=lambda f: f.candidate.mean_fit)
+        parent = best
+        for _ in range(options.refine_count):
+            start = _truncated(parent, form == "innovations")
+            if start is None:
+                break
+            search.report(f"reducing to {start.core.n_states} states", 0.8)
+            opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
+                                 working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
+                                 max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
+            refined = _refine_one(start, screen.estimation_for(start.shift), opts)
+            if refined is None:
+                break
+            index = len(search.raw) + search.refined.index(parent)
+            reduced = _refined(start, *refined, form, {"refined_from": index,
+                                                       "reduced_from": parent.core.n_states}, screen)
+            search.refined.append(reduced)
+            if (not reduced.score.errors
+                    or as_accurate_pvalue(reduced.score.errors, best.score.errors, scales) < options.significance):
+                break
+            parent = reduced
+
+
+def _truncated(parent: Fitted, innovations: bool) -> Fitted | None:
+    """``parent`` with one state fewer by balanced truncation (``None`` when it cannot be balanced).
+
+    An innovations model is balanced with ``K`` as extra inputs, so the
+    reduced noise gain comes from the same projection.
+    """
+    from ..errors import ModelError
+    from ..lti.truncation import balanced_truncation
+
+    core = parent.core
+    n, m = core.n_states, core.n_inputs
+    if n < 2:
+        return None
+    K = core.noise_gain if innovations and core.noise_gain is not None else np.zeros((n, 0))
+    joined = StateSpaceModel(core.A, np.hstack([core.B, K]), core.C,
+                             np.hstack([core.D, np.zeros((core.n_outputs, K.shape[1]))]), core.sample_time)
+    try:
+        small = balanced_truncation(joined, n - 1)
+    except (ModelError, np.linalg.LinAlgError):
+        return None
+    model = StateSpaceModel(small.A, small.B[:, :m], small.C, core.D, core.sample_time,
+                            noise_gain=small.B[:, m:] if K.shape[1] else None)
+    return Fitted(parent.candidate, model, parent.shift, parent.feedthrough, None, [])
 
 
 def _refine_one(start: Fitted, data, opts) -> tuple[Any, list] | None:

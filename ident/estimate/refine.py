@@ -93,6 +93,7 @@ from ..errors import IdentificationError, OptionError
 from ..lti._linalg import one_blas_thread
 from ..lti.covariance import ParameterCovariance, theta_layout
 from ..lti.models import StateSpaceModel
+from ..lti.truncation import stein_gramian
 from .data import Experiment, as_experiments, working_stretches
 from .gauss_newton import minimize
 from .hac import long_run_covariance
@@ -460,26 +461,12 @@ def _start_theta(model: StateSpaceModel, scaled: _Scaled, innovations: bool, fee
     return pack_theta(A, B, C, D, K)
 
 
-def _gramian(A: np.ndarray, Q: np.ndarray) -> np.ndarray | None:
-    """``P = A P A^T + Q`` for stable ``A`` by doubling (Smith's iteration)."""
-    P, Ak = Q.copy(), A.copy()
-    for _ in range(64):
-        P_next = P + Ak @ P @ Ak.T
-        Ak = Ak @ Ak
-        if not np.all(np.isfinite(P_next)):
-            return None
-        if np.max(np.abs(P_next - P)) <= 1e-14 * np.max(np.abs(P_next)):
-            return P_next
-        P = P_next
-    return P
-
-
 def _balancing(A: np.ndarray, B: np.ndarray, C: np.ndarray) -> np.ndarray | None:
     """Similarity ``T`` balancing the Gramians of stable ``(A, B, C)``; ``None`` when it cannot be done safely."""
     n = A.shape[0]
     if n == 0 or float(np.max(np.abs(np.linalg.eigvals(A)))) >= STABLE_RADIUS:
         return None
-    Wc, Wo = _gramian(A, B @ B.T), _gramian(A.T, C.T @ C)
+    Wc, Wo = stein_gramian(A, B @ B.T), stein_gramian(A.T, C.T @ C)
     if Wc is None or Wo is None:
         return None
     try:
