@@ -911,13 +911,14 @@ def _refined(start: Fitted, res, caught: list, form: str, extra: dict, screen: S
 
 
 def _reduce_best(options: IdentifyOptions, screen: Screen, search: _Search) -> None:
-    """Try lower orders below the best refined model of each form: balanced truncation, then refinement.
+    """Try lower orders below the chosen refined model of each form: balanced truncation, then refinement.
 
-    Backward elimination on the held-out data: from the best refined model,
-    one state is removed by balanced truncation [1]_ and the truncated model
-    is refined again; this goes on while the reduced model is statistically as
-    accurate as the best (:func:`ident.estimate.selection.as_accurate_pvalue`),
-    at most ``refine_count`` times per form. Subspace starts of a low order can
+    Backward elimination on the held-out data: from the refined model the
+    selection rule would choose, one state is removed by balanced truncation
+    [1]_ and the truncated model is refined again; this goes on while the
+    reduced model is statistically as accurate as the best
+    (:func:`ident.estimate.selection.as_accurate_pvalue`), at most
+    ``refine_count`` times per form. Subspace starts of a low order can
     be poor where a reduced refined model is not, and a spurious state (a
     noise-fitting pole) is removed this way.
 
@@ -935,8 +936,8 @@ def _reduce_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
         members = [f for f in search.refined if f.candidate.noise_model == form and f.score.errors]
         if not members:
             continue
-        best = max(members, key=lambda f: f.candidate.mean_fit)
-        parent = best
+        record = select([_contender(f) for f in members], screen.output_variance, significance=options.significance)
+        best, parent = members[record.best_fit], members[record.chosen]
         for _ in range(options.refine_count):
             start = _truncated(parent, form == "innovations")
             if start is None:
