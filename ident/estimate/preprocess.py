@@ -33,7 +33,15 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .._validate import as_signal, int_in_range, names_tuple, one_of, options_from_mapping, positive_float
+from .._validate import (
+    as_signal,
+    int_in_range,
+    names_tuple,
+    one_of,
+    options_from_mapping,
+    positive_float,
+    sample_time_value,
+)
 from ..errors import OptionError
 from ..lti._linalg import column_sums
 from ..lti.models import OperatingPoint
@@ -222,8 +230,8 @@ def _as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
             raise OptionError(
                 f"experiment {k} must be an Experiment or a (u, y) pair; got {type(item).__name__}"
             ) from exc
-        u = as_signal(u, f"experiment {k} u", ndim=2)
-        y = as_signal(y, f"experiment {k} y", ndim=2)
+        u = as_signal(u, f"experiment {k} u", ndim=2, bounded=True)
+        y = as_signal(y, f"experiment {k} y", ndim=2, bounded=True)
         if u.shape[0] != y.shape[0]:
             raise OptionError(
                 f"experiment {k}: u and y must have the same number of samples; "
@@ -318,7 +326,7 @@ def prepare(
     options = PreprocessOptions() if options is None else options
     if not isinstance(options, PreprocessOptions):
         raise OptionError(f"options must be PreprocessOptions; got {type(options).__name__}")
-    sample_time = positive_float(sample_time, "sample_time")
+    sample_time = sample_time_value(sample_time)
     records = _as_records(data)
     m, p = records[0][0].shape[1], records[0][1].shape[1]
     labels = _signal_labels(m, p, input_names, output_names, input_units, output_units)

@@ -14,7 +14,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .._validate import one_of, optional_positive_float, positive_float
+from .._validate import one_of, optional_positive_float, positive_float, sample_time_value
 from ..choices import DISCRETIZE_METHODS
 from ..errors import ModelError
 from .models import StateSpaceModel, TransferFunctionModel, require_state_space, signal_metadata
@@ -184,7 +184,7 @@ def to_discrete(
        pole-zero).
     """
     require_state_space(model)
-    T = positive_float(sample_time, "sample_time")
+    T = sample_time_value(sample_time)
     one_of(method, "method", DISCRETIZE_METHODS)
     prewarp_hz = optional_positive_float(prewarp_hz, "prewarp_hz")
     if model.is_discrete:
