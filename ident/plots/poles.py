@@ -8,6 +8,7 @@ from typing import Any
 import numpy as np
 
 from ..assess.modes import ModeTable
+from ._text import literal
 
 __all__ = ["pole_zero_map"]
 
@@ -164,7 +165,7 @@ def pole_zero_map(
         n_flagged = sum(1 for m in table.modes if m.flags)
         title = (f"{table.n_states} states, T = {T:g} s (Nyquist {nyquist_hz:.4g} Hz)"
                  f" - {n_flagged} flagged mode(s)")
-    ax.set_title(title, fontsize=9, color=_INK, loc="left")
+    ax.set_title(literal(title), fontsize=9, color=_INK, loc="left")
     if table.modes or table.zeros.size:
         ax.legend(loc="lower left", fontsize=7, frameon=False)
     if far_zeros:

@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from ..assess.diagnostics import Correlation, ValidationReport
+from ._text import literal
 
 __all__ = [
     "output_comparison",
@@ -98,7 +99,7 @@ def output_comparison(report: ValidationReport, *, axes: Sequence[Any] | None = 
                         label=f"{k}-step prediction (fit {report.prediction_fit[i]:.1f} %)")
             _style(ax)
         full.axvspan(lo * T, (hi - 1) * T, color=_LOWCOH, zorder=0)
-        full.set_ylabel(f"{report.outputs[i]}\n(deviation)", fontsize=8, color=_INK)
+        full.set_ylabel(f"{literal(report.outputs[i])}\n(deviation)", fontsize=8, color=_INK)
         full.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), fontsize=7, frameon=False,
                     ncol=3)
         zoom.set_title("zoom (shaded window)", fontsize=8, loc="left", color=_INK)
@@ -148,7 +149,7 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
     else:
         axes = list(axes)
         fig = axes[0].figure
-    name = report.outputs[output]
+    name = literal(report.outputs[output])
     w = report.whiteness[output]
     _draw_correlation(
         axes[0], w.autocorrelation,
@@ -159,7 +160,7 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
         ax = axes[1 + j]
         _draw_correlation(
             ax, report.cross_correlation[output][j],
-            f"residuals of {name} vs {report.inputs[j]} (negative lag: feedback; "
+            f"residuals of {name} vs {literal(report.inputs[j])} (negative lag: feedback; "
             "positive: missed input dynamics)",
             skip_zero=False,
         )
@@ -209,7 +210,7 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
     ax_mag.semilogx(f, h_db, color=_MEASURED, lw=1.0, label="estimate from data (H1)")
     ax_mag.semilogx(f, g_db, color=_SIM, lw=1.4, label="model")
     ax_mag.set_ylabel("magnitude [dB]", fontsize=8)
-    ax_mag.set_title(f"{iname} → {oname}", fontsize=9, loc="left", color=_INK)
+    ax_mag.set_title(literal(f"{iname} → {oname}"), fontsize=9, loc="left", color=_INK)
     ax_mag.legend(fontsize=7, frameon=False)
     ax_ph.semilogx(f, np.degrees(np.unwrap(np.angle(H))), color=_MEASURED, lw=1.0)
     ax_ph.semilogx(f, np.degrees(np.unwrap(np.angle(G))), color=_SIM, lw=1.4)
@@ -277,8 +278,8 @@ def verdict_card(report: ValidationReport, *, ax: Any | None = None,
 
     items, hidden = _pick_verdicts(report.verdicts, max_verdicts)
     wrapped = [
-        textwrap.fill(f"{_mark(v, DATA_TESTS)} {v.test}: {v.message}", _WRAP,
-                      subsequent_indent="   ")
+        literal(textwrap.fill(f"{_mark(v, DATA_TESTS)} {v.test}: {v.message}", _WRAP,
+                              subsequent_indent="   "))
         for v in items
     ]
     p = len(report.outputs)
@@ -319,7 +320,7 @@ def verdict_card(report: ValidationReport, *, ax: Any | None = None,
     if report.options.min_fit is not None:
         ax.axvline(report.options.min_fit, color=_BAD, lw=1.0, ls="--",
                    label=f"required ({report.options.min_fit:g} %)")
-    ax.set_yticks(y, list(report.outputs), fontsize=8)
+    ax.set_yticks(y, [literal(o) for o in report.outputs], fontsize=8)
     ax.set_ylim(-0.7, p - 0.3)
     ax.set_xlim(min(0.0, float(min(sim.min(), pred.min()))), 100)
     ax.set_xlabel("fit [%]", fontsize=8)
