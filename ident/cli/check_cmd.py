@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import re
 from typing import Any
 
@@ -306,7 +307,7 @@ def _check_plot_dir(folder: str, names: dict[tuple, str], *, force: bool, protec
 
     target = Path(folder)
     check_new_folder(target, longest_name=max(names.values(), key=len))
-    if target.is_dir():
+    if os.path.isdir(target):
         check_output_paths([target / n for n in names.values()], force=force, protected=protected)
 
 

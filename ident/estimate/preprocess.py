@@ -340,18 +340,24 @@ def prepare(
 
     estimation, validation, est_ranges, val_ranges, trends = [], [], [], [], []
     for (u, y), (s_dec, s_raw), start in zip(records, splits, starts, strict=True):
-        z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
-        if coef is not None:
-            trends.append(coef)
-        # 4. decimate the whole experiment, then split
-        z = _decimate(z, q)
-        est = z[:s_dec]
-        val = z[s_dec:]
-        estimation.append(Experiment(u=est[:, :m], y=est[:, m:]))
+        if q == 1 and not options.detrend:
+            # the deviations are made once and shared by the two parts (no copy of a copy)
+            ud, yd = u - op_u, y - op_y
+            est_u, est_y, val_u, val_y = ud[:s_dec], yd[:s_dec], ud[s_dec:], yd[s_dec:]
+        else:
+            z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
+            if coef is not None:
+                trends.append(coef)
+            # 4. decimate the whole experiment, then split
+            z = _decimate(z, q)
+            est_u, est_y = np.array(z[:s_dec, :m]), np.array(z[:s_dec, m:])
+            val_u, val_y = np.array(z[s_dec:, :m]), np.array(z[s_dec:, m:])
+            del z
+        estimation.append(Experiment._owned(est_u, est_y))
         est_ranges.append((int(start), int(start + s_raw)))
         n_raw = u.shape[0]
-        if val.shape[0] > 0:
-            validation.append(Experiment(u=val[:, :m], y=val[:, m:]))
+        if val_u.shape[0] > 0:
+            validation.append(Experiment._owned(val_u, val_y))
             val_ranges.append((int(start + s_raw), int(start + n_raw)))
 
     trend_array = None

@@ -154,16 +154,25 @@ def _path_max(folder: Path) -> int:
         return 4096
 
 
+def _too_long(path: Path) -> bool:
+    try:
+        os.lstat(path)
+    except OSError as exc:
+        return exc.errno == errno.ENAMETOOLONG
+    return False
+
+
 def _check_length(target: Path, folder: Path) -> None:
+    folder = folder if os.path.isdir(folder) else Path(".")
     name_bytes = len(os.fsencode(target.name))
-    limit = _name_max(folder if folder.is_dir() else Path("."))
+    limit = _name_max(folder)
     if name_bytes > limit:
         raise IdentError(
             f"{printable(target)}: file name is {name_bytes} bytes long; this file system allows {limit}",
             hint="choose a shorter name",
         )
     full = len(os.fsencode(os.path.abspath(target)))
-    plimit = _path_max(folder if folder.is_dir() else Path("."))
+    plimit = _path_max(folder)
     if full >= plimit:
         raise IdentError(
             f"{printable(target)}: path is {full} bytes long; this file system allows {plimit - 1}",
@@ -238,7 +247,9 @@ def check_output_path(
             hint="choose another output path",
         )
     folder = target.parent if str(target.parent) else Path(".")
-    if not folder.is_dir():
+    if not os.path.isdir(folder):
+        if _too_long(folder):
+            _check_length(folder, folder.parent)
         raise IdentError(f"{printable(target)}: folder {printable(folder)} does not exist")
     _check_length(target, folder)
     if mode is not None and not force:
@@ -269,11 +280,11 @@ def check_new_folder(path: str | os.PathLike, *, longest_name: str = "") -> Path
     for what goes into it is refused before any work is done.
     """
     target = Path(path)
-    if os.path.lexists(target) and not target.is_dir():
+    if os.path.lexists(target) and not os.path.isdir(target):
         raise IdentError(f"{printable(target)}: exists and is not a folder", hint="give a folder")
-    existing = next((p for p in (target, *target.parents) if p.is_dir()), Path("."))
+    existing = next((p for p in (target, *target.parents) if os.path.isdir(p)), Path("."))
     limit = _name_max(existing)
-    new_parts = [p.name for p in (target, *target.parents) if p != existing and not p.is_dir() and p.name]
+    new_parts = [p.name for p in (target, *target.parents) if p != existing and not os.path.isdir(p) and p.name]
     for part in (*new_parts, *Path(longest_name).parts):
         if len(os.fsencode(part)) > limit:
             raise IdentError(f"{printable(target)}: the name {printable(part)!r} is longer than this file "

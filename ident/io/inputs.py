@@ -87,10 +87,11 @@ def check_input_file(path: str | os.PathLike, error: ErrorFactory, *, what: str,
         raise error(f"cannot read ({exc.strerror})") from exc
     kind = _kind(info.st_mode)
     if kind is not None:
-        reason = f"is {kind}, not a {what} file"
+        reason = f"is {kind}, not a regular file"
         if kind in ("a named pipe", "a device"):
-            reason += (f"; rigfit reads a {what} more than once and would wait on it forever: "
-                       "save it to a file first")
+            reason += ("; rigfit reads a log several times (format, header, data, checksum) and would wait "
+                       "on it forever: save it to a file first" if what == "log" else
+                       "; rigfit reads its input files from disk only: save it to a file first")
         raise error(reason)
     if max_bytes is not None and info.st_size > max_bytes:
         raise error(f"is {_size(info.st_size)}; rigfit reads a {what} of at most {_size(max_bytes)}")

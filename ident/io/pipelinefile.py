@@ -77,6 +77,7 @@ __all__ = [
     "DEFAULT_FAIL_ON",
     "MAX_PIPELINE_BYTES",
     "MAX_GLOB_FOLDERS",
+    "bounded_glob",
     "LogSpec",
     "ModesSpec",
     "DriftSpec",
@@ -479,7 +480,7 @@ def _static_prefix(target: Path) -> tuple[Path, tuple[str, ...]]:
     return Path(*parts[:k]), tuple(parts[k:])
 
 
-def bounded_glob(start: Path, parts: tuple[str, ...], limit: int = MAX_GLOB_FOLDERS) -> list[Path] | None:
+def bounded_glob(start: Path, parts: tuple[str, ...], limit: int | None = None) -> list[Path] | None:
     """Return the files under ``start`` matching ``parts``, listing at most ``limit`` folders.
 
     ``parts`` are path components with ``*``, ``?``, ``[...]`` and ``**``.
@@ -487,8 +488,9 @@ def bounded_glob(start: Path, parts: tuple[str, ...], limit: int = MAX_GLOB_FOLD
     Matches as :func:`glob.glob` with ``recursive=True`` does on POSIX (case
     sensitive; names starting with ``.`` only when the pattern part does;
     ``**`` is zero or more folders), files only, sorted. Returns ``None`` when
-    the walk would list more than ``limit`` folders.
+    the walk would list more than ``limit`` folders (default :data:`MAX_GLOB_FOLDERS`).
     """
+    limit = MAX_GLOB_FOLDERS if limit is None else limit
     if parts and parts[-1] == "**":
         parts = (*parts, "*")
     matches: set[Path] = set()
