@@ -56,8 +56,8 @@ def as_signal(x: Any, name: str, *, ndim: int = 2, finite: bool = True, bounded:
 
     A 1-D input with ``ndim=2`` becomes one column ``(n_samples, 1)``. The caller's
     array is never modified; a copy is made only when a conversion is needed.
-    With ``bounded`` (measured data entering an estimator or a check), samples
-    beyond :data:`MAX_SIGNAL_MAGNITUDE` are refused.
+    With ``bounded`` (measured data entering an estimator), samples beyond
+    :data:`MAX_SIGNAL_MAGNITUDE` are refused.
     """
     try:
         arr = np.asarray(x, dtype=float)

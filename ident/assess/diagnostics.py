@@ -464,8 +464,8 @@ def _check_model(model: Any) -> StateSpaceModel:
 
 
 def _check_data(model: StateSpaceModel, u: Any, y: Any) -> tuple[np.ndarray, np.ndarray]:
-    u = as_signal(u, "u", ndim=2, bounded=True)
-    y = as_signal(y, "y", ndim=2, bounded=True)
+    u = as_signal(u, "u", ndim=2)
+    y = as_signal(y, "y", ndim=2)
     if u.shape[1] != model.n_inputs:
         raise OptionError(
             f"u must have {model.n_inputs} column(s) to match the model's inputs; got {u.shape[1]}"
