@@ -293,3 +293,16 @@ def test_temporary_files_never_appear_in_the_log_folder(tmp_path, capsys):
     path = write(tmp_path / "log.csv", "time,u,y\n" + "\n".join(lag_rows(600)) + "\n")
     rigfit(capsys, "fit", path, "--input", "u", "--output", "y", "-o", tmp_path / "m.json", "--quiet")
     assert sorted(os.listdir(tmp_path)) == ["log.csv", "m.json"]
+
+
+def test_text_columns_beside_the_signals_are_fine(tmp_path):
+    rows = [r + ",running,operator A,batch 7" for r in lag_rows(50)]
+    path = write(tmp_path / "mixed.csv", "time,u,y,state,who,note\n" + "\n".join(rows) + "\n")
+    assert read_log(path, "u", "y").n_samples == 50
+
+
+def test_a_list_of_credentials_is_not_a_log(tmp_path):
+    path = write(tmp_path / "users.csv", "user,password,uid\nadmin,hunter2,0\nbob,letmein,1000\n")
+    with pytest.raises(LogFormatError, match="does not look like a rig log") as info:
+        read_log(path, "#1", "#2")
+    assert "hunter2" not in str(info.value) and "admin" not in str(info.value)

@@ -1344,9 +1344,11 @@ def _is_number(text: str, decimal: str) -> bool:
 def _check_is_log(data: list[str], sep: str, decimal: str, path: str, header_row: int, complete: bool) -> None:
     """Refuse a text file whose lines after the header hold no numbers, without quoting it.
 
-    A rig log's rows are numbers (a units row or a few bad rows aside). A file
-    whose first data lines are not mostly numbers is something else (a key, a
-    configuration file) and its content must not appear in a message.
+    A rig log's rows are numbers (a units row, a few bad rows or text columns
+    beside the signals aside): one of the first lines after the header must hold
+    two numbers, or be at least half numbers. Anything else is something else
+    (a key, a configuration file, a list of passwords) and its content must not
+    appear in a message.
     """
     rows = [ln for ln in data[:_SNIFF_ROWS] if ln.strip()]
     if not rows:
@@ -1358,11 +1360,12 @@ def _check_is_log(data: list[str], sep: str, decimal: str, path: str, header_row
             fields = [f for f in next(csv.reader([ln], delimiter=sep, quotechar='"'), []) if f.strip()]
         except csv.Error:  # a stray CR: the parse says where
             return
-        if fields and 2 * sum(_is_number(f, decimal) for f in fields) >= len(fields):
+        numbers = sum(_is_number(f, decimal) for f in fields)
+        if fields and (numbers >= 2 or 2 * numbers >= len(fields)):  # text columns beside signals are fine
             return
     raise LogFormatError(
         f"does not look like a rig log: none of the first {len(rows)} line(s) after line {header_row} "
-        "is mostly numbers",
+        "holds two numbers",
         path=path, hint="give a CSV, Parquet, ASAM MDF or HDF5 log of numeric signals",
     )
 
