@@ -306,3 +306,18 @@ def test_a_list_of_credentials_is_not_a_log(tmp_path):
     with pytest.raises(LogFormatError, match="does not look like a rig log") as info:
         read_log(path, "#1", "#2")
     assert "hunter2" not in str(info.value) and "admin" not in str(info.value)
+
+
+def test_streamed_columns_grow_when_rows_get_shorter(tmp_path, monkeypatch):
+    # the columns are sized from the first lines; here later rows are far shorter, so they grow
+    monkeypatch.setattr(log_module, "_ARROW_BLOCK", 1 << 16)  # many batches from a small file
+    rng = np.random.default_rng(8)
+    long_rows = rng.standard_normal((10_000, 2))
+    lines = [f"{k},{float(a)!r},{float(b)!r}" for k, (a, b) in enumerate(long_rows)]
+    lines += [f"{k},{k % 7},{k % 5}" for k in range(10_000, 210_000)]
+    path = write(tmp_path / "mixed.csv", "t,u,y\n" + "\n".join(lines) + "\n")
+    log = read_log(path, "u", "y")
+    expected = np.loadtxt(path, delimiter=",", skiprows=1)  # numpy's own parser is the reference
+    assert log.n_samples == 210_000
+    np.testing.assert_array_equal(log.u[:, 0], expected[:, 1])
+    np.testing.assert_array_equal(log.y[:, 0], expected[:, 2])

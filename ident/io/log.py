@@ -1593,8 +1593,10 @@ def _arrow_csv_columns(path: str, header: _Header, indices: list[int], scan: _Fi
         return None, scan
     if scan is None:
         scan = _FileScan(path)
+    lines = first.count(b"\n")
+    rows_hint = int((size - start) / (len(first) / lines)) + 1 if lines else 1
     try:
-        arrays = _arrow_table(pa, pacsv, path, header, indices, n_fields)
+        arrays = _arrow_table(pa, pacsv, path, header, indices, n_fields, rows_hint)
     except (pa.ArrowException, OSError, ValueError):
         arrays = None
     if arrays is None or scan.sha256() is None:
@@ -1602,7 +1604,7 @@ def _arrow_csv_columns(path: str, header: _Header, indices: list[int], scan: _Fi
     return arrays, scan
 
 
-def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields):
+def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields, rows_hint: int = 1):
     """Parse the data lines batch by batch into float64 columns (``None``: give up).
 
     ``pyarrow.csv.open_csv`` parses 1 MiB blocks in parallel threads and hands
@@ -1610,8 +1612,9 @@ def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields):
     columns and released, so the peak is the columns plus a few blocks (about
     1.5x the numeric data with the interpreter, against 2.7x for a whole Arrow
     table beside the columns, whose allocator keeps the freed pages). The
-    columns are sized from the first batch's bytes per row and grown when the
-    rows get longer. Rows at the end whose used cells are all empty (blank
+    columns are sized from ``rows_hint`` (the file size over the first lines'
+    bytes per row: rows growing longer later only leave pages untouched) and
+    grown by a quarter when the rows turn out shorter. Rows at the end whose used cells are all empty (blank
     lines) are dropped, as the pandas path does; an empty cell anywhere else,
     a field beyond the header's, or a value that is not finite gives up.
     """
@@ -1630,14 +1633,14 @@ def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields):
         decimal_point=header.decimal,
     )
     pool = _arrow_memory_pool(pa)
-    sink = _ColumnSink(len(used), os.path.getsize(path) - header.data_offset)
+    sink = _ColumnSink(len(used), rows_hint)
     with pa.OSFile(path, "r", memory_pool=pool) as fh:
         fh.seek(header.data_offset)
         with pacsv.open_csv(fh, read_options=read_options, parse_options=parse_options,
                             convert_options=convert_options, memory_pool=pool) as reader:
             for batch in reader:
                 if not sink.add([batch.column(name) for name in used],
-                                [batch.column(name) for name in extra], fh.tell()):
+                                [batch.column(name) for name in extra]):
                     return None
                 del batch
     pool.release_unused()  # the allocator keeps freed pages until asked; hand them back
@@ -1647,23 +1650,23 @@ def _arrow_table(pa, pacsv, path, header: _Header, indices, n_fields):
 class _ColumnSink:
     """Float64 columns filled batch by batch from Arrow arrays (see :func:`_arrow_table`)."""
 
-    def __init__(self, n_columns: int, data_bytes: int) -> None:
+    def __init__(self, n_columns: int, rows_hint: int) -> None:
         self.n = 0
         self.blank_from: int | None = None  # first row of a run of blank lines (must reach the end)
-        self._bytes = max(int(data_bytes), 1)
+        self._hint = int(max(rows_hint, 1) * 1.02) + 1024
         self._cols = [np.empty(0) for _ in range(n_columns)]
 
-    def _reserve(self, rows: int, bytes_read: int) -> None:
-        if rows <= self._cols[0].shape[0]:
+    def _reserve(self, rows: int) -> None:
+        have = self._cols[0].shape[0] if self._cols else rows
+        if rows <= have:
             return
-        per_row = max(bytes_read, 1) / max(rows, 1)
-        cap = max(rows, int(self._bytes / per_row * 1.02) + 1024)
+        cap = max(rows, self._hint if have == 0 else int(have * 1.25))
         for j, old in enumerate(self._cols):
             new = np.empty(cap)
             new[:self.n] = old[:self.n]
             self._cols[j] = new
 
-    def add(self, cols, extras, bytes_read: int) -> bool:
+    def add(self, cols, extras) -> bool:
         """Append one batch; False when the file is not clean (the pandas path decides)."""
         k = len(cols[0]) if cols else 0
         if any(c.null_count != k for c in extras):
@@ -1674,7 +1677,7 @@ class _ColumnSink:
                 return False
         elif self.blank_from is not None:
             return False  # a data row after a blank line
-        self._reserve(self.n + k, bytes_read)
+        self._reserve(self.n + k)
         for col, out in zip(cols, self._cols, strict=True):
             # the Arrow values buffer, read in place (no to_numpy: it imports pandas)
             part = np.frombuffer(col.buffers()[1], dtype=np.float64, count=k, offset=col.offset * 8)
