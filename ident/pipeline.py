@@ -193,6 +193,7 @@ def run_pipeline(
     out_dir: str | os.PathLike | None = None,
     baseline: str | os.PathLike | None = None,
     progress: Callable[[str, float], None] | None = None,
+    allow_outside: bool = False,
 ) -> RunResult:
     """Run a pipeline end to end and write a new run folder.
 
@@ -207,6 +208,9 @@ def run_pipeline(
         Model file to compare with; overrides ``[drift] baseline``.
     progress : callable, optional
         Called as ``progress(step, fraction_done)`` between steps.
+    allow_outside : bool, default False
+        Read log files and a baseline outside the pipeline file's folder tree
+        (see :func:`ident.io.pipelinefile.load_pipeline`).
 
     Returns
     -------
@@ -218,12 +222,21 @@ def run_pipeline(
     ident.errors.IdentError
         Bad input: an invalid pipeline file, an unreadable log, data that
         cannot support the model asked for, a baseline model of other signals
-        or another sample time. Nothing is written then.
+        or another sample time, an output folder whose paths would be too long.
+        Nothing is written then.
+
+    Notes
+    -----
+    The run folder is written as a hidden temporary folder
+    (``.<name>.rigfit-<pid>-<host>.<random>.tmp``) and renamed into place when
+    complete: an interrupted run leaves no run folder, and a temporary folder
+    left by a killed run is removed by the next run into the same parent.
     """
+    from .io.atomic import check_new_folder
+
     if not isinstance(spec, PipelineSpec):
-        spec = load_pipeline(spec)
-    if out_dir is not None and Path(out_dir).exists() and not Path(out_dir).is_dir():
-        raise IdentError(f"{out_dir}: exists and is not a folder", hint="give a folder for the run folders")
+        spec = load_pipeline(spec, allow_outside=allow_outside)
+    check_new_folder(_run_parent(spec, out_dir), longest_name=_LONGEST_RUN_PATH)
     report = progress if progress is not None else (lambda step, fraction: None)
     state = _compute_and_warn(spec, baseline, report)
     report("drawing figures", 0.85)
@@ -778,9 +791,73 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
 # --------------------------------------------------------------------------- output
 
 
-def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[str, Any],
-                      folder_name: str | None) -> dict[str, Any]:
-    """Return what the model file records about the logs, the estimation, the validation and the run."""
+def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[str, str], bytes]],
+           out_dir: Any) -> RunResult:
+    """Write the run folder: built as a hidden temporary folder, renamed into place when complete."""
+    from .io.atomic import new_folder, write_atomic
+    from .io.modelfile import save_model
+
+    now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
+    stamp = now.strftime("%Y%m%dT%H%M%SZ")
+    created = now.isoformat().replace("+00:00", "Z")
+    h = hashlib.sha256(spec.sha256.encode())
+    for lg in state["logs"]:
+        h.update(lg.source.sha256.encode())
+    if state["baseline_path"] is not None:
+        h.update(hashlib.sha256(state["baseline_path"].read_bytes()).digest())
+    digest = h.hexdigest()[:8]
+    parent = _run_parent(spec, out_dir)
+    gates = _gates(state)
+    protected = tuple(lg.source.path for lg in state["logs"])
+    base = f"{stamp}-{digest}"
+
+    with new_folder(parent, lambda k: base if k == 1 else f"{base}-{k}") as (tmp, final_name):
+        name = final_name()
+        summary = _summary(state, gates, created, name, [meta for meta, _ in figures])
+        summary["run"]["inputs_hash"] = digest
+        save_model(tmp / MODEL_FILE, state["result"].model, protected=protected,
+                   provenance=_model_provenance(spec, state, summary, name))
+        for meta, data in figures:
+            write_atomic(tmp / meta["file"], data, protected=protected)
+        if spec.path is not None and spec.path.is_file():
+            write_atomic(tmp / PIPELINE_COPY, spec.path.read_bytes(), protected=protected)
+        write_atomic(tmp / SUMMARY_FILE, json.dumps(summary, indent=2, allow_nan=False) + "\n",
+                     protected=protected)
+        from .report import render_report
+
+        html = render_report(summary, {meta["file"]: data for meta, data in figures})
+        write_atomic(tmp / REPORT_FILE, html, protected=protected)
+    folder = parent / name
+    result = state["result"]
+    model_path, summary_path, report_path = folder / MODEL_FILE, folder / SUMMARY_FILE, folder / REPORT_FILE
+    figure_paths = [folder / meta["file"] for meta, _ in figures]
+    return RunResult(
+        folder=folder,
+        passed=summary["verdict"]["passed"],
+        gates=tuple(gates),
+        summary=summary,
+        spec=spec,
+        identification=result,
+        validation=state["validation"],
+        modes=state["table"],
+        expectations=tuple(state["expectations"]),
+        drift=state["drift"],
+        model_path=model_path,
+        summary_path=summary_path,
+        report_path=report_path,
+        figure_paths=tuple(figure_paths),
+    )
+
+
+def _run_parent(spec: PipelineSpec, out_dir: Any) -> Path:
+    return Path(out_dir) if out_dir is not None else spec.base_dir / "runs"
+
+
+#: The longest path written below a run folder's parent (the temporary folder's name, then a figure).
+_LONGEST_RUN_PATH = ".20261231T235959Z-ffffffff-999.rigfit-4194304-ffffffff.ffffffff.tmp/validation_frequency_9_9.png"
+
+
+def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[str, Any], name: str) -> dict:
     from .io.modelfile import uncertainty_provenance
 
     result = state["result"]
@@ -798,69 +875,5 @@ def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[s
                        **uncertainty_provenance(state["pole_covariance"], result.covariance)},
         "validation": {"ranges": [list(r) for r in prep.validation_ranges],
                        "fit_percent": summary["model"]["validation_fit"]},
-        "run": {"folder": folder_name, "passed": summary["verdict"]["passed"]},
+        "run": {"folder": name, "passed": summary["verdict"]["passed"]},
     }
-
-
-def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
-    parent.mkdir(parents=True, exist_ok=True)
-    base = f"{stamp}-{digest}"
-    for k in range(1, 1000):
-        folder = parent / (base if k == 1 else f"{base}-{k}")
-        try:
-            folder.mkdir()
-        except FileExistsError:
-            continue
-        return folder
-    raise IdentError(f"{parent}: cannot create a new run folder named {base}")
-
-
-def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[str, str], bytes]],
-           out_dir: Any) -> RunResult:
-    from .io.atomic import write_atomic
-    from .io.modelfile import save_model
-    from .report import render_report
-
-    now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
-    stamp = now.strftime("%Y%m%dT%H%M%SZ")
-    created = now.isoformat().replace("+00:00", "Z")
-    h = hashlib.sha256(spec.sha256.encode())
-    for lg in state["logs"]:
-        h.update(lg.source.sha256.encode())
-    if state["baseline_path"] is not None:
-        h.update(hashlib.sha256(state["baseline_path"].read_bytes()).digest())
-    digest = h.hexdigest()[:8]
-    parent = Path(out_dir) if out_dir is not None else spec.base_dir / "runs"
-    gates = _gates(state)
-    protected = tuple(lg.source.path for lg in state["logs"])
-
-    folder = _new_folder(parent, stamp, digest)
-    summary = _summary(state, gates, created, folder.name, [meta for meta, _ in figures])
-    summary["run"]["inputs_hash"] = digest
-    result = state["result"]
-    model_path = save_model(folder / MODEL_FILE, result.model, protected=protected,
-                            provenance=_model_provenance(spec, state, summary, folder.name))
-    figure_paths = [write_atomic(folder / meta["file"], data, protected=protected) for meta, data in figures]
-    if spec.path is not None and spec.path.is_file():
-        write_atomic(folder / PIPELINE_COPY, spec.path.read_bytes(), protected=protected)
-    summary_path = write_atomic(
-        folder / SUMMARY_FILE, json.dumps(summary, indent=2, allow_nan=False) + "\n", protected=protected
-    )
-    html = render_report(summary, {meta["file"]: data for meta, data in figures})
-    report_path = write_atomic(folder / REPORT_FILE, html, protected=protected)
-    return RunResult(
-        folder=folder,
-        passed=summary["verdict"]["passed"],
-        gates=tuple(gates),
-        summary=summary,
-        spec=spec,
-        identification=result,
-        validation=state["validation"],
-        modes=state["table"],
-        expectations=tuple(state["expectations"]),
-        drift=state["drift"],
-        model_path=model_path,
-        summary_path=summary_path,
-        report_path=report_path,
-        figure_paths=tuple(figure_paths),
-    )

@@ -182,7 +182,7 @@ def test_a_corrupt_and_a_missing_log_fail_alone(tmp_path, fleet_dir, cluster, ru
                                                    "computed": 7, "reused": 0}
     failed = {f["unit"]: f["error"] for f in out["failed"]}
     assert failed["eol_bad"] == "eol_bad.csv, row 41, column 'rod_speed': not a number ('12.5x')"
-    assert failed["gone"] == "gone.csv: No such file or directory"
+    assert failed["gone"] == "gone.csv: no such file"
     table = pd.read_csv(out["csv"])
     assert table.set_index("unit").loc["eol_bad", "status"] == "failed"
     assert (table["status"] == "ok").sum() == 5

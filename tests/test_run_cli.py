@@ -47,7 +47,8 @@ def write_pipeline(path: Path, log: str, extra: str = "") -> Path:
 
 
 def test_run_example_pipeline_exit_0(run_cli, tmp_path):
-    result = run_cli("run", REPO / "pipelines" / "heated_platen.toml", "--out", tmp_path, "--quiet")
+    result = run_cli("run", REPO / "pipelines" / "heated_platen.toml", "--out", tmp_path, "--quiet",
+                     "--allow-outside")  # the bundled pipeline reads ../sample_data
     assert result.exit_code == 0, result.stderr
     assert result.stdout.splitlines()[1].startswith("PASSED")
     report = Path(re.search(r"^report: (.+)$", result.stdout, re.M).group(1))

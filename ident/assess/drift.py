@@ -468,8 +468,8 @@ def compare_models(
     if (u is None) != (y is None):
         raise OptionError("give both u and y of the new log, or neither")
     if u is not None:
-        u = as_signal(u, "u")
-        y = as_signal(y, "y")
+        u = as_signal(u, "u", bounded=True)
+        y = as_signal(y, "y", bounded=True)
         old_fit = _fit_on(baseline, u, y)
         new_fit = _fit_on(new, u, y)
 

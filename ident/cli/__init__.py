@@ -18,7 +18,7 @@ import sys
 import click
 
 from ..errors import IdentError
-from ._common import DataError, run_guarded
+from ._common import DataError, Interrupted, run_guarded
 
 __all__ = ["cli", "main", "DataError"]
 
@@ -73,6 +73,8 @@ class _LazyGroup(click.Group):
             raise DataError(str(exc), getattr(exc, "hint", None)) from exc
         except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
             raise DataError(f"{exc.filename}: {exc.strerror}") from exc
+        except KeyboardInterrupt:
+            raise Interrupted() from None
 
     def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
         rows = [(name, _SHORT_HELP.get(name, "")) for name in self.list_commands(ctx)]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import re
 from typing import Any
 
@@ -88,6 +89,9 @@ def check(
     outputs = _columns(output_columns, model.outputs, "--output", "outputs")
     log, time_note = _read_with_model_rate(log_path, inputs, outputs, read_log_kwargs(locals()), model.sample_time)
     _check_sample_time(log.sample_time, model.sample_time, log_path, model_path)
+    if plot_dir is not None:
+        _check_plot_dir(plot_dir, _figure_names(model.inputs, model.outputs), force=force,
+                        protected=(log_path, model_path))
 
     # with --split-at-gaps the model is validated on the longest segment (a
     # simulation cannot run across a gap)
@@ -296,40 +300,85 @@ def _safe(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("._") or "signal"
 
 
+def _figure_names(inputs: tuple[str, ...], outputs: tuple[str, ...]) -> dict[tuple, str]:
+    """File name of every figure, unique even where signal names map to the same text.
+
+    Keys: ``("outputs",)``, ``("verdicts",)``, ``("residuals", i)`` and
+    ``("response", i, j)``. ``y a`` and ``y_a`` both become ``y_a``, and ``Y``
+    and ``y`` collide on case-insensitive file systems: later ones get ``-2``,
+    ``-3``, ...; a long name is cut and given a hash of the full name.
+    """
+    import hashlib
+
+    def short(name: str) -> str:
+        safe = _safe(name)
+        if len(safe) > 60:
+            safe = safe[:50] + "-" + hashlib.sha256(name.encode("utf-8", "replace")).hexdigest()[:8]
+        return safe
+
+    wanted: list[tuple[tuple, str]] = [(("outputs",), "outputs"), (("verdicts",), "verdicts")]
+    for i, oname in enumerate(outputs):
+        wanted.append((("residuals", i), f"residuals_{short(oname)}"))
+        for j, iname in enumerate(inputs):
+            wanted.append((("response", i, j), f"response_{short(iname)}_to_{short(oname)}"))
+    names: dict[tuple, str] = {}
+    taken: set[str] = set()
+    for key, stem in wanted:
+        candidate, k = stem, 1
+        while candidate.lower() in taken:
+            k += 1
+            candidate = f"{stem}-{k}"
+        taken.add(candidate.lower())
+        names[key] = candidate + ".png"
+    return names
+
+
+def _check_plot_dir(folder: str, names: dict[tuple, str], *, force: bool, protected: tuple) -> None:
+    """Refuse the figure folder before any work: not a folder, existing files, names too long."""
+    from pathlib import Path
+
+    from ..io.atomic import check_new_folder, check_output_paths
+
+    target = Path(folder)
+    check_new_folder(target, longest_name=max(names.values(), key=len))
+    if os.path.isdir(target):
+        check_output_paths([target / n for n in names.values()], force=force, protected=protected)
+
+
 def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple, model: Any = None) -> list[str]:
+    """Draw every figure, then write them all or none (a folder created here goes again on failure)."""
     import io
+    import shutil
     from pathlib import Path
 
     import matplotlib
 
     matplotlib.use("Agg")
-    from ..io.atomic import check_output_path, write_atomic
+    from ..io.atomic import write_many
     from ..plots import validation as vplots
 
     target = Path(folder)
-    if target.exists() and not target.is_dir():
-        from ..errors import IdentError
-
-        raise IdentError(f"{folder}: exists and is not a folder")
-    jobs: list[tuple[Path, Any]] = [
-        (target / "outputs.png", lambda: vplots.output_comparison(report, model=model)),
-        (target / "verdicts.png", lambda: vplots.verdict_grid(report)),
+    names = _figure_names(tuple(report.inputs), tuple(report.outputs))
+    jobs: list[tuple[str, Any]] = [
+        (names[("outputs",)], lambda: vplots.output_comparison(report, model=model)),
+        (names[("verdicts",)], lambda: vplots.verdict_grid(report)),
     ]
-    for i, oname in enumerate(report.outputs):
-        jobs.append((target / f"residuals_{_safe(oname)}.png",
-                     lambda i=i: vplots.residual_correlations(report, output=i)))
-        for j, iname in enumerate(report.inputs):
-            jobs.append((target / f"response_{_safe(iname)}_to_{_safe(oname)}.png",
+    for i in range(len(report.outputs)):
+        jobs.append((names[("residuals", i)], lambda i=i: vplots.residual_correlations(report, output=i)))
+        for j in range(len(report.inputs)):
+            jobs.append((names[("response", i, j)],
                          lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j, model=model)))
-    if target.is_dir():
-        for path, _ in jobs:  # refuse before writing anything
-            check_output_path(path, force=force, protected=protected)
-    target.mkdir(parents=True, exist_ok=True)
-    written = []
-    for path, make in jobs:
-        fig = make()
+    images = []
+    for name, make in jobs:
         buffer = io.BytesIO()
-        fig.savefig(buffer, format="png", dpi=110)
-        write_atomic(path, buffer.getvalue(), force=force, protected=protected)
-        written.append(str(path))
-    return written
+        make().savefig(buffer, format="png", dpi=110)
+        images.append((target / name, buffer.getvalue()))
+    created = next((p for p in reversed((target, *target.parents)) if not p.exists()), None)
+    target.mkdir(parents=True, exist_ok=True)
+    try:
+        written = write_many(images, force=force, protected=protected)
+    except BaseException:
+        if created is not None:
+            shutil.rmtree(created, ignore_errors=True)
+        raise
+    return [str(p) for p in written]

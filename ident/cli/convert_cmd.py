@@ -59,6 +59,10 @@ def convert(
     from ..lti.discretize import to_continuous, to_discrete
     from ..lti.realization import realize
 
+    if out_path is not None and target != "tf":
+        from ..io.atomic import check_output_path
+
+        check_output_path(out_path, force=force, protected=(model_path,))  # before any work
     loaded = load_model(model_path)
     model = loaded.model
     if target in ("tf", "ss") and method != "zoh":

@@ -101,6 +101,7 @@ def demo(out_dir: str | None, quiet: bool) -> None:
             out_dir=out / "runs" / stem,
             baseline=None if base is None else results[base].model_path,
             progress=progress_printer(quiet, prefix="  "),
+            allow_outside=True,  # the bundled pipelines read ../sample_data
         )
     click.echo(f"demo runs in {out}")
     for stem, _ in DEMO_RUNS:

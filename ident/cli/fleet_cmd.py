@@ -97,11 +97,14 @@ def fleet_text(result: Any) -> str:
               help="Match modes against this model file (e.g. a golden unit) instead of the fleet's median unit.")
 @click.option("--resume", type=click.Path(file_okay=False), default=None, metavar="RUNFOLDER",
               help="Complete an earlier fleet run: reuse its units whose log and settings are unchanged.")
+@click.option("--allow-outside", is_flag=True,
+              help="Let the pipeline file name logs and a [fleet] reference outside its folder tree "
+                   "(refused by default: pipeline files may come from others).")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
 @click.option("--quiet", is_flag=True, help="No progress bar on stderr.")
 def fleet(pipeline_path: str, logs: tuple[str, ...], list_file: str | None, unit_from: str | None,
           out_dir: str | None, scheduler: str | None, workers: int | None, reference: str | None,
-          resume: str | None, as_json: bool, quiet: bool) -> None:
+          resume: str | None, allow_outside: bool, as_json: bool, quiet: bool) -> None:
     """Run the pipeline PIPELINE on the log of every unit of a fleet and compare the units.
 
     Every LOG (globs allowed) is one unit, computed exactly as 'rigfit run' computes
@@ -116,7 +119,7 @@ def fleet(pipeline_path: str, logs: tuple[str, ...], list_file: str | None, unit
 
     result = run_fleet(
         pipeline_path, logs, list_file=list_file, out_dir=out_dir, resume=resume, scheduler=scheduler,
-        workers=workers, reference=reference, unit_from=unit_from,
+        workers=workers, reference=reference, unit_from=unit_from, allow_outside=allow_outside,
         progress=_ProgressLine() if progress_enabled(quiet) else None,
     )
     s = result.summary

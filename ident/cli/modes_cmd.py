@@ -77,7 +77,7 @@ def modes(
     from ..io.modelfile import load_model
 
     if plot_path is not None:
-        check_output_path(plot_path, force=force, protected=(model_path,))
+        check_output_path(plot_path, force=force, protected=(model_path, expect_path))
     loaded = load_model(model_path)
     model = loaded.model
     expectations = None
@@ -115,7 +115,7 @@ def modes(
     tripped = [f for f in FLAGS if f in fail_on and f in present]
 
     if plot_path is not None:
-        _write_plot(table, plot_path, force=force, protected=(model_path,))
+        _write_plot(table, plot_path, force=force, protected=(model_path, expect_path))
 
     if as_json:
         payload = mode_table_to_dict(table)
@@ -135,7 +135,7 @@ def modes(
         raise GateFailed("; ".join(failures))
 
 
-def _write_plot(table, path: str, *, force: bool, protected: tuple[str, ...]) -> None:
+def _write_plot(table, path: str, *, force: bool, protected: tuple[str | None, ...]) -> None:
     import io
 
     import matplotlib

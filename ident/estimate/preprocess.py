@@ -33,7 +33,15 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .._validate import as_signal, int_in_range, names_tuple, one_of, options_from_mapping, positive_float
+from .._validate import (
+    as_signal,
+    int_in_range,
+    names_tuple,
+    one_of,
+    options_from_mapping,
+    positive_float,
+    sample_time_value,
+)
 from ..choices import OFFSET_METHODS
 from ..errors import OptionError
 from ..lti._linalg import column_sums
@@ -221,8 +229,8 @@ def as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
             raise OptionError(
                 f"experiment {k} must be an Experiment or a (u, y) pair; got {type(item).__name__}"
             ) from exc
-        u = as_signal(u, f"experiment {k} u", ndim=2)
-        y = as_signal(y, f"experiment {k} y", ndim=2)
+        u = as_signal(u, f"experiment {k} u", ndim=2, bounded=True)
+        y = as_signal(y, f"experiment {k} y", ndim=2, bounded=True)
         if u.shape[0] != y.shape[0]:
             raise OptionError(
                 f"experiment {k}: u and y must have the same number of samples; "
@@ -317,7 +325,7 @@ def prepare(
     options = PreprocessOptions() if options is None else options
     if not isinstance(options, PreprocessOptions):
         raise OptionError(f"options must be PreprocessOptions; got {type(options).__name__}")
-    sample_time = positive_float(sample_time, "sample_time")
+    sample_time = sample_time_value(sample_time)
     records = as_records(data)
     m, p = records[0][0].shape[1], records[0][1].shape[1]
     labels = _signal_labels(m, p, input_names, output_names, input_units, output_units)
@@ -331,18 +339,24 @@ def prepare(
 
     estimation, validation, est_ranges, val_ranges, trends = [], [], [], [], []
     for (u, y), (s_dec, s_raw), start in zip(records, splits, starts, strict=True):
-        z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
-        if coef is not None:
-            trends.append(coef)
-        # 4. decimate the whole experiment, then split
-        z = _decimate(z, q)
-        est = z[:s_dec]
-        val = z[s_dec:]
-        estimation.append(Experiment(u=est[:, :m], y=est[:, m:]))
+        if q == 1 and not options.detrend:
+            # the deviations are made once and shared by the two parts (no copy of a copy)
+            ud, yd = u - op_u, y - op_y
+            est_u, est_y, val_u, val_y = ud[:s_dec], yd[:s_dec], ud[s_dec:], yd[s_dec:]
+        else:
+            z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
+            if coef is not None:
+                trends.append(coef)
+            # 4. decimate the whole experiment, then split
+            z = _decimate(z, q)
+            est_u, est_y = np.array(z[:s_dec, :m]), np.array(z[:s_dec, m:])
+            val_u, val_y = np.array(z[s_dec:, :m]), np.array(z[s_dec:, m:])
+            del z
+        estimation.append(Experiment._owned(est_u, est_y))
         est_ranges.append((int(start), int(start + s_raw)))
         n_raw = u.shape[0]
-        if val.shape[0] > 0:
-            validation.append(Experiment(u=val[:, :m], y=val[:, m:]))
+        if val_u.shape[0] > 0:
+            validation.append(Experiment._owned(val_u, val_y))
             val_ranges.append((int(start + s_raw), int(start + n_raw)))
 
     trend_array = None

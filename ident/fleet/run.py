@@ -236,6 +236,7 @@ def run_fleet(
     reference: str | os.PathLike | None = None,
     unit_from: str | None = None,
     progress: Progress | None = None,
+    allow_outside: bool = False,
 ) -> FleetResult:
     """Identify every unit of a fleet with one pipeline and compare the units.
 
@@ -266,6 +267,10 @@ def run_fleet(
         Regular expression naming units from their log paths.
     progress : callable, optional
         ``progress(done, total, failed)`` after every unit.
+    allow_outside : bool
+        Let the pipeline file name logs and a reference model outside its
+        folder tree (as ``rigfit run --allow-outside``); logs given here are
+        never restricted.
 
     Returns
     -------
@@ -280,7 +285,7 @@ def run_fleet(
         not installed or the scheduler not reachable.
     """
     if not isinstance(spec, PipelineSpec):
-        spec = load_pipeline(spec, expand_logs=not (logs or list_file))
+        spec = load_pipeline(spec, expand_logs=not (logs or list_file), allow_outside=allow_outside)
     fleet = spec.fleet
     if scheduler is not None and workers is not None:
         raise IdentError("give either --workers (embedded cluster) or --scheduler, not both")

@@ -15,7 +15,6 @@ one-line error, never an exception: one bad unit does not stop the others.
 from __future__ import annotations
 
 import dataclasses
-import glob
 import hashlib
 import json
 import os
@@ -29,7 +28,7 @@ from typing import Any
 
 from .._version import __version__
 from ..errors import IdentError
-from ..io.pipelinefile import PipelineSpec
+from ..io.pipelinefile import MAX_GLOB_FOLDERS, PipelineSpec, bounded_glob, static_prefix
 
 __all__ = [
     "UNIT_COLUMN",
@@ -214,7 +213,15 @@ def collect_logs(
         target = Path(text).expanduser()
         target = target if target.is_absolute() else base / target
         if _GLOB_CHARS & set(text):
-            matches = sorted(Path(p) for p in glob.glob(str(target), recursive=True) if Path(p).is_file())
+            prefix, parts = static_prefix(Path(os.path.normpath(target)))
+            if prefix == Path(prefix.anchor):
+                raise IdentError(f"{where}the glob {text!r} starts at the file system root",
+                                 hint="start the glob in the folder holding the logs")
+            found = bounded_glob(prefix, parts)
+            if found is None:
+                raise IdentError(f"{where}the glob {text!r} would list more than {MAX_GLOB_FOLDERS} folders",
+                                 hint="narrow the glob to the folder holding the logs")
+            matches = found
             if not matches:
                 raise IdentError(f"{where}no log file matches {text!r}", hint="check the pattern and the folder")
         else:

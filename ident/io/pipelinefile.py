@@ -41,30 +41,37 @@ command line accept. Layout (every section but ``[log]`` is optional)::
 Unknown keys and wrong types raise :class:`ident.errors.PipelineError` naming
 the file, the dotted key path (``fit.ordr``) and, for unknown keys, the
 nearest valid key.
+
+Pipeline files may come from others (a pull request run in CI), so reading one
+is bounded: the file is at most :data:`MAX_PIPELINE_BYTES` and nested at most
+:data:`ident.io.inputs.MAX_NESTING` levels; log paths and the baseline are
+resolved relative to the pipeline file and must lie in its folder or below
+(after following links) unless ``allow_outside`` is given (``rigfit run
+--allow-outside``); a glob may not start at the file system root and may walk
+at most :data:`MAX_GLOB_FOLDERS` folders.
 """
 
 from __future__ import annotations
 
 import dataclasses
-import glob
+import fnmatch
 import hashlib
 import math
 import os
 import re
-import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .._validate import did_you_mean
+from .._validate import did_you_mean, sample_rate_value
 from ..assess.diagnostics import CheckOptions
 from ..assess.drift import DriftThresholds
 from ..assess.expectations import Expectations
 from ..assess.fleet import OutlierRule
 from ..assess.modes import FLAGS, ModeThresholds
 from ..choices import UPSAMPLE_METHODS
-from ..errors import IdentError, PipelineError
+from ..errors import IdentError, OptionError, PipelineError, printable
 from ..estimate.identify import IdentifyOptions
 from ..estimate.preprocess import PreprocessOptions
 from .columns import is_pattern
@@ -73,6 +80,9 @@ __all__ = [
     "SECTIONS",
     "LOG_KEYS",
     "DEFAULT_FAIL_ON",
+    "MAX_PIPELINE_BYTES",
+    "MAX_GLOB_FOLDERS",
+    "bounded_glob",
     "LogSpec",
     "ModesSpec",
     "DriftSpec",
@@ -98,6 +108,12 @@ FLEET_KEYS: tuple[str, ...] = ("unit_from", "workers", "scheduler", "reference")
 DEFAULT_FAIL_ON: tuple[str, ...] = ("unstable",)
 
 _GLOB_CHARS = frozenset("*?[")
+#: Largest pipeline file rigfit reads, in bytes.
+MAX_PIPELINE_BYTES = 2**20
+#: Most folders one glob of ``[log] paths`` may list.
+MAX_GLOB_FOLDERS = 10_000
+_OUTSIDE_HINT = ("pipeline files may come from others, so rigfit reads files outside the pipeline's folder only "
+                 "when asked: rigfit run --allow-outside")
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -288,7 +304,7 @@ class PipelineSpec:
 # --------------------------------------------------------------------------- public API
 
 
-def load_pipeline(path: str | os.PathLike, *, expand_logs: bool = True) -> PipelineSpec:
+def load_pipeline(path: str | os.PathLike, *, expand_logs: bool = True, allow_outside: bool = False) -> PipelineSpec:
     """Read and check a pipeline file.
 
     Parameters
@@ -299,6 +315,8 @@ def load_pipeline(path: str | os.PathLike, *, expand_logs: bool = True) -> Pipel
         Resolve ``[log] paths`` to files (each must exist). ``False`` keeps the
         patterns only (``LogSpec.files`` empty), for callers that supply the logs
         themselves, as ``rigfit fleet`` does.
+    allow_outside : bool, default False
+        Read log files and a baseline outside the pipeline file's folder tree.
 
     Returns
     -------
@@ -307,33 +325,33 @@ def load_pipeline(path: str | os.PathLike, *, expand_logs: bool = True) -> Pipel
     Raises
     ------
     PipelineError
-        The file cannot be read, is not valid TOML, has an unknown key (the
-        message names the key path, the hint the nearest valid key), a value
-        of the wrong type or out of range, or a log path that matches no file.
+        The file cannot be read, is not a regular file, is larger than
+        :data:`MAX_PIPELINE_BYTES`, is not valid TOML or is nested too deeply,
+        has an unknown key (the message names the key path, the hint the
+        nearest valid key), a value of the wrong type or out of range, a log
+        path that matches no file, lies outside the folder tree without
+        ``allow_outside``, or a glob that starts at the root or walks too many
+        folders.
     """
+    from .inputs import parse_toml, read_input_bytes
+
     where = Path(path)
-    try:
-        data = where.read_bytes()
-    except FileNotFoundError as exc:
-        raise PipelineError("no such file", path=where) from exc
-    except (IsADirectoryError, PermissionError) as exc:
-        raise PipelineError(f"cannot read ({exc.strerror})", path=where) from exc
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        raise PipelineError(f"not UTF-8 text (byte {exc.start})", path=where) from exc
-    try:
-        mapping = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise PipelineError(f"not valid TOML: {exc}", path=where) from exc
+
+    def error(reason: str) -> PipelineError:
+        return PipelineError(reason, path=where)
+
+    data = read_input_bytes(where, error, what="pipeline file", max_bytes=MAX_PIPELINE_BYTES)
+    mapping = parse_toml(data, error)
     return parse_pipeline(
-        mapping, path=where.resolve(), sha256=hashlib.sha256(data).hexdigest(), expand_logs=expand_logs
+        mapping, path=where.resolve(), sha256=hashlib.sha256(data).hexdigest(), expand_logs=expand_logs,
+        allow_outside=allow_outside,
     )
 
 
 def parse_pipeline(
     mapping: Mapping[str, Any], *, path: str | os.PathLike | None = None, sha256: str = "",
     expand_logs: bool = True,
+    allow_outside: bool = False,
 ) -> PipelineSpec:
     """Build a :class:`PipelineSpec` from a parsed TOML document.
 
@@ -348,6 +366,10 @@ def parse_pipeline(
         Hash of the file bytes, recorded in the spec.
     expand_logs : bool, default True
         As in :func:`load_pipeline`.
+    allow_outside : bool, default False
+        With ``path``: read log files and a baseline outside ``path``'s folder
+        tree. Without ``path`` (a mapping built by the caller) nothing is
+        restricted.
 
     Returns
     -------
@@ -360,13 +382,14 @@ def parse_pipeline(
     """
     src = None if path is None else Path(path)
     base = src.parent if src is not None else Path.cwd()
+    tree = None if src is None or allow_outside else base.resolve()
     _check_keys(mapping, "", SECTIONS, src)
     name = _text(mapping, "name", src, default=src.stem if src is not None else "pipeline")
     notes = _text(mapping, "notes", src, default="")
     if "log" not in mapping:
         raise PipelineError("missing section [log] (the log files and their columns)", path=src,
                             key_path="log")
-    log = _parse_log(mapping["log"], base, src, expand=expand_logs)
+    log = _parse_log(mapping["log"], base, src, tree, expand=expand_logs)
 
     prep_table = _section(mapping, "preprocess", src)
     _parse_options(PreprocessOptions, prep_table, "preprocess", src,
@@ -393,8 +416,8 @@ def parse_pipeline(
         )
     except PipelineError as exc:
         raise _with_path(exc, src) from exc
-    drift = _parse_drift(_section(mapping, "drift", src), base, src)
-    fleet = _parse_fleet(_section(mapping, "fleet", src), base, src)
+    drift = _parse_drift(_section(mapping, "drift", src), base, src, tree)
+    fleet = _parse_fleet(_section(mapping, "fleet", src), base, src, tree)
     return PipelineSpec(
         name=name, notes=notes, path=src, sha256=sha256, log=log, fit=fit, check=check,
         modes=modes, expect=expect, drift=drift, fleet=fleet,
@@ -491,29 +514,119 @@ def _number(value: Any, key_path: str, src: Path | None, *, what: str) -> float:
     return float(value)
 
 
-def _expand(patterns: tuple[str, ...], base: Path, src: Path | None) -> tuple[Path, ...]:
+def _inside(path: Path, tree: Path | None) -> bool:
+    if tree is None:
+        return True
+    try:
+        path.resolve().relative_to(tree)
+    except ValueError:
+        return False
+    return True
+
+
+def static_prefix(target: Path) -> tuple[Path, tuple[str, ...]]:
+    """Split an absolute pattern into its folder without glob characters and the parts after it."""
+    parts = target.parts
+    k = 0
+    while k < len(parts) and not (_GLOB_CHARS & set(parts[k])):
+        k += 1
+    return Path(*parts[:k]), tuple(parts[k:])
+
+
+def bounded_glob(start: Path, parts: tuple[str, ...], limit: int | None = None) -> list[Path] | None:
+    """Return the files under ``start`` matching ``parts``, listing at most ``limit`` folders.
+
+    ``parts`` are path components with ``*``, ``?``, ``[...]`` and ``**``.
+
+    Matches as :func:`glob.glob` with ``recursive=True`` does on POSIX (case
+    sensitive; names starting with ``.`` only when the pattern part does;
+    ``**`` is zero or more folders), files only, sorted. Returns ``None`` when
+    the walk would list more than ``limit`` folders (default :data:`MAX_GLOB_FOLDERS`).
+    """
+    limit = MAX_GLOB_FOLDERS if limit is None else limit
+    if parts and parts[-1] == "**":
+        parts = (*parts, "*")
+    matches: set[Path] = set()
+    listed = 0
+    stack = [(start, 0)]
+    seen: set[tuple[Path, int]] = set()
+    while stack:
+        folder, i = stack.pop()
+        if (folder, i) in seen:
+            continue
+        seen.add((folder, i))
+        part, last = parts[i], i == len(parts) - 1
+        if not (_GLOB_CHARS & set(part)):
+            nxt = folder / part
+            if last and nxt.is_file():
+                matches.add(nxt)
+            elif not last and nxt.is_dir():
+                stack.append((nxt, i + 1))
+            continue
+        listed += 1
+        if listed > limit:
+            return None
+        try:
+            entries = list(os.scandir(folder))
+        except OSError:
+            continue
+        if part == "**":
+            stack.append((folder, i + 1))
+        for entry in entries:
+            if entry.name.startswith(".") and not part.startswith("."):
+                continue
+            is_dir = entry.is_dir()
+            if part == "**":
+                if is_dir:
+                    stack.append((Path(entry.path), i))
+            elif fnmatch.fnmatchcase(entry.name, part):
+                if last and entry.is_file():
+                    matches.add(Path(entry.path))
+                elif not last and is_dir:
+                    stack.append((Path(entry.path), i + 1))
+    return sorted(matches)
+
+
+def _expand(patterns: tuple[str, ...], base: Path, src: Path | None, tree: Path | None) -> tuple[Path, ...]:
     files: list[Path] = []
     for k, pattern in enumerate(patterns):
+        key = f"log.paths[{k + 1}]"
         target = Path(pattern).expanduser()
         target = target if target.is_absolute() else base / target
         if _GLOB_CHARS & set(pattern):
-            matches = sorted(Path(p) for p in glob.glob(str(target), recursive=True) if Path(p).is_file())
-            if not matches:
-                raise PipelineError(f"no file matches {pattern!r} (relative to {base})", path=src,
-                                    key_path=f"log.paths[{k + 1}]")
+            prefix, parts = static_prefix(Path(os.path.normpath(target)))
+            if prefix == Path(prefix.anchor):
+                raise PipelineError(f"the glob {printable(pattern)!r} starts at the file system root", path=src,
+                                    key_path=key, hint="start the glob in the folder holding the logs")
+            if not _inside(prefix, tree):
+                raise PipelineError(f"{printable(pattern)!r} reaches outside the pipeline's folder", path=src,
+                                    key_path=key, hint=_OUTSIDE_HINT)
+            found = bounded_glob(prefix, parts)
+            if found is None:
+                raise PipelineError(
+                    f"the glob {printable(pattern)!r} would list more than {MAX_GLOB_FOLDERS} folders",
+                    path=src, key_path=key, hint="narrow the glob to the folder holding the logs",
+                )
+            if not found:
+                raise PipelineError(f"no file matches {printable(pattern)!r} (relative to {printable(base)})",
+                                    path=src, key_path=key)
+            matches = found
         else:
             if not target.is_file():
-                raise PipelineError(f"no such file {pattern!r} (relative to {base})", path=src,
-                                    key_path=f"log.paths[{k + 1}]")
+                raise PipelineError(f"no such file {printable(pattern)!r} (relative to {printable(base)})",
+                                    path=src, key_path=key)
             matches = [target]
         for m in matches:
+            if not _inside(m, tree):
+                raise PipelineError(f"{printable(pattern)!r} names a file outside the pipeline's folder "
+                                    "(after following links)", path=src, key_path=key, hint=_OUTSIDE_HINT)
             m = m.resolve()
             if m not in files:
                 files.append(m)
     return tuple(files)
 
 
-def _parse_log(table: Any, base: Path, src: Path | None, *, expand: bool = True) -> LogSpec:
+def _parse_log(table: Any, base: Path, src: Path | None, tree: Path | None, *, expand: bool = True) -> LogSpec:
     _check_keys(table, "log", LOG_KEYS, src)
     for key in ("paths", "inputs", "outputs"):
         if key not in table:
@@ -531,10 +644,7 @@ def _parse_log(table: Any, base: Path, src: Path | None, *, expand: bool = True)
         raise PipelineError(f"must be a column name; got {time!r}", path=src, key_path="log.time")
     rate = table.get("sample_rate_hz")
     if rate is not None:
-        rate = _number(rate, "log.sample_rate_hz", src, what="a positive number of samples per second")
-        if rate <= 0:
-            raise PipelineError(f"must be a positive number; got {rate!r}", path=src,
-                                key_path="log.sample_rate_hz")
+        rate = _rate(rate, "log.sample_rate_hz", src)
         if time is not None:
             raise PipelineError("give either 'time' or 'sample_rate_hz', not both", path=src,
                                 key_path="log.sample_rate_hz")
@@ -560,7 +670,7 @@ def _parse_log(table: Any, base: Path, src: Path | None, *, expand: bool = True)
             )
     return LogSpec(
         patterns=patterns,
-        files=_expand(patterns, base, src) if expand else (),
+        files=_expand(patterns, base, src, tree) if expand else (),
         inputs=inputs,
         outputs=outputs,
         time=time,
@@ -578,10 +688,17 @@ def _resample(table: Mapping[str, Any], src: Path | None) -> float | None:
     rate = table.get("resample_hz")
     if rate is None:
         return None
-    rate = _number(rate, "log.resample_hz", src, what="a positive number of samples per second")
+    return _rate(rate, "log.resample_hz", src)
+
+
+def _rate(value: Any, key_path: str, src: Path | None) -> float:
+    rate = _number(value, key_path, src, what="a positive number of samples per second")
     if rate <= 0:
-        raise PipelineError(f"must be a positive number; got {rate!r}", path=src, key_path="log.resample_hz")
-    return rate
+        raise PipelineError(f"must be a positive number; got {value!r}", path=src, key_path=key_path)
+    try:
+        return sample_rate_value(rate, "the rate")
+    except OptionError as exc:
+        raise PipelineError(str(exc), path=src, key_path=key_path) from exc
 
 
 def _upsample(table: Mapping[str, Any], src: Path | None) -> str | None:
@@ -623,7 +740,7 @@ def _parse_modes(table: Mapping[str, Any], src: Path | None) -> ModesSpec:
     return ModesSpec(thresholds=thresholds, fail_on=tuple(dict.fromkeys(fail_on)))
 
 
-def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None) -> DriftSpec:
+def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None, tree: Path | None) -> DriftSpec:
     valid = ("baseline", *(f.name for f in dataclasses.fields(DriftThresholds)))
     _check_keys(table, "drift", valid, src)
     baseline = table.get("baseline")
@@ -632,13 +749,17 @@ def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None) -> Drif
             raise PipelineError(f"must be the path of a model file; got {baseline!r}", path=src,
                                 key_path="drift.baseline")
         target = Path(baseline).expanduser()
-        baseline = (target if target.is_absolute() else base / target).resolve()
+        target = target if target.is_absolute() else base / target
+        if not _inside(target, tree):
+            raise PipelineError("the baseline is outside the pipeline's folder (after following links)",
+                                path=src, key_path="drift.baseline", hint=_OUTSIDE_HINT)
+        baseline = target.resolve()
     rest = {k: v for k, v in table.items() if k != "baseline"}
     thresholds = _parse_options(DriftThresholds, rest, "drift", src, DriftThresholds.from_mapping)
     return DriftSpec(baseline=baseline, thresholds=thresholds)
 
 
-def _parse_fleet(table: Mapping[str, Any], base: Path, src: Path | None) -> FleetSpec:
+def _parse_fleet(table: Mapping[str, Any], base: Path, src: Path | None, tree: Path | None) -> FleetSpec:
     valid = (*FLEET_KEYS, *(f.name for f in dataclasses.fields(OutlierRule)))
     _check_keys(table, "fleet", valid, src)
     unit_from = table.get("unit_from")
@@ -667,7 +788,11 @@ def _parse_fleet(table: Mapping[str, Any], base: Path, src: Path | None) -> Flee
             raise PipelineError(f"must be the path of a model file; got {reference!r}", path=src,
                                 key_path="fleet.reference")
         target = Path(reference).expanduser()
-        reference = (target if target.is_absolute() else base / target).resolve()
+        target = target if target.is_absolute() else base / target
+        if not _inside(target, tree):
+            raise PipelineError("the reference model is outside the pipeline's folder (after following links)",
+                                path=src, key_path="fleet.reference", hint=_OUTSIDE_HINT)
+        reference = target.resolve()
     rest = {k: v for k, v in table.items() if k not in FLEET_KEYS}
     rule = _parse_options(OutlierRule, rest, "fleet", src, OutlierRule.from_mapping)
     return FleetSpec(unit_from=unit_from, workers=workers, scheduler=scheduler, reference=reference, rule=rule)

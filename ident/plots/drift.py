@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 
 from ..assess.drift import DriftReport
+from ._text import literal
 
 __all__ = ["magnitude_overlay"]
 
@@ -86,7 +87,7 @@ def magnitude_overlay(
                 ax.plot([f[k], f[k]], [base[k, i, j], new[k, i, j]], color=_BAD, lw=1.0)
                 ax.plot([f[k]], [new[k, i, j]], "o", color=_BAD, ms=4,
                         label=f"largest difference {r.largest_db:.1f} dB")
-            ax.set_title(f"{ins[j]} → {outs[i]}", fontsize=9, loc="left", color=_INK)
+            ax.set_title(literal(f"{ins[j]} → {outs[i]}"), fontsize=9, loc="left", color=_INK)
             ax.set_ylabel("gain [dB]", fontsize=8)
             ax.legend(fontsize=7, frameon=False)
             if units is not None:

@@ -15,6 +15,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ._text import literal
+
 __all__ = ["StripPanel", "strip_figure"]
 
 _INK = "#1d232b"
@@ -94,12 +96,12 @@ def _panel(ax, panel: StripPanel) -> None:
         ax.set_xlim(lo, hi)
     _band(ax, panel)
     for k in odd[:MAX_LABELS]:
-        ax.annotate(str(panel.names[k]), (x[k], y[k]), xytext=(0, 7), textcoords="offset points",
+        ax.annotate(literal(str(panel.names[k])), (x[k], y[k]), xytext=(0, 7), textcoords="offset points",
                     ha="center", fontsize=7.5, color=_ODD, clip_on=True)
     ax.set_ylim(-0.85, 0.85)
     ax.set_yticks([])
     label = f"{panel.title} [{panel.unit}]" if panel.unit else panel.title
-    ax.set_xlabel(label, fontsize=9)
+    ax.set_xlabel(literal(label), fontsize=9)
     ax.tick_params(labelsize=8)
     for side in ("left", "right", "top"):
         ax.spines[side].set_visible(False)
@@ -136,5 +138,5 @@ def strip_figure(panels: Sequence[StripPanel], *, title: str = "", columns: int 
         else:
             ax.set_visible(False)
     if title:
-        fig.suptitle(title, fontsize=10.5, x=0.01, ha="left", color=_INK)
+        fig.suptitle(literal(title), fontsize=10.5, x=0.01, ha="left", color=_INK)
     return fig

@@ -8,6 +8,7 @@ from typing import Any
 import numpy as np
 
 from ..assess.modes import ModeTable
+from ._text import literal
 
 __all__ = ["pole_zero_map"]
 
@@ -143,7 +144,7 @@ def pole_zero_map(
         n_flagged = sum(1 for m in table.modes if m.flags)
         title = (f"{table.n_states} states, T = {T:g} s (Nyquist {0.5 / T:.4g} Hz)"
                  f" - {n_flagged} flagged mode(s)")
-    ax.set_title(title, fontsize=9, color=_INK, loc="left")
+    ax.set_title(literal(title), fontsize=9, color=_INK, loc="left")
     far_zeros = [complex(q) for q in table.zeros if not (np.isfinite(q) and abs(complex(q)) * 1.1 <= reach)]
     if far_zeros:
         listed = ", ".join(f"{q.real:.3g}" if abs(q.imag) < 1e-12 else f"{q.real:.3g}{q.imag:+.3g}j"

@@ -8,6 +8,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import OptionError
+from ._text import literal
 
 __all__ = ["SIGNAL_ROLES", "plot_signals", "plot_log", "zoom_window"]
 
@@ -175,7 +176,7 @@ def plot_signals(
             ax.plot(ts, xs, color=_ROLE_COLOURS[role], linewidth=0.8, solid_joinstyle="round")
         for (_, stop), (start, _) in zip(segs[:-1], segs[1:], strict=True):
             ax.axvspan(t[stop - 1], t[start], color=_GRID, alpha=0.7, linewidth=0)
-        ax.set_ylabel(label, color=_INK, fontsize=8.5, rotation=0, ha="right", va="center")
+        ax.set_ylabel(literal(label), color=_INK, fontsize=8.5, rotation=0, ha="right", va="center")
         ax.grid(True, color=_GRID, linewidth=0.6)
         ax.tick_params(colors=_INK, labelsize=8, length=2.5)
         for side in ("top", "right"):
@@ -200,7 +201,7 @@ def plot_signals(
                            color=_INK, loc="left")
         zooms[-1].set_xlabel("time [s]", color=_INK, fontsize=9)
     if title:
-        fig.suptitle(title, color=_INK, fontsize=10, x=0.01, ha="left")
+        fig.suptitle(literal(title), color=_INK, fontsize=10, x=0.01, ha="left")
     return fig
 
 

@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from ..assess.diagnostics import Correlation, ValidationReport
+from ._text import literal
 
 __all__ = [
     "output_comparison",
@@ -118,8 +119,9 @@ def output_comparison(report: ValidationReport, *, model: Any | None = None,
                 ax.plot(t, report.predicted[sel, i], color=_PRED, lw=0.8, ls="--", label=f"{k}-step prediction")
             _style(ax)
         full.axvspan(lo * T, (hi - 1) * T, color=_LOWCOH, zorder=0)
-        full.set_ylabel(f"{report.outputs[i]}\ndeviation [{_unit_text(units, i)}]", fontsize=8, color=_INK)
-        zoom.set_ylabel(f"[{_unit_text(units, i)}]", fontsize=8, color=_INK)
+        full.set_ylabel(f"{literal(report.outputs[i])}\ndeviation [{literal(_unit_text(units, i))}]",
+                        fontsize=8, color=_INK)
+        zoom.set_ylabel(f"[{literal(_unit_text(units, i))}]", fontsize=8, color=_INK)
         box = f"{fit_label}\nsimulation {report.simulation_fit[i]:.1f} %"
         if show_pred:
             box += f"\n{k}-step prediction {report.prediction_fit[i]:.1f} %"
@@ -174,7 +176,7 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
     else:
         axes = list(axes)
         fig = axes[0].figure
-    name = report.outputs[output]
+    name = literal(report.outputs[output])
     w = report.whiteness[output]
     _draw_correlation(
         axes[0], w.autocorrelation,
@@ -185,7 +187,7 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
         ax = axes[1 + j]
         _draw_correlation(
             ax, report.cross_correlation[output][j],
-            f"residuals of {name} vs {report.inputs[j]} (negative lag: feedback; "
+            f"residuals of {name} vs {literal(report.inputs[j])} (negative lag: feedback; "
             "positive: missed input dynamics)",
             skip_zero=False,
         )
@@ -263,14 +265,15 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
     ratio = _gain_unit(model, output, input)
     ax_mag.set_ylabel("gain [dB]", fontsize=8)
     _gain_axis(ax_mag, ratio)
-    ax_mag.set_title(f"{iname} → {oname}", fontsize=9, loc="right", color=_INK)
+    ax_mag.set_title(literal(f"{iname} → {oname}"), fontsize=9, loc="right", color=_INK)
     ax_ph.semilogx(f, np.degrees(np.unwrap(np.angle(H))), color=_MEASURED, lw=1.0, label="estimate from data (H1)")
     ax_ph.semilogx(fm, np.degrees(np.unwrap(np.angle(G))), color=_SIM, lw=1.4, label="model")
     ax_ph.set_ylabel("phase [deg]", fontsize=8)
-    ax_coh.semilogx(f, sp.coherence[:, output, input], color=_PRED, lw=1.1, label=f"coherence {iname} → {oname}")
+    ax_coh.semilogx(f, sp.coherence[:, output, input], color=_PRED, lw=1.1,
+                    label=literal(f"coherence {iname} → {oname}"))
     if sp.multiple_coherence.shape[1] and len(report.inputs) > 1:
         ax_coh.semilogx(f, sp.multiple_coherence[:, output], color=_PRED, lw=0.8, ls="--",
-                        label=f"multiple coherence of {oname}")
+                        label=literal(f"multiple coherence of {oname}"))
     ax_coh.axhline(COHERENCE_LOW, color=_BAD, lw=0.7, ls=":", label=f"threshold {COHERENCE_LOW:g}")
     ax_coh.set_ylim(0.0, 1.05)
     ax_coh.set_ylabel("coherence [-]", fontsize=8)
@@ -316,7 +319,7 @@ def _gain_axis(ax: Any, unit: str) -> None:
     decades = np.arange(math.floor(lo / 20.0), math.ceil(hi / 20.0) + 1)
     sec.yaxis.set_major_locator(FixedLocator(10.0 ** decades))
     sec.set_yticklabels([f"{10.0 ** d:g}" for d in decades])
-    sec.set_ylabel(f"gain [{unit}]", fontsize=8)
+    sec.set_ylabel(f"gain [{literal(unit)}]", fontsize=8)
     sec.tick_params(labelsize=7, colors=_INK)
 
 
@@ -413,7 +416,8 @@ def verdict_grid(report: ValidationReport, *, ax: Any | None = None) -> Any:
     ax.set_xticks(range(len(tests)), [t.replace("_", " ") for t in tests], fontsize=8, color=_INK)
     ax.xaxis.tick_top()
     ax.set_yticks(range(len(rows)),
-                  [f"{row} (fit {fits[row]:.1f} %)" if row in fits else row for row in rows], fontsize=8, color=_INK)
+                  [literal(f"{row} (fit {fits[row]:.1f} %)" if row in fits else row) for row in rows],
+                  fontsize=8, color=_INK)
     ax.tick_params(length=0)
     for spine in ax.spines.values():
         spine.set_visible(False)
