@@ -38,7 +38,9 @@ def _modes(model):
 
 @pytest.mark.parametrize("innovations", [False, True])
 @pytest.mark.parametrize("modal", [True, False])
-def test_jacobian_matches_central_differences(monkeypatch, innovations, modal):
+@pytest.mark.parametrize("block", [7, 1 << 16])
+def test_jacobian_matches_central_differences(monkeypatch, innovations, modal, block):
+    monkeypatch.setattr(S, "_DRIVE_BLOCK", block)  # [u, y] stacked a few samples at a time, or at once
     rng = np.random.default_rng(2)
     n, m, p = 3, 2, 2
     A = rng.standard_normal((n, n))
@@ -67,6 +69,30 @@ def test_jacobian_matches_central_differences(monkeypatch, innovations, modal):
         dx[i] = h
         fd = -(prob.errors(theta, x0 + dx, u, y) - prob.errors(theta, x0 - dx, u, y)) / (2 * h)
         assert_allclose(Jx[:, :, i], fd, atol=1e-6 * np.max(np.abs(fd)))
+
+
+@pytest.mark.parametrize("block", [7, 1 << 16])
+def test_innovations_errors_are_those_of_the_predictor_simulated_by_scipy(monkeypatch, block):
+    # Ljung, System Identification, 2nd ed., eq. (4.86): the one-step predictor of the
+    # innovations form, x[k+1] = (A - K C) x + (B - K D) u + K y, yhat = C x + D u,
+    # simulated by scipy.signal.dlsim; the errors y - yhat must not depend on how many
+    # samples of [u, y] are stacked at a time
+    from scipy import signal
+
+    monkeypatch.setattr(S, "_DRIVE_BLOCK", block)
+    rng = np.random.default_rng(5)
+    n, m, p = 3, 2, 2
+    A = rng.standard_normal((n, n))
+    A *= 0.8 / np.max(np.abs(np.linalg.eigvals(A)))
+    B, C, D = rng.standard_normal((n, m)), rng.standard_normal((p, n)), rng.standard_normal((p, m))
+    K = 0.1 * rng.standard_normal((n, p))
+    theta = S.pack_theta(A, B, C, D, K)
+    u, y = rng.standard_normal((500, m)), rng.standard_normal((500, p))
+    x0 = rng.standard_normal(n)
+    prob = S.PredictionProblem([(u, y)], (n, m, p), np.ones(theta.size, dtype=bool), True, np.eye(p))
+    _, yhat, _ = signal.dlsim((A - K @ C, np.hstack([B - K @ D, K]), C, np.hstack([D, np.zeros((p, p))]), 1.0),
+                              np.hstack([u, y]), x0=x0)
+    assert_allclose(prob.errors(theta, x0, u, y), y - yhat, rtol=1e-10, atol=1e-12)
 
 
 def test_local_coordinates_are_orthogonal_to_similarity_directions():

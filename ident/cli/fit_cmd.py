@@ -55,7 +55,9 @@ def _parse_order(value: str) -> int | None:
 @log_options
 @click.option("--method", type=click.Choice(METHODS), default="auto", show_default=True,
               help="Choose the model family. 'auto' fits ARX and subspace candidates and refines the best; "
-                   "'arx' keeps least-squares ARX models; 'subspace' starts from subspace estimates only.")
+                   "'arx' keeps least-squares ARX models; 'subspace' starts from subspace estimates only; "
+                   "'oe', 'armax' and 'bj' fit that polynomial structure (every polynomial of one order, "
+                   "--order or each order up to --max-order) by prediction error.")
 @click.option("--order", "order_text", default="auto", show_default=True, metavar="N|auto",
               help="Fit this model order (ARX: na = nb = N; otherwise N states), or select it with 'auto'. "
                    "A fixed order is always fitted; weak excitation only gives a warning.")

@@ -15,8 +15,11 @@ the signals and finds the model the data support best, in four stages:
 3. **Refinement** (:mod:`ident.estimate.refine`): the best few candidates
    (the best of each of the leading orders, and the best of every input
    shift) are refined by minimising the simulation error (output error) -- or,
-   when asked, the one-step prediction error of the innovations form -- and
-   scored again on the held-out data.
+   when asked or when the log looks closed-loop (:mod:`ident.estimate.closed_loop`),
+   the one-step prediction error of the innovations form -- and scored again on
+   the held-out data. Lower orders are then tried below the model the
+   selection rule would keep: one state removed by balanced truncation, the
+   result refined again, while it stays as accurate on the held-out data.
 4. **Selection** (:mod:`ident.estimate.selection`): the best refined held-out
    fit, unless a simpler candidate is statistically as accurate on the held-out
    data and the estimation data do not support the extra parameters. The chosen
@@ -187,7 +190,7 @@ class IdentifyOptions:
     significance: float = 0.05
     per_criterion: int = PER_CRITERION
     refine_count: int = 4
-    screen_samples: int = 10_000
+    screen_samples: int = 20_000
     preprocess: PreprocessOptions = field(default_factory=PreprocessOptions)
 
     def __post_init__(self) -> None:

@@ -76,6 +76,9 @@ STABLE_RADIUS = 1.0 - 1e-9
 #: which its R factor comes from a Cholesky factorisation (else Householder QR).
 _GRAM_MAX_CONDITION = 1e10
 
+#: Samples of ``[u, y]`` stacked at a time to drive an innovations predictor.
+_DRIVE_BLOCK = 1 << 16
+
 
 def pack_theta(A, B, C, D, K) -> np.ndarray:
     """``theta`` from the five matrices (row-major, in the order of ``THETA_BLOCKS``)."""
@@ -223,6 +226,27 @@ class PredictionProblem:
         """Return the predictor's input: ``[u, y]`` (innovations) or ``u``."""
         return np.hstack([u, y]) if self.innovations else u
 
+    def predictor_states(self, Ab: np.ndarray, Bb: np.ndarray, u: np.ndarray, y: np.ndarray,
+                         x0: np.ndarray) -> Iterator[tuple[int, int, np.ndarray]]:
+        """Yield ``(k0, k1, states)`` of the predictor, chunk by chunk (:func:`ident.lti.simulate.state_chunks`).
+
+        The innovations predictor is driven by ``[u, y]``; that input is
+        stacked one block of :data:`_DRIVE_BLOCK` samples at a time, so a long
+        record is never copied whole.
+        """
+        if not self.innovations:
+            yield from state_chunks(Ab, Bb, u, x0)
+            return
+        x = np.asarray(x0, dtype=float)
+        for b0 in range(0, u.shape[0], _DRIVE_BLOCK):
+            b1 = min(u.shape[0], b0 + _DRIVE_BLOCK)
+            v = np.hstack([u[b0:b1], y[b0:b1]])
+            last = x
+            for k0, k1, states in state_chunks(Ab, Bb, v, x):
+                last = states[-1]
+                yield b0 + k0, b0 + k1, states
+            x = Ab @ last + Bb @ v[-1]
+
     def admissible(self, theta: np.ndarray) -> bool:
         """Tell whether ``theta`` is finite and its predictor stable (spectral radius below :data:`STABLE_RADIUS`)."""
         Ab = self.predictor(theta)[0]
@@ -234,7 +258,7 @@ class PredictionProblem:
         """Prediction errors ``y - yhat`` (unweighted) of one experiment (``x0``: its nuisance vector)."""
         Ab, Bb, C, D = self.predictor(theta)
         e = np.empty_like(y)
-        for k0, k1, x in state_chunks(Ab, Bb, self.drive(u, y), x0[:self.n]):
+        for k0, k1, x in self.predictor_states(Ab, Bb, u, y, x0[:self.n]):
             e[k0:k1] = y[k0:k1] - x @ C.T - u[k0:k1] @ D.T
         if self.offsets:
             e -= x0[self.n:][None, :]
@@ -349,7 +373,7 @@ class PredictionProblem:
         carry = np.zeros((len(reps), width), dtype=complex)
         powers = _Powers(lam)
         split = n + m + len(reps) * width
-        for k0, k1, x in state_chunks(Ab, Bb, self.drive(u, y), x0):
+        for k0, k1, x in self.predictor_states(Ab, Bb, u, y, x0):
             T, us = k1 - k0, u[k0:k1]
             phi = np.hstack([x, us, y[k0:k1]]) if self.innovations else np.hstack([x, us])
             features = np.empty((T, n + m + 2 * len(reps) * width))
@@ -368,7 +392,7 @@ class PredictionProblem:
         n, p = self.n, self.p
         sens = np.zeros((gamma.shape[0], n))
         free = np.eye(n)
-        for k0, k1, x in state_chunks(Ab, Bb, self.drive(u, y), x0):
+        for k0, k1, x in self.predictor_states(Ab, Bb, u, y, x0):
             T, us = k1 - k0, u[k0:k1]
             phi = np.hstack([x, us, y[k0:k1]]) if self.innovations else np.hstack([x, us])
             J = np.einsum("tq,kpq->tpk", phi[:, :n + self.m], direct)
