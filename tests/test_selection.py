@@ -120,6 +120,9 @@ def test_select_passes_over_an_unstable_or_redundant_best(rng):
     assert select([unstable, stable], np.ones(1)).chosen == 1
     # far better on the held-out data: the instability is supported and wins
     assert select([_contender(0.5 * other, 3, 6, loss=0.01, unstable=True), stable], np.ones(1)).chosen == 0
+    # ... unless the unstable mode nearly cancels a zero: a free response, not plant dynamics
+    assert select([_contender(0.5 * other, 3, 6, loss=0.01, unstable=True, redundant=True), stable],
+                  np.ones(1)).chosen == 1
     redundant = _contender(base, 4, 8, loss=0.0099, redundant=True)
     plain = _contender(other, 2, 4, loss=0.0100)
     assert select([redundant, plain], np.ones(1)).chosen == 1

@@ -1009,6 +1009,12 @@ def _predictor_stable(model: StateSpaceModel) -> bool:
     return float(np.max(np.abs(np.linalg.eigvals(model.A - K @ model.C)))) < 1.0
 
 
+#: A pole this close to the unit circle (or outside it) counts as unstable in the selection: a
+#: refinement that ends on its stability constraint has not estimated that pole, it was stopped
+#: there, so such a model must be significantly better than every model inside to be chosen.
+_MARGINAL_RADIUS = 1.0 - 1e-6
+
+
 def _contender(f: Fitted) -> Contender:
     score = f.score
     return Contender(n_states=f.candidate.n_states, n_parameters=f.candidate.n_parameters,
@@ -1016,7 +1022,7 @@ def _contender(f: Fitted) -> Contender:
                      estimation_loss=f.estimation_loss,
                      estimation_samples=sum(len(e) for e in f.estimation_errors),
                      estimation_errors=f.estimation_errors,
-                     unstable=bool(f.core.n_states and np.max(np.abs(f.core.poles())) > 1.0 + 1e-9),
+                     unstable=bool(f.core.n_states and np.max(np.abs(f.core.poles())) >= _MARGINAL_RADIUS),
                      redundant=_has_redundant_mode(f.core))
 
 
@@ -1069,6 +1075,46 @@ def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, 
     return model, res, cov
 
 
+def _final_choice(prep: PreparedData, options: IdentifyOptions, search: _Search, pool: Sequence[Fitted],
+                  record: SelectionRecord, screen: Screen):
+    """Polish the chosen candidate; choose again when the polish drives a pole onto the unit circle.
+
+    Candidates are screened with a few refinement steps on part of the data;
+    the polish on all the estimation data can carry a mode the screened model
+    held inside the unit circle onto the stability constraint. That model is
+    not the one the held-out test judged, and a pole stopped on the constraint
+    is not an estimate, so the candidate is set aside and the selection rule
+    runs again over the rest. Returns ``(record, (model, refinement, covariance))``.
+    """
+    excluded: set[int] = set()
+    while True:
+        chosen = pool[record.chosen]
+        final = _final_model(prep, options, search, chosen, screen)
+        if not _pushed_onto_circle(chosen, final[0]) or len(excluded) + 1 >= len(pool):
+            return record, final
+        excluded.add(record.chosen)
+        search.notes.append(
+            f"the polish of the chosen {chosen.candidate.method} model with {chosen.candidate.n_states} states on all "
+            "the estimation data drove a pole onto the unit circle; it was set aside and the next choice taken")
+        record = _select_among(pool, [k for k in range(len(pool)) if k not in excluded], screen, options)
+
+
+def _pushed_onto_circle(chosen: Fitted, model: StateSpaceModel) -> bool:
+    """Tell whether ``model`` has a pole on or outside the unit circle that ``chosen`` had inside."""
+    def radius(m: StateSpaceModel) -> float:
+        return float(np.max(np.abs(m.poles()))) if m.n_states else 0.0
+
+    return radius(chosen.core) < _MARGINAL_RADIUS <= radius(model)
+
+
+def _select_among(pool: Sequence[Fitted], keep: list[int], screen: Screen, options: IdentifyOptions):
+    """Apply the selection rule to ``pool[keep]``, its indices mapped back to ``pool``."""
+    rec = select([_contender(pool[k]) for k in keep], screen.output_variance, significance=options.significance)
+    return replace(rec, chosen=keep[rec.chosen], best_fit=keep[rec.best_fit], tied=tuple(keep[k] for k in rec.tied),
+                   p_values={keep[k]: v for k, v in rec.p_values.items()},
+                   bic={keep[k]: v for k, v in rec.bic.items()})
+
+
 def _arx_covariance(chosen: Fitted) -> ParameterCovariance | None:
     from .uncertainty import arx_parameter_covariance
 
@@ -1081,11 +1127,11 @@ def _arx_covariance(chosen: Fitted) -> ParameterCovariance | None:
 def _assemble(prep: PreparedData, options: IdentifyOptions, search: _Search, pool: Sequence[Fitted],
               record: SelectionRecord, screen: Screen) -> Identification:
     """Build the final model and the result record."""
+    record, (model, refinement, cov) = _final_choice(prep, options, search, pool, record, screen)
     chosen = pool[record.chosen]
     if chosen.candidate.stage == "estimated":
         for w in chosen.caught:  # only the selected candidate's own warnings matter
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    model, refinement, cov = _final_model(prep, options, search, chosen, screen)
     model = model.with_changes(inputs=prep.input_names, outputs=prep.output_names, input_units=prep.input_units,
                                output_units=prep.output_units, operating_point=prep.operating_point)
     raw_arx = chosen.candidate.method == "arx" and chosen.candidate.stage == "estimated"

@@ -277,8 +277,15 @@ def select(contenders: Sequence[Contender], output_variance: np.ndarray, *,
 
 
 def _unstable_if_supported(contenders, fits, finite, best_stable, output_variance, significance) -> int:
-    """Let an unstable candidate win over the best stable one only when the held-out test says it is better."""
-    unstable = [k for k in range(len(contenders)) if finite[k] and contenders[k].unstable]
+    """Let an unstable candidate win over the best stable one only when the held-out test says it is better.
+
+    An unstable (or marginal) candidate whose mode nearly cancels a zero never
+    wins this way: the input hardly drives that mode, so what it explains on
+    the held-out data is a free response (a disturbance carried from the
+    initial state), not plant dynamics.
+    """
+    unstable = [k for k in range(len(contenders))
+                if finite[k] and contenders[k].unstable and not contenders[k].redundant]
     if not unstable or contenders[best_stable].unstable:
         return best_stable
     k = max(unstable, key=lambda j: fits[j])
