@@ -1042,8 +1042,13 @@ def _has_redundant_mode(model: StateSpaceModel) -> bool:
 # --------------------------------------------------------------------------- the result
 
 
-def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, chosen: Fitted, screen: Screen):
-    """Polish the chosen model on all estimation data, give it a predictor; return (model, refinement, covariance)."""
+def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, chosen: Fitted, screen: Screen,
+                 *, steps: bool = True):
+    """Polish the chosen model on all estimation data, give it a predictor; return (model, refinement, covariance).
+
+    ``steps=False`` keeps the refined model as it is (initial states, noise
+    gain and covariance on all the estimation data only).
+    """
     from .refine import RefineOptions, fit_noise_gain, refine_state_space
 
     if chosen.candidate.method in POLYNOMIAL_STRUCTURES:  # refitted on all the estimation data
@@ -1059,7 +1064,8 @@ def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, 
         return chosen.model, None, None
     data = screen.estimation_for(chosen.shift, full=True)
     search.noise_model = chosen.candidate.noise_model
-    opts = RefineOptions(noise_model=search.noise_model, feedthrough=chosen.feedthrough, polish_iterations=1)
+    opts = RefineOptions(noise_model=search.noise_model, feedthrough=chosen.feedthrough, polish_iterations=int(steps),
+                         **({} if steps else {"max_iterations": 0}))
     search.report("polishing on all estimation data", 0.9)
     res = refine_state_space(chosen.core, data, opts)
     core, cov = res.model, res.covariance
@@ -1077,26 +1083,24 @@ def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, 
 
 def _final_choice(prep: PreparedData, options: IdentifyOptions, search: _Search, pool: Sequence[Fitted],
                   record: SelectionRecord, screen: Screen):
-    """Polish the chosen candidate; choose again when the polish drives a pole onto the unit circle.
+    """Polish the chosen candidate, unless the polish drives a pole onto the unit circle.
 
     Candidates are screened with a few refinement steps on part of the data;
     the polish on all the estimation data can carry a mode the screened model
-    held inside the unit circle onto the stability constraint. That model is
-    not the one the held-out test judged, and a pole stopped on the constraint
-    is not an estimate, so the candidate is set aside and the selection rule
-    runs again over the rest. Returns ``(record, (model, refinement, covariance))``.
+    held inside the unit circle onto the stability constraint (typically a
+    lightly damped mode fitted to a disturbance). That model is not the one the
+    held-out test judged, and a pole stopped on the constraint is not an
+    estimate, so the screened model is kept as it is (its covariance computed
+    on all the estimation data). Returns ``(record, (model, refinement, covariance))``.
     """
-    excluded: set[int] = set()
-    while True:
-        chosen = pool[record.chosen]
-        final = _final_model(prep, options, search, chosen, screen)
-        if not _pushed_onto_circle(chosen, final[0]) or len(excluded) + 1 >= len(pool):
-            return record, final
-        excluded.add(record.chosen)
+    chosen = pool[record.chosen]
+    final = _final_model(prep, options, search, chosen, screen)
+    if _pushed_onto_circle(chosen, final[0]):
         search.notes.append(
-            f"the polish of the chosen {chosen.candidate.method} model with {chosen.candidate.n_states} states on all "
-            "the estimation data drove a pole onto the unit circle; it was set aside and the next choice taken")
-        record = _select_among(pool, [k for k in range(len(pool)) if k not in excluded], screen, options)
+            "refining the chosen model further on all the estimation data drove a pole onto the unit circle; "
+            "the model is kept as the held-out test judged it")
+        final = _final_model(prep, options, search, chosen, screen, steps=False)
+    return record, final
 
 
 def _pushed_onto_circle(chosen: Fitted, model: StateSpaceModel) -> bool:
@@ -1105,14 +1109,6 @@ def _pushed_onto_circle(chosen: Fitted, model: StateSpaceModel) -> bool:
         return float(np.max(np.abs(m.poles()))) if m.n_states else 0.0
 
     return radius(chosen.core) < _MARGINAL_RADIUS <= radius(model)
-
-
-def _select_among(pool: Sequence[Fitted], keep: list[int], screen: Screen, options: IdentifyOptions):
-    """Apply the selection rule to ``pool[keep]``, its indices mapped back to ``pool``."""
-    rec = select([_contender(pool[k]) for k in keep], screen.output_variance, significance=options.significance)
-    return replace(rec, chosen=keep[rec.chosen], best_fit=keep[rec.best_fit], tied=tuple(keep[k] for k in rec.tied),
-                   p_values={keep[k]: v for k, v in rec.p_values.items()},
-                   bic={keep[k]: v for k, v in rec.bic.items()})
 
 
 def _arx_covariance(chosen: Fitted) -> ParameterCovariance | None:
