@@ -228,7 +228,8 @@ def fit(
         "validation": {"fit_percent": dict(zip(log.output_names, map(float, result.validation_fit), strict=True))},
     }
     return ModelResult(model=result.model, provenance=provenance, identification=result,
-                       pole_covariance=result.pole_covariance, log_duration_s=duration)
+                       pole_covariance=result.pole_covariance, parameter_covariance=result.covariance,
+                       log_duration_s=duration)
 
 
 def load_model(path: str | os.PathLike) -> ModelResult:
@@ -244,7 +245,7 @@ def load_model(path: str | os.PathLike) -> ModelResult:
 
     loaded = _load(path)
     return ModelResult(model=loaded.model, provenance=dict(loaded.provenance), identification=None,
-                       pole_covariance=loaded.pole_covariance(),
+                       pole_covariance=loaded.pole_covariance(), parameter_covariance=loaded.parameter_covariance(),
                        log_duration_s=log_duration_from_provenance(loaded.provenance, loaded.model.sample_time),
                        path=str(path))
 
@@ -261,12 +262,14 @@ def _mode_frame(table: Any, units: tuple[Sequence[str], Sequence[str]]) -> ModeF
         rows.append({
             "kind": r["kind"], "frequency_hz": r["frequency_hz"], "frequency_std_hz": r["frequency_std_hz"],
             "damping_ratio": r["damping_ratio"], "damping_ratio_std": r["damping_ratio_std"],
-            "time_constant_s": r["time_constant_s"], "period_s": r["period_s"], "flags": ", ".join(r["flags"]),
+            "time_constant_s": r["time_constant_s"], "time_constant_std_s": r["time_constant_std_s"],
+            "period_s": r["period_s"], "flags": ", ".join(r["flags"]),
             "z": complex(m.z), "abs_z": abs(m.z), "s": None if m.s is None else complex(m.s),
             "natural_frequency_rad_s": m.natural_frequency_rad_s, "damped_frequency_hz": m.damped_frequency_hz,
         })
     columns = ["kind", "frequency_hz", "frequency_std_hz", "damping_ratio", "damping_ratio_std", "time_constant_s",
-               "period_s", "flags", "z", "abs_z", "s", "natural_frequency_rad_s", "damped_frequency_hz"]
+               "time_constant_std_s", "period_s", "flags", "z", "abs_z", "s", "natural_frequency_rad_s",
+               "damped_frequency_hz"]
     frame = ModeFrame(rows, columns=columns, index=pd.RangeIndex(1, len(rows) + 1, name="mode"))
     record = mode_table_to_dict(table)
     record["units"] = {"inputs": list(units[0]), "outputs": list(units[1])}
@@ -280,7 +283,7 @@ class ModeFrame(pd.DataFrame):
 
     Columns: ``kind`` (oscillation, real, integrator), ``frequency_hz``,
     ``frequency_std_hz``, ``damping_ratio``, ``damping_ratio_std`` (oscillations),
-    ``time_constant_s``, ``period_s``, ``flags``, then the detail: ``z``,
+    ``time_constant_s``, ``time_constant_std_s``, ``period_s``, ``flags``, then the detail: ``z``,
     ``abs_z``, ``s`` (``ln(z)/T``), ``natural_frequency_rad_s``,
     ``damped_frequency_hz``. ``attrs["flags"]`` explains each flag present.
     In a notebook it shows as the report's mode table.
@@ -373,6 +376,9 @@ class ModelResult:
         Candidates, selection and fits of :func:`fit`; ``None`` for a loaded file.
     pole_covariance : numpy.ndarray or None
         ``(n, 2, 2)`` covariance of the poles, when known.
+    parameter_covariance : ident.lti.covariance.ParameterCovariance or None
+        Covariance of the state-space parameters, when known (DC gain and
+        frequency-response uncertainty follow from it).
     log_duration_s : float or None
         Longest contiguous stretch of the fitted data, for the ``slow_for_log`` flag.
     path : str or None
@@ -383,6 +389,7 @@ class ModelResult:
     provenance: dict = field(default_factory=dict)
     identification: Any = None
     pole_covariance: Any = None
+    parameter_covariance: Any = None
     log_duration_s: float | None = None
     path: str | None = None
 
@@ -391,7 +398,8 @@ class ModelResult:
         """The :class:`ident.assess.modes.ModeTable` (default thresholds)."""
         from .assess.modes import mode_table
 
-        return mode_table(self.model, log_duration_s=self.log_duration_s, pole_covariance=self.pole_covariance)
+        return mode_table(self.model, log_duration_s=self.log_duration_s, pole_covariance=self.pole_covariance,
+                          parameter_covariance=self.parameter_covariance)
 
     @property
     def modes(self) -> ModeFrame:

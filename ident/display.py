@@ -254,7 +254,7 @@ def mode_rows(table: Any) -> list[dict[str, Any]]:
         ``real`` or ``integrator``), ``frequency_hz`` (natural frequency of an
         oscillation; ``None`` for a real mode), ``frequency_std_hz``,
         ``damping_ratio`` and ``damping_ratio_std`` (oscillations),
-        ``time_constant_s``, ``period_s`` and ``flags``.
+        ``time_constant_s``, ``time_constant_std_s``, ``period_s`` and ``flags``.
     """
     rows = []
     for k, m in enumerate(table.modes, start=1):
@@ -264,7 +264,8 @@ def mode_rows(table: Any) -> list[dict[str, Any]]:
             "frequency_std_hz": m.natural_frequency_std_hz if m.is_pair else None,
             "damping_ratio": m.damping_ratio if m.is_pair else None,
             "damping_ratio_std": m.damping_ratio_std if m.is_pair else None,
-            "time_constant_s": m.time_constant_s, "period_s": m.period_s, "flags": tuple(m.flags),
+            "time_constant_s": m.time_constant_s, "time_constant_std_s": m.time_constant_std_s,
+            "period_s": m.period_s, "flags": tuple(m.flags),
         })
     return rows
 
@@ -277,7 +278,8 @@ def _main_block(table: Any) -> list[str]:
             "!" if m.flags else "", str(r["mode"]), r["kind"] + (f" (x{m.multiplicity})" if m.multiplicity > 1 else ""),
             _num(r["frequency_hz"]) + _pm(r["frequency_std_hz"], ".2g"),
             _num(r["damping_ratio"], ".3g") + _pm(r["damping_ratio_std"], ".2g"),
-            _num(r["time_constant_s"]), _num(r["period_s"]), ", ".join(m.flags),
+            _num(r["time_constant_s"]) + _pm(r["time_constant_std_s"], ".2g"), _num(r["period_s"]),
+            ", ".join(m.flags),
         ))
     return _columns(header, rows, right={1, 3, 4, 5, 6})
 
@@ -334,7 +336,9 @@ def modes_text(table: Any, *, model_path: str | None = None, units: Any = None, 
         for j, inp in enumerate(table.inputs):
             g = float(table.dc_gain[i, j])
             unit = f" {ratio_unit(out_units[i], in_units[j])}" if (out_units[i] or in_units[j]) else ""
-            value = f"{g:.5g}{unit}" if abs(g) != float("inf") else f"{g} (integrator)"
+            std = None if table.dc_gain_std is None else float(table.dc_gain_std[i, j])
+            spread = f" ± {std:.2g}" if std is not None and math.isfinite(std) else ""
+            value = f"{g:.5g}{spread}{unit}" if abs(g) != float("inf") else f"{g} (integrator)"
             lines.append(f"  {inp} -> {out}: {value}")
     if table.zeros.size:
         shown = [complex(q) for q in table.zeros if complex(q).imag >= -_REAL_RTOL * max(1.0, abs(complex(q)))]

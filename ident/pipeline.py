@@ -399,7 +399,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
         (b - a - 1) * log.sample_time for log in logs for a, b in log.segments
     ) or None
     table = mode_table(model, thresholds=spec.modes.thresholds, log_duration_s=duration,
-                       pole_covariance=pole_cov)
+                       pole_covariance=pole_cov, parameter_covariance=result.covariance)
     expectations = () if spec.expect.is_empty else check_expectations(model, table, spec.expect)
     band, excitation = _excitation(prep, first.input_names)
 

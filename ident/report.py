@@ -263,6 +263,11 @@ def _complex_text(value: Any, *, pair: bool = False) -> str:
     return _num(value)
 
 
+def _pm(std: float | None) -> str:
+    """`` ± std`` (two significant digits), or nothing when unknown."""
+    return "" if std is None else f" ± {std:.2g}"
+
+
 def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     t = s["modes"]
     rows = []
@@ -271,15 +276,19 @@ def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
         kind = "integrator" if "integrator" in m["flags"] else ("oscillation" if pair else "real")
         if m["multiplicity"] > 1:
             kind += f" ×{m['multiplicity']}"
-        rows.append((k, kind, _num(m["natural_frequency_hz"] if pair else None),
-                     _num(m["damping_ratio"] if pair else None, ".3g"),
-                     _num(m["time_constant_s"]), _num(m.get("period_s")),
+        rows.append((k, kind, _num(m["natural_frequency_hz"] if pair else None)
+                     + _pm(m.get("natural_frequency_std_hz") if pair else None),
+                     _num(m["damping_ratio"] if pair else None, ".3g")
+                     + _pm(m.get("damping_ratio_std") if pair else None),
+                     _num(m["time_constant_s"]) + _pm(m.get("time_constant_std_s")), _num(m.get("period_s")),
                      (", ".join(m["flags"]) or "–", "bad" if m["flags"] else ""),
                      _complex_text(m.get("z"), pair=pair)))
     parts = [
         _p(f"{t['n_states']} states, sample time {_num(t['sample_time'])} s. Frequency and damping ratio of each "
            "oscillation, time constant of every mode; the pole z (detail) maps to continuous time by "
-           "s = ln(z)/T. Flags that fail the run: " + (", ".join(t.get("fail_on", [])) or "none") + "."),
+           "s = ln(z)/T; ± one standard deviation where the parameter covariance is known (first order: noise "
+           "scatter only, not bias from a structure that does not match the rig). Flags that fail the run: "
+           + (", ".join(t.get("fail_on", [])) or "none") + "."),
         _table(("mode", "kind", "frequency [Hz]", "damping ratio", "time constant [s]", "period [s]", "flags",
                 "pole z (detail)"), rows, cls="modes"),
     ]
@@ -298,7 +307,9 @@ def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
         iu = ins[in_names.index(g["input"])] if in_names.index(g["input"]) < len(ins) else ""
         ou = outs[out_names.index(g["output"])] if out_names.index(g["output"]) < len(outs) else ""
         unit = f"{ou} per {iu}" if (iu or ou) else ""
-        gain_rows.append((g["input"], g["output"], _num(g["gain"]), unit))
+        std = g.get("std")
+        gain_rows.append((g["input"], g["output"], _num(g["gain"]) + _pm(std if isinstance(std, float) else None),
+                          unit))
     parts.append(_Raw("<h3>Steady-state (DC) gains</h3>"))
     parts.append(_table(("input", "output", "gain", "unit"), gain_rows))
     parts.append(_figures(s, figures, "modes"))

@@ -23,6 +23,7 @@ from .._validate import did_you_mean, fraction, positive_float
 from ..choices import FLAGS
 from ..errors import ModelError, OptionError
 from ..lti.analysis import channel_zeros, dc_gain, transmission_zeros
+from ..lti.covariance import ParameterCovariance, dc_gain_std
 from ..lti.discretize import poles_to_continuous
 from ..lti.models import StateSpaceModel
 
@@ -246,6 +247,8 @@ class Mode:
         Standard deviations of the natural frequency (Hz) and damping ratio,
         propagated from ``z_covariance`` to first order (delta method); ``None``
         when no covariance is known or the quantity is undefined.
+    time_constant_std_s : float or None
+        Standard deviation of the time constant, the same way.
     """
 
     z: complex
@@ -265,6 +268,7 @@ class Mode:
     z_covariance: tuple[tuple[float, float], tuple[float, float]] | None = None
     natural_frequency_std_hz: float | None = None
     damping_ratio_std: float | None = None
+    time_constant_std_s: float | None = None
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -292,6 +296,9 @@ class ModeTable:
         The thresholds used.
     log_duration_s : float or None
         Log duration the ``slow_for_log`` flag was judged against.
+    dc_gain_std : numpy.ndarray or None, shape (p, m)
+        Standard deviation of each DC gain (first order, from the parameter
+        covariance; ``inf`` for an integrating channel); ``None`` when unknown.
     """
 
     modes: tuple[Mode, ...]
@@ -304,6 +311,7 @@ class ModeTable:
     warnings: dict[str, str] = field(default_factory=dict)
     thresholds: ModeThresholds = field(default_factory=ModeThresholds)
     log_duration_s: float | None = None
+    dc_gain_std: np.ndarray | None = None
 
     def flags(self) -> tuple[str, ...]:
         """Return the flags present on any mode, in :data:`FLAGS` order."""
@@ -417,6 +425,7 @@ def mode_table(
     thresholds: ModeThresholds | None = None,
     log_duration_s: float | None = None,
     pole_covariance: np.ndarray | None = None,
+    parameter_covariance: ParameterCovariance | None = None,
 ) -> ModeTable:
     """Tabulate the modes of a discrete-time model in physical units, with flags.
 
@@ -434,6 +443,10 @@ def mode_table(
         ``model.poles()``; gives each mode a confidence region and the
         ``uncertain_stability`` flag. A block holding nan means "unknown" for
         that pole (its mode gets no uncertainty figures).
+    parameter_covariance : ParameterCovariance, optional
+        Covariance of the model's parameters (:mod:`ident.lti.covariance`);
+        gives the standard deviations of the DC gains (``dc_gain_std``).
+        Ignored when it does not match the model.
 
     Returns
     -------
@@ -491,6 +504,7 @@ def mode_table(
         raise OptionError(f"thresholds must be a ModeThresholds; got {type(th).__name__}")
     log_duration_s = None if log_duration_s is None else positive_float(log_duration_s, "log_duration_s")
     T = float(model.sample_time)
+    gain_std = _dc_gain_std(model, parameter_covariance)
     model = model.without_noise_model() if model.noise_states else model  # noise poles are not plant modes
     poles = model.poles()
     n = poles.size
@@ -532,7 +546,25 @@ def mode_table(
         warnings=warnings_,
         thresholds=th,
         log_duration_s=log_duration_s,
+        dc_gain_std=gain_std,
     )
+
+
+def _dc_gain_std(model: StateSpaceModel, covariance: ParameterCovariance | None) -> np.ndarray | None:
+    """Return the standard deviations of the DC gains, or ``None`` without a matching covariance."""
+    if covariance is None:
+        return None
+    if not isinstance(covariance, ParameterCovariance):
+        raise OptionError(f"parameter_covariance must be a ParameterCovariance; got {type(covariance).__name__}")
+    if not covariance.matches(model):
+        return None
+    try:
+        std = dc_gain_std(model, covariance)
+    except (ModelError, np.linalg.LinAlgError):
+        return None
+    std = np.array(std, dtype=float)
+    std.flags.writeable = False
+    return std
 
 
 def _gradients(z: complex, T: float) -> tuple[np.ndarray | None, np.ndarray | None]:
@@ -623,13 +655,17 @@ def _make_mode(
     )
     if near:
         flags.append("near_cancellation")
-    z_std = radius = wn_std_hz = zeta_std = None
+    z_std = radius = wn_std_hz = zeta_std = tau_std = None
     if cov is not None and r > 0:
         grad_wn, grad_zeta = _gradients(z, T)
         if grad_wn is not None:
             wn_std_hz = math.sqrt(max(float(grad_wn @ cov @ grad_wn), 0.0)) / (2 * math.pi)
         if grad_zeta is not None:
             zeta_std = math.sqrt(max(float(grad_zeta @ cov @ grad_zeta), 0.0))
+        if tau is not None:  # tau = -T / ln|z|: d tau = T / ln^2|z| d ln|z|, and d ln|z| = Re(dz / z)
+            w = 1.0 / z
+            grad_tau = (T / math.log(r) ** 2) * np.array([w.real, -w.imag])
+            tau_std = math.sqrt(max(float(grad_tau @ cov @ grad_tau), 0.0))
     if cov is not None:
         z_std = (float(math.sqrt(max(cov[0, 0], 0.0))), float(math.sqrt(max(cov[1, 1], 0.0))))
         pts, radius = _ellipse_points(z, cov, th.confidence_level)
@@ -656,6 +692,7 @@ def _make_mode(
         confidence_radius=radius,
         natural_frequency_std_hz=wn_std_hz,
         damping_ratio_std=zeta_std,
+        time_constant_std_s=tau_std,
         z_covariance=None if cov is None else (
             (float(cov[0, 0]), float(cov[0, 1])), (float(cov[1, 0]), float(cov[1, 1]))
         ),
@@ -683,8 +720,9 @@ def mode_table_to_dict(table: ModeTable) -> dict[str, Any]:
                     "flags": [...], "explanations": [...],
                     "z_std": [sr, si] | null, "confidence_radius": r | null,
                     "natural_frequency_std_hz": f | null,
-                    "damping_ratio_std": f | null}, ...],
-         "dc_gain": [{"input": name, "output": name, "gain": g | "inf" | "-inf"}, ...],
+                    "damping_ratio_std": f | null, "time_constant_std_s": f | null}, ...],
+         "dc_gain": [{"input": name, "output": name, "gain": g | "inf" | "-inf",
+                      "std": s | "inf" | null}, ...],
          "dc_gain_matrix": [[...]],      # p x m, "inf"/"-inf" for integrators
          "zeros": [[re, im], ...],
          "warnings": {flag: explanation},
@@ -723,10 +761,13 @@ def mode_table_to_dict(table: ModeTable) -> dict[str, Any]:
                 "confidence_radius": _finite(m.confidence_radius),
                 "natural_frequency_std_hz": _finite(m.natural_frequency_std_hz),
                 "damping_ratio_std": _finite(m.damping_ratio_std),
+                "time_constant_std_s": _finite(m.time_constant_std_s),
             }
         )
+    std = table.dc_gain_std
     gains = [
-        {"input": table.inputs[j], "output": table.outputs[i], "gain": gain_value(table.dc_gain[i, j])}
+        {"input": table.inputs[j], "output": table.outputs[i], "gain": gain_value(table.dc_gain[i, j]),
+         "std": None if std is None else gain_value(std[i, j])}
         for i in range(table.dc_gain.shape[0])
         for j in range(table.dc_gain.shape[1])
     ]

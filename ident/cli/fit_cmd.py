@@ -229,7 +229,7 @@ def fit(
     from ..assess.modes import mode_table
 
     table = mode_table(result.model, log_duration_s=log.duration_s or None,
-                       pole_covariance=result.pole_covariance)
+                       pole_covariance=result.pole_covariance, parameter_covariance=result.covariance)
     written = None
     if model_out is not None:
         from ..io.modelfile import save_model
@@ -440,7 +440,7 @@ def _candidate_lines(result) -> list[str]:
     lines = [f"candidates: {len(direct)} direct estimates ({kinds}) scored on the held-out data"]
     if refined:
         reduced = sum("reduced_from" in c.structure for c in refined)
-        tried = f", {reduced} of them by reducing the best" if reduced else ""
+        tried = f", {reduced} of them by reducing the chosen model" if reduced else ""
         lines.append(f"  {len(refined)} refined{tried} (held-out fit %, start -> refined):")
         rows = refined
     else:
@@ -449,8 +449,9 @@ def _candidate_lines(result) -> list[str]:
         if not any(c.selected for c in rows):
             rows.append(next(c for c in direct if c.selected))
     with_criteria = not refined and any(c.criteria is not None for c in rows)
+    wide = max([48, *(len(_describe(c)) + 2 for c in rows)])
     if with_criteria:
-        lines.append(f"  {'#':>4}  {'structure':<48}{'states':>6} {'params':>6}"
+        lines.append(f"  {'#':>4}  {'structure':<{wide}}{'states':>6} {'params':>6}"
                      f"{'AIC':>11}{'BIC':>11}{'FPE':>12}  fit %")
     for c in rows:
         k = cands.index(c)
@@ -461,10 +462,10 @@ def _candidate_lines(result) -> list[str]:
         if with_criteria:
             crit = (f"{c.criteria.aic:>11.5g}{c.criteria.bic:>11.5g}{c.criteria.fpe:>12.5g}  "
                     if c.criteria is not None else f"{'-':>11}{'-':>11}{'-':>12}  ")
-            lines.append(f"  {k:>4}  {_describe(c):<48}{c.n_states:>6} {c.n_parameters:>6}{crit}"
+            lines.append(f"  {k:>4}  {_describe(c):<{wide}}{c.n_states:>6} {c.n_parameters:>6}{crit}"
                          f"{c.mean_fit:5.2f}{mark}")
             continue
-        lines.append(f"  {k:>4}  {_describe(c):<48}{c.n_states:>3} states {c.n_parameters:>4} params  "
+        lines.append(f"  {k:>4}  {_describe(c):<{wide}}{c.n_states:>3} states {c.n_parameters:>4} params  "
                      f"{before}{c.mean_fit:7.2f}{mark}")
     if result.best_by:
         chosen = next(k for k, c in enumerate(cands) if c.selected)

@@ -104,7 +104,8 @@ def modes(
         click.echo("slow_for_log not checked: log duration unknown (use --log-duration)", err=True)
     covariance = loaded.pole_covariance()
     table = mode_table(
-        model, thresholds=thresholds, log_duration_s=log_duration_s, pole_covariance=covariance
+        model, thresholds=thresholds, log_duration_s=log_duration_s, pole_covariance=covariance,
+        parameter_covariance=loaded.parameter_covariance(),
     )
     results: tuple = ()
     if expectations is not None:
