@@ -113,8 +113,9 @@ def test_to_scipy_has_the_same_frequency_response(result):
 def test_modes_is_a_dataframe_in_rig_terms(result):
     modes = result.modes
     assert isinstance(modes, pd.DataFrame) and modes.index.name == "mode"
-    assert list(modes.columns[:8]) == ["kind", "frequency_hz", "frequency_std_hz", "damping_ratio",
-                                       "damping_ratio_std", "time_constant_s", "time_constant_std_s", "period_s", "flags"]
+    assert list(modes.columns[:9]) == ["kind", "frequency_hz", "frequency_std_hz", "damping_ratio",
+                                       "damping_ratio_std", "time_constant_s", "time_constant_std_s", "period_s",
+                                       "flags"]
     osc = modes[modes["kind"] == "oscillation"]
     assert len(osc) == 1
     # the invented plant: 2 Hz, damping 0.3 (closed form), to the noise
