@@ -22,7 +22,9 @@ start to exit, peak resident memory from ``os.wait4``):
   of the stacked data and the SVD of the oblique projection (orders read off
   the same SVD).
 
-It prints the ratios against the targets in the issue: ARX sweep on 1e6 samples
+It prints the ratios against the targets in the issues: the default fit (``auto``:
+candidates, refinement, selection, polish) on 1e6 samples at most 4x the CSV read
+and under 2 s end to end on 1e5; ARX sweep on 1e6 samples
 at most 1.5x the CSV read and at least 10x faster than the baseline; subspace
 2x2 on 1e6 samples at most 3x the CSV read, at least 5x faster than the
 baseline and at most a fifth of its peak memory; time growing linearly with N.
@@ -261,8 +263,11 @@ def best_of(commands: dict[str, list[str]], repeat: int) -> dict[str, dict]:
 
 #: case -> (log, inputs, outputs, rigfit fit options, baseline). "subspace" fits one order
 #: from one projection, the work the baseline does (plus B, D, validation and modes);
-#: "subspace-sweep" fits and validates every order 1..MAX_ORDER.
+#: "subspace-sweep" fits and validates every order 1..MAX_ORDER; "auto" is the default fit
+#: (ARX and subspace candidates, refinement, reduction, selection, polish on all data), judged
+#: against the CSV read only (no baseline does that job).
 CASES = {
+    "auto": ("siso", ["valve"], ["flow"], [], None),
     "arx": ("siso", ["valve"], ["flow"], ["--method", "arx", "--max-order", str(MAX_ORDER)], "arx"),
     "subspace": ("mimo", ["heater", "fan"], ["temp", "flow"],
                  ["--method", "subspace", "--order", "3"], "subspace"),
@@ -351,7 +356,9 @@ def main() -> None:
                                args.repeat)
                 start, read, ours = best["start"], best["read"], best["ours"]
                 work_s = min(r["out"]["work_s"] for r in best["all_work"])
-                base = run_timed_wait4(self_cmd(f"baseline-{baseline}", path, ins, outs))
+                base = (run_timed_wait4(self_cmd(f"baseline-{baseline}", path, ins, outs)) if baseline
+                        else {"wall_s": float("nan"), "cpu_s": float("nan"), "peak_mib": float("nan"),
+                              "out": {"fit_s": float("nan")}})
                 results[(method, n)] = {"read": read, "ours": ours, "base": base, "start": start,
                                         "work_s": work_s}
                 chosen = ours["out"]
@@ -385,11 +392,19 @@ def main() -> None:
             work = r["work_s"]
             speedup = r["base"]["wall_s"] / r["ours"]["wall_s"]
             mem = r["ours"]["peak_mib"] / r["base"]["peak_mib"]
-            read_target, speed_target = (1.5, 10.0) if method == "arx" else (3.0, 5.0)
+            read_target, speed_target = {"arx": (1.5, 10.0), "auto": (4.0, None)}.get(method, (3.0, 5.0))
             judged = n == TARGET_N  # the issue's targets are stated for 1e6 samples
 
             def verdict(flag: bool, judged: bool = judged) -> str:
                 return _ok(flag) if judged else "target is for N = 1e6"
+
+            if speed_target is None:
+                extra = (f"; end to end {r['ours']['wall_s']:.2f} s (target < 2 s at N = 1e5: "
+                         f"{_ok(r['ours']['wall_s'] < 2.0)})" if n == 100_000 else "")
+                print(f"  {method:<14} N={n:>8}: rigfit / read {vs_read:5.2f} (target <= {read_target:g}: "
+                      f"{verdict(vs_read <= read_target)}; CPU time {cpu_vs_read:5.2f}; work {work:5.2f} s "
+                      f"vs the read alone {r['read']['out']['read_s']:5.2f} s){extra}")
+                continue
 
             line = (f"  {method:<14} N={n:>8}: rigfit / read {vs_read:5.2f} (target <= "
                     f"{read_target:g}: {verdict(vs_read <= read_target)}; CPU time "
