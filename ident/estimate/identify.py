@@ -436,6 +436,8 @@ def identify(
     output_units: Sequence[str] | None = None,
     segment_starts: Sequence[int] | None = None,
     progress: Callable[[str, float], None] | None = None,
+    validation_segments: Any = None,
+    validation_starts: Sequence[int] | None = None,
 ) -> Identification:
     """Find the model the data support best: candidates, refinement, selection, validation.
 
@@ -453,6 +455,13 @@ def identify(
         First sample of each record in the original log (for the ranges).
     progress : callable, optional
         Called as ``progress(step, fraction_done)`` between steps.
+    validation_segments : Experiment, (u, y) pair, or sequence of them, optional
+        Separate validation records (another log): nothing is held out of
+        ``segments``, and these are the held-out data, scored from an initial
+        state fitted to a leading window that is not scored (see
+        :func:`ident.estimate.preprocess.prepare`).
+    validation_starts : sequence of int, optional
+        First sample of each validation record in its own log.
 
     Returns
     -------
@@ -488,10 +497,11 @@ def identify(
     if not isinstance(options, IdentifyOptions):
         raise OptionError(f"options must be IdentifyOptions; got {type(options).__name__}")
     report = progress if progress is not None else (lambda step, fraction: None)
-    if options.preprocess.holdout <= 0:
+    if options.preprocess.holdout <= 0 and validation_segments is None:
         raise OptionError("identify needs held-out validation data; holdout must be in (0, 1); got 0")
     names = {"input_names": input_names, "output_names": output_names, "input_units": input_units,
-             "output_units": output_units, "segment_starts": segment_starts}
+             "output_units": output_units, "segment_starts": segment_starts,
+             "validation_data": validation_segments, "validation_starts": validation_starts}
     with warnings.catch_warnings(record=True) as caught, one_blas_thread():
         warnings.simplefilter("always")
         try:
