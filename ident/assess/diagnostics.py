@@ -158,6 +158,9 @@ SAMPLE_TIME_RTOL = 1e-3
 MIN_SAMPLES_PER_LAG = 4
 #: Fewest samples validated on.
 MIN_SAMPLES = 32
+#: Bartlett's variance factor of a cross-correlation is taken as at least this (a factor
+#: near zero, from sequences with nearly disjoint spectra, is poorly estimated).
+MIN_BARTLETT_SPREAD = 0.05
 
 
 def _set(obj: Any, name: str, value: Any) -> None:
@@ -244,7 +247,10 @@ class CheckOptions:
 
     @classmethod
     def from_mapping(cls, mapping: Mapping[str, Any]) -> CheckOptions:
-        """Build options from a mapping (a pipeline file table); unknown keys are refused."""
+        """Build options from a mapping (a pipeline file table); unknown keys are refused.
+
+        ``fit_warning = false`` turns the warning level off (TOML has no null).
+        """
         if not isinstance(mapping, Mapping):
             raise OptionError(f"check options must be a table; got {type(mapping).__name__}")
         valid = [f.name for f in fields(cls)]
@@ -254,7 +260,10 @@ class CheckOptions:
                 f"unknown check option(s) {', '.join(map(repr, unknown))}; "
                 f"valid: {', '.join(valid)}"
             )
-        return cls(**dict(mapping))
+        values = dict(mapping)
+        if values.get("fit_warning") is False:  # a TOML table has no null: false turns the warning off
+            values["fit_warning"] = None
+        return cls(**values)
 
     @property
     def z_value(self) -> float:
@@ -332,6 +341,9 @@ class Correlation:
         Level of the band.
     simultaneous : bool
         The band holds at every lag together (Bonferroni over the lags).
+    spread : float
+        Factor the band was scaled by for the colour left in the two
+        sequences (Bartlett's formula; 1 for white sequences).
     """
 
     lags: np.ndarray
@@ -340,6 +352,7 @@ class Correlation:
     significant_lags: tuple[int, ...]
     confidence: float | None = None
     simultaneous: bool = False
+    spread: float = 1.0
 
     def __post_init__(self) -> None:
         _set(self, "lags", _readonly(self.lags, int))
@@ -374,7 +387,8 @@ class Correlation:
         """The band and its level in words, e.g. ``95 % simultaneous band over 41 lags, +-0.031``."""
         level = f"{100 * self.confidence:g} % " if self.confidence is not None else ""
         kind = f"simultaneous band over {self.lags.size} lags" if self.simultaneous else "band at each lag"
-        return f"{level}{kind}, +-{self.band:.3g}"
+        colour = f" (x{self.spread:.2f} for the colour left, Bartlett)" if abs(self.spread - 1.0) > 0.1 else ""
+        return f"{level}{kind}, +-{self.band:.3g}{colour}"
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -781,6 +795,7 @@ def correlation(x: np.ndarray, max_lag: int, confidence: float = 0.95, *,
 
 def cross_correlation(
     e: np.ndarray, u: np.ndarray, max_lag: int, confidence: float = 0.95, *, simultaneous: bool = False,
+    bartlett: bool = False,
 ) -> Correlation:
     """Normalised cross-correlation of a residual with an input, lags -max_lag .. max_lag.
 
@@ -796,6 +811,9 @@ def cross_correlation(
         Level of the band.
     simultaneous : bool, default False
         The band holds at all ``2 max_lag + 1`` lags together.
+    bartlett : bool, default False
+        Scale the band for the colour left in ``e`` and ``u`` by Bartlett's
+        formula (see Notes).
 
     Returns
     -------
@@ -806,10 +824,18 @@ def cross_correlation(
 
     Notes
     -----
-    The band holds when ``e`` or ``u`` is white; a coloured residual with a
-    coloured input widens the true spread (Ljung, sec. 16.6), which
-    :func:`validate_model` avoids by prewhitening the input
-    (:func:`ident.assess.residuals.fit_input_whitener`).
+    For independent sequences the variance of ``r(k)`` is ``P / N`` with
+    ``P = sum_j r_e(j) r_u(j)`` (Bartlett's formula; Ljung [1]_ eq. 16.69), which
+    is ``1 / N`` when either is white. :func:`validate_model` prewhitens the
+    input (:func:`ident.assess.residuals.fit_input_whitener`) so that ``P`` is
+    near 1, and with ``bartlett`` scales the band by ``sqrt(P)`` (``P`` at
+    least :data:`MIN_BARTLETT_SPREAD`) for what the whitening leaves, as it
+    must for a band-limited input that no autoregressive model can whiten.
+
+    References
+    ----------
+    .. [1] L. Ljung, *System Identification: Theory for the User*, 2nd ed.,
+       Prentice Hall, 1999, sec. 16.6.
     """
     e = as_signal(e, "e", ndim=1)
     u = as_signal(u, "u", ndim=1)
@@ -824,9 +850,16 @@ def cross_correlation(
     values = c / scale if scale > 0 else np.zeros_like(c)
     band = (simultaneous_band(e.size, 2 * max_lag + 1, confidence) if simultaneous
             else _band(e.size, confidence))
+    spread = 1.0
+    if bartlett and scale > 0:
+        ra = _xcov(ec, ec, max_lag)[max_lag:]
+        rb = _xcov(uc, uc, max_lag)[max_lag:]
+        P = float(ra[0] * rb[0] + 2.0 * np.sum(ra[1:] * rb[1:])) / float(ra[0] * rb[0])
+        spread = math.sqrt(max(P, MIN_BARTLETT_SPREAD))
+        band *= spread
     lags = np.arange(-max_lag, max_lag + 1)
     sig = tuple(int(k) for k in lags[np.abs(values) > band])
-    return Correlation(lags, values, band, sig, confidence, bool(simultaneous))
+    return Correlation(lags, values, band, sig, confidence, bool(simultaneous), spread)
 
 
 def whiteness(
@@ -1164,7 +1197,7 @@ def _residual_tests(model: StateSpaceModel, u: np.ndarray, resid: np.ndarray, L:
                   for i in range(model.n_outputs))
     whiteners = tuple(fit_input_whitener(u[:, j]) for j in range(model.n_inputs))
     xcorr = tuple(
-        tuple(cross_correlation(w.apply(resid[:, i]), w.apply(u[:, j]), L, conf, simultaneous=True)
+        tuple(cross_correlation(w.apply(resid[:, i]), w.apply(u[:, j]), L, conf, simultaneous=True, bartlett=True)
               for j, w in enumerate(whiteners))
         for i in range(model.n_outputs)
     )

@@ -22,13 +22,17 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     units = { motor_torque_cmd = "N m" }    # fill in units the header does not carry
     # resample_hz = 100                     # bring every chosen channel to one rate
     # upsample = "zoh"                      # or "linear": for channels slower than resample_hz
+    # validate_with = ["run2.csv"]          # separate validation logs (whole): nothing of paths is held out
+    # period = "auto"                       # periodic input: "auto" (detect), "none", or seconds
+    # signal_description = "test.json"      # written by rigfit excite --describe
 
     [preprocess]   # ident.estimate.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
                    # decimate, holdout
     [fit]          # ident.estimate.identify.IdentifyOptions: method, order ("auto" or N), max_order,
                    # delay, weighting, horizon, stabilize, tie_tolerance
-    [check]        # ident.assess.diagnostics.CheckOptions: gates min_fit, require_white; and
-                   # prediction_steps, max_lag, confidence, initial_state, spectral_segment
+    [check]        # ident.assess.diagnostics.CheckOptions: gates min_fit, require_white; fit_warning
+                   # (default 50; false: none); prediction_steps, max_lag, confidence, initial_state,
+                   # spectral_segment
     [modes]        # ident.assess.modes.ModeThresholds, plus fail_on = ["unstable", ...] (flags
                    # that fail the run; default ["unstable"])
     [expect]       # ident.assess.expectations.Expectations
@@ -83,7 +87,7 @@ SECTIONS: tuple[str, ...] = (
 #: Keys of the ``[log]`` table.
 LOG_KEYS: tuple[str, ...] = (
     "paths", "inputs", "outputs", "time", "sample_rate_hz", "drop_bad_rows", "split_at_gaps",
-    "jitter_tolerance", "units", "resample_hz", "upsample",
+    "jitter_tolerance", "units", "resample_hz", "upsample", "validate_with", "period", "signal_description",
 )
 #: Mode flags that fail a run when ``[modes] fail_on`` is not given.
 DEFAULT_FAIL_ON: tuple[str, ...] = ("unstable",)
@@ -121,6 +125,16 @@ class LogSpec:
     upsample : str or None
         ``"zoh"`` or ``"linear"`` for channels slower than the common rate
         (as ``rigfit fit --upsample``).
+    validation_patterns : tuple of str
+        ``validate_with`` as written: separate validation logs.
+    validation_files : tuple of pathlib.Path
+        The files they match (as ``files``); when any, nothing of ``files`` is
+        held out (as ``rigfit fit --validate-with``).
+    period : str or float
+        ``"auto"`` (detect a periodic input), ``"none"``, or the period in
+        seconds (as ``--period``).
+    signal_description : pathlib.Path or None
+        A test signal's description (as ``--signal-description``).
     """
 
     patterns: tuple[str, ...]
@@ -135,6 +149,10 @@ class LogSpec:
     units: dict[str, str] = field(default_factory=dict)
     resample_hz: float | None = None
     upsample: str | None = None
+    validation_patterns: tuple[str, ...] = ()
+    validation_files: tuple[Path, ...] = ()
+    period: str | float = "auto"
+    signal_description: Path | None = None
 
     def read_log_kwargs(self) -> dict[str, Any]:
         """Keyword arguments of :func:`ident.io.log.read_log` for these settings."""
@@ -223,6 +241,11 @@ class PipelineSpec:
                 "units": dict(self.log.units),
                 "resample_hz": self.log.resample_hz,
                 "upsample": self.log.upsample,
+                "validate_with": list(self.log.validation_patterns),
+                "validation_files": [str(f) for f in self.log.validation_files],
+                "period": self.log.period,
+                "signal_description": None if self.log.signal_description is None
+                else str(self.log.signal_description),
             },
             "preprocess": self.fit.preprocess.to_dict(),
             "fit": {k: v for k, v in self.fit.to_dict().items() if k != "preprocess"},
@@ -439,7 +462,7 @@ def _number(value: Any, key_path: str, src: Path | None, *, what: str) -> float:
     return float(value)
 
 
-def _expand(patterns: tuple[str, ...], base: Path, src: Path | None) -> tuple[Path, ...]:
+def _expand(patterns: tuple[str, ...], base: Path, src: Path | None, key: str = "log.paths") -> tuple[Path, ...]:
     files: list[Path] = []
     for k, pattern in enumerate(patterns):
         target = Path(pattern).expanduser()
@@ -448,11 +471,11 @@ def _expand(patterns: tuple[str, ...], base: Path, src: Path | None) -> tuple[Pa
             matches = sorted(Path(p) for p in glob.glob(str(target), recursive=True) if Path(p).is_file())
             if not matches:
                 raise PipelineError(f"no file matches {pattern!r} (relative to {base})", path=src,
-                                    key_path=f"log.paths[{k + 1}]")
+                                    key_path=f"{key}[{k + 1}]")
         else:
             if not target.is_file():
                 raise PipelineError(f"no such file {pattern!r} (relative to {base})", path=src,
-                                    key_path=f"log.paths[{k + 1}]")
+                                    key_path=f"{key}[{k + 1}]")
             matches = [target]
         for m in matches:
             m = m.resolve()
@@ -519,7 +542,36 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
         units={k.lower(): v for k, v in units.items()},
         resample_hz=_resample(table, src),
         upsample=_upsample(table, src),
+        **_validation_and_period(table, base, src),
     )
+
+
+def _validation_and_period(table: Mapping[str, Any], base: Path, src: Path | None) -> dict[str, Any]:
+    """``validate_with``, ``period`` and ``signal_description`` of the ``[log]`` table."""
+    out: dict[str, Any] = {}
+    if "validate_with" in table:
+        patterns = _names(table["validate_with"], "log.validate_with", src)
+        out["validation_patterns"] = patterns
+        out["validation_files"] = _expand(patterns, base, src, "log.validate_with")
+    period = table.get("period", "auto")
+    if isinstance(period, str):
+        if period not in ("auto", "none"):
+            raise PipelineError(f"must be \"auto\", \"none\" or a number of seconds; got {period!r}", path=src,
+                                key_path="log.period")
+    else:
+        period = _number(period, "log.period", src, what="\"auto\", \"none\" or a number of seconds")
+        if period <= 0:
+            raise PipelineError(f"must be a positive number of seconds; got {period!r}", path=src,
+                                key_path="log.period")
+    out["period"] = period
+    description = table.get("signal_description")
+    if description is not None:
+        if not isinstance(description, str) or not description:
+            raise PipelineError(f"must be the path of a signal description; got {description!r}", path=src,
+                                key_path="log.signal_description")
+        target = Path(description).expanduser()
+        out["signal_description"] = (target if target.is_absolute() else base / target).resolve()
+    return out
 
 
 def _resample(table: Mapping[str, Any], src: Path | None) -> float | None:
