@@ -60,7 +60,8 @@ def test_check_passes_and_prints_report(run_cli, files):
     res = run_cli("check", files["log"], files["model"], "--min-fit", "70")
     assert res.exit_code == 0, res.output
     assert "verdicts" in res.stdout and "flow" in res.stdout
-    assert "result: passed" in res.stdout
+    # the result line never says PASSED without the fit per output beside it
+    assert "result: PASSED; held-out fit flow" in res.stdout
 
 
 def test_json_shape_and_operating_point(run_cli, files):
@@ -145,7 +146,8 @@ def test_split_at_gaps_validates_on_the_longest_segment(run_cli, files, tmp_path
     assert res.exit_code == 0, res.output
     assert "validated on the longest of 2 segments: samples 500..2989" in res.stdout
     data = json.loads(run_cli("check", gappy, files["model"], "--split-at-gaps", "--json").stdout)
-    assert data["segment"] == {"start": 500, "stop": 2990, "n_segments": 2, "dropped_rows": 0}
+    assert {k: data["segment"][k] for k in ("start", "stop", "n_segments", "dropped_rows", "warmup")} == \
+        {"start": 500, "stop": 2990, "n_segments": 2, "dropped_rows": 0, "warmup": 0}
     assert data["n_samples"] == 2490  # the longest segment only (3000 - 10 - 500)
     # the same figures as validating a log holding that stretch alone
     alone = tmp_path / "alone.csv"

@@ -344,6 +344,8 @@ class Correlation:
     spread : float
         Factor the band was scaled by for the colour left in the two
         sequences (Bartlett's formula; 1 for white sequences).
+    family : int
+        Correlations the simultaneous band covers together (this one included).
     """
 
     lags: np.ndarray
@@ -353,6 +355,7 @@ class Correlation:
     confidence: float | None = None
     simultaneous: bool = False
     spread: float = 1.0
+    family: int = 1
 
     def __post_init__(self) -> None:
         _set(self, "lags", _readonly(self.lags, int))
@@ -386,7 +389,8 @@ class Correlation:
     def band_text(self) -> str:
         """The band and its level in words, e.g. ``95 % simultaneous band over 41 lags, +-0.031``."""
         level = f"{100 * self.confidence:g} % " if self.confidence is not None else ""
-        kind = f"simultaneous band over {self.lags.size} lags" if self.simultaneous else "band at each lag"
+        count = self.lags.size * self.family
+        kind = f"simultaneous band over {count} lags" if self.simultaneous else "band at each lag"
         colour = f" (x{self.spread:.2f} for the colour left, Bartlett)" if abs(self.spread - 1.0) > 0.1 else ""
         return f"{level}{kind}, +-{self.band:.3g}{colour}"
 
@@ -754,7 +758,7 @@ def _band(n_samples: int, confidence: float) -> float:
 
 
 def correlation(x: np.ndarray, max_lag: int, confidence: float = 0.95, *,
-                simultaneous: bool = False) -> Correlation:
+                simultaneous: bool = False, family: int = 1) -> Correlation:
     """Normalised autocorrelation of a sequence for lags 0 .. max_lag.
 
     Parameters
@@ -769,6 +773,9 @@ def correlation(x: np.ndarray, max_lag: int, confidence: float = 0.95, *,
         ``False``: the band ``+-z/sqrt(N)`` holds at each lag; ``True``: a
         white sequence stays inside it at all lags 1 .. max_lag together
         (:func:`ident.assess.residuals.simultaneous_band`).
+    family : int, default 1
+        With ``simultaneous``, the number of such correlations judged together
+        (one per output): the band covers all their lags.
 
     Returns
     -------
@@ -787,15 +794,17 @@ def correlation(x: np.ndarray, max_lag: int, confidence: float = 0.95, *,
     xc = x - x.mean()
     c = _xcov(xc, xc, max_lag)[max_lag:]
     values = c / c[0] if c[0] > 0 else np.zeros_like(c)
-    band = simultaneous_band(x.size, max(max_lag, 1), confidence) if simultaneous else _band(x.size, confidence)
+    family = int_in_range(family, "family", 1)
+    band = (simultaneous_band(x.size, max(max_lag, 1) * family, confidence) if simultaneous
+            else _band(x.size, confidence))
     lags = np.arange(max_lag + 1)
     sig = tuple(int(k) for k in lags[1:][np.abs(values[1:]) > band])
-    return Correlation(lags, values, band, sig, confidence, bool(simultaneous))
+    return Correlation(lags, values, band, sig, confidence, bool(simultaneous), 1.0, family)
 
 
 def cross_correlation(
     e: np.ndarray, u: np.ndarray, max_lag: int, confidence: float = 0.95, *, simultaneous: bool = False,
-    bartlett: bool = False,
+    bartlett: bool = False, family: int = 1,
 ) -> Correlation:
     """Normalised cross-correlation of a residual with an input, lags -max_lag .. max_lag.
 
@@ -811,6 +820,9 @@ def cross_correlation(
         Level of the band.
     simultaneous : bool, default False
         The band holds at all ``2 max_lag + 1`` lags together.
+    family : int, default 1
+        With ``simultaneous``, the number of such correlations judged together
+        (one per output and input): the band covers all their lags.
     bartlett : bool, default False
         Scale the band for the colour left in ``e`` and ``u`` by Bartlett's
         formula (see Notes).
@@ -848,7 +860,8 @@ def cross_correlation(
     scale = np.std(ec) * np.std(uc)
     c = _xcov(ec, uc, max_lag)
     values = c / scale if scale > 0 else np.zeros_like(c)
-    band = (simultaneous_band(e.size, 2 * max_lag + 1, confidence) if simultaneous
+    family = int_in_range(family, "family", 1)
+    band = (simultaneous_band(e.size, (2 * max_lag + 1) * family, confidence) if simultaneous
             else _band(e.size, confidence))
     spread = 1.0
     if bartlett and scale > 0:
@@ -859,12 +872,12 @@ def cross_correlation(
         band *= spread
     lags = np.arange(-max_lag, max_lag + 1)
     sig = tuple(int(k) for k in lags[np.abs(values) > band])
-    return Correlation(lags, values, band, sig, confidence, bool(simultaneous), spread)
+    return Correlation(lags, values, band, sig, confidence, bool(simultaneous), spread, family)
 
 
 def whiteness(
     residual: np.ndarray, max_lag: int, confidence: float = 0.95, output: str = "y1", *,
-    sample_time: float | None = None,
+    sample_time: float | None = None, family: int = 1,
 ) -> WhitenessResult:
     """Autocorrelation with a simultaneous band, Ljung-Box test and cumulative periodogram of one residual.
 
@@ -881,6 +894,9 @@ def whiteness(
         Output name kept in the result.
     sample_time : float, optional
         Sample time, s; when given, the cumulative periodogram is added.
+    family : int, default 1
+        Residual sequences judged together (one per output); the band covers
+        the lags of all of them.
 
     Returns
     -------
@@ -900,7 +916,7 @@ def whiteness(
     .. [1] G. M. Ljung and G. E. P. Box, "On a measure of lack of fit in time
        series models", *Biometrika* 65(2), 297-303, 1978.
     """
-    acf = correlation(residual, max_lag, confidence, simultaneous=True)
+    acf = correlation(residual, max_lag, confidence, simultaneous=True, family=family)
     x = as_signal(residual, "residual", ndim=1)
     if np.ptp(x) == 0:
         q, pval = 0.0, 1.0
@@ -1191,15 +1207,22 @@ class _Tests:
 
 def _residual_tests(model: StateSpaceModel, u: np.ndarray, resid: np.ndarray, L: int,
                     options: CheckOptions) -> _Tests:
-    """Whiteness per output; cross-correlation of every residual with every prewhitened input."""
+    """Whiteness per output; cross-correlation of every residual with every prewhitened input.
+
+    The bands are simultaneous over every lag of every output (whiteness) and of
+    every output-input pair (cross-correlation), so a right model on open-loop
+    data raises each kind of alarm in at most about ``1 - confidence`` of logs.
+    """
     conf, T = options.confidence, model.sample_time
-    white = tuple(whiteness(resid[:, i], L, conf, output=model.outputs[i], sample_time=T)
-                  for i in range(model.n_outputs))
-    whiteners = tuple(fit_input_whitener(u[:, j]) for j in range(model.n_inputs))
+    p, m = model.n_outputs, model.n_inputs
+    white = tuple(whiteness(resid[:, i], L, conf, output=model.outputs[i], sample_time=T, family=p)
+                  for i in range(p))
+    whiteners = tuple(fit_input_whitener(u[:, j]) for j in range(m))
     xcorr = tuple(
-        tuple(cross_correlation(w.apply(resid[:, i]), w.apply(u[:, j]), L, conf, simultaneous=True, bartlett=True)
+        tuple(cross_correlation(w.apply(resid[:, i]), w.apply(u[:, j]), L, conf, simultaneous=True, bartlett=True,
+                                family=p * m)
               for j, w in enumerate(whiteners))
-        for i in range(model.n_outputs)
+        for i in range(p)
     )
     return _Tests(white, xcorr, whiteners)
 
@@ -1280,8 +1303,8 @@ def _fit_verdicts(outs: tuple[str, ...], fit: FitFigure, options: CheckOptions) 
     if options.min_fit is not None:
         for i in range(len(outs)):
             ok = bool(np.isfinite(fit.fit[i]) and fit.fit[i] >= options.min_fit)
-            text = (f"simulation fit of {outs[i]} is {_pct_text(fit.fit[i])} ({fit.label}; "
-                    f"{'meets' if ok else 'below'} the required {options.min_fit:g} %)")
+            text = (f"simulation fit of {outs[i]} is {_pct_text(fit.fit[i])}, "
+                    f"{'meeting' if ok else 'below'} the required {options.min_fit:g} % ({fit.label})")
             if not ok:
                 text += "; the model does not reproduce this log well enough; see the other verdicts for the cause"
             out.append(Verdict("min_fit", ok, text, outs[i], None, None if ok else "poor_fit"))

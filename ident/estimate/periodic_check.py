@@ -81,7 +81,8 @@ def periodic_for_log(u: np.ndarray, y: np.ndarray, sample_time: float, *, period
     detect : bool
         Without ``period`` or ``arguments``, detect the period from the input
         (:func:`ident.estimate.periodic.detect_period`) and use it when the log
-        holds at least :data:`MIN_DETECTED_PERIODS` periods; ``None`` otherwise.
+        holds at least :data:`MIN_DETECTED_PERIODS` periods and the analysis
+        finds excited lines; ``None`` otherwise.
 
     Returns
     -------
@@ -101,9 +102,9 @@ def periodic_for_log(u: np.ndarray, y: np.ndarray, sample_time: float, *, period
         return None
     try:
         found = detect_period(u, min_periods=MIN_DETECTED_PERIODS)
-    except IdentificationError:
+        return analyse_periodic(u, y, sample_time, period=found, **names)
+    except (IdentificationError, OptionError):  # a detected period the data do not bear out: not periodic
         return None
-    return analyse_periodic(u, y, sample_time, period=found, **names)
 
 
 def line_response(analysis: PeriodicAnalysis) -> LineResponse:
