@@ -161,21 +161,26 @@ class _Where:
 
 def _position(text: str, log: Any, option: str, path: str, *, end: bool) -> int:
     """Turn a ``--from``/``--to`` value into a sample index (``--to`` exclusive)."""
+    import math
+
     import numpy as np
 
     from ..errors import OptionError
 
     raw = text.strip().lower()
+    rows = raw.endswith("rows")
     try:
-        if raw.endswith("rows"):
-            row = int(raw[:-4].strip())
-            if not 1 <= row <= log.n_samples:
-                raise OptionError(f"{path}: {option} {text!r}: the log has data rows 1 to {log.n_samples}")
-            return row if end else row - 1
-        seconds = float(raw[:-1] if raw.endswith("s") else raw)
+        value = float(raw[:-4].strip()) if rows else float(raw[:-1] if raw.endswith("s") else raw)
     except ValueError:
-        raise OptionError(f"{option} must be seconds such as 12.5 or a data row such as 1200rows; got {text!r}") \
-            from None
+        value = math.nan
+    if not math.isfinite(value) or (rows and value != int(value)):
+        raise OptionError(f"{option} must be seconds such as 12.5 or a data row such as 1200rows; got {text!r}")
+    if rows:
+        row = int(value)
+        if not 1 <= row <= log.n_samples:
+            raise OptionError(f"{path}: {option} {text!r}: the log has data rows 1 to {log.n_samples}")
+        return row if end else row - 1
+    seconds = value
     t = log.time
     if not t[0] - 1e-9 <= seconds <= t[-1] + 1e-9:
         raise OptionError(f"{path}: {option} {seconds:g} s lies outside the log's time axis "

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -34,6 +35,7 @@ from .periodic import LineComparison, PeriodicAnalysis, analyse_periodic, compar
 
 __all__ = [
     "MIN_DETECTED_PERIODS",
+    "DETECT_SAMPLES",
     "period_samples",
     "periodic_for_log",
     "line_response",
@@ -43,6 +45,9 @@ __all__ = [
 #: A period detected from the data is used only when the log holds this many periods
 #: (one transient period and at least two measured ones).
 MIN_DETECTED_PERIODS = 3
+#: The period is detected on at most this many leading samples (a longer period must be
+#: given); detection is then a few hundredths of a second on any log.
+DETECT_SAMPLES = 1 << 18
 
 
 def period_samples(period_s: float, sample_time: float) -> int:
@@ -80,9 +85,10 @@ def periodic_for_log(u: np.ndarray, y: np.ndarray, sample_time: float, *, period
         they win over ``period``.
     detect : bool
         Without ``period`` or ``arguments``, detect the period from the input
-        (:func:`ident.estimate.periodic.detect_period`) and use it when the log
-        holds at least :data:`MIN_DETECTED_PERIODS` periods and the analysis
-        finds excited lines; ``None`` otherwise.
+        (:func:`ident.estimate.periodic.detect_period`, on the first
+        :data:`DETECT_SAMPLES` samples) and use it when the log holds at least
+        :data:`MIN_DETECTED_PERIODS` periods and the analysis finds excited
+        lines; ``None`` otherwise.
 
     Returns
     -------
@@ -101,8 +107,10 @@ def periodic_for_log(u: np.ndarray, y: np.ndarray, sample_time: float, *, period
     if not detect:
         return None
     try:
-        found = detect_period(u, min_periods=MIN_DETECTED_PERIODS)
-        return analyse_periodic(u, y, sample_time, period=found, **names)
+        found = detect_period(np.asarray(u)[:DETECT_SAMPLES], min_periods=MIN_DETECTED_PERIODS)
+        if found * MIN_DETECTED_PERIODS > np.asarray(u).shape[0]:
+            return None
+        return replace(analyse_periodic(u, y, sample_time, period=found, **names), period_source="detected")
     except (IdentificationError, OptionError):  # a detected period the data do not bear out: not periodic
         return None
 
