@@ -306,7 +306,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
     report("periodic input", 0.66)
     periodic = _periodic(spec, first, result)
     report("validating", 0.68)
-    parts, validation = _validate_held_out(spec, result, periodic)
+    parts, validation = _validate_held_out(spec, result, periodic, [*logs, *vlogs])
 
     report("modes and expectations", 0.75)
     duration = max(
@@ -406,7 +406,8 @@ def _identify_logs(spec: PipelineSpec, logs: Sequence[Any], input_units: tuple[s
     )
 
 
-def _validate_held_out(spec: PipelineSpec, result: Any, periodic: Any) -> tuple[list[int], tuple[Any, ...]]:
+def _validate_held_out(spec: PipelineSpec, result: Any, periodic: Any,
+                       logs: Sequence[Any]) -> tuple[list[int], tuple[Any, ...]]:
     """Validate the model on every held-out part long enough for the check, longest first."""
     from .assess.diagnostics import MIN_SAMPLES, score_window, validate_model
     from .estimate.validation import continued_fits
@@ -423,11 +424,12 @@ def _validate_held_out(spec: PipelineSpec, result: Any, periodic: Any) -> tuple[
             hint="raise preprocess.holdout" + (" or lower check.max_lag" if lag is not None else ""),
         )
     continued = continued_fits(model, prep)
+    filtered = prep.decimation > 1 or any(lg.resampling is not None for lg in logs)
     validation = tuple(
         validate_model(model, prep.validation[k].u, prep.validation[k].y, prep.sample_time, spec.check,
                        continued=continued[k], in_sample_fit=result.estimation_fit,
                        lines=_part_lines(periodic, prep.validation[k], model),
-                       singular_values=result.singular_values)
+                       singular_values=result.singular_values, zero_phase_filtered=filtered)
         for k in parts
     )
     return parts, validation

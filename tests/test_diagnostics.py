@@ -291,6 +291,10 @@ def test_feedback_is_detected(rng):
         x = A @ x + B[:, 0] * u[t, 0] + K[:, 0] * e[t]
     report = validate_model(model.with_changes(noise_gain=None), u, y, T)
     assert [v.cause for v in _failed(report, "feedback")] == ["feedback"]
+    # data that passed a zero-phase anti-alias filter: the filter is named beside feedback
+    filtered = validate_model(model.with_changes(noise_gain=None), u, y, T, zero_phase_filtered=True)
+    message = _failed(filtered, "feedback")[0].message
+    assert "either u1 reacts to y1" in message and "zero-phase anti-alias filter" in message
 
 
 def test_report_to_dict_is_json(truth):

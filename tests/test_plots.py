@@ -15,7 +15,7 @@ from ident.assess.diagnostics import CheckOptions, Verdict, validate_model
 from ident.assess.modes import mode_table
 from ident.lti.models import StateSpaceModel
 from ident.plots.poles import pole_zero_map
-from ident.plots.validation import MAX_VERDICTS, verdict_card
+from ident.plots.validation import MAX_VERDICTS, frequency_comparison, residual_correlations, verdict_card
 
 T = 1e-3
 LONG_NAMES = ("carriage_speed_at_the_far_end", "motor_speed")
@@ -76,7 +76,7 @@ def _verdicts(n: int, *, failed_every: int = 3) -> tuple[Verdict, ...]:
 
 
 def _verdict_texts(fig) -> list:
-    return [t for t in fig.texts if t.get_text()[:1] in ("✓", "✗", "!")]
+    return [t for t in fig.texts if t.get_text()[:1] in ("✓", "✗", "!", "?")]
 
 
 def test_verdict_card_png_size_and_everything_inside(report):
@@ -169,3 +169,43 @@ def test_pole_map_lists_zeros_outside_the_view_and_keeps_labels_inside():
     for i in range(len(boxes)):
         for j in range(i + 1, len(boxes)):
             assert not boxes[i].overlaps(boxes[j]), (pole_labels[i].get_text(), pole_labels[j].get_text())
+
+
+def _texts_inside(fig, renderer):
+    artists = list(fig.texts)
+    if fig._suptitle is not None:
+        artists.append(fig._suptitle)
+    for ax in fig.axes:
+        artists += [ax.title, ax._left_title, ax.xaxis.label, ax.yaxis.label]
+        legend = ax.get_legend()
+        if legend is not None:
+            artists.append(legend)
+    return [a for a in artists if (not hasattr(a, "get_text") or a.get_text()) and not _inside(fig, renderer, a)]
+
+
+def test_residual_figure_groups_one_output_with_its_verdicts(report):
+    fig = residual_correlations(report, output=1)
+    _, renderer = _render(fig)
+    assert _texts_inside(fig, renderer) == []
+    # autocorrelation, cumulative periodogram, one cross-correlation per input (+ the samples axes)
+    titles = [ax.get_title(loc="left") for ax in fig.axes]
+    assert titles[0].startswith("autocorrelation of the motor_speed residuals, lags up to")
+    assert "samples)" in titles[0] and titles[1].startswith("cumulative periodogram")
+    assert "prewhitened motor_torque_cmd" in titles[2] or "motor_torque_cmd" in titles[2]
+    # the band and its level are in the legend; the verdicts are written on the figure
+    legend = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert any(text.startswith("95 % simultaneous band over") for text in legend)
+    assert fig._suptitle.get_text().startswith("verdict: ")
+    assert fig.axes[0].get_xlabel() == "lag [s]"
+
+
+def test_frequency_figure_draws_the_region_and_the_judged_band(report):
+    fig = frequency_comparison(report, output=0, input=0)
+    _, renderer = _render(fig)
+    assert _texts_inside(fig, renderer) == []
+    mag = fig.axes[0]
+    title = mag.get_title(loc="left")
+    status = report.spectral.judgements[0].status
+    assert {"agrees": "agrees", "disagrees": "DISAGREES", "cannot_judge": "cannot judge"}[status] in title
+    labels = [t.get_text() for t in mag.get_legend().get_texts()]
+    assert "95 % region of the estimate" in labels and "model" in labels

@@ -1005,6 +1005,7 @@ def validate_model(
     in_sample_fit: Sequence[float] | None = None,
     lines: LineResponse | None = None,
     singular_values: Sequence[float] | None = None,
+    zero_phase_filtered: bool = False,
 ) -> ValidationReport:
     """Validate a discrete-time model on input/output data it was not fitted on.
 
@@ -1036,6 +1037,10 @@ def validate_model(
     singular_values : sequence of float, optional
         Subspace singular values of the estimation data (evidence for the
         order advice).
+    zero_phase_filtered : bool
+        The data passed a zero-phase (non-causal) anti-alias filter when they
+        were decimated or resampled; a feedback verdict then says that the
+        filter, too, lets the next input samples into each sample.
 
     Returns
     -------
@@ -1078,6 +1083,8 @@ def validate_model(
     gaps = () if in_sample_fit is None else fit_gap(model.outputs, _in_sample(in_sample_fit, model), believed)
     verdicts, advice = _verdicts(model, u[run.start:], y[run.start:], options, run, tests, spectral, levels,
                                  gaps, singular_values)
+    if zero_phase_filtered:
+        verdicts = [_filtered_feedback(v, model) for v in verdicts]
     return ValidationReport(
         simulation_fit=_readonly(believed), prediction_fit=_readonly(run.pred_fit),
         prediction_steps=options.prediction_steps, residuals=_readonly(run.resid), whiteness=tests.white,
@@ -1376,6 +1383,17 @@ def _correlation_verdicts(model: StateSpaceModel, u: np.ndarray, y: np.ndarray,
                                    f"{c.band_text}{_prewhitened(order)})", outs[i], ins[j]))
             out.append(_feedback_verdict(c, neg, ins[j], outs[i], order))
     return out, input_bad, missed
+
+
+def _filtered_feedback(v: Verdict, model: StateSpaceModel) -> Verdict:
+    """Name the zero-phase anti-alias filter beside feedback as a cause of a residual leading its input."""
+    if v.test != "feedback" or v.passed:
+        return v
+    head = v.message.split(": ", 1)[0]
+    return Verdict(v.test, v.passed, f"{head}: either {v.input} reacts to {v.output} (the log was taken with "
+                   "feedback; open-loop estimates can be biased), or the zero-phase anti-alias filter the data "
+                   "passed when they were decimated or resampled let the next input samples into every sample "
+                   "(feedback also shows at lags beyond the filter's reach)", v.output, v.input, v.cause)
 
 
 def _prewhitened(order: int) -> str:

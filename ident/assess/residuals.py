@@ -87,6 +87,8 @@ SETTLING_TIME_CONSTANTS = 4.0
 #: A pole within this distance of the unit circle is treated as an integrator
 #: (no settling time).
 _INTEGRATOR_MARGIN = 1e-6
+#: At most this many samples estimate the autocorrelation behind the effective sample size.
+_EFFECTIVE_FIT_SAMPLES = 1 << 17
 #: Level bins of :func:`level_dependence` (quantiles of the level).
 LEVEL_BINS = 5
 #: The error depends on the level when the bins explain at least this share of its
@@ -435,10 +437,14 @@ class LevelDependence:
 
 
 def _effective_samples(e: np.ndarray, max_lag: int = 50) -> float:
-    """``N / (1 + 2 sum_k r_k)`` over the lags before the autocorrelation first turns negative."""
+    """``N / (1 + 2 sum_k r_k)`` over the lags before the autocorrelation first turns negative.
+
+    The autocorrelation comes from at most :data:`_EFFECTIVE_FIT_SAMPLES` leading samples.
+    """
     n = e.size
+    e = e[:_EFFECTIVE_FIT_SAMPLES]
     ec = e - e.mean()
-    spec = np.fft.rfft(ec, 2 * n)
+    spec = np.fft.rfft(ec, 2 * ec.size)
     acov = np.fft.irfft(np.abs(spec) ** 2)[: max_lag + 1]
     if acov[0] <= 0:
         return float(n)

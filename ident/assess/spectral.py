@@ -73,6 +73,7 @@ __all__ = [
     "SPECTRAL_REL_TOL",
     "MIN_BAND_BINS",
     "MIN_AVERAGES",
+    "MAX_AVERAGES",
     "SegmentChoice",
     "LineResponse",
     "FrequencyBand",
@@ -99,8 +100,11 @@ SPECTRAL_REL_TOL = 0.25
 #: ... over at least this many adjacent informative frequencies (also the shortest
 #: low-coherence band reported).
 MIN_BAND_BINS = 3
-#: The segment is at most this long a share of the log that this many averages remain.
+#: The segment is at most this long a share of the log that this many averages remain ...
 MIN_AVERAGES = 6
+#: ... and at least so long that no more than about this many are taken (more averages
+#: narrow the region little and cost time; a longer segment lowers the window's bias).
+MAX_AVERAGES = 256
 #: Low-coherence stretches closer than this share of the frequencies are reported as one band.
 _LOW_COHERENCE_GAP = 0.02
 #: Shortest segment, samples.
@@ -168,6 +172,9 @@ class SegmentChoice:
         why = "; ".join(self.reasons)
         if self.limited_by_log:
             return head + f"; {self.needed_hz:.4g} Hz would be needed ({why}) but the log is too short"
+        if self.resolution_hz < 0.5 * self.needed_hz:
+            return head + (f", finer than the {self.needed_hz:.4g} Hz {why} needs (a long log: at most "
+                           f"{MAX_AVERAGES} averages are taken)")
         return head + f", to resolve {why}"
 
 
@@ -242,11 +249,14 @@ def choose_segment(model: StateSpaceModel, u: np.ndarray, sample_time: float, *,
     real mode with its natural
     frequency inside the excited band. With the Hann window's noise-equivalent
     bandwidth of 1.5 bins, ``L = 1.5 / (T df)`` rounded up to a power of two,
-    at least :data:`MIN_SEGMENT` and at most ``2 N / (MIN_AVERAGES + 1)``.
+    at least :data:`MIN_SEGMENT` (and long enough that no more than about
+    :data:`MAX_AVERAGES` averages are taken) and at most ``2 N / (MIN_AVERAGES
+    + 1)``.
     """
     n = u.shape[0]
     fs = 1.0 / sample_time
     longest = int(max(min(n, MIN_SEGMENT), 2 * n // (MIN_AVERAGES + 1)))
+    shortest = min(longest, 1 << int(math.ceil(math.log2(max(2 * n / (MAX_AVERAGES + 1), 2.0)))))
     if segment is not None:
         seg = int_in_range(segment, "segment", 8, n)
         return SegmentChoice(seg, "hann", _HANN_BANDWIDTH_BINS * fs / seg, None, (), False, True)
@@ -254,13 +264,13 @@ def choose_segment(model: StateSpaceModel, u: np.ndarray, sample_time: float, *,
     needs = [] if broadband else [(low / 2, f"the lowest excited frequency {low:.4g} Hz")]
     needs += _mode_needs(model, low, high)
     if not needs:
-        seg = min(n, max(MIN_SEGMENT, 1 << int(math.ceil(math.log2(max(n // 16, 2))))))
+        seg = min(n, max(MIN_SEGMENT, shortest, 1 << int(math.ceil(math.log2(max(n // 16, 2))))))
         seg = min(seg, longest)
         return SegmentChoice(seg, "hann", _HANN_BANDWIDTH_BINS * fs / seg, None, (), False)
     needed, why = min(needs)
     wanted = _HANN_BANDWIDTH_BINS * fs / max(needed, 1e-300)
     seg = 1 << int(math.ceil(math.log2(max(wanted, 2.0))))
-    seg = max(seg, min(MIN_SEGMENT, n))
+    seg = max(seg, min(MIN_SEGMENT, n), shortest)
     limited = seg > longest
     if limited:
         seg = max(min(MIN_SEGMENT, n), 1 << int(math.floor(math.log2(longest))))

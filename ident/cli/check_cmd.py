@@ -116,7 +116,7 @@ def check(
     data = _deviations(log, model, model_path, where)
     periodic = analyse_log_periods(data["u"], data["y"], log.sample_time, period_text, description_path,
                                    {"input_names": model.inputs, "output_names": model.outputs})
-    report = _validate(model, loaded, options, data, periodic)
+    report = _validate(model, loaded, options, data, periodic, log.resampling is not None)
 
     written: list[str] = []
     if plot_dir is not None:
@@ -249,7 +249,7 @@ def _in_sample_fit(loaded: Any, model: Any) -> list[float] | None:
     return values if all(isinstance(v, (int, float)) for v in values) else None
 
 
-def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], periodic: Any) -> Any:
+def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], periodic: Any, resampled: bool) -> Any:
     from ..assess.diagnostics import validate_model
     from ..estimate.validation import continued_fit
 
@@ -260,7 +260,7 @@ def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], perio
 
         lines = line_response(periodic)
     return validate_model(model, data["u"], data["y"], data["sample_time"], options, continued=continued,
-                          in_sample_fit=_in_sample_fit(loaded, model), lines=lines)
+                          in_sample_fit=_in_sample_fit(loaded, model), lines=lines, zero_phase_filtered=resampled)
 
 
 def _columns(given: tuple[str, ...], names: tuple[str, ...], option: str, what: str) -> tuple:

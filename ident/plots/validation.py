@@ -153,7 +153,7 @@ def _draw_periodogram(ax: Any, cp: Any) -> None:
     ax.set_title(f"cumulative periodogram: {word}", fontsize=9, color=_INK, loc="left")
     ax.set_xlabel("frequency [Hz]", fontsize=8)
     ax.set_ylabel("share of the power", fontsize=8)
-    ax.legend(fontsize=7, frameon=False, loc="lower right")
+    ax.legend(fontsize=7, frameon=False, loc="upper left")
     _style(ax)
 
 
