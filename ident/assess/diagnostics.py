@@ -158,6 +158,10 @@ SAMPLE_TIME_RTOL = 1e-3
 MIN_SAMPLES_PER_LAG = 4
 #: Fewest samples validated on.
 MIN_SAMPLES = 32
+#: The level test uses at most this many samples, after removing an FIR fit of at most
+#: this many taps per input (what any linear model could explain).
+LEVEL_MAX_SAMPLES = 20_000
+LEVEL_FIR_TAPS = 100
 #: Bartlett's variance factor of a cross-correlation is taken as at least this (a factor
 #: near zero, from sequences with nearly disjoint spectra, is poorly estimated).
 MIN_BARTLETT_SPREAD = 0.05
@@ -346,6 +350,9 @@ class Correlation:
         sequences (Bartlett's formula; 1 for white sequences).
     family : int
         Correlations the simultaneous band covers together (this one included).
+    judged_lags : int or None
+        Lags the simultaneous band covers (default: ``lags.size * family``;
+        kept when a part of the lags is shown).
     """
 
     lags: np.ndarray
@@ -356,6 +363,7 @@ class Correlation:
     simultaneous: bool = False
     spread: float = 1.0
     family: int = 1
+    judged_lags: int | None = None
 
     def __post_init__(self) -> None:
         _set(self, "lags", _readonly(self.lags, int))
@@ -389,7 +397,7 @@ class Correlation:
     def band_text(self) -> str:
         """The band and its level in words, e.g. ``95 % simultaneous band over 41 lags, +-0.031``."""
         level = f"{100 * self.confidence:g} % " if self.confidence is not None else ""
-        count = self.lags.size * self.family
+        count = self.judged_lags if self.judged_lags is not None else self.lags.size * self.family
         kind = f"simultaneous band over {count} lags" if self.simultaneous else "band at each lag"
         colour = f" (x{self.spread:.2f} for the colour left, Bartlett)" if abs(self.spread - 1.0) > 0.1 else ""
         return f"{level}{kind}, +-{self.band:.3g}{colour}"
@@ -521,6 +529,11 @@ class ValidationReport:
         In-sample against held-out fit (empty without an in-sample fit).
     advice : OrderAdvice
         The one piece of advice about the order.
+    feedback_correlation : tuple of tuple of Correlation
+        ``[i][j]``: the residual of output ``i`` less its least-squares FIR fit
+        on past prewhitened input ``j``, against that input; its negative lags
+        are the feedback test (input dynamics the model misses cannot pass for
+        feedback there).
     """
 
     simulation_fit: np.ndarray
@@ -550,6 +563,7 @@ class ValidationReport:
     levels: tuple[LevelDependence, ...] = ()
     gaps: tuple[FitGap, ...] = ()
     advice: OrderAdvice | None = None
+    feedback_correlation: tuple[tuple[Correlation, ...], ...] = ()
 
     @property
     def gate_failures(self) -> tuple[Verdict, ...]:
@@ -1078,7 +1092,7 @@ def validate_model(
     tests = _residual_tests(model, u[run.start:], run.resid[run.start:], span.lags, options)
     spectral = spectral_comparison(model, u, y, segment=options.spectral_segment, confidence=options.confidence,
                                    simulated=run.y_sim, lines=lines)
-    levels = _levels(model, u[run.start:], run.resid[run.start:], run.y_sim[run.start:])
+    levels = _levels(model, u[run.start:], run.resid[run.start:], run.y_sim[run.start:], span.lags)
     believed = run.fits[0].fit
     gaps = () if in_sample_fit is None else fit_gap(model.outputs, _in_sample(in_sample_fit, model), believed)
     verdicts, advice = _verdicts(model, u[run.start:], y[run.start:], options, run, tests, spectral, levels,
@@ -1088,7 +1102,8 @@ def validate_model(
     return ValidationReport(
         simulation_fit=_readonly(believed), prediction_fit=_readonly(run.pred_fit),
         prediction_steps=options.prediction_steps, residuals=_readonly(run.resid), whiteness=tests.white,
-        cross_correlation=tests.xcorr, normality=_normality(run.resid[run.start:]), spectral=spectral,
+        cross_correlation=tests.xcorr, feedback_correlation=tests.feedback,
+        normality=_normality(run.resid[run.start:]), spectral=spectral,
         verdicts=tuple(verdicts), n_samples=u.shape[0], initial_state=options.initial_state,
         x0=_readonly(run.x0), simulated=_readonly(run.y_sim), predicted=_readonly(run.y_pred),
         measured=_readonly(y), inputs=model.inputs, outputs=model.outputs, sample_time=sample_time,
@@ -1210,6 +1225,7 @@ class _Tests:
     white: tuple[WhitenessResult, ...]
     xcorr: tuple[tuple[Correlation, ...], ...]
     whiteners: tuple[InputWhitener, ...]
+    feedback: tuple[tuple[Correlation, ...], ...]
 
 
 def _residual_tests(model: StateSpaceModel, u: np.ndarray, resid: np.ndarray, L: int,
@@ -1225,33 +1241,79 @@ def _residual_tests(model: StateSpaceModel, u: np.ndarray, resid: np.ndarray, L:
     white = tuple(whiteness(resid[:, i], L, conf, output=model.outputs[i], sample_time=T, family=p)
                   for i in range(p))
     whiteners = tuple(fit_input_whitener(u[:, j]) for j in range(m))
-    xcorr = tuple(
-        tuple(cross_correlation(w.apply(resid[:, i]), w.apply(u[:, j]), L, conf, simultaneous=True, bartlett=True,
-                                family=p * m)
-              for j, w in enumerate(whiteners))
-        for i in range(p)
-    )
-    return _Tests(white, xcorr, whiteners)
+    xcorr, feedback = [], []
+    for i in range(p):
+        row, fb_row = [], []
+        for j, w in enumerate(whiteners):
+            e_f, u_f = w.apply(resid[:, i]), w.apply(u[:, j])
+            kw = {"simultaneous": True, "bartlett": True, "family": p * m}
+            row.append(cross_correlation(e_f, u_f, L, conf, **kw))
+            fb_row.append(cross_correlation(_less_past_input(e_f, u_f, L), u_f, L, conf, **kw))
+        xcorr.append(tuple(row))
+        feedback.append(tuple(fb_row))
+    return _Tests(white, tuple(xcorr), whiteners, tuple(feedback))
 
 
-def _levels(model: StateSpaceModel, u: np.ndarray, error: np.ndarray, y_sim: np.ndarray) -> tuple:
+def _less_past_input(e: np.ndarray, u: np.ndarray, L: int) -> np.ndarray:
+    """Remove from ``e`` its least-squares FIR fit on ``u`` at lags 0 .. L (fitted on the leading samples).
+
+    A model that misses input dynamics leaves a residual that follows past
+    inputs; through the colour left in the input that part also correlates
+    with later inputs and would pass for feedback. Feedback shows in what is
+    left: a later input reacting to the residual itself.
+    """
+    n = min(e.size, FIR_MAX_SAMPLES)
+    if n <= 4 * (L + 1):
+        return e
+    uu = u - u.mean()
+    phi = np.empty((n - L, L + 1))
+    for k in range(L + 1):
+        phi[:, k] = uu[L - k: n - k]
+    h, *_ = np.linalg.lstsq(phi, e[L:n] - e[L:n].mean(), rcond=None)
+    return e - np.convolve(uu, h)[: e.size]
+
+
+def _levels(model: StateSpaceModel, u: np.ndarray, error: np.ndarray, y_sim: np.ndarray, lags: int) -> tuple:
     """Find, per output, the strongest dependence of the residual on an input's or the model output's level.
 
     The one-step prediction errors of a right model are independent of the
     inputs, hence of every input level and of the model's simulated output
     (a function of the inputs only); their mean and spread are the same in
-    every level bin.
+    every level bin. What a linear FIR filter of the inputs explains (input
+    dynamics the model misses, a wrong delay) is removed first, so only a
+    dependence no linear model can give is left (on at most
+    :data:`LEVEL_MAX_SAMPLES` leading samples).
     """
+    count = min(u.shape[0], LEVEL_MAX_SAMPLES)
+    rest, first = _without_linear_input_part(u[:count], error[:count], min(lags + 1, LEVEL_FIR_TAPS))
+    u, y_sim = u[first:count], y_sim[first:count]
     out = []
     for i, name in enumerate(model.outputs):
-        found = [level_dependence(error[:, i], u[:, j], output=name, level_signal=model.inputs[j])
+        found = [level_dependence(rest[:, i], u[:, j], output=name, level_signal=model.inputs[j])
                  for j in range(model.n_inputs) if np.ptp(u[:, j]) > 0]
         if np.ptp(y_sim[:, i]) > 0:
-            found.append(level_dependence(error[:, i], y_sim[:, i], output=name,
+            found.append(level_dependence(rest[:, i], y_sim[:, i], output=name,
                                           level_signal=f"the model's {name}"))
         if found:
             out.append(max(found, key=lambda d: (d.depends, d.share, d.spread_ratio)))
     return tuple(out)
+
+
+def _without_linear_input_part(u: np.ndarray, e: np.ndarray, taps: int) -> tuple[np.ndarray, int]:
+    """Return ``e`` less its least-squares FIR fit on the current and ``taps - 1`` past inputs, and its first sample.
+
+    The first ``taps - 1`` samples (without a full regressor) are dropped; a
+    record too short for the fit is returned whole.
+    """
+    n, m = u.shape
+    if n <= 4 * taps * m:
+        return e, 0
+    uu = u - u.mean(axis=0)
+    phi = np.empty((n - taps + 1, taps * m))
+    for k in range(taps):
+        phi[:, k * m:(k + 1) * m] = uu[taps - 1 - k: n - k]
+    theta, *_ = np.linalg.lstsq(phi, e[taps - 1:], rcond=None)
+    return e[taps - 1:] - phi @ theta, taps - 1
 
 
 def _normality(resid: np.ndarray) -> NormalityResult:
@@ -1381,7 +1443,7 @@ def _correlation_verdicts(model: StateSpaceModel, u: np.ndarray, y: np.ndarray,
                 out.append(Verdict("input_independence", True,
                                    f"residuals of {outs[i]} are independent of past {ins[j]} (lags 0..{L}, "
                                    f"{c.band_text}{_prewhitened(order)})", outs[i], ins[j]))
-            out.append(_feedback_verdict(c, neg, ins[j], outs[i], order))
+            out.append(_feedback_verdict(tests.feedback[i][j], neg, ins[j], outs[i], order))
     return out, input_bad, missed
 
 
@@ -1403,14 +1465,15 @@ def _prewhitened(order: int) -> str:
 def _feedback_verdict(c: Correlation, neg: np.ndarray, iname: str, oname: str, order: int) -> Verdict:
     if not c.fails(neg):
         return Verdict("feedback", True,
-                       f"no sign of feedback from {oname} to {iname} (lags -{neg.size}..-1 inside the "
-                       f"{c.band_text}{_prewhitened(order)})", oname, iname)
+                       f"no sign of feedback from {oname} to {iname} (lags -{neg.size}..-1 of the residual less what "
+                       f"past {iname} explains inside the {c.band_text}{_prewhitened(order)})", oname, iname)
     lag, val = c.peak(neg)
     lags = _lags_text(tuple(sorted(c.outside(neg), reverse=True)))
     return Verdict(
         "feedback", False,
-        f"residuals of {oname} are correlated with later values of {iname} (lags {lags} outside the "
-        f"{c.band_text}; largest r = {val:+.3f} at lag {lag}{_prewhitened(order)}): {iname} appears to react "
+        f"residuals of {oname}, less what past {iname} explains, are correlated with later values of {iname} "
+        f"(lags {lags} outside the {c.band_text}; largest r = {val:+.3f} at lag {lag}{_prewhitened(order)}): "
+        f"{iname} appears to react "
         f"to {oname}, i.e. the log was taken with feedback; open-loop estimates can be biased",
         oname, iname, "feedback",
     )
@@ -1550,12 +1613,14 @@ def _channel_verdicts(spectral: SpectralComparison, j: Any) -> list[Verdict]:
              f"{j.excited} frequencies")
     if j.status == "disagrees":
         bands = [b for b in spectral.mismatch_bands if b.output == j.output and b.input == j.input]
+        shown = ", ".join(f"{b.low_hz:.4g}-{b.high_hz:.4g}" for b in bands[:3])
+        more = f" and {len(bands) - 3} more band(s)" if len(bands) > 3 else ""
         return [Verdict(
             "frequency_response", False,
-            f"the model misses the measured response from {j.input} to {j.output} between {b.low_hz:.4g} and "
-            f"{b.high_hz:.4g} Hz (relative error up to {100 * b.worst:.0f} %, outside the "
-            f"{100 * MISMATCH_CONFIDENCE:g} % region of {_estimate_text(spectral)}); judged over {where}, {share}",
-            j.output, j.input, "model_mismatch") for b in bands]
+            f"the model misses the measured response from {j.input} to {j.output} in {shown} Hz{more} (relative "
+            f"error up to {100 * max(b.worst for b in bands):.0f} %, outside the {100 * MISMATCH_CONFIDENCE:g} % "
+            f"region of {_estimate_text(spectral)}); judged over {where}, {share}", j.output, j.input,
+            "model_mismatch")]
     if j.status == "cannot_judge":
         return [Verdict(
             "frequency_response", None,
@@ -1689,6 +1754,10 @@ def _residual_dict(report: ValidationReport) -> dict:
         "cross_correlation": {
             outs[i]: {ins[j]: _corr_dict(c) for j, c in enumerate(row)}
             for i, row in enumerate(report.cross_correlation)
+        },
+        "feedback_correlation": {
+            outs[i]: {ins[j]: _corr_dict(c) for j, c in enumerate(row)}
+            for i, row in enumerate(report.feedback_correlation)
         },
         "normality": {
             name: {

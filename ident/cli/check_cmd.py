@@ -397,12 +397,12 @@ def _residual_lines(report: Any) -> list[str]:
         lines.append(f"{outs[i]:<{w}}  {'yes' if wr.white else 'no':>5}  {wr.ljung_box_pvalue:>11.3g}  "
                      f"{cp:>11}  {report.normality.pvalue[i]:>7.3g}  {sig} ({acf.band_text})")
     lines.append("cross-correlation with the prewhitened inputs (lag > 0: input leads, the model misses "
-                 "dynamics; lag < 0: feedback)")
+                 "dynamics; lag < 0, of the residual less what past inputs explain: feedback)")
     for i, row in enumerate(report.cross_correlation):
         for j, c in enumerate(row):
             order = report.whiteners[j].order
             pos = c.outside(range(0, L + 1))
-            neg = c.outside(range(-L, 0))
+            neg = report.feedback_correlation[i][j].outside(range(-L, 0))
             lines.append(
                 f"  {outs[i]} / {ins[j]} (AR({order}) prewhitening, {c.band_text}): "
                 f"lags 0..{L}: {_outside(pos, 'independent', 'depends on the input')}; "

@@ -109,12 +109,22 @@ def output_comparison(report: ValidationReport, *, axes: Sequence[Any] | None = 
     return fig
 
 
+def _half(c: Correlation, negative: bool) -> Correlation:
+    """Keep the negative (or the non-negative) lags of a correlation, with its band."""
+    keep = c.lags < 0 if negative else c.lags >= 0
+    lags = c.lags[keep]
+    return Correlation(lags, c.values[keep], c.band, tuple(k for k in c.significant_lags if k in set(lags.tolist())),
+                       c.confidence, c.simultaneous, c.spread, c.family, c.lags.size * c.family)
+
+
 def _draw_correlation(ax: Any, c: Correlation, title: str, *, skip_zero: bool, sample_time: float,
-                      label: str) -> None:
+                      label: str, band_label: str | None = None) -> None:
     """Stems of a correlation against the lag in seconds, the band shaded, values outside it in orange."""
     lags = c.lags
     vals = c.values
-    ax.axhspan(-c.band, c.band, color=_BAND, zorder=0, label=f"{c.band_text}")
+    t_band = np.array([lags.min() - 0.5, lags.max() + 0.5]) * sample_time
+    ax.fill_between(t_band, -c.band, c.band, color=_BAND, zorder=0, lw=0,
+                    label=band_label if band_label is not None else c.band_text)
     ax.axhline(0.0, color=_INK, lw=0.6)
     outside = np.abs(vals) > c.band
     if skip_zero:
@@ -135,7 +145,7 @@ def _draw_correlation(ax: Any, c: Correlation, title: str, *, skip_zero: bool, s
     top = ax.secondary_xaxis("top", functions=(lambda x: x / sample_time, lambda k: k * sample_time))
     top.tick_params(labelsize=7, colors="#7b8a97")
     top.set_xlabel("[samples]", fontsize=7, color="#7b8a97")
-    ax.legend(fontsize=7, frameon=False, loc="upper right")
+    ax.legend(fontsize=7, frameon=False, loc="upper right" if skip_zero else "upper left")
     _style(ax)
 
 
@@ -221,10 +231,19 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
         order = report.whiteners[j].order if report.whiteners else 0
         how = f"prewhitened {report.inputs[j]} (AR({order}))" if order else report.inputs[j]
         ax = axes[2 + j]
-        _draw_correlation(ax, report.cross_correlation[output][j], f"{name} residuals against {how}",
-                          skip_zero=False, sample_time=T,
-                          label="lag [s]   (negative: the residual leads, feedback; positive: the input leads, "
-                                "missed dynamics)")
+        raw = report.cross_correlation[output][j]
+        lag_label = ("lag [s]   (negative: the residual less what past inputs explain leads, feedback; "
+                     "positive: the input leads, missed dynamics)")
+        if report.feedback_correlation:
+            fb = _half(report.feedback_correlation[output][j], True)
+            _draw_correlation(ax, fb, f"{name} residuals against {how}", skip_zero=False, sample_time=T,
+                              label=lag_label, band_label=f"negative lags: {fb.band_text}")
+            raw = _half(raw, False)
+            _draw_correlation(ax, raw, f"{name} residuals against {how}", skip_zero=False, sample_time=T,
+                              label=lag_label, band_label=f"positive lags: {raw.band_text}")
+        else:
+            _draw_correlation(ax, raw, f"{name} residuals against {how}", skip_zero=False, sample_time=T,
+                              label=lag_label)
         ax.text(0.01, 0.03, "← feedback side", transform=ax.transAxes, fontsize=7, color="#7b8a97")
         ax.text(0.99, 0.03, "input leads →", transform=ax.transAxes, fontsize=7, color="#7b8a97", ha="right")
     text, good = _residual_verdict_text(report, name)
