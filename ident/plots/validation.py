@@ -298,7 +298,7 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
             ax_mag.axvspan(band.low_hz, band.high_hz, ymax=0.05, color=_BAD, zorder=1)
     _draw_quality(sp, output, input, ax_low)
     status = {"agrees": "agrees", "disagrees": "DISAGREES", "cannot_judge": "cannot judge"}[judged.status]
-    where = f" over {judged.low_hz:.3g}-{judged.high_hz:.3g} Hz (shaded)" if judged.informative else ""
+    where = f"; judged over {judged.low_hz:.3g}-{judged.high_hz:.3g} Hz (shaded)" if judged.informative else ""
     ax_mag.set_title(f"{iname} → {oname}: the model {status}{where}\n{100 * judged.informative_share:.0f} % of "
                      "the excited band informative", fontsize=9, loc="left",
                      color={"agrees": _GOOD, "disagrees": _BAD}.get(judged.status, "#9a6b00"))
