@@ -6,6 +6,11 @@ direction: :mod:`ident.estimate` (data preparation and estimators) uses
 :mod:`ident.assess` (judging a model), which uses :mod:`ident.lti` (model
 objects and linear-systems algebra). File handling lives in :mod:`ident.io`,
 figures in :mod:`ident.plots` and the command line in :mod:`ident.cli`.
+
+For notebooks and scripts, :func:`fit` takes a pandas DataFrame (or a log file)
+and returns a :class:`ModelResult` (``.model``, ``.modes``, ``.check(df)``,
+``.save(path)``); :func:`load_model` reads a model file into the same object.
+These load on first use (:mod:`ident.api`), so ``import ident`` stays cheap.
 """
 
 from ._version import __version__
@@ -26,6 +31,11 @@ from .errors import (
 )
 
 _LAZY = {
+    "fit": "api",
+    "load_model": "api",
+    "ModelResult": "api",
+    "CheckResult": "api",
+    "ModeFrame": "api",
     "OperatingPoint": "lti.models",
     "StateSpaceModel": "lti.models",
     "TransferFunctionModel": "lti.models",
@@ -58,4 +68,9 @@ __all__ = [
     "OperatingPoint",
     "StateSpaceModel",
     "TransferFunctionModel",
+    "fit",
+    "load_model",
+    "ModelResult",
+    "CheckResult",
+    "ModeFrame",
 ]

@@ -19,7 +19,11 @@ import numpy as np
 from .errors import OptionError, PipelineError
 
 __all__ = [
+    "SAMPLE_TIME_RANGE_S",
+    "MAX_SIGNAL_MAGNITUDE",
     "as_signal",
+    "sample_time_value",
+    "sample_rate_value",
     "as_matrix",
     "positive_float",
     "optional_positive_float",
@@ -32,16 +36,28 @@ __all__ = [
 ]
 
 
+#: Sample times rigfit accepts, in s: from 1 ns (1 GHz) to 1e6 s (about 11.6 days between
+#: samples). Outside this range a rate is not a rig's, and the arithmetic on it (Nyquist
+#: frequencies, ``exp(s T)``, time stamps) overflows or underflows double precision.
+SAMPLE_TIME_RANGE_S = (1e-9, 1e6)
+#: Largest magnitude of a signal sample. Sums of squares over a long log and the fourth
+#: powers of the normality test must stay below the double-precision limit (about
+#: 1.8e308): (1e50)^4 times 1e8 samples is 1e208, with room for the factors around them.
+MAX_SIGNAL_MAGNITUDE = 1e50
+
+
 def _short(value: Any) -> str:
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
 
 
-def as_signal(x: Any, name: str, *, ndim: int = 2, finite: bool = True) -> np.ndarray:
+def as_signal(x: Any, name: str, *, ndim: int = 2, finite: bool = True, bounded: bool = False) -> np.ndarray:
     """Return ``x`` as a float64 array of samples.
 
     A 1-D input with ``ndim=2`` becomes one column ``(n_samples, 1)``. The caller's
     array is never modified; a copy is made only when a conversion is needed.
+    With ``bounded`` (measured data entering an estimator), samples beyond
+    :data:`MAX_SIGNAL_MAGNITUDE` are refused.
     """
     try:
         arr = np.asarray(x, dtype=float)
@@ -55,6 +71,14 @@ def as_signal(x: Any, name: str, *, ndim: int = 2, finite: bool = True) -> np.nd
         bad = np.argwhere(~np.isfinite(arr))[0]
         raise OptionError(
             f"{name} must be finite; sample {int(bad[0])} is {arr[tuple(bad)]!r}"
+        )
+    if bounded and arr.size and (arr.max() > MAX_SIGNAL_MAGNITUDE or arr.min() < -MAX_SIGNAL_MAGNITUDE):
+        bad = np.argwhere(np.abs(arr) > MAX_SIGNAL_MAGNITUDE)[0]
+        raise OptionError(
+            f"{name}: sample {int(bad[0])} is {float(arr[tuple(bad)]):.3g}; values beyond "
+            f"+-{MAX_SIGNAL_MAGNITUDE:g} overflow double precision in the sums of squares and "
+            "fourth powers the estimators form",
+            hint="express the signal in other units (scale it) before fitting",
         )
     return arr
 
@@ -84,6 +108,27 @@ def positive_float(value: Any, name: str) -> float:
     out = float(value)
     if not math.isfinite(out) or out <= 0:
         raise OptionError(f"{name} must be a positive number; got {_short(value)}")
+    return out
+
+
+def sample_time_value(value: Any, name: str = "sample_time") -> float:
+    """Return ``value`` as a sample time in s within :data:`SAMPLE_TIME_RANGE_S`."""
+    low, high = SAMPLE_TIME_RANGE_S
+    out = positive_float(value, name)
+    if not low * (1 - 1e-12) <= out <= high * (1 + 1e-12):
+        raise OptionError(
+            f"{name} must be between {low:g} s and {high:g} s (sample rates from {1 / high:g} Hz to "
+            f"{1 / low:g} Hz); got {out:g} s",
+        )
+    return out
+
+
+def sample_rate_value(value: Any, name: str = "sample_rate") -> float:
+    """Return ``value`` as a sample rate in Hz whose sample time is within :data:`SAMPLE_TIME_RANGE_S`."""
+    low, high = SAMPLE_TIME_RANGE_S
+    out = positive_float(value, name)
+    if not (1 - 1e-12) / high <= out <= (1 + 1e-12) / low:
+        raise OptionError(f"{name} must be between {1 / high:g} Hz and {1 / low:g} Hz; got {out:g} Hz")
     return out
 
 

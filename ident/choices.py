@@ -10,10 +10,13 @@ from __future__ import annotations
 __all__ = [
     "METHODS", "WEIGHTINGS", "NOISE_MODELS", "REFINEMENTS", "POLYNOMIAL_STRUCTURES", "DISCRETIZE_METHODS",
     "REALIZATIONS", "FLAGS", "UPSAMPLE_METHODS", "SIGNAL_KINDS", "SPACINGS", "HARMONICS", "PHASES", "ARRANGEMENTS",
+    "OFFSET_METHODS",
 ]
 
-#: Model families of ``identify`` / ``rigfit fit --method``.
-METHODS: tuple[str, ...] = ("arx", "subspace", "auto")
+#: Model families of ``identify`` / ``rigfit fit --method``: ``"auto"`` (ARX and
+#: subspace candidates, refined), ARX alone, subspace starts alone, or one of the
+#: polynomial structures of ``POLYNOMIAL_STRUCTURES`` fitted by prediction error.
+METHODS: tuple[str, ...] = ("arx", "subspace", "auto", "oe", "armax", "bj")
 
 #: Subspace weightings (``ident.estimate.subspace``).
 WEIGHTINGS: tuple[str, ...] = ("n4sid", "moesp", "cva")
@@ -69,3 +72,6 @@ PHASES: tuple[str, ...] = ("low-crest", "schroeder", "random")
 
 #: How the signals of several inputs are made distinguishable in one test.
 ARRANGEMENTS: tuple[str, ...] = ("orthogonal", "interleaved", "shifted", "independent")
+
+#: Ways of choosing the operating point that is subtracted from the data.
+OFFSET_METHODS: tuple[str, ...] = ("mean", "initial")

@@ -26,7 +26,29 @@ __all__ = [
     "UnstableModelWarning",
     "ResamplingWarning",
     "SignalDesignWarning",
+    "printable",
 ]
+
+
+def printable(text: object) -> str:
+    r"""Return ``text`` with control characters shown as escapes (``\n``, ``\x1b``), so it stays on one line.
+
+    File names and column names come from the user's files and may hold
+    newlines, tabs or terminal escape sequences; every message that shows one
+    passes it through here. Printable text (any script) is unchanged.
+
+    Examples
+    --------
+    >>> printable("run\n2.csv")
+    'run\\n2.csv'
+    """
+    s = os.fspath(text) if isinstance(text, os.PathLike) else str(text)
+    if isinstance(s, bytes):
+        s = os.fsdecode(s)
+    if s.isprintable():
+        return s
+    return "".join(c if c.isprintable() else c.encode("unicode_escape", "backslashreplace").decode("ascii")
+                   for c in s)
 
 
 class IdentError(Exception):
@@ -57,6 +79,12 @@ def _rebuild(cls, state):
     Exception.__init__(obj, state.get("message", ""))
     obj.__dict__.update(state)
     return obj
+
+
+def _quoted(name: str, limit: int = 80) -> str:
+    """``repr`` of a column or channel name, cut to ``limit`` characters (a header field may be huge)."""
+    text = repr(name)
+    return text if len(text) <= limit else text[: limit - 4] + "...'"
 
 
 class OptionError(IdentError, ValueError):
@@ -108,13 +136,13 @@ class LogFormatError(IdentError, ValueError):
     def _compose(self) -> str:
         where = []
         if self.path is not None:
-            where.append(os.path.basename(self.path))
+            where.append(printable(os.path.basename(self.path)))
         if self.row is not None:
             where.append(f"row {self.row}")
         if self.column is not None:
-            where.append(f"column {self.column!r}")
+            where.append(f"column {_quoted(self.column)}")
         if self.channel is not None:
-            where.append(f"channel {self.channel!r}")
+            where.append(f"channel {_quoted(self.channel)}")
         if self.sample is not None:
             where.append(f"sample {self.sample}")
         return ", ".join(where) + ": " + self.reason if where else self.reason
@@ -148,7 +176,7 @@ class ModelFileError(IdentError, ValueError):
     ) -> None:
         self.reason = reason
         self.path = None if path is None else os.fspath(path)
-        message = f"{os.path.basename(self.path)}: {reason}" if self.path else reason
+        message = f"{printable(os.path.basename(self.path))}: {reason}" if self.path else reason
         super().__init__(message, hint=hint)
 
 
@@ -187,7 +215,7 @@ class PipelineError(IdentError, ValueError):
         self.key_path = key_path
         where = []
         if self.path is not None:
-            where.append(os.path.basename(self.path))
+            where.append(printable(os.path.basename(self.path)))
         if key_path is not None:
             where.append(f"key {key_path!r}")
         message = ", ".join(where) + ": " + reason if where else reason
@@ -202,7 +230,7 @@ class SignalFileError(IdentError, ValueError):
     ) -> None:
         self.reason = reason
         self.path = None if path is None else os.fspath(path)
-        message = f"{os.path.basename(self.path)}: {reason}" if self.path else reason
+        message = f"{printable(os.path.basename(self.path))}: {reason}" if self.path else reason
         super().__init__(message, hint=hint)
 
 

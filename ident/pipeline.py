@@ -73,7 +73,9 @@ __all__ = [
     "SAFETY_CAUTION",
     "Gate",
     "RunResult",
+    "Evaluation",
     "run_pipeline",
+    "evaluate_pipeline",
 ]
 
 #: ``format`` field of ``summary.json``.
@@ -168,6 +170,31 @@ class RunResult:
         return tuple(g for g in self.gates if not g.passed)
 
 
+@dataclass(frozen=True, slots=True, eq=False)
+class Evaluation:
+    """What :func:`evaluate_pipeline` computed, before anything is written.
+
+    Attributes
+    ----------
+    passed : bool
+        True when every gate passed.
+    gates : tuple of Gate
+    summary : dict
+        The content ``summary.json`` would have, with no figures (``figures`` is
+        empty and ``files`` names the usual file names).
+    model : ident.lti.models.StateSpaceModel
+        The selected model.
+    model_provenance : dict
+        The ``provenance`` argument for :func:`ident.io.modelfile.save_model`.
+    """
+
+    passed: bool
+    gates: tuple[Gate, ...]
+    summary: dict[str, Any]
+    model: Any
+    model_provenance: dict[str, Any]
+
+
 # --------------------------------------------------------------------------- public API
 
 
@@ -177,6 +204,7 @@ def run_pipeline(
     out_dir: str | os.PathLike | None = None,
     baseline: str | os.PathLike | None = None,
     progress: Callable[[str, float], None] | None = None,
+    allow_outside: bool = False,
 ) -> RunResult:
     """Run a pipeline end to end and write a new run folder.
 
@@ -191,6 +219,9 @@ def run_pipeline(
         Model file to compare with; overrides ``[drift] baseline``.
     progress : callable, optional
         Called as ``progress(step, fraction_done)`` between steps.
+    allow_outside : bool, default False
+        Read log files and a baseline outside the pipeline file's folder tree
+        (see :func:`ident.io.pipelinefile.load_pipeline`).
 
     Returns
     -------
@@ -202,13 +233,90 @@ def run_pipeline(
     ident.errors.IdentError
         Bad input: an invalid pipeline file, an unreadable log, data that
         cannot support the model asked for, a baseline model of other signals
-        or another sample time. Nothing is written then.
+        or another sample time, an output folder whose paths would be too long.
+        Nothing is written then.
+
+    Notes
+    -----
+    The run folder is written as a hidden temporary folder
+    (``.<name>.rigfit-<pid>-<host>.<random>.tmp``) and renamed into place when
+    complete: an interrupted run leaves no run folder, and a temporary folder
+    left by a killed run is removed by the next run into the same parent.
+    """
+    from .io.atomic import check_new_folder
+
+    if not isinstance(spec, PipelineSpec):
+        spec = load_pipeline(spec, allow_outside=allow_outside)
+    check_new_folder(_run_parent(spec, out_dir), longest_name=_LONGEST_RUN_PATH)
+    report = progress if progress is not None else (lambda step, fraction: None)
+    state = _compute_and_warn(spec, baseline, report)
+    report("drawing figures", 0.85)
+    figures = _figures(state)
+    report("writing the run folder", 0.95)
+    result = _write(spec, state, figures, out_dir)
+    report("done", 1.0)
+    return result
+
+
+def evaluate_pipeline(
+    spec: PipelineSpec | str | os.PathLike,
+    *,
+    baseline: str | os.PathLike | None = None,
+    run_folder: str | None = None,
+    progress: Callable[[str, float], None] | None = None,
+) -> Evaluation:
+    """Run every computation of a pipeline and evaluate its gates, writing nothing.
+
+    The same steps as :func:`run_pipeline` without the figures and the run
+    folder, for callers that write their own outputs (``rigfit fleet`` runs this
+    once per unit).
+
+    Parameters
+    ----------
+    spec : PipelineSpec or path-like
+        The parsed pipeline, or the path of a pipeline file.
+    baseline : path-like, optional
+        Model file to compare with; overrides ``[drift] baseline``.
+    run_folder : str, optional
+        Name recorded as the run folder in the summary and the model provenance.
+    progress : callable, optional
+        Called as ``progress(step, fraction_done)`` between steps.
+
+    Returns
+    -------
+    Evaluation
+        The summary (as ``summary.json`` would hold it, with no figures), the
+        gates, the model and what the model file records about it.
+
+    Raises
+    ------
+    ident.errors.IdentError
+        As :func:`run_pipeline`.
+
+    Warns
+    -----
+    IdentWarning
+        Every warning of the steps, once each (they are also listed in
+        ``summary["warnings"]``).
     """
     if not isinstance(spec, PipelineSpec):
         spec = load_pipeline(spec)
-    if out_dir is not None and Path(out_dir).exists() and not Path(out_dir).is_dir():
-        raise IdentError(f"{out_dir}: exists and is not a folder", hint="give a folder for the run folders")
     report = progress if progress is not None else (lambda step, fraction: None)
+    state = _compute_and_warn(spec, baseline, report)
+    created = _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    gates = _gates(state)
+    summary = _summary(state, gates, created, run_folder, [])
+    return Evaluation(
+        passed=summary["verdict"]["passed"], gates=tuple(gates), summary=summary,
+        model=state["result"].model, model_provenance=_model_provenance(spec, state, summary, run_folder),
+    )
+
+
+# --------------------------------------------------------------------------- steps
+
+
+def _compute_and_warn(spec: PipelineSpec, baseline: Any, report: Callable[[str, float], None]) -> dict[str, Any]:
+    """:func:`_compute` with its warnings collected in ``state["warnings"]`` and re-issued once each."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         state = _compute(spec, baseline, report)
@@ -218,17 +326,9 @@ def run_pipeline(
         if text not in texts:
             texts.append(text)
             category = w.category if issubclass(w.category, IdentWarning) else IdentWarning
-            warnings.warn(text, category, stacklevel=2)
+            warnings.warn(text, category, stacklevel=3)
     state["warnings"] = texts
-    report("drawing figures", 0.85)
-    figures = _figures(state)
-    report("writing the run folder", 0.95)
-    result = _write(spec, state, figures, out_dir)
-    report("done", 1.0)
-    return result
-
-
-# --------------------------------------------------------------------------- steps
+    return state
 
 
 def _read_logs(spec: PipelineSpec) -> list[Any]:
@@ -556,7 +656,7 @@ def _drift_dict(drift: Any, baseline_path: Path, baseline: Any) -> dict[str, Any
     }
 
 
-def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: str,
+def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: str | None,
              figures: list[dict[str, str]]) -> dict[str, Any]:
     """Build ``summary.json``: verdict, gates, data, model, validation, modes, drift and provenance."""
     from .assess.modes import mode_table_to_dict
@@ -759,7 +859,7 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
     from .plots.drift import magnitude_overlay
     from .plots.poles import pole_zero_map
     from .plots.signals import plot_log
-    from .plots.validation import frequency_comparison, output_comparison, residual_correlations, verdict_card
+    from .plots.validation import frequency_comparison, output_comparison, residual_correlations, verdict_grid
 
     out: list[tuple[dict[str, str], bytes]] = []
 
@@ -772,12 +872,15 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
         add(name, "data", f"Logged signals of {log.source.file_name} (inputs amber, outputs blue).",
             plot_log(log))
     rep = state["validation"][0]
+    model = state["result"].model
     exp = state["parts"][0] + 1
     where = f"held-out part of experiment {exp}" if len(state["result"].prepared.validation) > 1 else "held-out data"
     add("validation_outputs.png", "validation",
         f"Measured and simulated outputs on the {where} (deviations from the operating point).",
-        output_comparison(rep))
-    add("validation_verdicts.png", "validation", "Fit per output and the validation verdicts.", verdict_card(rep))
+        output_comparison(rep, model=model))
+    add("validation_verdicts.png", "validation",
+        "Verdicts per output and test (✓ passed, ✗ failed, ? the data cannot judge); the words are in the table "
+        "above.", verdict_grid(rep))
     for i, out_name in enumerate(rep.outputs):
         add(f"validation_residuals_{i + 1}.png", "validation",
             f"Residual analysis of {out_name}: autocorrelation over the model's settling time and cumulative "
@@ -792,7 +895,7 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
             add(f"validation_frequency_{i + 1}_{j + 1}.png", "validation",
                 f"Frequency response {in_name} → {out_name}: the model against the estimate from the data with "
                 "its confidence region, judged where the data are informative (shaded band).",
-                frequency_comparison(rep, output=i, input=j))
+                frequency_comparison(rep, output=i, input=j, model=model))
     if state["periodic"] is not None:
         from .estimate.periodic import compare_with_model
         from .plots.excite import periodic_response_figure
@@ -807,31 +910,18 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
     if state["drift"] is not None:
         add("drift_magnitude.png", "drift",
             "Magnitude responses of the baseline and the new model over the excited band.",
-            magnitude_overlay(state["drift"], inputs=state["result"].model.inputs))
+            magnitude_overlay(state["drift"], inputs=model.inputs, units=(model.input_units, model.output_units)))
     return out
 
 
 # --------------------------------------------------------------------------- output
 
 
-def _new_folder(parent: Path, stamp: str, digest: str) -> Path:
-    parent.mkdir(parents=True, exist_ok=True)
-    base = f"{stamp}-{digest}"
-    for k in range(1, 1000):
-        folder = parent / (base if k == 1 else f"{base}-{k}")
-        try:
-            folder.mkdir()
-        except FileExistsError:
-            continue
-        return folder
-    raise IdentError(f"{parent}: cannot create a new run folder named {base}")
-
-
 def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[str, str], bytes]],
            out_dir: Any) -> RunResult:
-    from .io.atomic import write_atomic
-    from .io.modelfile import save_model, uncertainty_provenance
-    from .report import render_report
+    """Write the run folder: built as a hidden temporary folder, renamed into place when complete."""
+    from .io.atomic import new_folder, write_atomic
+    from .io.modelfile import save_model
 
     now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
     stamp = now.strftime("%Y%m%dT%H%M%SZ")
@@ -842,41 +932,31 @@ def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[s
     if state["baseline_path"] is not None:
         h.update(hashlib.sha256(state["baseline_path"].read_bytes()).digest())
     digest = h.hexdigest()[:8]
-    parent = Path(out_dir) if out_dir is not None else spec.base_dir / "runs"
+    parent = _run_parent(spec, out_dir)
     gates = _gates(state)
     protected = tuple(lg.source.path for lg in [*state["logs"], *state["validation_logs"]])
+    base = f"{stamp}-{digest}"
 
-    folder = _new_folder(parent, stamp, digest)
-    summary = _summary(state, gates, created, folder.name, [meta for meta, _ in figures])
-    summary["run"]["inputs_hash"] = digest
+    with new_folder(parent, lambda k: base if k == 1 else f"{base}-{k}") as (tmp, final_name):
+        name = final_name()
+        summary = _summary(state, gates, created, name, [meta for meta, _ in figures])
+        summary["run"]["inputs_hash"] = digest
+        save_model(tmp / MODEL_FILE, state["result"].model, protected=protected,
+                   provenance=_model_provenance(spec, state, summary, name))
+        for meta, data in figures:
+            write_atomic(tmp / meta["file"], data, protected=protected)
+        if spec.path is not None and spec.path.is_file():
+            write_atomic(tmp / PIPELINE_COPY, spec.path.read_bytes(), protected=protected)
+        write_atomic(tmp / SUMMARY_FILE, json.dumps(summary, indent=2, allow_nan=False) + "\n",
+                     protected=protected)
+        from .report import render_report
+
+        html = render_report(summary, {meta["file"]: data for meta, data in figures})
+        write_atomic(tmp / REPORT_FILE, html, protected=protected)
+    folder = parent / name
     result = state["result"]
-    prep = result.prepared
-    model_path = save_model(folder / MODEL_FILE, result.model, protected=protected, provenance={
-        "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in state["logs"]],
-                "sample_time": state["logs"][0].sample_time,
-                # longest contiguous segment: what `rigfit modes` judges slow time constants against
-                "duration_s": state["log_duration_s"]},
-        "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
-                       "method": result.method, "order": result.order, "options": result.options.to_dict(),
-                       "ranges": [list(r) for r in prep.estimation_ranges],
-                       "sample_time": prep.sample_time, "decimation": prep.decimation,
-                       "input_delay": list(result.input_delay), "noise_model": result.noise_model,
-                       **uncertainty_provenance(state["pole_covariance"], result.covariance)},
-        "validation": {"ranges": [list(r) for r in prep.validation_ranges],
-                       "fit_percent": summary["model"]["validation_fit"],
-                       "estimation_fit_percent": summary["model"]["estimation_fit"],
-                       "logs": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256}
-                                for lg in state["validation_logs"]]},
-        "run": {"folder": folder.name, "passed": summary["verdict"]["passed"]},
-    })
-    figure_paths = [write_atomic(folder / meta["file"], data, protected=protected) for meta, data in figures]
-    if spec.path is not None and spec.path.is_file():
-        write_atomic(folder / PIPELINE_COPY, spec.path.read_bytes(), protected=protected)
-    summary_path = write_atomic(
-        folder / SUMMARY_FILE, json.dumps(summary, indent=2, allow_nan=False) + "\n", protected=protected
-    )
-    html = render_report(summary, {meta["file"]: data for meta, data in figures})
-    report_path = write_atomic(folder / REPORT_FILE, html, protected=protected)
+    model_path, summary_path, report_path = folder / MODEL_FILE, folder / SUMMARY_FILE, folder / REPORT_FILE
+    figure_paths = [folder / meta["file"] for meta, _ in figures]
     return RunResult(
         folder=folder,
         passed=summary["verdict"]["passed"],
@@ -893,3 +973,36 @@ def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[s
         report_path=report_path,
         figure_paths=tuple(figure_paths),
     )
+
+
+def _run_parent(spec: PipelineSpec, out_dir: Any) -> Path:
+    return Path(out_dir) if out_dir is not None else spec.base_dir / "runs"
+
+
+#: The longest path written below a run folder's parent (the temporary folder's name, then a figure).
+_LONGEST_RUN_PATH = ".20261231T235959Z-ffffffff-999.rigfit-4194304-ffffffff.ffffffff.tmp/validation_frequency_9_9.png"
+
+
+def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[str, Any], name: str) -> dict:
+    from .io.modelfile import uncertainty_provenance
+
+    result = state["result"]
+    prep = result.prepared
+    return {
+        "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in state["logs"]],
+                "sample_time": state["logs"][0].sample_time,
+                # longest contiguous segment: what `rigfit modes` judges slow time constants against
+                "duration_s": state["log_duration_s"]},
+        "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
+                       "method": result.method, "order": result.order, "options": result.options.to_dict(),
+                       "ranges": [list(r) for r in prep.estimation_ranges],
+                       "sample_time": prep.sample_time, "decimation": prep.decimation,
+                       "input_delay": list(result.input_delay), "noise_model": result.noise_model,
+                       **uncertainty_provenance(state["pole_covariance"], result.covariance)},
+        "validation": {"ranges": [list(r) for r in prep.validation_ranges],
+                       "fit_percent": summary["model"]["validation_fit"],
+                       "estimation_fit_percent": summary["model"]["estimation_fit"],
+                       "logs": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256}
+                                for lg in state["validation_logs"]]},
+        "run": {"folder": name, "passed": summary["verdict"]["passed"]},
+    }

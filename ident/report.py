@@ -24,10 +24,11 @@ import base64
 import html
 import json
 import math
+import re
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-__all__ = ["render_report"]
+__all__ = ["render_report", "html_fragment", "modes_html", "validation_html", "table_html"]
 
 
 class _Raw(str):
@@ -355,26 +356,28 @@ def _complex_text(value: Any, *, pair: bool = False) -> str:
 def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     t = s["modes"]
     rows = []
-    for m in t["modes"]:
-        kind = "pair" if m["is_pair"] else "real"
+    for k, m in enumerate(t["modes"], start=1):
+        pair = bool(m["is_pair"])
+        kind = "integrator" if "integrator" in m["flags"] else ("oscillation" if pair else "real")
         if m["multiplicity"] > 1:
             kind += f" ×{m['multiplicity']}"
-        rows.append((kind, _complex_text(m.get("z"), pair=bool(m["is_pair"])),
-                     _num(m["natural_frequency_hz"]), _num(m["damping_ratio"], ".3g"),
-                     _num(m["time_constant_s"]), _num(m["damped_frequency_hz"]),
-                     _num(m.get("period_s")),
-                     (", ".join(m["flags"]) or "–", "bad" if m["flags"] else "")))
+        rows.append((k, kind, _num(m["natural_frequency_hz"] if pair else None),
+                     _num(m["damping_ratio"] if pair else None, ".3g"),
+                     _num(m["time_constant_s"]), _num(m.get("period_s")),
+                     (", ".join(m["flags"]) or "–", "bad" if m["flags"] else ""),
+                     _complex_text(m.get("z"), pair=pair)))
     parts = [
-        _p(f"{t['n_states']} states, sample time {_num(t['sample_time'])} s; poles mapped to continuous "
-           "time by s = ln(z)/T. Flags that fail the run: " + (", ".join(t.get("fail_on", [])) or "none") + "."),
-        _table(("mode", "pole z", "natural frequency [Hz]", "damping ratio", "time constant [s]",
-                "damped frequency [Hz]", "period [s]", "flags"), rows),
+        _p(f"{t['n_states']} states, sample time {_num(t['sample_time'])} s. Frequency and damping ratio of each "
+           "oscillation, time constant of every mode; the pole z (detail) maps to continuous time by "
+           "s = ln(z)/T. Flags that fail the run: " + (", ".join(t.get("fail_on", [])) or "none") + "."),
+        _table(("mode", "kind", "frequency [Hz]", "damping ratio", "time constant [s]", "period [s]", "flags",
+                "pole z (detail)"), rows, cls="modes"),
     ]
     zeros = t.get("zeros") or []
     zero_text = ", ".join(_complex_text(q) for q in zeros) if zeros else "none"
     parts.append(_p(f"Transmission zeros (z-plane): {zero_text}."))
     if t.get("warnings"):
-        parts.append(_Raw("<h3>Warnings</h3>"))
+        parts.append(_Raw("<h3>Flags</h3>"))
         parts.append(_ul([f"{k}: {v}" for k, v in t["warnings"].items()], cls="warnings"))
     units = t.get("units", {})
     ins, outs = units.get("inputs", []), units.get("outputs", [])
@@ -423,12 +426,17 @@ def _drift(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
             _num(m["frequency_shift_hz"], "+.3g"),
             _num(m["frequency_shift_percent"], "+.1f") + (" %" if m["frequency_shift_percent"] is not None else ""),
             _num(base.get("damping_ratio"), ".3g"), _num(new.get("damping_ratio"), ".3g"),
-            _num(m["damping_shift"], "+.3g"), _num(m["z_score"], ".2g"),
+            _num(m["damping_shift"], "+.3g"),
+            _num(base.get("time_constant_s")) + " → " + _num(new.get("time_constant_s"))
+            + (f" ({_num(m.get('time_constant_shift_percent'), '+.1f')} %)"
+               if m.get("time_constant_shift_percent") is not None else ""),
+            _num(m["z_score"], ".2g"),
             (", ".join(m["breaches"]) or "–", "bad" if m["breaches"] else ""),
         ))
     parts.append(_Raw("<h3>Mode shifts</h3>"))
+    parts.append(_p("Oscillations are judged by natural frequency and damping, real modes by their time constant."))
     parts.append(_table(("status", "baseline [Hz]", "new [Hz]", "shift [Hz]", "shift", "ζ baseline", "ζ new",
-                         "ζ shift", "z-score", "breach"), rows))
+                         "ζ shift", "time constant [s]", "z-score", "breach"), rows))
     parts.append(_Raw("<h3>DC gains</h3>"))
     parts.append(_table(
         ("input", "output", "baseline", "new", "change", ""),
@@ -573,3 +581,61 @@ def render_report(summary: Mapping[str, Any], figures: Mapping[str, bytes]) -> s
         "</main></body></html>",
     ]
     return "\n".join(parts) + "\n"
+
+
+# --------------------------------------------------------------------------- fragments (notebooks)
+
+#: Style of a fragment shown inside a notebook: the report's table look, scoped to the fragment.
+_FRAGMENT_CSS = """
+.rigfit-fragment { font: 13px/1.4 "Helvetica Neue", Arial, sans-serif; color: #1f2a36; }
+.rigfit-fragment h2 { font-size: 15px; margin: 8px 0 4px; } .rigfit-fragment h3 { font-size: 13px; margin: 6px 0; }
+.rigfit-fragment table { border-collapse: collapse; margin: 4px 0 8px; }
+.rigfit-fragment th, .rigfit-fragment td { border: 1px solid #d5dbd6; padding: 2px 7px; text-align: left; }
+.rigfit-fragment th { background: #eef0ee; font-weight: 600; }
+.rigfit-fragment td.ok { color: #1f6f43; font-weight: 600; }
+.rigfit-fragment td.bad { color: #b3261e; font-weight: 600; }
+.rigfit-fragment ul.warnings li { color: #b3261e; } .rigfit-fragment .caution { font-size: 12px; color: #555; }
+"""
+
+
+def html_fragment(*parts: str) -> str:
+    """Wrap pieces made by this module in one ``<div>`` with the report's table style (for notebooks)."""
+    return f'<div class="rigfit-fragment"><style>{_FRAGMENT_CSS}</style>' + "".join(parts) + "</div>"
+
+
+def table_html(headers: Sequence[Any], rows: Iterable[Sequence[Any]], *, caption: str | None = None) -> str:
+    """Return an HTML table as in the report; every cell is escaped (a ``(text, "ok"|"bad")`` cell is coloured)."""
+    head = _p(caption) if caption else ""
+    return head + _table(headers, rows)
+
+
+def modes_html(modes: Mapping[str, Any]) -> str:
+    """Return the report's mode section for one mode table.
+
+    Parameters
+    ----------
+    modes : Mapping
+        :func:`ident.assess.modes.mode_table_to_dict` plus ``units`` (``{"inputs": [...],
+        "outputs": [...]}``) and optionally ``fail_on``.
+    """
+    return _modes({"modes": modes, "figures": []}, {})
+
+
+def validation_html(validation: Mapping[str, Any], *, title: str | None = None) -> str:
+    """Return the report's validation section for one validation report.
+
+    Parameters
+    ----------
+    validation : Mapping
+        :func:`ident.assess.diagnostics.report_to_dict` of the report.
+    title : str, optional
+        Heading of the part (default: the sample count).
+    """
+    rep = dict(validation)
+    rep.setdefault("experiment", 1)
+    rep.setdefault("range", [0, rep.get("n_samples", 0)])
+    html_text = _validation({"validation": [rep], "figures": []}, {})
+    if title is not None:
+        html_text = re.sub(r"<h2>.*?</h2>", "<h2>Validation</h2>", html_text, count=1, flags=re.S)
+        html_text = re.sub(r"<h3>.*?</h3>", f"<h3>{_e(title)}</h3>", html_text, count=1, flags=re.S)
+    return html_text

@@ -25,7 +25,9 @@ def shared_dataset():
     def _get(name: str) -> Path:
         path = DATASETS / name
         if not path.is_file():
-            pytest.skip(f"shared dataset {name} not available")
+            pytest.skip(f"shared dataset {name} not found in {DATASETS}; to run this test, set "
+                        "RIGFIT_DATASETS to the folder holding the open datasets (default: "
+                        "../shared/datasets beside the repository)")
         return path
 
     return _get

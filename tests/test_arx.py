@@ -548,3 +548,37 @@ def test_shortlist_holds_the_best_of_each_order(rng):
     assert orders == {1, 2, 3, 4}  # every order represented (definition of the shortlist)
     for name in ("aic", "bic", "fpe"):
         assert sweep.best[name] in picks
+
+
+def test_arx_model_carries_its_one_step_predictor(rng):
+    """The noise gain of an ARX realisation gives exactly the ARX one-step predictor."""
+    from ident.assess.diagnostics import predict
+    from ident.estimate.arx import ArxOptions, fit_arx
+    from ident.estimate.data import Experiment
+
+    n = 800
+    u = rng.standard_normal((n, 2))
+    y = (signal.lfilter([0.0, 0.5, 0.2], [1.0, -1.2, 0.5], u[:, 0])
+         + signal.lfilter([0.0, 0.0, 0.3], [1.0, -1.2, 0.5], u[:, 1]) + 0.05 * rng.standard_normal(n))
+    res = fit_arx(Experiment(u, y[:, None]), 1.0, ArxOptions(na=2, nb=(2, 1), nk=(1, 2)))
+    a, b = res.a[0], res.b[0]
+    # direct implementation of the ARX predictor (Ljung 1999, eq. 4.9):
+    # yhat[t] = -a1 y[t-1] - a2 y[t-2] + sum_j sum_l b_jl u_j[t - nk_j - l]
+    direct = np.zeros(n)
+    for t in range(n):
+        acc = 0.0
+        for i in range(1, len(a)):
+            acc -= a[i] * (y[t - i] if t - i >= 0 else 0.0)
+        for j in range(2):
+            for lag, coef in enumerate(b[j]):
+                k = t - res.nk[j] - lag
+                acc += coef * (u[k, j] if k >= 0 else 0.0)
+        direct[t] = acc
+    model = res.model
+    assert model.noise_gain is not None
+    # the predictor A - K C is nilpotent (closed form of the observer form with K = -a)
+    Ab = model.A - model.noise_gain @ model.C
+    assert_allclose(np.linalg.matrix_power(Ab, Ab.shape[0]), 0.0, atol=1e-12)
+    pred = predict(model, u, y[:, None], 1, np.zeros(model.n_states))[:, 0]
+    # from rest, both predictors see zeros before the record: identical from the first sample
+    assert_allclose(pred, direct, rtol=1e-10, atol=1e-10)

@@ -46,11 +46,46 @@ def test_tf_json_matches_textbook(run_cli, zoh_example):
     assert_allclose(ch["den"], [1.0, -1.3679, 0.3679], atol=5e-5)
 
 
-def test_tf_readable(run_cli, zoh_example):
+# Snapshot of the text display of the ZOH equivalent of 1/(s(s+1)) at T = 1 s. Every number is a
+# closed form (Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed., ZOH
+# equivalents): numerator e^-1 z + (1 - 2 e^-1) = 0.367879 z + 0.264241, denominator
+# (z - 1)(z - e^-1) = z^2 - 1.36788 z + 0.367879, zero -(1 - 2 e^-1)/e^-1 = -0.718282 (negative
+# real: no continuous equivalent), poles e^-1 (time constant 1 s) and 1 (the integrator).
+TF_SNAPSHOT = """\
+transfer functions (discrete time, sample time 1 s); coefficients in descending powers of z
+
+force [N] -> position [m]
+  gain 0.367879 m/N (leading coefficient of the numerator)
+        z             |z|  frequency [Hz]  damping ratio  time constant [s]  note
+  zero  -0.718282  0.7183               -              -                  -  no continuous equivalent
+  pole  0.367879   0.3679               -              -                  1
+  pole  1               1               -              -                  -  integrator
+  numerator   = [0.367879, 0.264241]
+  denominator = [1, -1.36788, 0.367879]
+"""
+
+
+def test_tf_text_snapshot(run_cli, zoh_example):
     result = run_cli("convert", zoh_example, "--to", "tf")
     assert result.exit_code == 0
-    assert "force [N] -> position [m]" in result.stdout
-    assert "z^2 - 1.36788 z + 0.367879" in result.stdout
+    assert result.stdout == TF_SNAPSHOT
+    # not the numerator-over-dashes-over-denominator picture
+    assert "----" not in result.stdout
+
+
+def test_tf_text_gives_frequency_and_damping_of_a_pair():
+    from ident.display import transfer_function_text
+    from ident.lti.models import TransferFunctionModel
+
+    # s^2 + 2 zeta wn s + wn^2 with wn = 2 pi 10 rad/s, zeta = 0.05 (closed form: f = 10 Hz,
+    # damping 0.05, time constant 1 / (zeta wn) = 0.3183 s)
+    wn = 2 * np.pi * 10.0
+    tf = TransferFunctionModel(num=[[[wn**2]]], den=[[[1.0, 2 * 0.05 * wn, wn**2]]], sample_time=None,
+                               inputs=("u",), outputs=("y",))
+    text = transfer_function_text(tf)
+    (row,) = [ln for ln in text.splitlines() if ln.strip().startswith("pole pair")]
+    assert row.split()[-3:] == ["10", "0.05", "0.3183"]
+    assert "descending powers of s" in text
 
 
 def test_continuous_round_trip(run_cli, zoh_example, tmp_path):
@@ -111,7 +146,12 @@ def test_modal_realization_keeps_response(run_cli, zoh_example, tmp_path):
 def test_readable_ss_shows_operating_point(run_cli, zoh_example):
     r = run_cli("convert", zoh_example, "--to", "ss")
     assert r.exit_code == 0
-    assert "operating point" in r.stdout and "A (2 x 2)" in r.stdout
+    # plain nested arrays, one legend line for the order of states, inputs and outputs
+    # (A of the ZOH example: cont2discrete of tf2ss(1, [1, 1, 0]) at T = 1 s, closed form e^-1)
+    assert "operating point" in r.stdout
+    assert "order: x = 2 state(s) in the model's coordinates; u = [force]; y = [position]" in r.stdout
+    assert "A = [[0.367879, 0],\n     [0.632121, 1]]  (2 x 2)" in r.stdout
+    assert "x1" not in r.stdout and "u1" not in r.stdout
 
 
 def test_method_refused_where_it_does_not_apply(run_cli, zoh_example):

@@ -230,3 +230,124 @@ def test_matched_integrator_keeps_low_frequency_gain():
     # the gain is matched at f = 1/(100 T), not at 0: agreement to ~1e-3
     assert_allclose(tf.num[0][0], k * np.array([1.0, 2.0, 1.0]), rtol=2e-3)
     assert_allclose(tf.den[0][0], [1.0, -(1 + math.exp(-0.5)), math.exp(-0.5)], rtol=1e-12)
+
+
+# --------------------------------------------------------------------------- matched: the rule written out
+
+
+def _matched_reference(zeros_s, poles_s, dc_gain, T):
+    """The matched pole-zero rule on a transfer function, written independently of rigfit.
+
+    Franklin, Powell & Workman, *Digital Control of Dynamic Systems*, 3rd ed., 1998, sec. 6.3.3:
+    every pole and finite zero goes to ``z = exp(s T)``, every zero at infinity to ``z = -1``,
+    and the gain makes the DC gains equal. numpy polynomials only.
+    """
+    zd = np.concatenate([np.exp(np.asarray(zeros_s, dtype=complex) * T), -np.ones(len(poles_s) - len(zeros_s))])
+    pd = np.exp(np.asarray(poles_s, dtype=complex) * T)
+    num, den = np.real(np.poly(zd)), np.real(np.poly(pd))
+    return dc_gain * np.polyval(den, 1.0) / np.polyval(num, 1.0) * num, den
+
+
+def _siso(zeros_s, poles_s):
+    """State space of the unit-DC-gain transfer function with these zeros and poles (scipy.signal.zpk2ss)."""
+    k = float(np.real(np.prod(np.negative(poles_s)) / np.prod(np.negative(zeros_s))))
+    A, B, C, D = signal.zpk2ss(zeros_s, poles_s, k)
+    return StateSpaceModel(A=A, B=B, C=C, D=D)
+
+
+def _response_on_circle(num, den, w):
+    z = np.exp(1j * w)
+    return np.polyval(num, z) / np.polyval(den, z)
+
+
+# relative degree 1 to 4; a resonance, real poles, slow and fast ones (invented plants)
+_MATCHED_CASES = [
+    ([-3.0], [-1.0, -8.0]),
+    ([], [-1.0, -4.0]),
+    ([], [-0.5 + 3j, -0.5 - 3j, -6.0]),
+    ([-2.0], [-1.0, -3.0, -0.4 + 2j, -0.4 - 2j]),
+    ([], [-1.0, -2.0, -3.0, -5.0]),
+]
+
+
+@pytest.mark.parametrize("zeros_s, poles_s", _MATCHED_CASES)
+@pytest.mark.parametrize("T", [0.01, 0.05, 0.2])
+def test_matched_equals_the_rule_written_out(zeros_s, poles_s, T):
+    model = _siso(zeros_s, poles_s)
+    d = to_discrete(model, T, method="matched")
+    num, den = _matched_reference(zeros_s, poles_s, 1.0, T)
+    w = np.linspace(0.0, 0.8 * np.pi, 60)
+    got = frequency_response(d, w / (2 * np.pi * T))[:, 0, 0]
+    # 1e-6: the polynomials of poles within 0.05 of z = 1 hold them to about 1e-8 (conditioning)
+    assert rel_err(got, _response_on_circle(num, den, w)) < 1e-6
+
+
+@pytest.mark.parametrize("zeros_s, poles_s", _MATCHED_CASES)
+@pytest.mark.parametrize("T", [0.05, 0.2])
+def test_matched_round_trip_with_zeros_at_minus_one(zeros_s, poles_s, T):
+    # relative degree k puts a k-fold zero at z = -1, which the zero computation splits by about
+    # eps**(1/k) (1e-8 for two, 6e-6 for three, 1e-4 for four); the way back must recognise it
+    model = _siso(zeros_s, poles_s)
+    back = to_continuous(to_discrete(model, T, method="matched"), method="matched")
+    assert back.n_states == model.n_states
+    assert_allclose(np.sort_complex(back.poles()), np.sort_complex(np.asarray(poles_s, dtype=complex)),
+                    rtol=1e-6, atol=1e-6)  # the continuous poles, back through s = ln(z)/T
+    freqs = np.array([0.0, 0.05, 0.2, 0.5, 1.0])
+    assert rel_err(frequency_response(back, freqs), frequency_response(model, freqs)) < 1e-6
+
+
+def test_cluster_at_minus_one_is_recognised_by_multiplicity():
+    from ident.lti.discretize import _cluster_at_minus_one
+
+    rng = np.random.default_rng(4)
+    for k in range(1, 6):
+        # np.roots of (z + 1)^k (z - 0.5) with coefficients rounded as a computation would
+        coeffs = np.poly([-1.0] * k + [0.5]) * (1 + 1e-16 * rng.standard_normal(k + 2))
+        roots = np.roots(coeffs)
+        mask = _cluster_at_minus_one(roots)
+        assert mask.sum() == k, k
+        assert_allclose(roots[~mask].real, [0.5], rtol=1e-6)
+    # a genuine zero near -1 is not absorbed into the cluster: the cluster's mean would move
+    roots = np.concatenate([np.roots(np.poly([-1.0, -1.0, -1.0])), [-0.98]])
+    assert _cluster_at_minus_one(roots).sum() == 3
+    assert not _cluster_at_minus_one(np.array([-0.999, -0.9])).any()
+
+
+def test_matched_refuses_several_inputs_or_outputs():
+    A = np.diag([-1.0, -2.0, -3.0, -4.0])
+    B = np.array([[1.0, 0.0], [0.0, 1.0], [1.0, 1.0], [0.5, -1.0]])
+    C = np.array([[1.0, 0.0, 1.0, 0.0], [0.0, 1.0, 0.0, 1.0]])
+    model = StateSpaceModel(A=A, B=B, C=C, D=np.zeros((2, 2)))  # 4 states, 2 x 2
+    with pytest.raises(ModelError, match="2 input\\(s\\) and 2 output\\(s\\)") as info:
+        to_discrete(model, T, method="matched")
+    assert "zoh or tustin" in info.value.hint
+    discrete = to_discrete(model, T, method="zoh")
+    with pytest.raises(ModelError, match="matched pole-zero rule maps one transfer function"):
+        to_continuous(discrete, method="matched")
+    assert to_discrete(model, T, method="tustin").n_states == 4  # one state per pole
+
+
+def test_matched_small_numerator_is_not_lost():
+    # a stiff actuator: DC gain 1e-6 m/N, five poles, T = 0.05 s; the discrete numerator is about
+    # 1e-12, below a rank tolerance set by the whole model (read as zero before channels were scaled)
+    poles_s = [-1.0, -2.0, -3.0, -4.0, -5.0]
+    A, B, C, D = signal.zpk2ss([], poles_s, 120.0 * 1e-6)  # DC gain 1e-6 (closed form: 120 = 5!)
+    model = StateSpaceModel(A=A, B=B, C=C, D=D)
+    d = to_discrete(model, 0.05, method="matched")
+    assert d.n_states == 5
+    num, den = _matched_reference([], poles_s, 1e-6, 0.05)
+    w = np.linspace(0.0, 0.8 * np.pi, 40)
+    assert rel_err(frequency_response(d, w / (2 * np.pi * 0.05))[:, 0, 0], _response_on_circle(num, den, w)) < 1e-6
+    back = to_continuous(d, method="matched")
+    assert rel_err(frequency_response(back, [0.0, 0.5]), frequency_response(model, [0.0, 0.5])) < 1e-6
+
+
+def test_convert_matched_on_a_mimo_model_is_one_line(tmp_path, run_cli):
+    from ident.io.modelfile import save_model
+
+    model = StateSpaceModel(A=np.diag([0.9, 0.8]), B=np.eye(2), C=np.eye(2), D=np.zeros((2, 2)), sample_time=0.1)
+    path = save_model(tmp_path / "m.json", model)
+    result = run_cli("convert", path, "--to", "continuous", "--method", "matched")
+    assert result.exit_code == 2
+    assert result.stderr.startswith("error: the matched pole-zero rule maps one transfer function")
+    assert "hint: use --method zoh or tustin" in result.stderr

@@ -137,3 +137,33 @@ def test_negative_real_poles_left_out_and_pairs_never_matched_to_real_poles():
     assert [s.status for s in report.mode_shifts] == ["matched", "matched"]
     for s in report.mode_shifts:
         assert s.baseline.is_pair == s.new.is_pair
+
+
+def _thermal(taus_s, T_s=1.0):
+    """Discrete ZOH model of first-order lags in series with time constants ``taus_s`` (invented heater)."""
+    num, den = [1.0], [1.0]
+    for tau in taus_s:
+        den = np.polymul(den, [tau, 1.0])
+    A, B, C, D = signal.tf2ss(num, den)
+    Ad, Bd, Cd, Dd, _ = signal.cont2discrete((A, B, C, D), T_s, method="zoh")
+    return StateSpaceModel(Ad, Bd, Cd, Dd, sample_time=T_s, inputs=("duty",), outputs=("temp",))
+
+
+def test_real_modes_drift_by_time_constant():
+    base = _thermal([400.0, 60.0])
+    new = _thermal([480.0, 60.0])
+    report = compare_models(base, new, band_hz=(1e-4, 0.1))
+    slow = max((s for s in report.mode_shifts if s.status == "matched"), key=lambda s: s.baseline.time_constant_s)
+    # ZOH maps s = -1/tau to z = exp(-T/tau) exactly, so the time constants are the continuous ones
+    assert_allclose(slow.baseline.time_constant_s, 400.0, rtol=1e-6)
+    assert_allclose(slow.time_constant_shift_s, 80.0, rtol=1e-5)
+    assert_allclose(slow.time_constant_shift_percent, 20.0, rtol=1e-5)  # 480/400 - 1, closed form
+    assert slow.breaches == ("time-constant shift",)  # judged by the time constant, not a frequency
+    (text,) = [b for b in report.breaches if "time-constant" in b]
+    assert "400 s -> 480 s (+20.0 %, limit 10 %)" in text
+    # a looser time-constant threshold passes; the frequency threshold no longer applies to real modes
+    loose = compare_models(base, new, band_hz=(1e-4, 0.1),
+                           thresholds=DriftThresholds(time_constant_shift_percent=25.0, frequency_shift_percent=1.0,
+                                                      response_difference_db=100.0, dc_gain_change_percent=100.0))
+    assert loose.passed, loose.breaches
+    assert DriftThresholds.from_mapping({"time_constant_shift_percent": 15}).time_constant_shift_percent == 15

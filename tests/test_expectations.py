@@ -183,3 +183,36 @@ def test_load_expectations_file(tmp_path):
     broken.write_text("[expect\n", encoding="utf-8")
     with pytest.raises(PipelineError, match="not valid TOML"):
         load_expectations(broken)
+
+
+def _thermal_model() -> StateSpaceModel:
+    # two first-order lags, tau 395 s and 75 s, sampled at 1 s with ZOH (invented platen, close to the demo's)
+    A, B, C, D = signal.tf2ss([1.0], np.polymul([395.0, 1.0], [75.0, 1.0]))
+    Ad, Bd, Cd, Dd, _ = signal.cont2discrete((A, B, C, D), 1.0, method="zoh")
+    return StateSpaceModel(Ad, Bd, Cd, Dd, sample_time=1.0, inputs=("duty",), outputs=("temp",))
+
+
+def test_time_constant_expectation_met_and_missed():
+    model = _thermal_model()
+    table = mode_table(model)
+    e = parse('[[expect.mode]]\nname = "platen heating"\ntime_constant_s = [300, 500]\n'
+              '[[expect.mode]]\nname = "fast zone"\ntime_constant_s = [5, 20]\n')
+    met, missed = check_expectations(model, table, e)
+    assert met.met and met.key_path == "expect.mode[1]"
+    # ZOH keeps tau exactly: z = exp(-T/tau) (closed form)
+    assert_allclose(met.measured_value, 395.0, rtol=1e-6)
+    assert "time constant 395 s" in met.measured and "[300, 500] s" in met.expected
+    assert not missed.met and "nearest: time constant 75 s" in missed.measured
+    assert_allclose(missed.measured_value, 75.0, rtol=1e-6)
+
+
+def test_time_constant_expectation_is_refused_with_frequency_or_damping():
+    with pytest.raises(PipelineError) as err:
+        parse('[[expect.mode]]\nfrequency_hz = [1, 2]\ntime_constant_s = [1, 2]\n')
+    assert err.value.key_path == "expect.mode[1]"
+    with pytest.raises(PipelineError) as err:
+        parse('[[expect.mode]]\ntime_constant_s = [1, 2]\ndamping_ratio = [0.1, 0.2]\n')
+    assert err.value.key_path == "expect.mode[1].damping_ratio"
+    with pytest.raises(PipelineError) as err:
+        parse('[[expect.mode]]\ntime_constant_s = [0, 2]\n')
+    assert err.value.key_path == "expect.mode[1].time_constant_s"

@@ -91,7 +91,7 @@ def test_fit_readable_summary(run_cli, log_file):
     assert res.exit_code == 0, res.output
     assert "held-out" in res.stdout and "flow" in res.stdout
     assert "<- selected" in res.stdout
-    assert "f_n [Hz]" in res.stdout  # the modes in physical units
+    assert "frequency [Hz]" in res.stdout and "damping ratio" in res.stdout  # the modes as a rig engineer reads them
     # the pair 0.9 +- 0.2j at T = 0.01 s: f_n = |ln z| / (2 pi T) = 3.713 Hz (closed form)
     assert "3.71" in res.stdout
 
@@ -395,6 +395,10 @@ def test_validate_with_refuses_other_columns_and_detrend(run_cli, log_file, tmp_
     res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--validate-with", log_file,
                   "--detrend", "--quiet")
     assert res.exit_code == 2 and "detrend" in res.stderr
+    # the fit through a set point holds out part of LOG itself: no separate validation log with it
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--reference", "valve",
+                  "--validate-with", log_file, "--quiet")
+    assert res.exit_code == 2 and "--reference" in res.stderr and "--validate-with" in res.stderr
 
 
 def test_fit_reports_a_periodic_input(run_cli, tmp_path):

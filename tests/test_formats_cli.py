@@ -10,8 +10,14 @@ import pytest
 from ident.errors import PipelineError
 from ident.io.pipelinefile import parse_pipeline
 
-asammdf = pytest.importorskip("asammdf")
-h5py = pytest.importorskip("h5py")
+asammdf = pytest.importorskip(
+
+    "asammdf", reason="asammdf is not installed; pip install '.[test]' (or '.[mdf]') enables these tests"
+
+)
+h5py = pytest.importorskip(
+    "h5py", reason="h5py is not installed; pip install '.[test]' (or '.[hdf5]') enables these tests"
+)
 
 
 def _errors(result):

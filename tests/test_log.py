@@ -35,7 +35,7 @@ def pytest_generate_tests(metafunc):
 def csv_parser(request, monkeypatch):
     """Switch the pyarrow CSV path on or off (``_FAST_CSV``) for one test."""
     if request.param == "pyarrow" and not _HAVE_PYARROW:
-        pytest.skip("pyarrow is not installed")
+        pytest.skip("pyarrow is not installed; pip install . (it is a base dependency) enables this test")
     monkeypatch.setattr(log_module, "_FAST_CSV", request.param == "pyarrow")
     return request.param
 
@@ -444,7 +444,9 @@ def test_time_base_needs_two_rows(tmp_path):
 
 
 def test_parquet_round_trip(tmp_path, rng):
-    pytest.importorskip("pyarrow")
+    pytest.importorskip(
+        "pyarrow", reason="pyarrow is not installed; pip install . (a base dependency) enables this test"
+    )
     n = 50
     frame = pd.DataFrame({
         "time [ms]": np.arange(n, dtype=float),
@@ -462,7 +464,9 @@ def test_parquet_round_trip(tmp_path, rng):
 
 
 def test_parquet_nan_and_text_columns(tmp_path):
-    pytest.importorskip("pyarrow")
+    pytest.importorskip(
+        "pyarrow", reason="pyarrow is not installed; pip install . (a base dependency) enables this test"
+    )
     frame = pd.DataFrame({"time": [0.0, 1.0, 2.0], "u": [1.0, np.nan, 3.0], "y": [1.0, 2.0, 3.0],
                           "mode": ["a", "b", "c"]})
     path = tmp_path / "p.parquet"

@@ -17,8 +17,14 @@ from scipy import signal
 from ident.errors import LogFormatError, OptionError, ResamplingWarning
 from ident.io.log import read_column_names, read_log, read_recording
 
-asammdf = pytest.importorskip("asammdf")
-h5py = pytest.importorskip("h5py")
+asammdf = pytest.importorskip(
+
+    "asammdf", reason="asammdf is not installed; pip install '.[test]' (or '.[mdf]') enables these tests"
+
+)
+h5py = pytest.importorskip(
+    "h5py", reason="h5py is not installed; pip install '.[test]' (or '.[hdf5]') enables these tests"
+)
 
 
 # --------------------------------------------------------------------------- writers

@@ -9,13 +9,21 @@ import struct
 
 import numpy as np
 import pytest
+from numpy.testing import assert_allclose
 from scipy import signal
 
 from ident.assess.diagnostics import CheckOptions, Verdict, validate_model
 from ident.assess.modes import mode_table
 from ident.lti.models import StateSpaceModel
 from ident.plots.poles import pole_zero_map
-from ident.plots.validation import MAX_VERDICTS, frequency_comparison, residual_correlations, verdict_card
+from ident.plots.validation import (
+    DENSE_POINTS,
+    frequency_comparison,
+    output_comparison,
+    residual_correlations,
+    verdict_grid,
+    verdict_outcomes,
+)
 
 T = 1e-3
 LONG_NAMES = ("carriage_speed_at_the_far_end", "motor_speed")
@@ -67,77 +75,134 @@ def _inside(fig, renderer, artist) -> bool:
             and box.x1 <= fb.x1 + 1 and box.y1 <= fb.y1 + 1)
 
 
-def _verdicts(n: int, *, failed_every: int = 3) -> tuple[Verdict, ...]:
-    return tuple(
-        Verdict(test="whiteness", passed=(k % failed_every != 0),
-                message=f"verdict number {k}: " + "a long explanation of what was found " * 4)
-        for k in range(n)
-    )
+def _verdicts(outputs, *, failed_every: int = 3) -> tuple[Verdict, ...]:
+    tests = ("whiteness", "input_independence", "coherence", "frequency_response")
+    out = []
+    for k, name in enumerate(outputs):
+        for t, test in enumerate(tests):
+            out.append(Verdict(test=test, passed=((k + t) % failed_every != 0), message=f"verdict {k}/{t}",
+                               output=name))
+    return tuple(out)
 
 
-def _verdict_texts(fig) -> list:
-    return [t for t in fig.texts if t.get_text()[:1] in ("✓", "✗", "!", "?")]
+def _axis_labels(fig) -> list[str]:
+    labels = []
+    for ax in [a for top in fig.axes for a in (top, *top.child_axes)]:
+        for axis in (ax.xaxis, ax.yaxis):
+            text = axis.label.get_text()
+            if text and axis.get_visible() and ax.get_visible():
+                labels.append(text)
+    return labels
 
 
-def test_verdict_card_png_size_and_everything_inside(report):
-    fig = verdict_card(report)
+def test_verdict_grid_one_figure_for_many_outputs_everything_inside(report):
+    names = [f"zone_{k + 1}_temperature" for k in range(30)]
+    many = dataclasses.replace(report, outputs=tuple(names), verdicts=_verdicts(names),
+                               simulation_fit=np.linspace(50, 99, 30))
+    few = verdict_grid(dataclasses.replace(report, verdicts=_verdicts(LONG_NAMES)))
+    fig = verdict_grid(many)
+    assert fig.get_figheight() > few.get_figheight()
     data, renderer = _render(fig)
-    w, h = _png_size(data)
-    assert (w, h) == (round(fig.get_figwidth() * 100), round(fig.get_figheight() * 100))
-    bar_ax = fig.axes[0]
-    legend = bar_ax.get_legend()
-    assert legend is not None and _inside(fig, renderer, legend)
-    labels = {t.get_text() for t in legend.get_texts()}
-    assert {"simulation", "1-step prediction", "required (80 %)"} <= labels
-    ticks = [t for t in bar_ax.get_yticklabels() if t.get_text()]
-    assert {t.get_text() for t in ticks} == set(LONG_NAMES)
-    for artist in [*ticks, *fig.texts, bar_ax.xaxis.label]:
-        assert _inside(fig, renderer, artist), artist.get_text()
-    # the legend sits above the bars, not over them
-    assert legend.get_window_extent(renderer).y0 >= bar_ax.get_window_extent(renderer).y1 - 1
-
-
-def test_verdict_card_grows_with_the_list_and_lines_do_not_overlap(report):
-    few = verdict_card(dataclasses.replace(report, verdicts=_verdicts(3)))
-    many_report = dataclasses.replace(report, verdicts=_verdicts(13))
-    many = verdict_card(many_report)
-    assert many.get_figheight() > few.get_figheight()
-    _, renderer = _render(many)
-    texts = _verdict_texts(many)
-    assert len(texts) == 13  # every verdict listed, none dropped
-    boxes = sorted((t.get_window_extent(renderer) for t in texts), key=lambda b: -b.y1)
+    assert _png_size(data) == (round(fig.get_figwidth() * 100), round(fig.get_figheight() * 100))
+    ax = fig.axes[0]
+    ticks = [t for t in [*ax.get_yticklabels(), *ax.get_xticklabels()] if t.get_text()]
+    assert len(ticks) == 30 + 4
+    (legend,) = fig.legends
+    for artist in [*ticks, legend, ax.title]:
+        assert _inside(fig, renderer, artist)
+    # one mark per (output, test) cell, as verdict_outcomes says; nothing about "+N more"
+    marks = [t for t in ax.texts if t.get_text() in ("✓", "✗", "?")]
+    assert len(marks) == 30 * 4
+    assert not any("more" in t.get_text() for t in fig.texts + ax.texts)
+    boxes = [t.get_window_extent(renderer) for t in ticks if t in ax.get_yticklabels()]
     for upper, lower in zip(boxes, boxes[1:], strict=False):
-        assert lower.y1 <= upper.y0 + 0.5  # stacked, not drawn over each other
-    for t in texts:
-        assert _inside(many, renderer, t)
-        assert "\n" in t.get_text()  # long messages are wrapped
-        assert max(len(line) for line in t.get_text().splitlines()) <= 110
+        assert not upper.overlaps(lower)
 
 
-def test_verdict_card_counts_what_it_leaves_out(report):
-    n = MAX_VERDICTS + 5
-    rep = dataclasses.replace(report, verdicts=_verdicts(n))
-    fig = verdict_card(rep)
+def test_verdict_outcomes_pass_fail_cannot_judge(report):
+    verdicts = (
+        Verdict("whiteness", True, "white", output="motor_speed"),
+        Verdict("coherence", False, "low coherence", output="motor_speed", input="u"),
+        Verdict("frequency_response", False, "misses", output="motor_speed", input="u"),
+        Verdict("frequency_response", True, "fine", output="motor_speed", input="v"),
+    )
+    rows, tests, outcome = verdict_outcomes(dataclasses.replace(report, verdicts=verdicts))
+    assert rows == list(LONG_NAMES)
+    assert tests == ["whiteness", "coherence", "frequency_response"]  # VERDICT_TESTS order
+    assert outcome == {("motor_speed", "whiteness"): "pass", ("motor_speed", "coherence"): "cannot_judge",
+                       ("motor_speed", "frequency_response"): "fail"}
+
+
+def test_verdicts_the_data_cannot_decide_show_a_question_mark(report):
+    far = LONG_NAMES[0]
+    verdicts = (
+        # passed=None: the data cannot judge (nothing informative in the excited band)
+        Verdict("frequency_response", None, "cannot judge", output=far, input="u"),
+        Verdict("whiteness", True, "white", output=far),
+        # a failed data test is a note about the data, not a model failure
+        Verdict("feedback", False, "feedback", output=far, input="u"),
+        # "cannot judge" on one input and a miss on another: the miss wins
+        Verdict("frequency_response", None, "cannot judge", output="motor_speed", input="u"),
+        Verdict("frequency_response", False, "misses", output="motor_speed", input="v"),
+    )
+    rep = dataclasses.replace(report, verdicts=verdicts)
+    _, _, outcome = verdict_outcomes(rep)
+    assert outcome == {(far, "frequency_response"): "cannot_judge", (far, "whiteness"): "pass",
+                       (far, "feedback"): "cannot_judge", ("motor_speed", "frequency_response"): "fail"}
+    fig = verdict_grid(rep)
     _, renderer = _render(fig)
-    more = [t for t in fig.texts if t.get_text().startswith("+")]
-    assert len(more) == 1 and more[0].get_text().startswith("+5 more")
-    assert _inside(fig, renderer, more[0])
-    listed = _verdict_texts(fig)
-    assert len(listed) == MAX_VERDICTS
-    # every failed verdict is kept when some must go (failures: k % 3 == 0 -> 7 of 21)
-    assert sum(t.get_text().startswith("✗") for t in listed) == 7
-    # no "+N more" when everything fits
-    fig2 = verdict_card(dataclasses.replace(report, verdicts=_verdicts(MAX_VERDICTS)))
-    assert not [t for t in fig2.texts if t.get_text().startswith("+")]
+    ax = fig.axes[0]
+    marks = sorted(t.get_text() for t in ax.texts if t.get_text() in ("✓", "✗", "?"))
+    assert marks == sorted(["?", "✓", "?", "✗"])  # the fourth cell (motor_speed, feedback) has no verdict
+    (legend,) = fig.legends
+    assert any(t.get_text().startswith("cannot judge") for t in legend.get_texts())
+    assert "1 model test(s) failed" in ax.get_title(loc="left")
 
 
-def test_verdict_card_on_given_axes(report):
-    from matplotlib.figure import Figure
+def test_output_comparison_names_fits_in_a_box_and_units(report):
+    fig = output_comparison(report, model=_two_output_model().with_changes(output_units=("m/s", "rad/s")))
+    _, renderer = _render(fig)
+    full = fig.axes[0]
+    labels = full.get_legend_handles_labels()[1]
+    assert labels[:2] == ["measured", "simulated"]  # no figures in the legend
+    assert not any("%" in label or "fit" in label for label in labels)
+    (box,) = [t for t in full.texts if "held-out fit" in t.get_text()]
+    assert f"simulation {report.simulation_fit[0]:.1f} %" in box.get_text()
+    assert box.get_bbox_patch() is not None and _inside(fig, renderer, box)
+    assert "[m/s]" in full.get_ylabel() and "deviation" in full.get_ylabel()
+    in_sample = output_comparison(report, fit_label="in-sample fit")
+    assert any("in-sample fit" in t.get_text() for t in in_sample.axes[0].texts)
 
-    fig = Figure(figsize=(12, 6))
-    ax = fig.add_axes((0.1, 0.1, 0.2, 0.7))
-    assert verdict_card(report, ax=ax) is fig
-    assert len(_verdict_texts(fig)) == len(report.verdicts)
+
+def test_output_comparison_zoom_never_covers_a_short_record(report):
+    short = dataclasses.replace(report, n_samples=200, measured=report.measured[:200],
+                                simulated=report.simulated[:200], predicted=report.predicted[:200])
+    fig = output_comparison(short)
+    zoom = fig.axes[1]
+    n_zoom = len(zoom.lines[0].get_xdata())
+    assert 0 < n_zoom < 200 and n_zoom <= 50  # at most a quarter of the record
+
+
+def test_frequency_comparison_dense_model_curve_units_and_labelled_lines(report):
+    model = _two_output_model().with_changes(input_units=("N m",), output_units=("m/s", "rad/s"))
+    fig = frequency_comparison(report, output=0, model=model)
+    data, renderer = _render(fig)
+    ax_mag, ax_ph, ax_coh = fig.axes[:3]
+    model_line = [ln for ln in ax_mag.lines if ln.get_label() == "model"][0]
+    assert len(model_line.get_xdata()) == DENSE_POINTS
+    # the 25 Hz, damping 0.1 resonance: peak gain 1 / (2 zeta sqrt(1 - zeta^2)) = 5.025 (13.0 dB) for a
+    # unit-DC-gain second-order system (closed form); the dense grid draws it to within 0.1 dB
+    assert_allclose(np.max(model_line.get_ydata()), 20 * np.log10(1 / (2 * 0.1 * math.sqrt(1 - 0.01))), atol=0.1)
+    labels = _axis_labels(fig)
+    assert all("[" in text and "]" in text for text in labels), labels
+    right = [t for t in labels if "gain [m/s/(N m)]" in t]
+    assert right, labels  # gain in output unit per input unit beside the dB axis
+    # every line on the coherence panel is named in its legend
+    named = {t.get_text() for t in ax_coh.get_legend().get_texts()}
+    assert {ln.get_label() for ln in ax_coh.lines} <= named
+    for ax in fig.axes:
+        if ax.get_title(loc="right"):
+            assert _inside(fig, renderer, ax.title) and _inside(fig, renderer, ax._right_title)
 
 
 def _far_zero_model() -> StateSpaceModel:
@@ -149,26 +214,119 @@ def _far_zero_model() -> StateSpaceModel:
                            outputs=["platen_temp"])
 
 
+def _pole_labels(ax):
+    return [c for c in ax.get_children() if type(c).__name__ == "Annotation" and c.get_fontsize() == 7]
+
+
+def _no_overlap(boxes):
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j])
+
+
 def test_pole_map_lists_zeros_outside_the_view_and_keeps_labels_inside():
     table = mode_table(_far_zero_model())
     fig = pole_zero_map(table)
     data, renderer = _render(fig)
-    assert _png_size(data) == (640, 640)  # figsize 6.4 in at 100 dpi
     ax = fig.axes[0]
     assert ax.get_xlim()[1] < 2.0  # the view is not stretched by the far zeros
     note = [t for t in ax.texts if "outside the view" in t.get_text()]
     assert len(note) == 1 and "38" in note[0].get_text() and "69" in note[0].get_text()
-    labels = [t for t in ax.texts if t.get_text().endswith("Hz") or "outside" in t.get_text()]
-    labels += [c for c in ax.get_children() if type(c).__name__ == "Annotation"]
+    # slow poles 0.99, 0.94 and 0.92 crowd near z = 1: a second, zoomed map shows them
+    assert len(fig.axes) == 2 and _png_size(data) == (1280, 640)  # figsize 12.8 x 6.4 in at 100 dpi
+    zoom = fig.axes[1]
+    x0, x1 = zoom.get_xlim()
+    assert 0.9 < x0 < 0.92 and 0.99 < x1 < 1.05
+    for axis in fig.axes:
+        labels = _pole_labels(axis)
+        for t in labels:
+            assert _inside(fig, renderer, t), t.get_text()
+            # real poles are labelled with their time constant, never a frequency: with T = 5 s the
+            # Nyquist frequency is 0.1 Hz, and a real pole's corner frequency can lie above it
+            assert not t.get_text().endswith("Hz")
+        _no_overlap([t.get_window_extent(renderer) for t in labels])
+    zoom_texts = {t.get_text() for t in _pole_labels(zoom)}
+    # tau = -T / ln z (closed form): 0.99 -> 497.5 s, 0.94 -> 80.81 s, 0.92 -> 59.97 s
+    assert zoom_texts == {"τ 497 s", "τ 80.8 s", "τ 60 s"}
+    assert {t.get_text() for t in _pole_labels(ax)} == {"z = -0.3"}  # the crowded ones only in the zoom
+
+
+def _crowded_pairs_model() -> StateSpaceModel:
+    # Four lightly damped pairs at 1.0, 1.05, 1.1 and 1.15 Hz and a 3 s real mode, T = 10 ms (invented
+    # drive train): on the full map every label would sit on top of the others
+    # real modal form: one 2 x 2 rotation block per pair, so the poles are exact
+    n = 9
+    A = np.zeros((n, n))
+    for k, f_hz in enumerate((1.0, 1.05, 1.1, 1.15)):
+        wn = 2 * math.pi * f_hz
+        z = np.exp(complex(-0.05 * wn, wn * math.sqrt(1 - 0.05**2)) * 0.01)  # z = exp(sT), closed form
+        A[2 * k:2 * k + 2, 2 * k:2 * k + 2] = [[z.real, z.imag], [-z.imag, z.real]]
+    A[8, 8] = math.exp(-0.01 / 3.0)
+    B = np.ones((n, 1))
+    C = np.ones((1, n))
+    return StateSpaceModel(A=A, B=B, C=C, D=np.zeros((1, 1)), sample_time=0.01, inputs=["u"], outputs=["y"])
+
+
+def test_pole_map_zooms_on_crowded_pairs_and_separates_their_labels():
+    fig = pole_zero_map(mode_table(_crowded_pairs_model()))
+    _, renderer = _render(fig)
+    assert len(fig.axes) == 2
+    zoom = fig.axes[1]
+    labels = _pole_labels(zoom)
+    texts = sorted(t.get_text() for t in labels)
+    assert texts == sorted(["1 Hz, ζ 0.05", "1.05 Hz, ζ 0.05", "1.1 Hz, ζ 0.05", "1.15 Hz, ζ 0.05", "τ 3 s"])
     for t in labels:
-        assert _inside(fig, renderer, t), t.get_text()
-    pole_labels = [c for c in ax.get_children() if type(c).__name__ == "Annotation"
-                   and c.get_text().endswith("Hz") and c.get_fontsize() == 7]
-    boxes = [t.get_window_extent(renderer) for t in pole_labels]
-    assert len(boxes) == 4
-    for i in range(len(boxes)):
-        for j in range(i + 1, len(boxes)):
-            assert not boxes[i].overlaps(boxes[j]), (pole_labels[i].get_text(), pole_labels[j].get_text())
+        assert _inside(fig, renderer, t)
+    _no_overlap([t.get_window_extent(renderer) for t in labels])
+    assert all("[-]" in text for text in _axis_labels(fig))
+
+
+def test_pole_map_without_crowding_is_one_square_map():
+    fig = pole_zero_map(mode_table(_two_output_model()))
+    data, _ = _render(fig)
+    assert len(fig.axes) == 1 and _png_size(data) == (640, 640)
+
+
+def _binary_log(n: int, hold: int, seed: int = 3):
+    rng = np.random.default_rng(seed)
+    t = np.arange(n) * 1e-3
+    u = np.repeat(rng.choice([-1.0, 1.0], size=n // hold + 1), hold)[:n]
+    y = signal.lfilter([0.05], [1, -0.95], u)
+    return t, u, y
+
+
+def test_fast_binary_input_gets_a_zoom_where_transitions_show():
+    from ident.plots.signals import ZOOM_CROSSINGS, plot_signals, zoom_window
+
+    t, u, y = _binary_log(24_000, hold=2)
+    window = zoom_window([u, y])
+    assert window is not None
+    lo, hi = window
+    assert hi - lo <= 24_000 // 4  # never the whole record
+    crossings = np.count_nonzero(np.diff(u[lo:hi] > 0))
+    # about ZOOM_CROSSINGS transitions in the window (a random binary signal held 2 samples switches on
+    # average every 4 samples: closed form), so each is several pixels wide
+    assert ZOOM_CROSSINGS / 2 <= crossings <= 2 * ZOOM_CROSSINGS
+    fig = plot_signals(t, [("torque_cmd [N m]", u), ("speed [rad/s]", y)], roles=["input", "output"])
+    data, renderer = _render(fig)
+    assert len(fig.axes) == 4
+    zoom = fig.axes[1]
+    (line,) = zoom.lines
+    assert line.get_drawstyle().startswith("steps")
+    assert "zoom" in zoom.get_title(loc="left")
+    for ax in fig.axes:
+        for artist in (ax.title, ax._left_title, ax.yaxis.label, ax.xaxis.label):
+            if artist.get_text():
+                assert _inside(fig, renderer, artist)
+
+
+def test_slow_signals_need_no_zoom():
+    from ident.plots.signals import plot_signals, zoom_window
+
+    t, u, y = _binary_log(7_200, hold=200)
+    assert zoom_window([u, y]) is None
+    fig = plot_signals(t, [("duty [%]", u), ("temp [degC]", y)], roles=["input", "output"])
+    assert len(fig.axes) == 2
 
 
 def _texts_inside(fig, renderer):

@@ -232,3 +232,50 @@ def test_static_gain_realizations(form):
     out = realize(static, form)
     assert out.n_states == 0
     assert_allclose(out.D, [[2.0]], rtol=0)
+
+
+def test_balanced_truncation_matches_the_scipy_balanced_realization(rng):
+    # Moore (1981); Laub et al. (1987): the numpy-only truncation used by the search keeps
+    # the leading states of the balanced realisation computed with scipy's Lyapunov
+    # solvers (ident.lti.realization), up to the signs of the states: same Hankel singular
+    # values, same truncated transfer function, and the H-infinity error within twice the
+    # sum of the dropped Hankel singular values
+    from ident.lti.truncation import balanced_truncation, stein_gramian
+
+    poles = [0.95, 0.7, -0.3, 0.5 + 0.4j, 0.5 - 0.4j]
+    A = np.diag([0.95, 0.7, -0.3, 0.0, 0.0])
+    A[3:, 3:] = [[0.5, 0.4], [-0.4, 0.5]]
+    Q = rng.standard_normal((5, 5))
+    A = Q @ A @ np.linalg.inv(Q)
+    model = StateSpaceModel(A, rng.standard_normal((5, 2)), rng.standard_normal((2, 5)), np.zeros((2, 2)), 0.1)
+    assert_allclose(np.sort_complex(np.linalg.eigvals(A)), np.sort_complex(np.array(poles)), atol=1e-10)
+    reference = balanced_realization(model)
+    Wc = stein_gramian(A, model.B @ model.B.T)
+    assert_allclose(Wc, linalg.solve_discrete_lyapunov(A, model.B @ model.B.T), rtol=1e-7)  # cond(Q) ~ 1e2
+    hsv = reference.hankel_singular_values
+    full = balanced_truncation(model, 5)  # balanced, nothing dropped: both Gramians diag(hsv)
+    for W in (linalg.solve_discrete_lyapunov(full.A.T, full.C.T @ full.C),
+              linalg.solve_discrete_lyapunov(full.A, full.B @ full.B.T)):
+        assert_allclose(W, np.diag(hsv), rtol=1e-6, atol=1e-6 * hsv[0])
+    for r in (1, 3, 4):
+        small = balanced_truncation(model, r)
+        top = reference.model
+        leading = StateSpaceModel(top.A[:r, :r], top.B[:r], top.C[:, :r], top.D, 0.1)
+        for z in np.exp(1j * np.linspace(0.0, np.pi, 400)):
+            assert_allclose(_tf(small, z), _tf(leading, z), rtol=1e-6, atol=1e-9)
+        w = np.linspace(0.0, np.pi, 400)
+        err = max(np.linalg.norm(_tf(model, z) - _tf(small, z), 2) for z in np.exp(1j * w))
+        assert err <= 2 * hsv[r:].sum() * (1 + 1e-6)
+
+
+def _tf(model, z):
+    n = model.n_states
+    return model.C @ np.linalg.solve(z * np.eye(n) - model.A, model.B) + model.D
+
+
+def test_balanced_truncation_refuses_unstable_models():
+    from ident.lti.truncation import balanced_truncation
+
+    with pytest.raises(ModelError, match="stable"):
+        balanced_truncation(StateSpaceModel(np.diag([1.01, 0.5]), np.ones((2, 1)), np.ones((1, 2)),
+                                            np.zeros((1, 1)), 1.0), 1)

@@ -47,7 +47,8 @@ def write_pipeline(path: Path, log: str, extra: str = "") -> Path:
 
 
 def test_run_example_pipeline_exit_0(run_cli, tmp_path):
-    result = run_cli("run", REPO / "pipelines" / "heated_platen.toml", "--out", tmp_path, "--quiet")
+    result = run_cli("run", REPO / "pipelines" / "heated_platen.toml", "--out", tmp_path, "--quiet",
+                     "--allow-outside")  # the bundled pipeline reads ../sample_data
     assert result.exit_code == 0, result.stderr
     assert result.stdout.splitlines()[1].startswith("PASSED")
     report = Path(re.search(r"^report: (.+)$", result.stdout, re.M).group(1))
@@ -122,10 +123,17 @@ def _fake_checkout(root: Path) -> dict:
 
 
 def test_demo_runs_into_a_fresh_folder(run_cli, tmp_path, monkeypatch):
+    import shutil
+
     from ident.cli import demo_cmd
 
     _fake_checkout(tmp_path / "checkout")
-    monkeypatch.setattr(demo_cmd, "find_checkout", lambda: tmp_path / "checkout")
+
+    def fake_prepare(out: Path) -> Path:
+        shutil.copytree(tmp_path / "checkout", out, dirs_exist_ok=True)
+        return out
+
+    monkeypatch.setattr(demo_cmd, "prepare_demo", fake_prepare)
     out = tmp_path / "demo"
     result = run_cli("demo", "--out", out, "--quiet")
     assert result.exit_code == 0, result.stderr
@@ -144,16 +152,20 @@ def test_demo_runs_into_a_fresh_folder(run_cli, tmp_path, monkeypatch):
     assert again.exit_code == 2 and "not empty" in again.stderr
 
 
-def test_demo_without_a_checkout_exit_2(run_cli, tmp_path, monkeypatch):
-    import ident
+def test_demo_data_come_from_the_package_in_any_folder(tmp_path, monkeypatch):
+    # no checkout anywhere near: the installed package writes the logs and the pipeline files
+    from ident.cli.demo_cmd import DEMO_RUNS, prepare_demo
 
-    monkeypatch.setattr(ident, "__file__", str(tmp_path / "site" / "ident" / "__init__.py"))
+    repo = Path(__file__).resolve().parents[1]
     monkeypatch.chdir(tmp_path)
-    result = run_cli("demo", "--out", tmp_path / "demo")
-    assert result.exit_code == 2
-    assert "cannot find the demo pipelines" in result.stderr
-    assert "checkout" in result.stderr
-    assert not (tmp_path / "demo").exists()
+    out = prepare_demo(tmp_path / "elsewhere")
+    # the bundled generator writes exactly the committed sample data (sample_data/generate.py)
+    for name in ("belt_axis_before.csv", "belt_axis_after.csv", "heated_platen.csv", "truth.json"):
+        assert (out / "sample_data" / name).read_bytes() == (repo / "sample_data" / name).read_bytes(), name
+    # and the shipped pipeline files are the repository's pipelines/
+    for stem, _ in DEMO_RUNS:
+        assert (out / "pipelines" / f"{stem}.toml").read_text(encoding="utf-8") == \
+            (repo / "pipelines" / f"{stem}.toml").read_text(encoding="utf-8"), stem
 
 
 @pytest.mark.parametrize("command", ["run", "demo"])

@@ -4,7 +4,8 @@ Modes of the two models are paired by an optimal assignment on a cost that
 combines the relative frequency difference and the damping difference
 (:func:`scipy.optimize.linear_sum_assignment`); pairs whose cost exceeds a
 limit are reported as a vanished and an appeared mode instead. For every pair
-the shift of natural frequency and damping ratio is given, with a significance
+the shift of natural frequency and damping ratio is given (and of the time
+constant of a real mode, which real modes are judged by), with a significance
 test when both models carry pole uncertainties. DC gains, the largest
 frequency-response difference in the excited band, and (when a new log is
 given) how well each model explains the new data complete the comparison.
@@ -13,6 +14,7 @@ given) how well each model explains the new data complete the comparison.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -36,6 +38,7 @@ __all__ = [
     "DriftReport",
     "compare_models",
     "drift_report_to_dict",
+    "match_modes",
 ]
 
 #: How a mode of one model relates to the other model.
@@ -64,6 +67,11 @@ class DriftThresholds:
         Pairs of modes whose matching cost exceeds this are not paired. The cost is
         ``|ln(f_new / f_base)| + |zeta_new - zeta_base|``; the default 0.7 pairs modes
         within about a factor of two in frequency.
+    time_constant_shift_percent : float
+        Largest allowed change of a matched real (non-oscillating) mode's time
+        constant, in percent of the baseline time constant. Default 10. Real modes
+        are judged by their time constant, oscillations by their natural
+        frequency (``frequency_shift_percent``) and damping.
     """
 
     frequency_shift_percent: float = 10.0
@@ -72,10 +80,11 @@ class DriftThresholds:
     response_difference_db: float = 6.0
     new_modes_allowed: bool = True
     match_cost_limit: float = 0.7
+    time_constant_shift_percent: float = 10.0
 
     def __post_init__(self) -> None:
         for name in ("frequency_shift_percent", "damping_shift", "dc_gain_change_percent",
-                     "response_difference_db", "match_cost_limit"):
+                     "response_difference_db", "match_cost_limit", "time_constant_shift_percent"):
             object.__setattr__(self, name, positive_float(getattr(self, name), name))
         if not isinstance(self.new_modes_allowed, bool):
             raise OptionError(f"new_modes_allowed must be true or false; got {self.new_modes_allowed!r}")
@@ -113,6 +122,9 @@ class ModeShift:
         pin it down.
     breaches : tuple of str
         Which thresholds this mode exceeds.
+    time_constant_shift_s, time_constant_shift_percent : float or None
+        New minus baseline time constant of a matched real mode; ``None``
+        otherwise.
     """
 
     status: str
@@ -124,6 +136,8 @@ class ModeShift:
     z_score: float | None
     in_band: bool
     breaches: tuple[str, ...]
+    time_constant_shift_s: float | None = None
+    time_constant_shift_percent: float | None = None
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -190,11 +204,11 @@ class DriftReport:
         return not self.breaches
 
 
-def _log_freq(mode: Mode) -> float:
+def _log_freq(mode: Any) -> float:
     return math.log(max(mode.natural_frequency_hz or 0.0, 1e-300))
 
 
-def _damping(mode: Mode) -> float:
+def _damping(mode: Any) -> float:
     # an integrator (z = 1) has no damping ratio; it sits with the non-oscillating modes
     return 1.0 if mode.damping_ratio is None else mode.damping_ratio
 
@@ -208,7 +222,36 @@ def _comparable(modes: tuple[Mode, ...]) -> tuple[Mode, ...]:
 _PAIR_MISMATCH_COST = 10.0
 
 
-def _match(base: tuple[Mode, ...], new: tuple[Mode, ...], limit: float) -> list[tuple[int | None, int | None]]:
+def match_modes(base: Sequence[Any], new: Sequence[Any], limit: float) -> list[tuple[int | None, int | None]]:
+    """Pair the modes of two models by an optimal assignment on frequency and damping.
+
+    Parameters
+    ----------
+    base, new : sequence of Mode
+        The modes to pair; anything with ``natural_frequency_hz`` (not None),
+        ``damping_ratio`` (None for an integrator) and ``is_pair`` attributes.
+    limit : float
+        Pairs whose cost exceeds this are not paired
+        (:attr:`DriftThresholds.match_cost_limit`).
+
+    Returns
+    -------
+    list of (int or None, int or None)
+        Index pairs ``(i, j)`` of paired modes, then ``(i, None)`` for every
+        unpaired mode of ``base`` and ``(None, j)`` for every unpaired one of ``new``.
+
+    Notes
+    -----
+    The cost of pairing is ``|ln(f_new / f_base)| + |zeta_new - zeta_base|`` (a real
+    pole counts as damping ratio 1), plus 10 when a complex pair would meet a real
+    pole; the total cost of the one-to-one pairing is minimised exactly by
+    :func:`scipy.optimize.linear_sum_assignment` [1]_.
+
+    References
+    ----------
+    .. [1] H. W. Kuhn, "The Hungarian method for the assignment problem", Naval
+       Research Logistics Quarterly 2, 83-97, 1955.
+    """
     if not base or not new:
         return [(i, None) for i in range(len(base))] + [(None, j) for j in range(len(new))]
     cost = np.array(
@@ -247,7 +290,15 @@ def _breach_text(kind: str, s: ModeShift, th: DriftThresholds) -> str:
             f"{_damping(s.baseline):.3g} -> {_damping(s.new):.3g} ({s.damping_shift:+.3g}, "
             f"limit {th.damping_shift:g})"
         )
+    if kind == "time-constant shift":
+        return (
+            f"time-constant shift: real mode with time constant {s.baseline.time_constant_s:.4g} s -> "
+            f"{s.new.time_constant_s:.4g} s ({s.time_constant_shift_percent:+.1f} %, "
+            f"limit {th.time_constant_shift_percent:g} %)"
+        )
     m = s.baseline or s.new
+    if not m.is_pair and m.time_constant_s is not None:  # type: ignore[union-attr]
+        return f"{kind}: real mode with time constant {m.time_constant_s:.4g} s"  # type: ignore[union-attr]
     return f"{kind}: mode at {m.natural_frequency_hz:.4g} Hz"  # type: ignore[union-attr]
 
 
@@ -269,11 +320,18 @@ def _mode_shift(b: Mode | None, n: Mode | None, th: DriftThresholds, band_hz: tu
     sb, sn = _frequency_std(b), _frequency_std(n)
     z_score = df / math.hypot(sb, sn) if sb is not None and sn is not None and (sb or sn) else None
     breaches = []
-    if in_band and abs(df_pct) > th.frequency_shift_percent:
+    tb, tn = b.time_constant_s, n.time_constant_s
+    real = not b.is_pair and not n.is_pair and tb is not None and tn is not None and tb > 0
+    dtau = tn - tb if real else None
+    dtau_pct = 100.0 * dtau / tb if real else None
+    if real:
+        if in_band and abs(dtau_pct) > th.time_constant_shift_percent:
+            breaches.append("time-constant shift")
+    elif in_band and abs(df_pct) > th.frequency_shift_percent:
         breaches.append("frequency shift")
     if in_band and abs(dz) > th.damping_shift:
         breaches.append("damping shift")
-    return ModeShift("matched", b, n, df, df_pct, dz, z_score, in_band, tuple(breaches))
+    return ModeShift("matched", b, n, df, df_pct, dz, z_score, in_band, tuple(breaches), dtau, dtau_pct)
 
 
 def _response_difference(
@@ -386,7 +444,7 @@ def compare_models(
     new_modes = _comparable(mode_table(new, pole_covariance=new_pole_covariance).modes)
     shifts = tuple(
         _mode_shift(None if i is None else base_modes[i], None if j is None else new_modes[j], th, band_hz)
-        for i, j in _match(base_modes, new_modes, th.match_cost_limit)
+        for i, j in match_modes(base_modes, new_modes, th.match_cost_limit)
     )
     shifts = tuple(
         sorted(shifts, key=lambda s: (s.baseline or s.new).natural_frequency_hz)  # type: ignore[union-attr]
@@ -410,8 +468,8 @@ def compare_models(
     if (u is None) != (y is None):
         raise OptionError("give both u and y of the new log, or neither")
     if u is not None:
-        u = as_signal(u, "u")
-        y = as_signal(y, "y")
+        u = as_signal(u, "u", bounded=True)
+        y = as_signal(y, "y", bounded=True)
         old_fit = _fit_on(baseline, u, y)
         new_fit = _fit_on(new, u, y)
 
@@ -468,6 +526,8 @@ def drift_report_to_dict(report: DriftReport) -> dict:
                 "frequency_shift_hz": s.frequency_shift_hz,
                 "frequency_shift_percent": s.frequency_shift_percent,
                 "damping_shift": s.damping_shift,
+                "time_constant_shift_s": s.time_constant_shift_s,
+                "time_constant_shift_percent": s.time_constant_shift_percent,
                 "z_score": s.z_score,
                 "in_band": s.in_band,
                 "breaches": list(s.breaches),

@@ -13,8 +13,16 @@ or not, with the measured value. The statements come from a TOML table
 
     [[expect.mode]]            # a mode in a band (repeat for more modes)
     name = "belt resonance"    # optional label used in the report
-    frequency_hz = [25, 45]    # natural frequency band, Hz (required)
+    frequency_hz = [25, 45]    # natural frequency band, Hz
     damping_ratio = [0.01, 0.2]  # optional damping-ratio range
+
+    [[expect.mode]]            # a real (non-oscillating) mode, for thermal and process rigs
+    name = "platen heating"
+    time_constant_s = [300, 500]  # time-constant range, s
+
+A mode expectation gives ``frequency_hz`` (any mode whose natural frequency is
+in the band, optionally with ``damping_ratio``) or ``time_constant_s`` (a real
+mode whose time constant is in the range), not both.
 
     [[expect.dc_gain]]         # a steady-state gain (repeat per channel)
     input = "motor_torque_cmd" # may be left out when the model has one input
@@ -56,30 +64,35 @@ __all__ = [
 SIGNS: tuple[str, ...] = ("positive", "negative")
 
 _TOP_KEYS = ("stable", "max_order", "integrators", "no_mode_above_hz", "mode", "dc_gain")
-_MODE_KEYS = ("name", "frequency_hz", "damping_ratio")
+_MODE_KEYS = ("name", "frequency_hz", "damping_ratio", "time_constant_s")
 _GAIN_KEYS = ("input", "output", "sign", "range")
 
 
 @dataclass(frozen=True, slots=True, eq=False)
 class ModeExpectation:
-    """A mode expected in a natural-frequency band, optionally with a damping range.
+    """A mode expected in a natural-frequency band (with a damping range), or a real mode with a time constant.
 
     Attributes
     ----------
     name : str
         Label used in the report.
-    frequency_hz : tuple of float
-        Closed band ``(low, high)`` of the natural frequency, Hz.
+    frequency_hz : tuple of float or None
+        Closed band ``(low, high)`` of the natural frequency, Hz; ``None`` for a
+        time-constant expectation.
     damping_ratio : tuple of float or None
         Closed range ``(low, high)`` of the damping ratio, or ``None`` for any.
     key_path : str
         Where the expectation was stated, e.g. ``"expect.mode[1]"``.
+    time_constant_s : tuple of float or None
+        Closed range ``(low, high)`` of the time constant of a real mode, s; when
+        given, ``frequency_hz`` is ``None``.
     """
 
     name: str
-    frequency_hz: tuple[float, float]
+    frequency_hz: tuple[float, float] | None
     damping_ratio: tuple[float, float] | None
     key_path: str
+    time_constant_s: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -293,9 +306,18 @@ def _parse_mode(item: Any, key_path: str, source: str | None, index: int) -> Mod
     name = table.get("name", f"mode {index}")
     if not isinstance(name, str):
         _fail("must be a string", f"{key_path}.name", source, name)
-    if "frequency_hz" not in table:
-        _fail("missing key 'frequency_hz' (the natural-frequency band [low, high] in Hz)",
-              key_path, source)
+    if ("frequency_hz" in table) == ("time_constant_s" in table):
+        _fail("needs 'frequency_hz' (the natural-frequency band [low, high] in Hz) or 'time_constant_s' "
+              "(the time-constant range [low, high] in s of a real mode), one of them", key_path, source)
+    if "time_constant_s" in table:
+        tau = _interval(table["time_constant_s"], f"{key_path}.time_constant_s", source)
+        if tau[0] <= 0:
+            _fail("must be positive", f"{key_path}.time_constant_s", source, list(tau))
+        if "damping_ratio" in table:
+            _fail("applies to frequency_hz expectations only (a real mode has no damping ratio to check)",
+                  f"{key_path}.damping_ratio", source)
+        return ModeExpectation(name=name, frequency_hz=None, damping_ratio=None, key_path=key_path,
+                               time_constant_s=tau)
     band = _interval(table["frequency_hz"], f"{key_path}.frequency_hz", source)
     if band[0] < 0:
         _fail("must not be negative", f"{key_path}.frequency_hz", source, list(band))
@@ -449,7 +471,33 @@ def _describe(mode) -> str:
     return f"mode at {_fmt(mode.natural_frequency_hz)} Hz, damping ratio {zeta}"
 
 
+def _check_time_constant(me: ModeExpectation, table: ModeTable) -> ExpectationResult:
+    lo, hi = me.time_constant_s
+    expected = f"a real mode with time constant in {_band(me.time_constant_s)} s"
+    candidates = [m for m in table.modes if not m.is_pair and m.time_constant_s is not None]
+    centre = math.sqrt(lo * hi)  # time constants spread over decades: the geometric centre
+
+    def distance(m) -> float:
+        return abs(math.log(m.time_constant_s / centre))
+
+    in_range = [m for m in candidates if lo <= m.time_constant_s <= hi]
+    if in_range:
+        best = min(in_range, key=distance)
+        measured, met = f"real mode with time constant {_fmt(best.time_constant_s)} s", True
+    elif candidates:
+        best = min(candidates, key=distance)
+        measured, met = f"no real mode in the range; nearest: time constant {_fmt(best.time_constant_s)} s", False
+    else:
+        best, measured, met = None, "the model has no real modes", False
+    return ExpectationResult(
+        name=f"mode {me.name!r}", key_path=me.key_path, met=met, measured=measured, expected=expected,
+        measured_value=None if best is None else best.time_constant_s,
+    )
+
+
 def _check_mode(me: ModeExpectation, table: ModeTable) -> ExpectationResult:
+    if me.time_constant_s is not None:
+        return _check_time_constant(me, table)
     lo, hi = me.frequency_hz
     expected = f"natural frequency in {_band(me.frequency_hz)} Hz"
     if me.damping_ratio is not None:

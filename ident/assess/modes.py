@@ -62,12 +62,14 @@ class ModeThresholds:
         is flagged ``marginal``; one with ``|z - 1| <= marginal_tolerance`` is
         also flagged ``integrator``. At a sample rate of 1 kHz, 1e-3 is a time
         constant of about one second or more.
-    lightly_damped_below : float, default 0.02
+    lightly_damped_below : float, default 0.07
         An oscillatory mode (a complex pair) with damping ratio below this is
-        flagged ``lightly_damped``. 0.02 is about the damping of a bare steel or
-        aluminium structure (quality factor 25); a fitted mode this lightly
-        damped needs a log long enough to show many cycles of its decay, and
-        it is often a narrow-band disturbance (a mains hum, a rotating
+        flagged ``lightly_damped``. In servo work a damping ratio below about
+        0.05-0.1 is commonly called light (common practice, no single source):
+        such a resonance (a belt, a coupling, a long shaft) limits the speed
+        loop's bandwidth and usually needs a notch filter. A fitted mode this
+        lightly damped also needs a log long enough to show many cycles of its
+        decay, and it may be a narrow-band disturbance (a mains hum, a rotating
         imbalance) rather than a property of the plant.
     nyquist_fraction : float, default 0.8
         A mode whose natural frequency is at least this fraction of the Nyquist
@@ -104,7 +106,7 @@ class ModeThresholds:
 
     stability_tolerance: float = 1e-6
     marginal_tolerance: float = 1e-3
-    lightly_damped_below: float = 0.02
+    lightly_damped_below: float = 0.07
     nyquist_fraction: float = 0.8
     log_duration_fraction: float = 0.2
     cancellation_distance: float = 0.01

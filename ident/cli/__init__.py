@@ -18,7 +18,7 @@ import sys
 import click
 
 from ..errors import IdentError
-from ._common import DataError, run_guarded
+from ._common import DataError, Interrupted, run_guarded
 
 __all__ = ["cli", "main", "DataError"]
 
@@ -31,6 +31,7 @@ _COMMANDS: dict[str, str] = {
     "check": "check_cmd:check",
     "drift": "drift_cmd:drift",
     "run": "run_cmd:run",
+    "fleet": "fleet_cmd:fleet",
     "demo": "demo_cmd:demo",
     "excite": "excite_cmd:excite",
 }
@@ -43,6 +44,7 @@ _SHORT_HELP: dict[str, str] = {
     "check": "Validate a model on a log: fit percent, residual whiteness, spectra.",
     "drift": "Compare a model with a baseline model after a hardware change.",
     "run": "Run a pipeline file end to end into a new run folder with a report.",
+    "fleet": "Run one pipeline on every unit's log (on Dask) and find the odd units out.",
     "demo": "Run the bundled demo pipelines on the sample data.",
     "excite": "Design a test signal (PRBS, multisine, chirp, ...) and write it for the rig.",
 }
@@ -71,6 +73,8 @@ class _LazyGroup(click.Group):
             raise DataError(str(exc), getattr(exc, "hint", None)) from exc
         except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
             raise DataError(f"{exc.filename}: {exc.strerror}") from exc
+        except KeyboardInterrupt:
+            raise Interrupted() from None
 
     def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
         rows = [(name, _SHORT_HELP.get(name, "")) for name in self.list_commands(ctx)]

@@ -11,12 +11,12 @@ def periodic_options(command: Any) -> Any:
     """Add ``--period auto|none|SECONDS`` and ``--signal-description FILE.json``."""
     decorators = [
         click.option("--period", "period_text", default="auto", show_default=True, metavar="auto|none|S",
-                     help="Period of a periodic input in seconds; 'auto' detects it from the input (used when "
-                          "the log holds at least 3 periods), 'none' treats the input as not periodic."),
+                     help="Take this period of a periodic input, in seconds; 'auto' detects it from the input (used "
+                          "when the log holds at least 3 periods), 'none' treats the input as not periodic."),
         click.option("--signal-description", "description_path", type=click.Path(dir_okay=False), default=None,
                      metavar="FILE.json",
-                     help="Description of the test signal written by 'rigfit excite --describe': period, "
-                          "transient periods, blocks and excited lines."),
+                     help="Read the test signal's period, transient periods, blocks and excited lines from this "
+                          "description written by 'rigfit excite --describe'."),
     ]
     for deco in reversed(decorators):
         command = deco(command)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import re
 from dataclasses import dataclass
 from typing import Any
@@ -110,8 +111,11 @@ def check(
         )
     inputs = _columns(input_columns, model.inputs, "--input", "inputs")
     outputs = _columns(output_columns, model.outputs, "--output", "outputs")
-    log = _read(log_path, inputs, outputs, read_log_kwargs(locals()))
+    log, time_note = _read_with_model_rate(log_path, inputs, outputs, read_log_kwargs(locals()), model.sample_time)
     _check_sample_time(log.sample_time, model.sample_time, log_path, model_path)
+    if plot_dir is not None:
+        _check_plot_dir(plot_dir, _figure_names(model.inputs, model.outputs), force=force,
+                        protected=(log_path, model_path))
     where = _record(log, range_from, range_to, log_path)
     data = _deviations(log, model, model_path, where)
     periodic = analyse_log_periods(data["u"], data["y"], log.sample_time, period_text, description_path,
@@ -120,7 +124,7 @@ def check(
 
     written: list[str] = []
     if plot_dir is not None:
-        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path))
+        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path), model=model)
     periodic_record = None
     if periodic is not None:
         from ..estimate.periodic_check import periodic_summary
@@ -129,14 +133,18 @@ def check(
     if as_json:
         payload = report_to_dict(report)
         payload.update({"log": log_path, "model": model_path, "figures": written, "periodic": periodic_record,
-                        "columns": {"inputs": list(inputs), "outputs": list(outputs)},
+                        "columns": {"inputs": list(log.input_names), "outputs": list(log.output_names)},
+                        "sample_time_from_model": time_note is not None,
                         "segment": {"start": where.start, "stop": where.stop, "n_segments": len(log.segments),
                                     "dropped_rows": log.dropped_rows, "warmup": where.start - where.segment_start,
                                     "time_s": [float(log.time[where.start]), float(log.time[where.stop - 1])]}})
         echo_json(payload)
     else:
-        click.echo(report_text(report, log_path=log_path, model_path=model_path, where=where.text,
-                               periodic=periodic_record))
+        import dataclasses
+
+        shown = dataclasses.replace(report, inputs=tuple(log.input_names), outputs=tuple(log.output_names))
+        click.echo(report_text(shown, log_path=log_path, model_path=model_path, where=where.text,
+                               periodic=periodic_record, mapping=_mapping_line(model, log), time_note=time_note))
         if where.note is not None:
             click.echo(f"note: {where.note}")
         if log.dropped_rows:
@@ -263,6 +271,30 @@ def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], perio
                           in_sample_fit=_in_sample_fit(loaded, model), lines=lines, zero_phase_filtered=resampled)
 
 
+def _read_with_model_rate(path: str, inputs: tuple, outputs: tuple, log_kwargs: dict[str, Any],
+                          model_T: float) -> tuple[Any, str | None]:
+    """Read the log; without a time column (and no --time/--sample-rate) use the model's sample time."""
+    from ..errors import LogFormatError
+
+    try:
+        return _read(path, inputs, outputs, log_kwargs), None
+    except LogFormatError as exc:
+        if not exc.reason.startswith("no time column") or log_kwargs.get("sample_rate") or log_kwargs.get("time"):
+            raise
+    log = _read(path, inputs, outputs, {**log_kwargs, "sample_rate": 1.0 / model_T})
+    return log, f"the log has no time column: sample time {model_T:g} s ({1 / model_T:g} Hz) from the model file"
+
+
+def _mapping_line(model: Any, log: Any) -> str:
+    """``model signal <- log column`` for every signal, units as the log gives them."""
+    def pairs(names, columns, units):
+        return ", ".join(f"{c}{f' [{u}]' if u else ''}" + (f" (model {n})" if n != c else "")
+                         for n, c, u in zip(names, columns, units, strict=True))
+
+    return (f"log columns: inputs {pairs(model.inputs, log.input_names, log.input_units)}; "
+            f"outputs {pairs(model.outputs, log.output_names, log.output_units)}")
+
+
 def _columns(given: tuple[str, ...], names: tuple[str, ...], option: str, what: str) -> tuple:
     from ..errors import OptionError
 
@@ -327,14 +359,19 @@ def _check_sample_time(log_T: float, model_T: float, log_path: str, model_path: 
 
 
 def report_text(report: Any, *, log_path: str = "", model_path: str = "", where: str = "",
-                periodic: dict[str, Any] | None = None) -> str:
-    """Human-readable summary of a validation report."""
+                periodic: dict[str, Any] | None = None, mapping: str | None = None,
+                time_note: str | None = None) -> str:
+    """Human-readable summary of a validation report (signal names as the report holds them)."""
     T = report.sample_time
     lines = []
     if log_path or model_path:
         lines.append(f"check of {model_path} on {log_path}")
     lines.append(f"  {report.n_samples} samples at {1 / T:g} Hz" + (f": {where}" if where else ""))
     lines.append(f"  {report.headline}")
+    if mapping:
+        lines.append(f"  {mapping}")
+    if time_note:
+        lines.append(f"  note: {time_note}")
     lines.append("")
     lines += _fit_lines(report)
     lines.append("")
@@ -438,40 +475,85 @@ def _safe(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("._") or "signal"
 
 
-def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple) -> list[str]:
+def _figure_names(inputs: tuple[str, ...], outputs: tuple[str, ...]) -> dict[tuple, str]:
+    """File name of every figure, unique even where signal names map to the same text.
+
+    Keys: ``("outputs",)``, ``("verdicts",)``, ``("residuals", i)`` and
+    ``("response", i, j)``. ``y a`` and ``y_a`` both become ``y_a``, and ``Y``
+    and ``y`` collide on case-insensitive file systems: later ones get ``-2``,
+    ``-3``, ...; a long name is cut and given a hash of the full name.
+    """
+    import hashlib
+
+    def short(name: str) -> str:
+        safe = _safe(name)
+        if len(safe) > 60:
+            safe = safe[:50] + "-" + hashlib.sha256(name.encode("utf-8", "replace")).hexdigest()[:8]
+        return safe
+
+    wanted: list[tuple[tuple, str]] = [(("outputs",), "outputs"), (("verdicts",), "verdicts")]
+    for i, oname in enumerate(outputs):
+        wanted.append((("residuals", i), f"residuals_{short(oname)}"))
+        for j, iname in enumerate(inputs):
+            wanted.append((("response", i, j), f"response_{short(iname)}_to_{short(oname)}"))
+    names: dict[tuple, str] = {}
+    taken: set[str] = set()
+    for key, stem in wanted:
+        candidate, k = stem, 1
+        while candidate.lower() in taken:
+            k += 1
+            candidate = f"{stem}-{k}"
+        taken.add(candidate.lower())
+        names[key] = candidate + ".png"
+    return names
+
+
+def _check_plot_dir(folder: str, names: dict[tuple, str], *, force: bool, protected: tuple) -> None:
+    """Refuse the figure folder before any work: not a folder, existing files, names too long."""
+    from pathlib import Path
+
+    from ..io.atomic import check_new_folder, check_output_paths
+
+    target = Path(folder)
+    check_new_folder(target, longest_name=max(names.values(), key=len))
+    if os.path.isdir(target):
+        check_output_paths([target / n for n in names.values()], force=force, protected=protected)
+
+
+def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple, model: Any = None) -> list[str]:
+    """Draw every figure, then write them all or none (a folder created here goes again on failure)."""
     import io
+    import shutil
     from pathlib import Path
 
     import matplotlib
 
     matplotlib.use("Agg")
-    from ..io.atomic import check_output_path, write_atomic
+    from ..io.atomic import write_many
     from ..plots import validation as vplots
 
     target = Path(folder)
-    if target.exists() and not target.is_dir():
-        from ..errors import IdentError
-
-        raise IdentError(f"{folder}: exists and is not a folder")
-    jobs: list[tuple[Path, Any]] = [
-        (target / "outputs.png", lambda: vplots.output_comparison(report)),
-        (target / "verdicts.png", lambda: vplots.verdict_card(report)),
+    names = _figure_names(tuple(report.inputs), tuple(report.outputs))
+    jobs: list[tuple[str, Any]] = [
+        (names[("outputs",)], lambda: vplots.output_comparison(report, model=model)),
+        (names[("verdicts",)], lambda: vplots.verdict_grid(report)),
     ]
-    for i, oname in enumerate(report.outputs):
-        jobs.append((target / f"residuals_{_safe(oname)}.png",
-                     lambda i=i: vplots.residual_correlations(report, output=i)))
-        for j, iname in enumerate(report.inputs):
-            jobs.append((target / f"response_{_safe(iname)}_to_{_safe(oname)}.png",
-                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j)))
-    if target.is_dir():
-        for path, _ in jobs:  # refuse before writing anything
-            check_output_path(path, force=force, protected=protected)
-    target.mkdir(parents=True, exist_ok=True)
-    written = []
-    for path, make in jobs:
-        fig = make()
+    for i in range(len(report.outputs)):
+        jobs.append((names[("residuals", i)], lambda i=i: vplots.residual_correlations(report, output=i)))
+        for j in range(len(report.inputs)):
+            jobs.append((names[("response", i, j)],
+                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j, model=model)))
+    images = []
+    for name, make in jobs:
         buffer = io.BytesIO()
-        fig.savefig(buffer, format="png", dpi=110)
-        write_atomic(path, buffer.getvalue(), force=force, protected=protected)
-        written.append(str(path))
-    return written
+        make().savefig(buffer, format="png", dpi=110)
+        images.append((target / name, buffer.getvalue()))
+    created = next((p for p in reversed((target, *target.parents)) if not p.exists()), None)
+    target.mkdir(parents=True, exist_ok=True)
+    try:
+        written = write_many(images, force=force, protected=protected)
+    except BaseException:
+        if created is not None:
+            shutil.rmtree(created, ignore_errors=True)
+        raise
+    return [str(p) for p in written]

@@ -53,11 +53,16 @@ def convert(
       rigfit convert model.json --to continuous --json
       rigfit convert model.json --to ss --realization modal -o modal.json
     """
+    from ..display import state_space_text, transfer_function_text
     from ..io.modelfile import load_model, model_to_dict, save_model
     from ..lti.convert import ss_to_tf
     from ..lti.discretize import to_continuous, to_discrete
     from ..lti.realization import realize
 
+    if out_path is not None and target != "tf":
+        from ..io.atomic import check_output_path
+
+        check_output_path(out_path, force=force, protected=(model_path,))  # before any work
     loaded = load_model(model_path)
     model = loaded.model
     if target in ("tf", "ss") and method != "zoh":
@@ -80,7 +85,7 @@ def convert(
         if as_json:
             echo_json(_tf_json(tf))
         else:
-            click.echo(_tf_text(tf))
+            click.echo(transfer_function_text(tf))
         return
     if target == "ss":
         result = realize(model, realization) if realization else model
@@ -111,7 +116,7 @@ def convert(
     if as_json:
         echo_json(model_to_dict(result, provenance))
     elif out_path is None:
-        click.echo(_ss_text(result))
+        click.echo(state_space_text(result))
 
 
 def _tf_json(tf) -> dict:
@@ -123,108 +128,3 @@ def _tf_json(tf) -> dict:
                  "den": [float(c) for c in tf.den[i][j]]}
             )
     return {"sample_time": tf.sample_time, "channels": channels}
-
-
-def _poly_text(coeffs, var: str) -> str:
-    import numpy as np
-
-    coeffs = np.asarray(coeffs, dtype=float)
-    degree = coeffs.size - 1
-    terms = []
-    for k, c in enumerate(coeffs):
-        power = degree - k
-        if c == 0 and coeffs.size > 1:
-            continue
-        mag = f"{abs(c):.6g}"
-        if power == 0:
-            body = mag
-        else:
-            body = (var if mag == "1" else f"{mag} {var}") + (f"^{power}" if power > 1 else "")
-        sign = "-" if c < 0 else "+"
-        terms.append((sign, body))
-    if not terms:
-        return "0"
-    first_sign, first = terms[0]
-    text = ("-" if first_sign == "-" else "") + first
-    for sign, body in terms[1:]:
-        text += f" {sign} {body}"
-    return text
-
-
-def _roots_text(values) -> str:
-    if len(values) == 0:
-        return "none"
-    parts = []
-    for v in sorted(values, key=lambda c: (abs(c), c.imag)):
-        if abs(v.imag) <= 1e-12 * max(1.0, abs(v)):
-            parts.append(f"{v.real:.6g}")
-        else:
-            parts.append(f"{v.real:.6g}{v.imag:+.6g}j")
-    return ", ".join(parts)
-
-
-def _tf_text(tf) -> str:
-    import numpy as np
-
-    var = "z" if tf.sample_time is not None else "s"
-    time_text = f"discrete time, sample time {tf.sample_time:g} s" if tf.sample_time else "continuous time"
-    lines = [f"transfer functions ({time_text}; polynomials in descending powers of {var})", ""]
-    for i, out in enumerate(tf.outputs):
-        for j, inp in enumerate(tf.inputs):
-            num, den = tf.num[i][j], tf.den[i][j]
-            nz = np.trim_zeros(num, "f")
-            gain = float(nz[0]) if nz.size else 0.0
-            zeros = np.roots(nz) if nz.size > 1 else np.array([])
-            poles = np.roots(den) if den.size > 1 else np.array([])
-            unit_in = f" [{tf.input_units[j]}]" if tf.input_units[j] else ""
-            unit_out = f" [{tf.output_units[i]}]" if tf.output_units[i] else ""
-            lines.append(f"{inp}{unit_in} -> {out}{unit_out}")
-            num_text, den_text = _poly_text(num, var), _poly_text(den, var)
-            width = max(len(num_text), len(den_text))
-            lines.append(f"    {num_text.center(width)}")
-            lines.append(f"    {'-' * width}")
-            lines.append(f"    {den_text.center(width)}")
-            lines.append(f"  gain {gain:.6g}; zeros: {_roots_text(zeros)}")
-            lines.append(f"  poles: {_roots_text(poles)}")
-            lines.append("")
-    return "\n".join(lines).rstrip()
-
-
-def _matrix_text(name: str, matrix, rows: list[str], cols: list[str]) -> list[str]:
-    if matrix.size == 0:
-        return [f"{name}: empty ({matrix.shape[0]} x {matrix.shape[1]})"]
-    cells = [[f"{v:.6g}" for v in row] for row in matrix]
-    width = max(12, *(len(c) for row in cells for c in row), *(len(c) for c in cols))
-    label_w = max(len(r) for r in rows)
-    out = [f"{name} ({matrix.shape[0]} x {matrix.shape[1]})"]
-    out.append(" " * (label_w + 2) + "".join(c.rjust(width + 1) for c in cols))
-    for label, row in zip(rows, cells, strict=True):
-        out.append(f"  {label.ljust(label_w)}" + "".join(c.rjust(width + 1) for c in row))
-    return out
-
-
-def _ss_text(model) -> str:
-    states = [f"x{k + 1}" for k in range(model.n_states)]
-    ins, outs = list(model.inputs), list(model.outputs)
-    if model.sample_time is not None:
-        head = f"state-space model, discrete time, sample time {model.sample_time:g} s"
-        eq = "x[k+1] = A x[k] + B u[k];  y[k] = C x[k] + D u[k]"
-    else:
-        head = "state-space model, continuous time"
-        eq = "dx/dt = A x + B u;  y = C x + D u"
-    lines = [head, f"  {eq}", f"  {model.n_states} states, inputs {ins}, outputs {outs}", ""]
-    for name, mat, rows, cols in (
-        ("A", model.A, states, states),
-        ("B", model.B, states, ins),
-        ("C", model.C, outs, states),
-        ("D", model.D, outs, ins),
-    ):
-        lines += _matrix_text(name, mat, rows, cols) + [""]
-    op = model.operating_point
-    if op is not None:
-        lines.append("operating point (the model maps deviations from these levels):")
-        for name, unit, v in zip(ins, model.input_units, op.inputs, strict=True):
-            lines.append(f"  {name} = {v:.6g} {unit}".rstrip())
-        for name, unit, v in zip(outs, model.output_units, op.outputs, strict=True):
-            lines.append(f"  {name} = {v:.6g} {unit}".rstrip())
-    return "\n".join(lines).rstrip()

@@ -17,7 +17,9 @@ from ._common import GateFailed, echo_json, log_options, read_log_kwargs
               help="Band [Hz] for the frequency-response comparison (default: the log's excited band, "
                    "else 0.001 to 0.8 Nyquist).")
 @click.option("--max-frequency-shift", "frequency_shift_percent", type=float, default=10.0, show_default=True,
-              help="Largest allowed mode frequency shift [%].")
+              help="Largest allowed shift of an oscillation's natural frequency [%].")
+@click.option("--max-time-constant-shift", "time_constant_shift_percent", type=float, default=10.0,
+              show_default=True, help="Largest allowed change of a real mode's time constant [%].")
 @click.option("--max-damping-shift", "damping_shift", type=float, default=0.05, show_default=True,
               help="Largest allowed absolute damping-ratio change.")
 @click.option("--max-gain-change", "dc_gain_change_percent", type=float, default=20.0, show_default=True,
@@ -39,6 +41,7 @@ def drift(
     upsample: str | None,
     band_hz: tuple[float, float] | None,
     frequency_shift_percent: float,
+    time_constant_shift_percent: float,
     damping_shift: float,
     dc_gain_change_percent: float,
     response_difference_db: float,
@@ -59,6 +62,7 @@ def drift(
     new_cov = new_file.pole_covariance()
     thresholds = DriftThresholds(
         frequency_shift_percent=frequency_shift_percent,
+        time_constant_shift_percent=time_constant_shift_percent,
         damping_shift=damping_shift,
         dc_gain_change_percent=dc_gain_change_percent,
         response_difference_db=response_difference_db,
@@ -106,6 +110,14 @@ def drift_text(report) -> str:
         zscore = f"{s.z_score:+.2g}" if s.z_score is not None else "-"
         note = ", ".join(s.breaches) + (" !" if s.breaches else "") + ("" if s.in_band else "outside the band")
         lines.append(f"  {s.status:<9}{fb:>13}{fn:>13}{shift:>11}{zscore:>9}{zb:>11}{zn:>10}  {note}".rstrip())
+    taus = [s for s in report.mode_shifts if s.time_constant_shift_percent is not None]
+    if taus:
+        lines.append("real modes (judged by their time constant)")
+        lines.append(f"  {'tau base [s]':>14}{'tau new [s]':>13}{'shift [%]':>11}  note")
+        for s in taus:
+            note = ", ".join(s.breaches) + (" !" if s.breaches else "") + ("" if s.in_band else "outside the band")
+            lines.append(f"  {s.baseline.time_constant_s:>14.4g}{s.new.time_constant_s:>13.4g}"
+                         f"{s.time_constant_shift_percent:>+11.1f}  {note}".rstrip())
     if any(s.z_score is not None for s in report.mode_shifts):
         lines.append("  z-score: frequency shift / its standard uncertainty from both models' pole "
                      "covariances; beyond +-2 the shift is significant at about 95 %")

@@ -129,8 +129,8 @@ _OPTION = {"out_path": "-o", "describe_path": "--describe", "plot_path": "--plot
 
 def _write_outputs(signal: Any, names: tuple[str, ...], units: tuple[str, ...], targets: dict[str, str],
                    force: bool) -> dict[str, str]:
-    """Render every output first, then write them (temporary file and rename each)."""
-    from ..io.atomic import write_atomic
+    """Render every output first, then write them all or none (temporary files, then renames)."""
+    from ..io.atomic import write_many
     from ..io.signalfile import describe_signal, dumps_description, signal_csv_text
 
     csv_text = signal_csv_text(signal, names, units)
@@ -141,11 +141,8 @@ def _write_outputs(signal: Any, names: tuple[str, ...], units: tuple[str, ...], 
         files.append(("description", targets["describe_path"], dumps_description(description)))
     if "plot_path" in targets:
         files.append(("plot", targets["plot_path"], _plot_png(signal, names, units)))
-    written = {}
-    for label, path, data in files:
-        write_atomic(path, data, force=force)
-        written[label] = path
-    return written
+    write_many([(path, data) for _, path, data in files], force=force)  # all or nothing
+    return {label: path for label, path, _ in files}
 
 
 def _plot_png(signal: Any, names: tuple[str, ...], units: tuple[str, ...]) -> bytes:

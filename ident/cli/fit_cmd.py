@@ -7,7 +7,7 @@ from typing import Any
 
 import click
 
-from ..choices import METHODS, REFINEMENTS, WEIGHTINGS
+from ..choices import METHODS, OFFSET_METHODS, REFINEMENTS, WEIGHTINGS
 from ._common import echo_json, log_options, progress_enabled, read_log_kwargs
 from ._periodic import analyse_log_periods, periodic_lines, periodic_options
 
@@ -48,47 +48,68 @@ def _parse_order(value: str) -> int | None:
 @click.command()
 @click.argument("log_path", metavar="LOG", type=click.Path(dir_okay=False))
 @click.option("--input", "inputs", multiple=True, required=True, metavar="NAME",
-              help="Input column (repeatable; the order is kept): a name, group/name, a pattern "
-                   "such as 'u*' (every match, in file order) or a position such as '#2'.")
+              help="Use this column as an input. Give a name, group/name, a pattern such as 'u*' (every "
+                   "match, in file order) or a position such as '#2'; repeat the option for more "
+                   "inputs, whose order is kept.")
 @click.option("--output", "outputs", multiple=True, required=True, metavar="NAME",
-              help="Output column (repeatable; the order is kept), chosen as --input.")
+              help="Use this column as an output. It is chosen as --input is, and the option can be repeated.")
 @log_options
 @click.option("--method", type=click.Choice(METHODS), default="auto", show_default=True,
-              help="Model family. 'auto' fits ARX and subspace candidates and refines the best; "
+              help="Choose the model family. 'auto' fits ARX and subspace candidates and refines the best; "
                    "'arx' keeps least-squares ARX models; 'subspace' starts from subspace estimates only.")
 @click.option("--order", "order_text", default="auto", show_default=True, metavar="N|auto",
-              help="Model order (ARX: na = nb = N; otherwise N states), or 'auto' to select it. "
+              help="Fit this model order (ARX: na = nb = N; otherwise N states), or select it with 'auto'. "
                    "A fixed order is always fitted; weak excitation only gives a warning.")
 @click.option("--max-order", type=int, default=10, show_default=True, metavar="N",
-              help="Largest order tried with --order auto.")
+              help="Try orders up to this one when the order is selected automatically.")
 @click.option("--delay", type=int, default=None, metavar="SAMPLES",
-              help="Input delay in samples for every input. By default the delays estimated from "
-                   "the data are tried together with 0 and 1 sample.")
+              help="Use this input delay in samples for every input. By default the delays estimated "
+                   "from the data are tried together with 0 and 1 sample.")
 @click.option("--refine", "refinement", type=click.Choice(REFINEMENTS), default="auto", show_default=True,
-              help="What the refinement of the best candidates minimises: the simulation error "
+              help="Choose what the refinement of the best candidates minimises: the simulation error "
                    "('output_error', what 'auto' does), the one-step prediction error with a noise "
                    "model ('innovations', for logs taken in closed loop), or nothing ('none').")
 @click.option("--weighting", type=click.Choice(WEIGHTINGS), default=None,
-              help="Subspace weighting. By default all three are tried.")
+              help="Use only this subspace weighting. By default all three are tried.")
 @click.option("--horizon", type=int, default=None, metavar="N",
-              help="Subspace past and future horizon. By default the horizon for --max-order and "
-                   "twice it are tried.")
+              help="Use this past and future horizon for the subspace estimates. By default the horizon "
+                   "for --max-order and twice it are tried.")
 @click.option("--stabilize", is_flag=True,
-              help="Reflect unstable poles of direct subspace estimates into the unit circle.")
+              help="Reflect unstable poles of the direct subspace estimates into the unit circle.")
+@click.option("--reference", "references", multiple=True, metavar="NAME",
+              help="Fit through this column, the set point a controller acted on (repeatable): the "
+                   "plant is then estimated from the part of the input the reference explains (the "
+                   "two-stage method for logs taken in closed loop).")
 @click.option("--holdout", type=float, default=0.3, show_default=True, metavar="FRACTION",
-              help="Fraction at the end of the log (of each segment) held out for validation.")
+              help="Hold out this fraction at the end of the log (of each segment) for validation.")
 @click.option("--validate-with", "validation_path", type=click.Path(dir_okay=False), default=None, metavar="LOG",
               help="Hold out this whole separate log (same columns, read the same way) instead of the tail "
                    "of LOG: LOG is used whole for estimation.")
 @periodic_options
-@click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part.")
+@click.option("--offset", type=click.Choice(OFFSET_METHODS), default="mean", show_default=True,
+              help="Take the operating point as the mean of the estimation part ('mean') or as the "
+                   "level at its start ('initial', averaged over --initial-window).")
+@click.option("--initial-window", "initial_window_s", type=float, default=None, metavar="S",
+              help="Average the first S seconds for --offset initial. By default a short window "
+                   "is chosen from the data.")
+@click.option("--significance", type=float, default=0.05, show_default=True, metavar="P",
+              help="Use this level for the held-out test that decides whether a simpler model is "
+                   "as accurate as the best one.")
+@click.option("--refine-count", type=int, default=4, show_default=True, metavar="N",
+              help="Refine this many of the best candidates.")
+@click.option("--per-criterion", type=int, default=3, show_default=True, metavar="N",
+              help="Shortlist this many ARX structures by each of AIC, BIC and FPE.")
+@click.option("--screen-samples", type=int, default=20_000, show_default=True, metavar="N",
+              help="Fit and score the candidates on at most this many estimation and validation "
+                   "samples each; the chosen model is then polished on all the data.")
+@click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part from every signal.")
 @click.option("--decimate", type=int, default=1, show_default=True, metavar="Q",
-              help="Low-pass filter and keep every Q-th sample before fitting.")
+              help="Low-pass filter the signals and keep every Q-th sample before fitting.")
 @click.option("-o", "--model-out", "model_out", type=click.Path(dir_okay=False), default=None,
               metavar="PATH", help="Write the selected model to this model file.")
 @click.option("--force", is_flag=True, help="Replace an existing --model-out file.")
-@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
-@click.option("--quiet", is_flag=True, help="No progress display.")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary as JSON on stdout.")
+@click.option("--quiet", is_flag=True, help="Show no progress display.")
 def fit(
     log_path: str,
     inputs: tuple[str, ...],
@@ -108,10 +129,17 @@ def fit(
     weighting: str | None,
     horizon: int | None,
     stabilize: bool,
+    references: tuple[str, ...],
     holdout: float,
     validation_path: str | None,
     period_text: str,
     description_path: str | None,
+    offset: str,
+    initial_window_s: float | None,
+    significance: float,
+    refine_count: int,
+    per_criterion: int,
+    screen_samples: int,
     detrend: bool,
     decimate: int,
     model_out: str | None,
@@ -150,6 +178,9 @@ def fit(
             raise click.BadParameter(
                 f"{name!r} is given as both an input and an output", param_hint="--output"
             )
+    if references and validation_path is not None:
+        raise click.BadParameter("--reference fits through a part of LOG held out of LOG itself; it cannot be "
+                                 "combined with a separate --validate-with log", param_hint="--validate-with")
     if model_out is not None:
         check_output_path(model_out, force=force, protected=(log_path,) + _paths(validation_path))
     options = IdentifyOptions(
@@ -161,7 +192,12 @@ def fit(
         weighting=weighting,
         horizon=horizon,
         stabilize=stabilize,
-        preprocess=PreprocessOptions(holdout=holdout, detrend=detrend, decimate=decimate),
+        significance=significance,
+        refine_count=refine_count,
+        per_criterion=per_criterion,
+        screen_samples=screen_samples,
+        preprocess=PreprocessOptions(holdout=holdout, detrend=detrend, decimate=decimate, offset=offset,
+                                     initial_window_s=initial_window_s),
     )
     show_progress = progress_enabled(quiet)
     with warnings.catch_warnings(record=True) as caught:
@@ -180,6 +216,9 @@ def fit(
         if vlog is not None:
             kwargs["validation_segments"] = [(vlog.u[a:b], vlog.y[a:b]) for a, b in vlog.segments]
             kwargs["validation_starts"] = [a for a, _ in vlog.segments]
+        if references:  # the set points, read as columns of the same log (same rows, same segments)
+            ref_log = read_log(log_path, list(references), list(outputs)[:1], **log_kwargs)
+            kwargs["references"] = [ref_log.u[a:b] for a, b in log.segments]
         if show_progress:
             with click.progressbar(length=1000, label="identifying", file=click.get_text_stream("stderr")) as bar:
                 done = [0]
@@ -462,7 +501,9 @@ def _candidate_lines(result) -> list[str]:
     kinds = ", ".join(f"{sum(c.method == k for c in direct)} {k}" for k in dict.fromkeys(c.method for c in direct))
     lines = [f"candidates: {len(direct)} direct estimates ({kinds}) scored on the held-out data"]
     if refined:
-        lines.append(f"  the best {len(refined)} refined (held-out fit %, direct -> refined):")
+        reduced = sum("reduced_from" in c.structure for c in refined)
+        tried = f", {reduced} of them by reducing the best" if reduced else ""
+        lines.append(f"  {len(refined)} refined{tried} (held-out fit %, start -> refined):")
         rows = refined
     else:
         lines.append("  the best by held-out fit:")
@@ -508,6 +549,8 @@ def _describe(c) -> str:
         text = f"ARX na = {st['na']}, nb = {_short(st['nb'])}, nk = {_short(st['nk'])}"
     else:
         text = f"subspace n = {st['n']} ({st['weighting']}, horizon {st['horizon']})"
+    if "reduced_from" in st:
+        text += f", reduced to {c.order} states"
     if c.stage == "refined" and any(c.input_delay):
         text += f", input delay {_short(c.input_delay)}"
     return text

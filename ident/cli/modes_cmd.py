@@ -2,9 +2,6 @@
 
 from __future__ import annotations
 
-import math
-from typing import Any
-
 import click
 
 from ..choices import FLAGS
@@ -13,7 +10,10 @@ from ._common import GateFailed, echo_json
 
 @click.command()
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
-@click.option("--json", "as_json", is_flag=True, help="Print machine-readable JSON on stdout.")
+@click.option("--json", "as_json", is_flag=True,
+              help="Print machine-readable JSON on stdout, pole positions included.")
+@click.option("--detail", is_flag=True,
+              help="Also print the pole positions: z, |z|, s = ln(z)/T and the frequencies in rad/s.")
 @click.option("--expect", "expect_path", type=click.Path(dir_okay=False), default=None,
               help="TOML file with an [expect] table; each expectation is checked (exit 3 if one fails).")
 @click.option("--fail-on", "fail_on", multiple=True, type=click.Choice(FLAGS),
@@ -23,7 +23,7 @@ from ._common import GateFailed, echo_json
 @click.option("--force", is_flag=True, help="Replace an existing --plot file.")
 @click.option("--log-duration", "log_duration_s", type=float, default=None, metavar="S",
               help="Duration of the fitted log [s] (default: from the model file's provenance).")
-@click.option("--damping-below", "lightly_damped_below", type=float, default=0.02, show_default=True,
+@click.option("--damping-below", "lightly_damped_below", type=float, default=0.07, show_default=True,
               help="Flag oscillatory modes with a damping ratio below this.")
 @click.option("--nyquist-fraction", type=float, default=0.8, show_default=True,
               help="Flag modes at or above this fraction of the Nyquist frequency.")
@@ -46,6 +46,7 @@ from ._common import GateFailed, echo_json
 def modes(
     model_path: str,
     as_json: bool,
+    detail: bool,
     expect_path: str | None,
     fail_on: tuple[str, ...],
     plot_path: str | None,
@@ -63,9 +64,10 @@ def modes(
 ) -> None:
     """Tabulate the poles of MODEL (a model file) in physical units and flag implausible ones.
 
-    Each real pole or complex pair is one mode: natural frequency, damping
-    ratio, time constant, and for oscillations the damped frequency and period.
-    Warnings are explained under the table.
+    Each real pole or complex pair is one mode, shown as a rig engineer reads
+    it: frequency in Hz and damping ratio (oscillations), time constant, period
+    and flags. The flags are explained under the table. The pole positions (z,
+    |z|, s and rad/s) are printed with --detail and are always in --json.
 
     Exit status: 0 ok; 2 bad input; 3 an expectation failed or a --fail-on flag is present.
     """
@@ -75,7 +77,7 @@ def modes(
     from ..io.modelfile import load_model
 
     if plot_path is not None:
-        check_output_path(plot_path, force=force, protected=(model_path,))
+        check_output_path(plot_path, force=force, protected=(model_path, expect_path))
     loaded = load_model(model_path)
     model = loaded.model
     expectations = None
@@ -95,6 +97,8 @@ def modes(
         confidence_level=confidence_level,
     )
     if log_duration_s is None:
+        from ..io.modelfile import log_duration_from_provenance
+
         log_duration_s = log_duration_from_provenance(loaded.provenance, model.sample_time)
     if log_duration_s is None:
         click.echo("slow_for_log not checked: log duration unknown (use --log-duration)", err=True)
@@ -111,7 +115,7 @@ def modes(
     tripped = [f for f in FLAGS if f in fail_on and f in present]
 
     if plot_path is not None:
-        _write_plot(table, plot_path, force=force, protected=(model_path,))
+        _write_plot(table, plot_path, force=force, protected=(model_path, expect_path))
 
     if as_json:
         payload = mode_table_to_dict(table)
@@ -120,8 +124,8 @@ def modes(
         payload["fail_on"] = {"flags": list(fail_on), "present": tripped}
         echo_json(payload)
     else:
-        click.echo(modes_text(table, model_path=model_path, units=(model.input_units,
-                                                                   model.output_units)))
+        click.echo(modes_text(table, model_path=model_path, units=(model.input_units, model.output_units),
+                              detail=detail))
         if results:
             click.echo("")
             click.echo(expectations_text(results, expect_path))
@@ -131,37 +135,7 @@ def modes(
         raise GateFailed("; ".join(failures))
 
 
-def log_duration_from_provenance(provenance: dict, sample_time: float | None) -> float | None:
-    """Log duration in s recorded in a model file's provenance, if any.
-
-    Looks at ``log_duration_s``, then ``log.duration_s``, then
-    ``log.n_samples`` (or ``estimation.n_samples``) times the sample time.
-    """
-    def number(value: Any) -> float | None:
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            return None
-        return float(value) if value > 0 else None
-
-    if not isinstance(provenance, dict):
-        return None
-    direct = number(provenance.get("log_duration_s"))
-    if direct is not None:
-        return direct
-    for section in ("log", "estimation"):
-        block = provenance.get(section)
-        if not isinstance(block, dict):
-            continue
-        for key in ("duration_s", "log_duration_s"):
-            value = number(block.get(key))
-            if value is not None:
-                return value
-        n = number(block.get("n_samples"))
-        if n is not None and sample_time:
-            return n * sample_time
-    return None
-
-
-def _write_plot(table, path: str, *, force: bool, protected: tuple[str, ...]) -> None:
+def _write_plot(table, path: str, *, force: bool, protected: tuple[str | None, ...]) -> None:
     import io
 
     import matplotlib
@@ -187,109 +161,11 @@ def _result_dict(r) -> dict:
     }
 
 
-def _num(value: float | None, fmt: str = ".4g") -> str:
-    return "-" if value is None else format(value, fmt)
+def modes_text(table, *, model_path: str | None = None, units=None, detail: bool = False) -> str:
+    """Format the mode table as text (see :func:`ident.display.modes_text`)."""
+    from ..display import modes_text as _text
 
-
-def _pm(std: float | None, fmt: str) -> str:
-    return "" if std is None else " ± " + format(std, fmt)
-
-
-def _z_text(z: complex, is_pair: bool) -> str:
-    if is_pair:
-        return f"{z.real:.4f} ± {abs(z.imag):.4f}j"
-    return f"{z.real:.4f}"
-
-
-def _s_text(s: complex | None, is_pair: bool) -> str:
-    if s is None:
-        return "-"
-    if is_pair:
-        return f"{s.real:.4g} ± {abs(s.imag):.4g}j"
-    return f"{s.real:.4g}"
-
-
-def _columns(header: tuple[str, ...], rows: list[tuple[str, ...]], right: set[int]) -> list[str]:
-    widths = [max(len(r[i]) for r in [header, *rows]) for i in range(len(header))]
-    out = []
-    for r in [header, *rows]:
-        cells = [c.rjust(w) if i in right else c.ljust(w)
-                 for i, (c, w) in enumerate(zip(r, widths, strict=True))]
-        out.append("  ".join(cells).rstrip())
-    return out
-
-
-def _pole_block(table) -> list[str]:
-    """Poles: z, |z|, the continuous-time equivalent s = ln(z)/T, and the flags."""
-    header = ("", "#", "z", "|z|", "s = ln(z)/T [1/s]", "flags")
-    rows = []
-    for k, m in enumerate(table.modes, start=1):
-        z_text = _z_text(m.z, m.is_pair)
-        if m.multiplicity > 1:
-            z_text += f" (x{m.multiplicity})"
-        rows.append(("!" if m.flags else "", str(k), z_text, f"{abs(m.z):.4f}",
-                     _s_text(m.s, m.is_pair), ", ".join(m.flags)))
-    return _columns(header, rows, right={1, 3})
-
-
-def _physical_block(table) -> list[str]:
-    """Modes in physical units: natural frequency (rad/s and Hz), damping, time constant, period."""
-    header = ("", "#", "omega_n [rad/s]", "f_n [Hz]", "zeta [-]", "tau [s]", "f_d [Hz]", "period [s]")
-    rows = []
-    for k, m in enumerate(table.modes, start=1):
-        std_hz = m.natural_frequency_std_hz
-        rows.append((
-            "!" if m.flags else "",
-            str(k),
-            _num(m.natural_frequency_rad_s) + _pm(None if std_hz is None else 2 * math.pi * std_hz, ".2g"),
-            _num(m.natural_frequency_hz) + _pm(std_hz, ".2g"),
-            _num(m.damping_ratio, ".3g") + _pm(m.damping_ratio_std, ".2g"),
-            _num(m.time_constant_s),
-            _num(m.damped_frequency_hz),
-            _num(m.period_s),
-        ))
-    return _columns(header, rows, right={1, 2, 3, 4, 5, 6, 7})
-
-
-def modes_text(table, *, model_path: str | None = None, units=None) -> str:
-    """Format the mode table as text: header, one row per mode, DC gain, zeros, warnings."""
-    T = table.sample_time
-    n_in, n_out = len(table.inputs), len(table.outputs)
-    lines = []
-    head = f"{table.n_states} states, {n_in} input(s), {n_out} output(s), T = {T:g} s, Nyquist {0.5 / T:.4g} Hz"
-    lines.append(f"{model_path}: {head}" if model_path else head)
-    if table.log_duration_s is not None:
-        lines.append(f"log duration {table.log_duration_s:.4g} s")
-    lines.append("")
-    if table.modes:
-        lines.extend(_pole_block(table))
-        lines.append("")
-        lines.extend(_physical_block(table))
-    else:
-        lines.append("(no poles: a static gain)")
-    lines.append("")
-    in_units, out_units = units if units is not None else (("",) * n_in, ("",) * n_out)
-    lines.append("DC gain [output unit / input unit]:")
-    for i, out in enumerate(table.outputs):
-        for j, inp in enumerate(table.inputs):
-            g = float(table.dc_gain[i, j])
-            unit = ""
-            if out_units[i] or in_units[j]:
-                unit = f" {out_units[i] or '1'}/({in_units[j] or '1'})"
-            value = f"{g:.5g}{unit}" if abs(g) != float("inf") else f"{g} (integrator)"
-            lines.append(f"  {inp} -> {out}: {value}")
-    if table.zeros.size:
-        zs = ", ".join(_z_text(complex(q), False) if abs(complex(q).imag) < 1e-12
-                       else f"{q.real:.4f}{q.imag:+.4f}j" for q in table.zeros)
-        lines.append(f"transmission zeros: {zs}")
-    else:
-        lines.append("transmission zeros: none")
-    if table.warnings:
-        lines.append("")
-        lines.append("warnings (rows marked !):")
-        for flag, text in table.warnings.items():
-            lines.append(f"  {flag}: {text}")
-    return "\n".join(lines)
+    return _text(table, model_path=model_path, units=units, detail=detail)
 
 
 def expectations_text(results, source: str | None = None) -> str:

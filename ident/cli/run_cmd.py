@@ -68,22 +68,31 @@ def run_text(result: Any) -> str:
               help="Put the new run folder in DIR (default: runs/ next to the pipeline file).")
 @click.option("--baseline", "baseline", type=click.Path(dir_okay=False), default=None, metavar="MODEL",
               help="Model file to compare with (overrides [drift] baseline in the pipeline file).")
+@click.option("--allow-outside", is_flag=True,
+              help="Read log files and a [drift] baseline outside the pipeline file's folder tree "
+                   "(refused by default: pipeline files may come from others).")
 @click.option("--quiet", is_flag=True, help="No progress messages on stderr.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
-def run(pipeline_path: str, out_dir: str | None, baseline: str | None, quiet: bool, as_json: bool) -> None:
+def run(pipeline_path: str, out_dir: str | None, baseline: str | None, allow_outside: bool, quiet: bool,
+        as_json: bool) -> None:
     """Run the pipeline file PIPELINE end to end into a new run folder.
 
     Ingest, preprocess, fit candidates, select, validate, check modes and
     expectations, compare with a baseline, and write a NEW run folder (model.json,
     summary.json, figures, report.html). Earlier runs are never touched.
 
+    Log paths are relative to the pipeline file and must lie in its folder or
+    below unless --allow-outside is given; the run folder appears only when
+    complete.
+
     Exit status: 0 all gates passed; 2 bad input (nothing written); 3 a gate,
-    expectation or drift threshold failed (the summary and the report say which).
+    expectation or drift threshold failed (the summary and the report say which);
+    130 interrupted (no run folder written).
     """
     from ..pipeline import run_pipeline
 
     result = run_pipeline(pipeline_path, out_dir=out_dir, baseline=baseline,
-                          progress=progress_printer(quiet))
+                          progress=progress_printer(quiet), allow_outside=allow_outside)
     if as_json:
         s = result.summary
         echo_json({

@@ -39,7 +39,8 @@ from .order import Criteria
 from .preprocess import PreparedData
 from .scoring import HeldOutScore, held_out_score, score_window, warmups_for
 
-__all__ = ["STAGES", "Candidate", "Fitted", "Screen", "arx_candidates", "subspace_candidates"]
+__all__ = ["STAGES", "Candidate", "Fitted", "Screen", "arx_candidates", "subspace_candidates",
+           "polynomial_candidates"]
 
 #: ``"estimated"``: a direct estimate (ARX least squares, subspace);
 #: ``"refined"``: the result of a prediction-error refinement.
@@ -197,13 +198,13 @@ def _screen_validation(prep: PreparedData, limit: int) -> tuple[tuple[Experiment
     """Held-out records to score on, and the warm-up (end of the estimation part before) of each.
 
     When the held-out data fit in ``limit`` samples they are scored whole, each
-    continued from at most ``limit`` estimation samples before it; otherwise
+    continued from at most ``limit / 2`` estimation samples before it; otherwise
     evenly spread stretches are scored after an initial-state window.
     """
     total = sum(e.n_samples for e in prep.validation)
     if total <= limit:
         warm = warmups_for(prep.validation, prep.estimation, prep.validation_ranges, prep.estimation_ranges,
-                           limit)
+                           max(limit // 2, 1))
         return tuple(prep.validation), warm
     stretches = working_stretches(prep.validation, limit)
     return stretches, [None] * len(stretches)
@@ -358,3 +359,55 @@ def _subspace_fitted(res, shift, feedthrough, screen: Screen, caught: list) -> F
     screen.score(fitted)
     fitted.candidate = _with_score(cand, fitted.score)
     return fitted
+
+
+# --------------------------------------------------------------------------- polynomial structures
+
+
+def polynomial_candidates(prep: PreparedData, screen: Screen, orders: Sequence[int], delay: Sequence[int],
+                          structure: str) -> list[Fitted]:
+    """Fit and score one polynomial structure per order (every polynomial of that order, the estimated delay).
+
+    Orders whose fit fails (too short a log for them) are left out; the
+    structure's delays are its own states (no input shift).
+    """
+    from .polynomial import PolynomialOptions, fit_polynomial
+
+    names = {"input_names": prep.input_names, "output_names": prep.output_names}
+    m = prep.n_inputs
+    nk = tuple(int(v) for v in delay)
+    out: list[Fitted] = []
+    for n in orders:
+        opts = PolynomialOptions(structure=structure, **_polynomial_orders(structure, n, m, nk))
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                res = fit_polynomial(screen.estimation, prep.sample_time, opts, **names)
+            except (IdentificationError, OptionError):
+                continue
+        cand = Candidate(
+            method=structure, stage="estimated", order=n,
+            structure={"na": res.na, "nb": list(res.nb), "nc": res.nc, "nd": res.nd, "nf": list(res.nf),
+                       "nk": list(res.nk)},
+            input_delay=(0,) * m, n_states=res.model.n_states, n_parameters=int(res.n_parameters),
+            validation_fit=np.zeros(prep.n_outputs), mean_fit=0.0,
+        )
+        fitted = Fitted(cand, res.model, (0,) * m, (True,) * m, res, list(caught))
+        screen.score(fitted)
+        fitted.candidate = _with_score(cand, fitted.score)
+        out.append(fitted)
+    if not out:
+        raise IdentificationError(f"no {structure} model could be fitted", hint="lower --order/--max-order")
+    return out
+
+
+def _polynomial_orders(structure: str, n: int, m: int, nk: tuple[int, ...]) -> dict:
+    """Every polynomial of ``structure`` of order ``n`` (``nb`` per input), with delays ``nk``."""
+    orders = {"nb": (n,) * m, "nk": nk}
+    if structure == "armax":
+        orders.update(na=n, nc=n)
+    elif structure == "oe":
+        orders.update(nf=(n,) * m)
+    else:
+        orders.update(nf=(n,) * m, nc=n, nd=n)
+    return orders

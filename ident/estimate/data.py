@@ -44,6 +44,23 @@ class Experiment:
         object.__setattr__(self, "u", u)
         object.__setattr__(self, "y", y)
 
+    @classmethod
+    def _owned(cls, u: np.ndarray, y: np.ndarray) -> Experiment:
+        """Wrap float64 arrays made for this record without copying them (marked read-only).
+
+        For :func:`ident.estimate.preprocess.prepare`, whose deviation arrays
+        nobody else holds: a 1e7-sample log is then held once, not twice.
+        """
+        if u.dtype != np.float64 or y.dtype != np.float64 or u.ndim != 2 or y.ndim != 2 \
+                or u.shape[0] != y.shape[0]:
+            return cls(u, y)
+        u.flags.writeable = False
+        y.flags.writeable = False
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "u", u)
+        object.__setattr__(obj, "y", y)
+        return obj
+
     @property
     def n_samples(self) -> int:
         """Number of samples ``N``."""

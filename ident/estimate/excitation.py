@@ -88,7 +88,7 @@ class ExcitationReport:
 
 
 def _one_signal(u, name: str) -> np.ndarray:
-    arr = as_signal(u, name, ndim=2)
+    arr = as_signal(u, name, ndim=2, bounded=True)
     if arr.shape[1] != 1:
         raise OptionError(
             f"{name} must be one signal, shape (N,) or (N, 1); got {arr.shape}; "
@@ -297,7 +297,7 @@ def excitation_report(
     tuple of ExcitationReport
         One per input column.
     """
-    arr = as_signal(u, "u", ndim=2)
+    arr = as_signal(u, "u", ndim=2, bounded=True)
     sample_time = positive_float(sample_time, "sample_time")
     max_order = int_in_range(max_order, "max_order", 1, 1000)
     rcond = fraction(rcond, "rcond")
@@ -346,7 +346,7 @@ def excited_band(u: np.ndarray, sample_time: float, power_fraction: float = 0.9)
         inputs of the frequency below which ``power_fraction`` of the input power lies;
         ``None`` when no input varies.
     """
-    u = as_signal(u, "u", ndim=2)
+    u = as_signal(u, "u", ndim=2, bounded=True)
     nyquist = 0.5 / positive_float(sample_time, "sample_time")
     highs = []
     for j in range(u.shape[1]):

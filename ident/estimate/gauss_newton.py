@@ -47,9 +47,11 @@ __all__ = ["Linearization", "Minimization", "minimize", "STOP_REASONS"]
 #: iteration limit was reached (``"max_iterations"``).
 STOP_REASONS = ("converged", "small_step", "boundary", "no_progress", "max_iterations")
 
-#: Initial damping relative to the largest squared column norm of J ([2]_, tau).
+#: Initial damping ([2]_, tau). The damping multiplies ``D^2 = diag(J^T J)``
+#: (Marquardt's scaling), so it is a pure number: 1e-3 adds a thousandth to
+#: every diagonal entry.
 _TAU = 1e-3
-#: Damping above this multiple of the largest squared column norm: give up.
+#: Damping above this: give up (the step would be a vanishing gradient step).
 _MU_MAX = 1e12
 
 
@@ -139,6 +141,7 @@ def minimize(
     gtol: float = 0.0,
     rtol: float = 1e-10,
     xtol: float = 1e-10,
+    relinearize_last: bool = True,
 ) -> Minimization:
     """Minimise a sum of squares by Levenberg-Marquardt steps from ``point``.
 
@@ -162,6 +165,11 @@ def minimize(
     xtol : float
         Stop when the scaled step ``||diag(scale) h||`` is below ``xtol`` times
         ``sqrt(d)`` (the size of the scaled problem).
+    relinearize_last : bool
+        Linearise again after the last step the iteration limit allows (default
+        ``True``). ``False`` saves a pass over the data when the caller needs no
+        linearisation at the final point; ``linearization`` is then that of the
+        point before the last step.
 
     Returns
     -------
@@ -191,7 +199,8 @@ def minimize(
     state = _Search(point, linearize(point))
     reason = "max_iterations"
     while state.iterations < max_iterations:
-        reason = _iterate(state, loss, linearize, step, gtol, rtol, xtol)
+        last = state.iterations + 1 >= max_iterations and not relinearize_last
+        reason = _iterate(state, loss, linearize, step, gtol, rtol, xtol, relinearize=not last)
         if reason is not None:
             break
         reason = "max_iterations"
@@ -218,8 +227,7 @@ class _Search:
         self.lin = lin
         self.loss = float(lin.loss)
         self.history = [self.loss]
-        col2 = np.einsum("ij,ij->j", lin.R, lin.R)
-        self.mu = _TAU * float(np.max(col2)) if col2.size else 0.0
+        self.mu = _TAU
         self.nu = 2.0
         self.evaluations = 1
         self.iterations = 0
@@ -228,7 +236,8 @@ class _Search:
         self.refused_here = False  # an inadmissible trial while looking for the next step
 
 
-def _iterate(state: _Search, loss, linearize, step, gtol: float, rtol: float, xtol: float) -> str | None:
+def _iterate(state: _Search, loss, linearize, step, gtol: float, rtol: float, xtol: float, *,
+             relinearize: bool = True) -> str | None:
     """Find one accepted step (or a reason to stop); ``None`` to continue."""
     lin = state.lin
     if lin.R.shape[0] == 0 or float(lin.z @ lin.z) <= gtol * state.loss:
@@ -253,6 +262,8 @@ def _iterate(state: _Search, loss, linearize, step, gtol: float, rtol: float, xt
             state.iterations += 1
             state.history.append(f_new)
             state.near_boundary, state.refused_here = state.refused_here, False
+            if not relinearize:
+                return "max_iterations"
             state.lin = linearize(trial)
             return "converged" if decrease <= rtol * f_new else None
         if not math.isfinite(f_new):
@@ -260,5 +271,5 @@ def _iterate(state: _Search, loss, linearize, step, gtol: float, rtol: float, xt
             state.refused_here = state.near_boundary = True
         state.mu *= state.nu
         state.nu *= 2.0
-        if state.mu > _MU_MAX * max(float(np.max(scale)) ** 2, 1e-300):
+        if state.mu > _MU_MAX:
             return "no_progress"

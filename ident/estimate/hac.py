@@ -39,18 +39,25 @@ def andrews_bandwidth(parts: Sequence[np.ndarray]) -> int:
     -------
     int
         ``1.1447 (alpha N)^(1/3)`` with ``alpha`` from AR(1) fits of each
-        column (coefficients clipped to +-0.97), at most ``N / 4``.
+        column scaled to unit RMS (coefficients clipped to +-0.97), at most
+        ``N / 4``.
     """
     cols = [np.asarray(g, dtype=float).reshape(len(g), -1) for g in parts]
     num = den = 0.0
     N = sum(g.shape[0] for g in cols)
     for c in range(cols[0].shape[1]):
-        a = sum(float(g[1:, c] @ g[:-1, c]) for g in cols)
-        b = sum(float(g[:-1, c] @ g[:-1, c]) for g in cols)
+        peak = max(float(np.max(np.abs(g[:, c]))) if g.shape[0] else 0.0 for g in cols)
+        if not (peak > 0 and np.isfinite(peak)):
+            continue
+        col = [g[:, c] / peak for g in cols]  # scaled before squaring: no overflow
+        rms = float(np.sqrt(sum(float(x @ x) for x in col) / max(N, 1)))
+        col = [x / rms for x in col]  # each column at unit RMS: the rule weighs them alike
+        a = sum(float(x[1:] @ x[:-1]) for x in col)
+        b = sum(float(x[:-1] @ x[:-1]) for x in col)
         if b <= 0:
             continue
         rho = min(max(a / b, -0.97), 0.97)
-        s2 = sum(float(np.sum((g[1:, c] - rho * g[:-1, c]) ** 2)) for g in cols) / max(N, 1)
+        s2 = sum(float(np.sum((x[1:] - rho * x[:-1]) ** 2)) for x in col) / max(N, 1)
         num += 4.0 * rho**2 * s2**2 / ((1 - rho) ** 6 * (1 + rho) ** 2)
         den += s2**2 / (1 - rho) ** 4
     if den <= 0:

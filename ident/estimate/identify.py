@@ -46,7 +46,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .._validate import int_in_range, one_of, options_from_mapping
-from ..choices import METHODS, REFINEMENTS, WEIGHTINGS
+from ..choices import METHODS, POLYNOMIAL_STRUCTURES, REFINEMENTS, WEIGHTINGS
 from ..errors import (
     IdentificationError,
     IllConditionedWarning,
@@ -58,7 +58,16 @@ from ..lti._linalg import column_stds, one_blas_thread
 from ..lti.covariance import ParameterCovariance, pole_covariance
 from ..lti.input_delay import delayed_covariance, with_input_delays
 from ..lti.models import StateSpaceModel
-from .candidates import Candidate, Fitted, Screen, arx_candidates, state_space_parameters, subspace_candidates
+from .candidates import (
+    Candidate,
+    Fitted,
+    Screen,
+    arx_candidates,
+    polynomial_candidates,
+    state_space_parameters,
+    subspace_candidates,
+)
+from .data import Experiment
 from .preprocess import PreparedData, PreprocessOptions, prepare
 from .scoring import IN_SAMPLE_WINDOW, held_out_score, score_window, warmups_for
 from .selection import Contender, SelectionRecord, select
@@ -98,8 +107,12 @@ _MAX_DELAY = 20
 #: Refinement of the candidates on the screening data: at most this many steps,
 #: stopping when the remaining step is this many standard deviations (the chosen
 #: one is polished to the refinement default on all the data).
-_SCREEN_ITERATIONS = 25
+_SCREEN_ITERATIONS = 10
 _SCREEN_STEP_TOLERANCE = 0.1
+
+#: Samples the screening refinements iterate on (at most); their losses and
+#: scores are those of all the screening data.
+_SCREEN_WORKING_SAMPLES = 10_000
 
 #: Relative precision asked of the parameters when judging excitation against
 #: the noise: an input direction counts when its eigenvalue exceeds
@@ -117,10 +130,13 @@ class IdentifyOptions:
 
     Parameters
     ----------
-    method : {"arx", "subspace", "auto"}
+    method : {"arx", "subspace", "auto", "oe", "armax", "bj"}
         Model family; ``"auto"`` (default) fits both kinds of candidates and
         refines the best. ``"arx"`` keeps ARX least-squares models (no
-        refinement); ``"subspace"`` starts only from subspace estimates.
+        refinement); ``"subspace"`` starts only from subspace estimates;
+        ``"oe"``, ``"armax"`` and ``"bj"`` fit that polynomial structure
+        (:mod:`ident.estimate.polynomial`) with all its orders equal to the
+        order tried and the estimated input delay.
     order : int, optional
         Fixed order; ``None`` (default) selects it. For subspace (and refined)
         models the number of states of the delay-free part; for ARX
@@ -160,7 +176,7 @@ class IdentifyOptions:
         Operating point, detrending, decimation and hold-out.
     """
 
-    method: Literal["arx", "subspace", "auto"] = "auto"
+    method: Literal["arx", "subspace", "auto", "oe", "armax", "bj"] = "auto"
     order: int | None = None
     max_order: int = 10
     delay: int | None = None
@@ -171,7 +187,7 @@ class IdentifyOptions:
     significance: float = 0.05
     per_criterion: int = PER_CRITERION
     refine_count: int = 4
-    screen_samples: int = 20_000
+    screen_samples: int = 10_000
     preprocess: PreprocessOptions = field(default_factory=PreprocessOptions)
 
     def __post_init__(self) -> None:
@@ -274,6 +290,8 @@ class Identification:
     excitation : dict
         ``{"orders": per-input order of persistent excitation judged against the
         noise, "threshold": relative eigenvalue level used, "snr": signal-to-noise ratio}``.
+    feedback : FeedbackEvidence or None
+        The test for feedback from the outputs to the inputs (closed loop).
     warnings, notes : tuple of str
         Warnings raised (also issued as Python warnings) and remarks.
     options : IdentifyOptions
@@ -302,6 +320,7 @@ class Identification:
     subspace_factorization: dict[str, Any] | None
     delay: Any
     excitation: dict[str, Any]
+    feedback: Any
     warnings: tuple[str, ...]
     notes: tuple[str, ...]
     options: IdentifyOptions
@@ -438,6 +457,7 @@ def identify(
     progress: Callable[[str, float], None] | None = None,
     validation_segments: Any = None,
     validation_starts: Sequence[int] | None = None,
+    references: Sequence[Any] | None = None,
 ) -> Identification:
     """Find the model the data support best: candidates, refinement, selection, validation.
 
@@ -462,6 +482,13 @@ def identify(
         :func:`ident.estimate.preprocess.prepare`).
     validation_starts : sequence of int, optional
         First sample of each validation record in its own log.
+    references : sequence of array_like, optional
+        Per segment, the logged reference (set point) a controller acted on,
+        shape ``(N_k, r)``: the plant is then fitted from the part of the input
+        the reference explains (the two-stage method of
+        :mod:`ident.estimate.closed_loop`), consistent under feedback. Not
+        together with ``validation_segments`` (the reference is held out of
+        the same log).
 
     Returns
     -------
@@ -499,13 +526,16 @@ def identify(
     report = progress if progress is not None else (lambda step, fraction: None)
     if options.preprocess.holdout <= 0 and validation_segments is None:
         raise OptionError("identify needs held-out validation data; holdout must be in (0, 1); got 0")
+    if references is not None and validation_segments is not None:
+        raise OptionError("references and separate validation records cannot be combined: the fit through the "
+                          "reference holds out part of its own log; give one of them")
     names = {"input_names": input_names, "output_names": output_names, "input_units": input_units,
              "output_units": output_units, "segment_starts": segment_starts,
              "validation_data": validation_segments, "validation_starts": validation_starts}
     with warnings.catch_warnings(record=True) as caught, one_blas_thread():
         warnings.simplefilter("always")
         try:
-            result = _identify(segments, sample_time, options, names, report)
+            result = _identify(segments, sample_time, options, names, report, references)
         finally:
             pending = list(caught)
     texts: list[str] = []
@@ -537,38 +567,190 @@ class _Search:
     subspace: dict = field(default_factory=dict)
     excitation: dict = field(default_factory=dict)
     noise_model: str | None = None
+    forms: tuple[str, ...] = ()
+    feedback: Any = None
 
 
-def _identify(segments, sample_time, options: IdentifyOptions, names: dict, report) -> Identification:
+def _identify(segments, sample_time, options: IdentifyOptions, names: dict, report,
+              references: Sequence[Any] | None = None) -> Identification:
     """Run the stages of :func:`identify` in order (the caller records the warnings)."""
     report("preparing data", 0.0)
-    prep = prepare(segments, sample_time, options.preprocess, **names)
+    prep, refs = _prepare(segments, sample_time, options, names, references)
+    search = _Search(report=report)
+    report("estimating delays", 0.05)
+    delays = _delay_vectors(prep, options, search)
+    search.feedback = _feedback(prep, refs, min(delays[0]), search)
+    fit_prep = _through_reference(prep, refs, options, search) if refs is not None else prep
+    orders = _orders(prep, options, search)
+    _excitation_evidence(fit_prep, options, orders, search)
+    screen = Screen(fit_prep, options.screen_samples, max(orders) + max(max(v) for v in delays))
+    if options.method in POLYNOMIAL_STRUCTURES:
+        report("polynomial candidates", 0.1)
+        search.raw.extend(polynomial_candidates(fit_prep, screen, orders, delays[0], options.method))
+    if options.method in ("arx", "auto"):
+        report("ARX candidates", 0.1)
+        found, search.arx_sweep = arx_candidates(fit_prep, screen, orders, delays,
+                                                 per_criterion=options.per_criterion, fixed_order=options.order)
+        search.raw.extend(found)
+    if options.method in ("subspace", "auto"):
+        report("subspace candidates", 0.3)
+        _add_subspace(fit_prep, options, orders, delays, screen, search)
+    pool = search.raw
+    if options.method in ("auto", "subspace") and options.refinement != "none":
+        search.forms = _refinement_forms(options, search, refs is not None)
+        _refine_best(options, screen, search)
+        if options.order is None:
+            _reduce_best(options, screen, search)
+        pool = search.refined
+    report("selecting", 0.85)
+    pool, record = _select_form(pool, screen, options, search)
+    return _assemble(prep, options, search, pool, record, screen)
+
+
+def _select_form(pool: list[Fitted], screen: Screen, options: IdentifyOptions, search: _Search):
+    """Select within each refinement form; between forms, the noise model wins unless clearly worse.
+
+    Losses of output-error and innovations models are not comparable, so each form
+    is selected on its own; the innovations model (consistent under feedback) is
+    kept unless the best output-error model simulates the held-out data
+    significantly better than the best innovations model
+    (:func:`ident.estimate.selection.equal_accuracy_pvalue`); the form's own
+    selection then gives the model.
+    """
+    from .selection import equal_accuracy_pvalue
+
+    forms = list(dict.fromkeys(f.candidate.noise_model for f in pool))
+    picks = {}
+    for form in forms:
+        members = [f for f in pool if f.candidate.noise_model == form]
+        picks[form] = (members, select([_contender(f) for f in members], screen.output_variance,
+                                       significance=options.significance))
+    if len(forms) == 1:
+        return picks[forms[0]]
+    (inn, rec_i), (oe, rec_o) = picks["innovations"], picks["output_error"]
+    best_i, best_o = inn[rec_i.best_fit], oe[rec_o.best_fit]  # each form at its best
+    scales = np.where(screen.output_variance > 0, screen.output_variance, 1.0)
+    p = equal_accuracy_pvalue(best_i.score.errors, best_o.score.errors, scales) if best_i.score.errors else 0.0
+    if p < options.significance:
+        search.notes.append(
+            "feedback was detected, but the output-error model simulates the held-out data significantly better "
+            f"than the model with a noise model (one-sided test, p = {p:.2g}); it is kept, and its estimate may "
+            "carry a bias from the feedback")
+        return oe, rec_o
+    search.notes.append("refined in innovations form (prediction error with a noise model), consistent under "
+                        "feedback; the output-error refinement does not simulate the held-out data significantly "
+                        f"better (p = {p:.2g})")
+    return inn, rec_i
+
+
+def _prepare(segments, sample_time, options: IdentifyOptions, names: dict, references):
+    """Prepare the data (references travel as extra inputs through the same preprocessing, then split off)."""
+    if references is None:
+        prep = prepare(segments, sample_time, options.preprocess, **names)
+        refs = None
+    else:
+        prep, refs = _prepare_with_references(segments, sample_time, options, names, references)
     if not prep.validation:
         raise OptionError("the hold-out left no validation samples; raise holdout")
     for text in _check_signals(prep):
         _warn(text, IllConditionedWarning)
-    search = _Search(report=report)
-    orders = _orders(prep, options, search)
-    report("estimating delays", 0.05)
-    delays = _delay_vectors(prep, options, search)
-    _excitation_evidence(prep, options, orders, search)
-    screen = Screen(prep, options.screen_samples, max(orders) + max(max(v) for v in delays))
-    if options.method in ("arx", "auto"):
-        report("ARX candidates", 0.1)
-        found, search.arx_sweep = arx_candidates(prep, screen, orders, delays, per_criterion=options.per_criterion,
-                                                 fixed_order=options.order)
-        search.raw.extend(found)
-    if options.method in ("subspace", "auto"):
-        report("subspace candidates", 0.3)
-        _add_subspace(prep, options, orders, delays, screen, search)
-    pool = search.raw
-    if options.method != "arx" and options.refinement != "none":
-        search.noise_model = "innovations" if options.refinement == "innovations" else "output_error"
-        _refine_best(options, screen, search)
-        pool = search.refined
-    report("selecting", 0.85)
-    record = select([_contender(f) for f in pool], screen.output_variance, significance=options.significance)
-    return _assemble(prep, options, search, pool, record, screen)
+    return prep, refs
+
+
+def _prepare_with_references(segments, sample_time, options, names, references):
+    from .preprocess import as_records
+
+    records = as_records(segments)
+    if len(references) != len(records):
+        raise OptionError(f"references must hold one array per segment ({len(records)}); got {len(references)}")
+    joined, m = [], records[0][0].shape[1]
+    for (u, y), r in zip(records, references, strict=True):
+        r = np.asarray(r, dtype=float).reshape(u.shape[0], -1)
+        joined.append((np.hstack([u, r]), y))
+    q = joined[0][0].shape[1] - m
+    extra = dict(names)
+    for key, prefix in (("input_names", "r"), ("input_units", "")):
+        if extra.get(key) is not None:
+            extra[key] = tuple(extra[key]) + tuple(f"{prefix}{k + 1}" if prefix else "" for k in range(q))
+    both = prepare(joined, sample_time, options.preprocess, **extra)
+    return _split_references(both, m), tuple(e.u[:, m:] for e in both.estimation)
+
+
+def _split_references(prep: PreparedData, m: int) -> PreparedData:
+    """Return the prepared data without the reference columns appended to the inputs."""
+    from ..lti.models import OperatingPoint
+
+    def cut(parts):
+        return tuple(Experiment(e.u[:, :m], e.y) for e in parts)
+
+    op = OperatingPoint(prep.operating_point.inputs[:m], prep.operating_point.outputs)
+    trends = None if prep.trends is None else np.concatenate(
+        [prep.trends[:, :, :m], prep.trends[:, :, prep.trends.shape[2] - prep.n_outputs:]], axis=2)
+    return replace(prep, estimation=cut(prep.estimation), validation=cut(prep.validation), operating_point=op,
+                   trends=trends, input_names=prep.input_names[:m], input_units=prep.input_units[:m])
+
+
+def _feedback(prep: PreparedData, refs, input_delay: int, search: _Search) -> Any:
+    """Feedback evidence on the estimation data (see :mod:`ident.estimate.closed_loop`)."""
+    from .closed_loop import feedback_evidence
+
+    try:
+        evidence = feedback_evidence(prep.estimation, references=refs, input_delay=input_delay)
+    except (OptionError, np.linalg.LinAlgError):
+        return None
+    if evidence.closed_loop:
+        search.notes.append(
+            f"the log looks closed-loop: past outputs predict the input (F = {evidence.f_statistic:.3g}, "
+            f"p = {evidence.p_value:.2g}); an output-error fit would be biased by the feedback")
+    return evidence
+
+
+def _through_reference(prep: PreparedData, refs, options: IdentifyOptions, search: _Search) -> PreparedData:
+    """Stage 1 of the two-stage method: estimation inputs replaced by their part the reference explains.
+
+    The input sensitivity ``S`` from reference to input is itself identified by
+    this job (output error, consistent because the reference does not see the
+    loop's disturbances) and simulated from rest on the reference.
+    """
+    from ..lti.simulate import simulate
+    from .closed_loop import explained_share
+
+    sub_options = replace(options, method="auto", order=None, refinement="output_error", delay=None,
+                          max_order=min(options.max_order + 2, MAX_ORDER))
+    records = [(r, e.u) for e, r in zip(prep.estimation, refs, strict=True)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sens = identify(records, prep.sample_time, sub_options)
+    op = sens.model.operating_point
+    parts = []
+    for (r, u), e in zip(records, prep.estimation, strict=True):
+        u_r = simulate(sens.model, r - op.inputs[None, :]) + op.outputs[None, :]
+        if explained_share(u, u_r) < 0.05:
+            raise IdentificationError(
+                f"the reference explains only {100 * explained_share(u, u_r):.1f} % of the input's variation: "
+                "it cannot stand in for the input (is it the controller's set point?)",
+                hint="check the --reference column, or fit without it (prediction error with a noise model)",
+            )
+        parts.append(Experiment(u_r, e.y))
+    search.notes.append(
+        "two-stage fit through the reference: the plant is estimated from the part of the input the "
+        f"reference explains (an order-{sens.order} output-error model from reference to input, held-out fit "
+        f"{float(np.mean(sens.validation_fit)):.1f} %), free of the loop's disturbances; held-out scores use "
+        "the measured input")
+    return replace(prep, estimation=tuple(parts))
+
+
+def _refinement_forms(options: IdentifyOptions, search: _Search, through_reference: bool) -> tuple[str, ...]:
+    """Decide what the refinement minimises: as asked, or by the evidence of feedback (``auto``).
+
+    With feedback (and no reference to fit through) both forms are refined and
+    :func:`_select_form` decides, preferring the noise model.
+    """
+    if options.refinement != "auto":
+        return (options.refinement,)
+    if search.feedback is not None and search.feedback.closed_loop and not through_reference:
+        return ("innovations", "output_error")
+    return ("output_error",)
 
 
 # --------------------------------------------------------------------------- evidence
@@ -605,6 +787,14 @@ def _delay_vectors(prep: PreparedData, options: IdentifyOptions, search: _Search
     """Delay vectors to try: the given delay, else the estimate first, then 0, 1 and the estimate +-1."""
     m = prep.n_inputs
     if options.delay is not None:
+        shortest = min(e.n_samples for e in (*prep.estimation, *prep.validation))
+        if options.delay >= shortest // 4:
+            raise IdentificationError(
+                f"a delay of {options.delay} samples is too long for this log: its shortest estimation or "
+                f"held-out part has {shortest} samples, and the delay's states need far fewer than that to be "
+                "estimated and checked",
+                hint="check the delay (in samples, not seconds), or use a longer log",
+            )
         search.notes.append(f"input delay fixed at {options.delay} samples")
         return [(options.delay,) * m]
     from .delay import estimate_delay
@@ -667,19 +857,35 @@ def _add_subspace(prep, options: IdentifyOptions, orders, delays, screen: Screen
     search.subspace = evidence
 
 
-def _refinement_starts(raw: Sequence[Fitted], count: int) -> list[Fitted]:
-    """Pick the best candidate of each of the ``count`` best (order, shift) classes and of every shift."""
-    ranked = sorted(raw, key=lambda f: -f.candidate.mean_fit)
+def _refinement_starts(raw: Sequence[Fitted], count: int, output_variance: np.ndarray,
+                       significance: float) -> list[Fitted]:
+    """Pick the starts to refine: the best direct estimate, the simplest ones as accurate, the best of every shift.
+
+    Per (order, shift) class the best-scoring estimate stands for the class.
+    Besides the best class, the classes whose estimate is statistically as
+    accurate on the held-out data (:func:`ident.estimate.selection.as_accurate_pvalue`)
+    are refined simplest first, then the next best by fit, ``count`` in all;
+    finally the best class of every input shift not yet represented.
+    """
+    from .selection import as_accurate_pvalue
+
+    ranked = sorted((f for f in raw if np.isfinite(f.candidate.mean_fit)), key=lambda f: -f.candidate.mean_fit)
+    if not ranked:
+        return []
     best_per: dict[tuple, Fitted] = {}
     for f in ranked:
-        if np.isfinite(f.candidate.mean_fit):
-            best_per.setdefault((f.core.n_states, f.shift), f)
-    starts = list(best_per.values())[:count]
+        best_per.setdefault((f.core.n_states, f.shift), f)
+    classes = list(best_per.values())
+    best = classes[0]
+    scales = np.where(output_variance > 0, output_variance, 1.0)
+    tied = [f for f in classes[1:] if f.score.errors and
+            as_accurate_pvalue(f.score.errors, best.score.errors, scales) > significance]
+    tied.sort(key=lambda f: (f.candidate.n_states, -f.candidate.mean_fit))
+    starts = [best] + tied[: count - 1]
+    starts += [f for f in classes if f not in starts][: max(count - len(starts), 0)]
     for shift in dict.fromkeys(f.shift for f in ranked):
         if not any(s.shift == shift for s in starts):
-            extra = next((f for f in best_per.values() if f.shift == shift), None)
-            if extra is not None:
-                starts.append(extra)
+            starts.append(next(f for f in classes if f.shift == shift))
     return starts
 
 
@@ -687,31 +893,110 @@ def _refine_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
     """Refine the best few candidates on the screening data and score them again."""
     from .refine import RefineOptions
 
-    starts = _refinement_starts(search.raw, options.refine_count)
-    for k, start in enumerate(starts):
-        search.report(f"refining candidate {k + 1} of {len(starts)}", 0.4 + 0.4 * k / max(len(starts), 1))
-        opts = RefineOptions(noise_model=search.noise_model, feedthrough=start.feedthrough,
-                             working_samples=options.screen_samples, polish_iterations=0,
+    starts = _refinement_starts(search.raw, options.refine_count, screen.output_variance, options.significance)
+    jobs = [(start, form) for form in search.forms for start in starts]
+    for k, (start, form) in enumerate(jobs):
+        search.report(f"refining candidate {k + 1} of {len(jobs)}", 0.4 + 0.4 * k / max(len(jobs), 1))
+        opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
+                             working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
                              max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
         refined = _refine_one(start, screen.estimation_for(start.shift), opts)
         if refined is None:
             continue
-        res, caught = refined
-        core = res.model
-        m, p = core.n_inputs, core.n_outputs
-        cand = replace(start.candidate, stage="refined", noise_model=search.noise_model,
-                       structure={**start.candidate.structure, "feedthrough": list(start.feedthrough),
-                                  "refined_from": next(i for i, f in enumerate(search.raw)
-                                                       if f.candidate is start.candidate)},
-                       n_parameters=state_space_parameters(core.n_states, m, p, start.feedthrough,
-                                                           search.noise_model == "innovations"))
-        fitted = Fitted(cand, core, start.shift, start.feedthrough, res, caught)
-        screen.score(fitted)
-        fitted.estimation_loss = screen.normalised_loss(res.error_variance)  # with its fitted states and offsets
-        fitted.candidate = replace(cand, validation_fit=fitted.score.fit, mean_fit=fitted.score.mean_fit)
-        search.refined.append(fitted)
+        origin = next(i for i, f in enumerate(search.raw) if f.candidate is start.candidate)
+        search.refined.append(_refined(start, *refined, form, {"refined_from": origin}, screen))
     if not search.refined:
         raise IdentificationError("no candidate could be refined", hint="try --refine none, or check the data")
+
+
+def _refined(start: Fitted, res, caught: list, form: str, extra: dict, screen: Screen) -> Fitted:
+    """Build the scored candidate of a refinement result ``res`` begun from ``start``."""
+    core = res.model
+    m, p = core.n_inputs, core.n_outputs
+    cand = replace(start.candidate, stage="refined", noise_model=form, order=core.n_states,
+                   n_states=core.n_states + sum(start.shift),
+                   structure={**start.candidate.structure, "feedthrough": list(start.feedthrough), **extra},
+                   n_parameters=state_space_parameters(core.n_states, m, p, start.feedthrough,
+                                                       form == "innovations"))
+    fitted = Fitted(cand, core, start.shift, start.feedthrough, res, caught)
+    screen.score(fitted)
+    fitted.estimation_loss = screen.normalised_loss(res.error_variance)  # with its fitted states and offsets
+    fitted.candidate = replace(cand, validation_fit=fitted.score.fit, mean_fit=fitted.score.mean_fit)
+    return fitted
+
+
+def _reduce_best(options: IdentifyOptions, screen: Screen, search: _Search) -> None:
+    """Try lower orders below the chosen refined model of each form: balanced truncation, then refinement.
+
+    Backward elimination on the held-out data: from the refined model the
+    selection rule would choose, one state is removed by balanced truncation
+    [1]_ and the truncated model is refined again; this goes on while the
+    reduced model is statistically as accurate as the best
+    (:func:`ident.estimate.selection.as_accurate_pvalue`), at most
+    ``refine_count`` times per form. Subspace starts of a low order can
+    be poor where a reduced refined model is not, and a spurious state (a
+    noise-fitting pole) is removed this way.
+
+    References
+    ----------
+    .. [1] B. C. Moore, "Principal component analysis in linear systems:
+       controllability, observability, and model reduction", IEEE Trans.
+       Automatic Control 26(1), 17-32, 1981.
+    """
+    from .refine import RefineOptions
+    from .selection import as_accurate_pvalue
+
+    scales = np.where(screen.output_variance > 0, screen.output_variance, 1.0)
+    for form in search.forms:
+        members = [f for f in search.refined if f.candidate.noise_model == form and f.score.errors]
+        if not members:
+            continue
+        record = select([_contender(f) for f in members], screen.output_variance, significance=options.significance)
+        best, parent = members[record.best_fit], members[record.chosen]
+        for _ in range(options.refine_count):
+            start = _truncated(parent, form == "innovations")
+            if start is None:
+                break
+            search.report(f"reducing to {start.core.n_states} states", 0.8)
+            opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
+                                 working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
+                                 max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
+            refined = _refine_one(start, screen.estimation_for(start.shift), opts)
+            if refined is None:
+                break
+            index = len(search.raw) + search.refined.index(parent)
+            reduced = _refined(start, *refined, form, {"refined_from": index,
+                                                       "reduced_from": parent.core.n_states}, screen)
+            search.refined.append(reduced)
+            if (not reduced.score.errors
+                    or as_accurate_pvalue(reduced.score.errors, best.score.errors, scales) < options.significance):
+                break
+            parent = reduced
+
+
+def _truncated(parent: Fitted, innovations: bool) -> Fitted | None:
+    """``parent`` with one state fewer by balanced truncation (``None`` when it cannot be balanced).
+
+    An innovations model is balanced with ``K`` as extra inputs, so the
+    reduced noise gain comes from the same projection.
+    """
+    from ..errors import ModelError
+    from ..lti.truncation import balanced_truncation
+
+    core = parent.core
+    n, m = core.n_states, core.n_inputs
+    if n < 2:
+        return None
+    K = core.noise_gain if innovations and core.noise_gain is not None else np.zeros((n, 0))
+    joined = StateSpaceModel(core.A, np.hstack([core.B, K]), core.C,
+                             np.hstack([core.D, np.zeros((core.n_outputs, K.shape[1]))]), core.sample_time)
+    try:
+        small = balanced_truncation(joined, n - 1)
+    except (ModelError, np.linalg.LinAlgError):
+        return None
+    model = StateSpaceModel(small.A, small.B[:, :m], small.C, core.D, core.sample_time,
+                            noise_gain=small.B[:, m:] if K.shape[1] else None)
+    return Fitted(parent.candidate, model, parent.shift, parent.feedthrough, None, [])
 
 
 def _refine_one(start: Fitted, data, opts) -> tuple[Any, list] | None:
@@ -767,19 +1052,26 @@ def _final_model(prep: PreparedData, options: IdentifyOptions, search: _Search, 
     """Polish the chosen model on all estimation data, give it a predictor; return (model, refinement, covariance)."""
     from .refine import RefineOptions, fit_noise_gain, refine_state_space
 
+    if chosen.candidate.method in POLYNOMIAL_STRUCTURES:  # refitted on all the estimation data
+        from .polynomial import fit_polynomial
+
+        search.report("fitting on all estimation data", 0.9)
+        res = fit_polynomial(screen.estimation_for(chosen.shift, full=True), prep.sample_time,
+                             chosen.result.options, input_names=prep.input_names, output_names=prep.output_names)
+        return res.model, None, res.covariance
     if chosen.candidate.stage != "refined":
         if chosen.candidate.method == "arx":  # the ARX model in its own coordinates, with its covariance
             return chosen.result.model, None, _arx_covariance(chosen)
         return chosen.model, None, None
     data = screen.estimation_for(chosen.shift, full=True)
-    opts = RefineOptions(noise_model=search.noise_model, feedthrough=chosen.feedthrough,
-                         working_samples=max(sum(e.n_samples for e in data), 100), max_iterations=5)
+    search.noise_model = chosen.candidate.noise_model
+    opts = RefineOptions(noise_model=search.noise_model, feedthrough=chosen.feedthrough, polish_iterations=1)
     search.report("polishing on all estimation data", 0.9)
     res = refine_state_space(chosen.core, data, opts)
     core, cov = res.model, res.covariance
     if search.noise_model == "output_error":
         gain = fit_noise_gain(core, data, RefineOptions(working_samples=options.screen_samples,
-                                                        polish_iterations=2))
+                                                        polish_iterations=0, covariance=False))
         core = gain.model
     model = with_input_delays(core, chosen.shift)
     if cov is not None:
@@ -829,7 +1121,8 @@ def _assemble(prep: PreparedData, options: IdentifyOptions, search: _Search, poo
         selection=record, singular_values=search.subspace.get("singular_values"),
         suggested_order=search.subspace.get("suggested_order"),
         subspace_factorization=search.subspace.get("factorization"), delay=search.delay,
-        excitation=search.excitation, warnings=(), notes=tuple(search.notes), options=options,
+        excitation=search.excitation, feedback=search.feedback, warnings=(), notes=tuple(search.notes),
+        options=options,
         best_by=_best_by(candidates), arx_sweep=search.arx_sweep,
     )
 

@@ -296,7 +296,7 @@ def detect_period(u: Any, *, min_periods: int = 2) -> int:
     signal resembles itself at small lags); the period is the best lag of the
     first stretch that comes within 0.01 of the highest value.
     """
-    x = as_signal(u, "u", ndim=2)
+    x = as_signal(u, "u", ndim=2, bounded=True)
     periods = int_in_range(min_periods, "min_periods", 2)
     x = x - x.mean(axis=0)
     n = x.shape[0]
@@ -447,8 +447,8 @@ class _Inputs:
     @classmethod
     def check(cls, u, y, sample_time, period, transient, blocks, periods_per_block, start,
               input_names, output_names) -> _Inputs:
-        uu = as_signal(u, "u", ndim=2)
-        yy = as_signal(y, "y", ndim=2)
+        uu = as_signal(u, "u", ndim=2, bounded=True)
+        yy = as_signal(y, "y", ndim=2, bounded=True)
         if uu.shape[0] != yy.shape[0]:
             raise OptionError(f"u and y must have the same number of samples; got {uu.shape[0]} and {yy.shape[0]}")
         t = positive_float(sample_time, "sample_time")

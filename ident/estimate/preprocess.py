@@ -40,16 +40,23 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .._validate import as_signal, int_in_range, names_tuple, one_of, options_from_mapping, positive_float
+from .._validate import (
+    as_signal,
+    int_in_range,
+    names_tuple,
+    one_of,
+    options_from_mapping,
+    positive_float,
+    sample_time_value,
+)
+from ..choices import OFFSET_METHODS
 from ..errors import OptionError
 from ..lti._linalg import column_sums
 from ..lti.models import OperatingPoint
 from .data import Experiment, as_experiments
 
-__all__ = ["OFFSET_METHODS", "PreprocessOptions", "PreparedData", "prepare"]
+__all__ = ["OFFSET_METHODS", "PreprocessOptions", "PreparedData", "prepare", "as_records"]
 
-#: Ways of choosing the operating point that is subtracted from the data.
-OFFSET_METHODS = ("mean", "initial")
 
 #: Largest decimation factor done with the default 8th-order Chebyshev IIR
 #: filter; larger factors use scipy's FIR filter (scipy's own advice).
@@ -206,7 +213,7 @@ class PreparedData:
         return sum(e.n_samples for e in self.validation)
 
 
-def _as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
+def as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
     """Accept an Experiment, a (u, y) pair of arrays, or a sequence of either."""
     if isinstance(data, Experiment):
         return ((data.u, data.y),)
@@ -235,8 +242,8 @@ def _as_records(data: Any) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
             raise OptionError(
                 f"experiment {k} must be an Experiment or a (u, y) pair; got {type(item).__name__}"
             ) from exc
-        u = as_signal(u, f"experiment {k} u", ndim=2)
-        y = as_signal(y, f"experiment {k} y", ndim=2)
+        u = as_signal(u, f"experiment {k} u", ndim=2, bounded=True)
+        y = as_signal(y, f"experiment {k} y", ndim=2, bounded=True)
         if u.shape[0] != y.shape[0]:
             raise OptionError(
                 f"experiment {k}: u and y must have the same number of samples; "
@@ -340,14 +347,14 @@ def prepare(
     options = PreprocessOptions() if options is None else options
     if not isinstance(options, PreprocessOptions):
         raise OptionError(f"options must be PreprocessOptions; got {type(options).__name__}")
-    sample_time = positive_float(sample_time, "sample_time")
-    records = _as_records(data)
+    sample_time = sample_time_value(sample_time)
+    records = as_records(data)
     m, p = records[0][0].shape[1], records[0][1].shape[1]
     labels = _signal_labels(m, p, input_names, output_names, input_units, output_units)
     starts = _record_starts(records, segment_starts)
     q = options.decimate
     if validation_data is not None:
-        return _prepare_separate(records, _as_records(validation_data), sample_time, options, labels,
+        return _prepare_separate(records, as_records(validation_data), sample_time, options, labels,
                                  starts, validation_starts)
 
     splits = _split_points(records, q, options.holdout)  # 1. split points (raw samples)
@@ -357,18 +364,24 @@ def prepare(
 
     estimation, validation, est_ranges, val_ranges, trends = [], [], [], [], []
     for (u, y), (s_dec, s_raw), start in zip(records, splits, starts, strict=True):
-        z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
-        if coef is not None:
-            trends.append(coef)
-        # 4. decimate the whole experiment, then split
-        z = _decimate(z, q)
-        est = z[:s_dec]
-        val = z[s_dec:]
-        estimation.append(Experiment(u=est[:, :m], y=est[:, m:]))
+        if q == 1 and not options.detrend:
+            # the deviations are made once and shared by the two parts (no copy of a copy)
+            ud, yd = u - op_u, y - op_y
+            est_u, est_y, val_u, val_y = ud[:s_dec], yd[:s_dec], ud[s_dec:], yd[s_dec:]
+        else:
+            z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
+            if coef is not None:
+                trends.append(coef)
+            # 4. decimate the whole experiment, then split
+            z = _decimate(z, q)
+            est_u, est_y = np.array(z[:s_dec, :m]), np.array(z[:s_dec, m:])
+            val_u, val_y = np.array(z[s_dec:, :m]), np.array(z[s_dec:, m:])
+            del z
+        estimation.append(Experiment._owned(est_u, est_y))
         est_ranges.append((int(start), int(start + s_raw)))
         n_raw = u.shape[0]
-        if val.shape[0] > 0:
-            validation.append(Experiment(u=val[:, :m], y=val[:, m:]))
+        if val_u.shape[0] > 0:
+            validation.append(Experiment._owned(val_u, val_y))
             val_ranges.append((int(start + s_raw), int(start + n_raw)))
 
     trend_array = None

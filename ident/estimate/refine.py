@@ -82,7 +82,7 @@ References
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from typing import Any, Literal
 
 import numpy as np
@@ -93,6 +93,7 @@ from ..errors import IdentificationError, OptionError
 from ..lti._linalg import one_blas_thread
 from ..lti.covariance import ParameterCovariance, theta_layout
 from ..lti.models import StateSpaceModel
+from ..lti.truncation import stein_gramian
 from .data import Experiment, as_experiments, working_stretches
 from .gauss_newton import minimize
 from .hac import long_run_covariance
@@ -133,6 +134,9 @@ class RefineOptions:
         Iterate on at most this many samples (default 40 000), then polish on all.
     polish_iterations : int
         Largest number of steps on all the data after a working stage (default 3).
+    covariance : bool
+        Compute the parameter covariance (default ``True``; a screening search
+        that only compares losses can skip it).
     output_offsets : bool
         With output error, estimate a constant output offset per experiment
         alongside its initial state (default ``True``): the operating point
@@ -147,6 +151,7 @@ class RefineOptions:
     step_tolerance: float = 0.01
     working_samples: int = 40_000
     polish_iterations: int = 3
+    covariance: bool = True
     output_offsets: bool = True
 
     def __post_init__(self) -> None:
@@ -168,9 +173,11 @@ class RefineOptions:
         object.__setattr__(self, "working_samples", int_in_range(self.working_samples, "working_samples", 100))
         object.__setattr__(self, "polish_iterations",
                            int_in_range(self.polish_iterations, "polish_iterations", 0, 1000))
-        if not isinstance(self.output_offsets, (bool, np.bool_)):
-            raise OptionError(f"output_offsets must be true or false; got {self.output_offsets!r}")
-        object.__setattr__(self, "output_offsets", bool(self.output_offsets))
+        for name in ("covariance", "output_offsets"):
+            value = getattr(self, name)
+            if not isinstance(value, (bool, np.bool_)):
+                raise OptionError(f"{name} must be true or false; got {value!r}")
+            object.__setattr__(self, name, bool(value))
 
     def feedthrough_inputs(self, m: int) -> tuple[bool, ...]:
         """Per input, whether its column of ``D`` is estimated."""
@@ -454,26 +461,12 @@ def _start_theta(model: StateSpaceModel, scaled: _Scaled, innovations: bool, fee
     return pack_theta(A, B, C, D, K)
 
 
-def _gramian(A: np.ndarray, Q: np.ndarray) -> np.ndarray | None:
-    """``P = A P A^T + Q`` for stable ``A`` by doubling (Smith's iteration)."""
-    P, Ak = Q.copy(), A.copy()
-    for _ in range(64):
-        P_next = P + Ak @ P @ Ak.T
-        Ak = Ak @ Ak
-        if not np.all(np.isfinite(P_next)):
-            return None
-        if np.max(np.abs(P_next - P)) <= 1e-14 * np.max(np.abs(P_next)):
-            return P_next
-        P = P_next
-    return P
-
-
 def _balancing(A: np.ndarray, B: np.ndarray, C: np.ndarray) -> np.ndarray | None:
     """Similarity ``T`` balancing the Gramians of stable ``(A, B, C)``; ``None`` when it cannot be done safely."""
     n = A.shape[0]
     if n == 0 or float(np.max(np.abs(np.linalg.eigvals(A)))) >= STABLE_RADIUS:
         return None
-    Wc, Wo = _gramian(A, B @ B.T), _gramian(A.T, C.T @ C)
+    Wc, Wo = stein_gramian(A, B @ B.T), stein_gramian(A.T, C.T @ C)
     if Wc is None or Wo is None:
         return None
     try:
@@ -531,6 +524,7 @@ def _search(model, problem: PredictionProblem, theta0, scaled: _Scaled, options:
     working = working_stretches(experiments, options.working_samples)
     budget = options.max_iterations
     work_parts = problem.parts
+    res = None
     if sum(e.n_samples for e in working) < problem.n_samples:
         work_parts = _scale_parts(working, scaled.u_scale, scaled.y_scale)
         work = problem.with_parts(work_parts)
@@ -541,18 +535,51 @@ def _search(model, problem: PredictionProblem, theta0, scaled: _Scaled, options:
         iterations += res.iterations
         point = Point(res.point.theta, [_fit_x0(problem, res.point.theta, u, y) for u, y in problem.parts])
         budget = options.polish_iterations
-    final = minimize(point, problem.loss, problem.linearize, problem.step, max_iterations=budget,
-                     gtol=options.step_tolerance**2 / (problem.n_samples * problem.p))
+    polished = budget > 0 or res is None
+    if polished:
+        # after a working stage the covariance of an output-error model comes from the working
+        # stretches (see _covariance): no linearisation of all the data is needed after the last step
+        final = minimize(point, problem.loss, problem.linearize, problem.step, max_iterations=budget,
+                         gtol=options.step_tolerance**2 / (problem.n_samples * problem.p),
+                         relinearize_last=res is None or options.noise_model == "innovations")
+    else:  # no polish: the working estimate, its loss on all the data, its covariance from the working data
+        final = replace(res, point=point, loss=problem.loss(point), history=(), iterations=0)
     history.extend(v / problem.n_samples for v in final.history)
+    factor = _covariance(problem, final, work_parts, options, polished=polished) if options.covariance \
+        else (None, "gauss")
     return _result(model, problem, final, scaled, options, (start_loss, start_var), history,
-                   iterations + final.iterations, sum(u.shape[0] for u, _ in work_parts))
+                   iterations + final.iterations, sum(u.shape[0] for u, _ in work_parts), factor)
+
+
+def _covariance(problem: PredictionProblem, final, work_parts, options: RefineOptions, *, polished: bool):
+    """Parameter covariance factor at the final point (see the module Notes).
+
+    A robust (output-error) covariance needs the per-sample gradient terms; on a
+    long log they are formed on the working stretches only. When the estimate
+    was polished on all the data the covariance found there is scaled by
+    ``N_working / N_all`` (the information grows with the number of samples of a
+    stationary record); an estimate from the working stretches alone keeps the
+    working covariance.
+    """
+    innovations = options.noise_model == "innovations"
+    if work_parts is problem.parts or (innovations and polished):
+        return _covariance_factor(problem, final.point, final.linearization, final.loss, innovations)
+    work = problem.with_parts(work_parts)
+    theta = final.point.theta
+    point = Point(theta, [_fit_x0(work, theta, u, y) for u, y in work_parts])
+    lin = work.linearize(point)
+    factor, method = _covariance_factor(work, point, lin, lin.loss, innovations)
+    if factor is None or not polished:
+        return factor, method
+    return factor * np.sqrt(work.n_samples / problem.n_samples), method
 
 
 def _error_variance(problem: PredictionProblem, point: Point) -> np.ndarray:
     return sum(np.einsum("ij,ij->j", e, e) for e in problem.all_errors(point)) / problem.n_samples
 
 
-def _result(model, problem, final, scaled: _Scaled, options, start, history, iterations, n_work) -> RefineResult:
+def _result(model, problem, final, scaled: _Scaled, options, start, history, iterations, n_work,
+            factor_method) -> RefineResult:
     n, m, p = model.n_states, model.n_inputs, model.n_outputs
     A, B, C, D, K = unpack_theta(final.point.theta, n, m, p)
     su, sy = scaled.u_scale, scaled.y_scale
@@ -562,7 +589,7 @@ def _result(model, problem, final, scaled: _Scaled, options, start, history, ite
         noise_gain=(K / sy[None, :]) if innovations else None,
     )
     cov_e = sum(e.T @ e for e in problem.all_errors(final.point)) / problem.n_samples
-    factor, method = _covariance_factor(problem, final, innovations)
+    factor, method = factor_method
     covariance = None
     if factor is not None:
         covariance = ParameterCovariance(_theta_unscaling(n, m, p, su, sy)[:, None] * factor, method, n, m, p)
@@ -600,9 +627,9 @@ def _theta_unscaling(n: int, m: int, p: int, su: np.ndarray, sy: np.ndarray) -> 
 # --------------------------------------------------------------------------- covariance
 
 
-def _covariance_factor(problem: PredictionProblem, final, innovations: bool) -> tuple[np.ndarray | None, str]:
-    """``L`` with ``cov(theta) = L L^T`` (scaled units) at the minimum; see the module Notes."""
-    lin = final.linearization
+def _covariance_factor(problem: PredictionProblem, point: Point, lin, loss: float,
+                       innovations: bool) -> tuple[np.ndarray | None, str]:
+    """Return ``L`` with ``cov(theta) = L L^T`` (scaled units) at a minimum; see the module Notes."""
     Q = lin.context
     d = Q.shape[1]
     R = lin.R
@@ -614,8 +641,8 @@ def _covariance_factor(problem: PredictionProblem, final, innovations: bool) -> 
     Rinv = np.linalg.inv(R)  # H^-1 = Rinv Rinv^T, initial states included
     if innovations:
         dof = max(problem.n_samples * problem.p - R.shape[0], 1)
-        return Q @ (np.sqrt(final.loss / dof) * Rinv[:d]), "gauss"
-    S = _gradient_covariance(problem, final.point, Q)
+        return Q @ (np.sqrt(loss / dof) * Rinv[:d]), "gauss"
+    S = _gradient_covariance(problem, point, Q)
     P = Rinv[:d] @ Rinv.T @ S @ Rinv @ Rinv[:d].T
     P = 0.5 * (P + P.T)
     w, V = np.linalg.eigh(P)

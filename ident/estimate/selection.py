@@ -13,7 +13,9 @@ uses both pieces of evidence:
    has mean zero if the two predict equally well; its long-run variance
    (Bartlett weights, :mod:`ident.estimate.hac`) accounts for the strong
    autocorrelation of simulation errors. A simpler candidate whose one-sided
-   p-value exceeds ``significance`` is *tied* with the best.
+   p-value exceeds ``significance`` is *tied* with the best. With several
+   outputs it must also not be significantly worse on any single output
+   (per-output tests at ``significance / p``, Bonferroni; :func:`as_accurate_pvalue`).
 2. **Information criterion among the tied.** Among the best and the tied
    candidates, the one with the smallest Bayesian information criterion on the
    estimation data wins, ``BIC = N_eff ln V + d ln N_eff`` with ``V`` the mean
@@ -53,7 +55,8 @@ import numpy as np
 from ..errors import IdentificationError, OptionError
 from .hac import andrews_bandwidth, long_run_covariance
 
-__all__ = ["LOSS_FLOOR", "Contender", "SelectionRecord", "equal_accuracy_pvalue", "effective_samples", "select"]
+__all__ = ["LOSS_FLOOR", "Contender", "SelectionRecord", "as_accurate_pvalue", "equal_accuracy_pvalue",
+           "effective_samples", "select"]
 
 #: Normalised estimation losses below this (an RMS error of 1e-8 of the output's
 #: spread) count as an exact fit: differences there are rounding, not evidence,
@@ -161,15 +164,51 @@ def equal_accuracy_pvalue(errors_a: Sequence[np.ndarray], errors_b: Sequence[np.
         and ``se`` from the Bartlett long-run variance; small when ``a`` is
         clearly worse than ``b``. 1.0 when the differential is identically zero.
     """
-    d = [np.sum((a**2 - b**2) / scales[None, :], axis=1) for a, b in zip(errors_a, errors_b, strict=True)]
+    with np.errstate(over="ignore", invalid="ignore"):
+        d = [np.sum((a**2 - b**2) / scales[None, :], axis=1) for a, b in zip(errors_a, errors_b, strict=True)]
     N = sum(x.size for x in d)
     if N < 2:
         return 1.0
+    if not all(np.all(np.isfinite(x)) for x in d):  # one model's errors are astronomically larger
+        worse_a = sum(float(np.sum(a**2, dtype=float)) for a in errors_a) > sum(
+            float(np.sum(b**2, dtype=float)) for b in errors_b)
+        return 0.0 if worse_a else 1.0
+    peak = max(float(np.max(np.abs(x))) if x.size else 0.0 for x in d)
+    if peak == 0.0:
+        return 1.0
+    d = [x / peak for x in d]  # the statistic is scale free; scaling keeps the squares finite
     mean = sum(float(x.sum()) for x in d) / N
     lrv = float(long_run_covariance([x[:, None] for x in d], demean=True)[0, 0]) / N
     if not lrv > 0:
         return 1.0 if mean <= 0 else 0.0
     return _normal_sf(mean / math.sqrt(lrv / N))
+
+
+def as_accurate_pvalue(errors_a: Sequence[np.ndarray], errors_b: Sequence[np.ndarray],
+                       scales: np.ndarray) -> float:
+    """p-value of "model a is as accurate as model b", on all outputs together and on each one.
+
+    The joint Diebold-Mariano test (:func:`equal_accuracy_pvalue`) can hide an
+    output that a simpler model predicts clearly worse behind another it
+    predicts a little better. With ``p`` outputs the hypothesis is rejected
+    when the joint test or any per-output test rejects it, the per-output tests
+    at ``significance / p`` (Bonferroni [4]_); the value returned is
+    ``min(joint, p * min_i p_i)``, so comparing it with ``significance``
+    applies that rule. One output: the joint p-value.
+
+    References
+    ----------
+    .. [4] C. E. Bonferroni, "Teoria statistica delle classi e calcolo delle
+       probabilita", Pubblicazioni del R. Istituto Superiore di Scienze
+       Economiche e Commerciali di Firenze 8, 3-62, 1936.
+    """
+    joint = equal_accuracy_pvalue(errors_a, errors_b, scales)
+    p = scales.shape[0]
+    if p == 1:
+        return joint
+    each = min(equal_accuracy_pvalue([a[:, [i]] for a in errors_a], [b[:, [i]] for b in errors_b], scales[[i]])
+               for i in range(p))
+    return min(joint, p * each)
 
 
 def effective_samples(errors: Sequence[np.ndarray]) -> float:
@@ -231,7 +270,7 @@ def select(contenders: Sequence[Contender], output_variance: np.ndarray, *,
         c, b = contenders[k], contenders[best]
         if k == best or (c.n_states, c.n_parameters) >= (b.n_states, b.n_parameters):
             continue
-        p_values[k] = equal_accuracy_pvalue(c.held_out_errors, b.held_out_errors, scales)
+        p_values[k] = as_accurate_pvalue(c.held_out_errors, b.held_out_errors, scales)
         if p_values[k] > significance:
             tied.append(k)
     return _by_criterion(contenders, best, tuple(tied), p_values, significance)

@@ -63,7 +63,14 @@ from typing import Any
 
 import numpy as np
 
-from .._validate import int_in_range, one_of, optional_positive_float, options_from_mapping, positive_float
+from .._validate import (
+    int_in_range,
+    one_of,
+    optional_positive_float,
+    options_from_mapping,
+    positive_float,
+    sample_rate_value,
+)
 from ..choices import ARRANGEMENTS, HARMONICS, PHASES, SIGNAL_KINDS, SPACINGS
 from ..errors import IdentificationError, OptionError, SignalDesignWarning
 from .multisine import crest_factor, frequency_lines, line_range, low_crest_phases, multisine, schroeder_phases
@@ -201,7 +208,7 @@ class SignalDesignOptions:
 
     def __post_init__(self) -> None:
         one_of(self.kind, "kind", SIGNAL_KINDS)
-        object.__setattr__(self, "sample_rate_hz", positive_float(self.sample_rate_hz, "sample_rate_hz"))
+        object.__setattr__(self, "sample_rate_hz", sample_rate_value(self.sample_rate_hz, "sample_rate_hz"))
         object.__setattr__(self, "band_hz", _check_band(self.band_hz, self.sample_rate_hz))
         object.__setattr__(self, "amplitude_range", _check_range(self.amplitude_range))
         object.__setattr__(self, "n_inputs", int_in_range(self.n_inputs, "n_inputs", 1, MAX_INPUTS))

@@ -145,8 +145,12 @@ def _bare(name: str) -> str:
     return m.group("name").strip() if m and m.group("name").strip() else text
 
 
+def _cut(text: str, limit: int = 60) -> str:
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 def _listing(entries: Sequence[Entry]) -> str:
-    shown = [f"{e.qualified} [{e.unit}]" if e.unit else e.qualified for e in entries[:_LISTED]]
+    shown = [_cut(f"{e.qualified} [{e.unit}]" if e.unit else e.qualified) for e in entries[:_LISTED]]
     more = f" ... and {len(entries) - _LISTED} more" if len(entries) > _LISTED else ""
     return ", ".join(shown) + more
 

@@ -3,14 +3,15 @@
 from __future__ import annotations
 
 import os
-import tomllib
-from pathlib import Path
 
 from .._validate import did_you_mean
 from ..assess.expectations import Expectations
 from ..errors import PipelineError
 
-__all__ = ["load_expectations"]
+__all__ = ["load_expectations", "MAX_EXPECTATIONS_BYTES"]
+
+#: Largest expectations file rigfit reads, in bytes.
+MAX_EXPECTATIONS_BYTES = 2**20
 
 
 def load_expectations(path: str | os.PathLike) -> Expectations:
@@ -31,17 +32,18 @@ def load_expectations(path: str | os.PathLike) -> Expectations:
     ident.errors.PipelineError
         The file is not valid TOML, has no ``[expect]`` table, or an entry is
         unknown or of the wrong type.
-    FileNotFoundError
-        The file does not exist.
+        Also: the file does not exist, is not a regular file, is larger than
+        :data:`MAX_EXPECTATIONS_BYTES` or is nested too deeply.
     """
+    from .inputs import parse_toml, read_input_bytes
+
     source = os.fspath(path)
-    text = Path(source).read_bytes()
-    try:
-        data = tomllib.loads(text.decode("utf-8"))
-    except UnicodeDecodeError as exc:
-        raise PipelineError("not UTF-8 text", path=source) from exc
-    except tomllib.TOMLDecodeError as exc:
-        raise PipelineError(f"not valid TOML: {exc}", path=source) from exc
+
+    def error(reason: str) -> PipelineError:
+        return PipelineError(reason, path=source)
+
+    data = parse_toml(read_input_bytes(source, error, what="expectations file", max_bytes=MAX_EXPECTATIONS_BYTES),
+                      error)
     for key in data:
         if key != "expect":
             raise PipelineError(

@@ -29,7 +29,8 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     [preprocess]   # ident.estimate.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
                    # decimate, holdout
     [fit]          # ident.estimate.identify.IdentifyOptions: method, order ("auto" or N), max_order,
-                   # delay, weighting, horizon, stabilize, tie_tolerance
+                   # delay, refinement, weighting, horizon, stabilize, significance, per_criterion,
+                   # refine_count, screen_samples
     [check]        # ident.assess.diagnostics.CheckOptions: gates min_fit, require_white; fit_warning
                    # (default 50; false: none); prediction_steps, max_lag, confidence, initial_state,
                    # spectral_segment
@@ -38,32 +39,43 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     [expect]       # ident.assess.expectations.Expectations
     [drift]        # baseline = "model.json" (relative to this file) and
                    # ident.assess.drift.DriftThresholds
+    [fleet]        # for rigfit fleet only: unit_from (regex), workers, scheduler, reference
+                   # (model file), and ident.assess.fleet.OutlierRule
 
 Unknown keys and wrong types raise :class:`ident.errors.PipelineError` naming
 the file, the dotted key path (``fit.ordr``) and, for unknown keys, the
 nearest valid key.
+
+Pipeline files may come from others (a pull request run in CI), so reading one
+is bounded: the file is at most :data:`MAX_PIPELINE_BYTES` and nested at most
+:data:`ident.io.inputs.MAX_NESTING` levels; log paths (also ``validate_with``),
+the signal description and the baseline are resolved relative to the pipeline file and must lie in its folder or below
+(after following links) unless ``allow_outside`` is given (``rigfit run
+--allow-outside``); a glob may not start at the file system root and may walk
+at most :data:`MAX_GLOB_FOLDERS` folders.
 """
 
 from __future__ import annotations
 
 import dataclasses
-import glob
+import fnmatch
 import hashlib
 import math
 import os
-import tomllib
+import re
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .._validate import did_you_mean
+from .._validate import did_you_mean, sample_rate_value
 from ..assess.diagnostics import CheckOptions
 from ..assess.drift import DriftThresholds
 from ..assess.expectations import Expectations
+from ..assess.fleet import OutlierRule
 from ..assess.modes import FLAGS, ModeThresholds
 from ..choices import UPSAMPLE_METHODS
-from ..errors import IdentError, PipelineError
+from ..errors import IdentError, OptionError, PipelineError, printable
 from ..estimate.identify import IdentifyOptions
 from ..estimate.preprocess import PreprocessOptions
 from .columns import is_pattern
@@ -72,9 +84,14 @@ __all__ = [
     "SECTIONS",
     "LOG_KEYS",
     "DEFAULT_FAIL_ON",
+    "MAX_PIPELINE_BYTES",
+    "MAX_GLOB_FOLDERS",
+    "bounded_glob",
     "LogSpec",
     "ModesSpec",
     "DriftSpec",
+    "FleetSpec",
+    "FLEET_KEYS",
     "PipelineSpec",
     "load_pipeline",
     "parse_pipeline",
@@ -82,17 +99,25 @@ __all__ = [
 
 #: Top-level keys of a pipeline file.
 SECTIONS: tuple[str, ...] = (
-    "name", "notes", "log", "preprocess", "fit", "check", "modes", "expect", "drift",
+    "name", "notes", "log", "preprocess", "fit", "check", "modes", "expect", "drift", "fleet",
 )
 #: Keys of the ``[log]`` table.
 LOG_KEYS: tuple[str, ...] = (
     "paths", "inputs", "outputs", "time", "sample_rate_hz", "drop_bad_rows", "split_at_gaps",
     "jitter_tolerance", "units", "resample_hz", "upsample", "validate_with", "period", "signal_description",
 )
+#: Keys of the ``[fleet]`` table besides those of :class:`ident.assess.fleet.OutlierRule`.
+FLEET_KEYS: tuple[str, ...] = ("unit_from", "workers", "scheduler", "reference")
 #: Mode flags that fail a run when ``[modes] fail_on`` is not given.
 DEFAULT_FAIL_ON: tuple[str, ...] = ("unstable",)
 
 _GLOB_CHARS = frozenset("*?[")
+#: Largest pipeline file rigfit reads, in bytes.
+MAX_PIPELINE_BYTES = 2**20
+#: Most folders one glob of ``[log] paths`` may list.
+MAX_GLOB_FOLDERS = 10_000
+_OUTSIDE_HINT = ("pipeline files may come from others, so rigfit reads files outside the pipeline's folder only "
+                 "when asked: rigfit run --allow-outside")
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -180,6 +205,32 @@ class DriftSpec:
 
 
 @dataclass(frozen=True, slots=True, eq=False)
+class FleetSpec:
+    """The ``[fleet]`` section, read by ``rigfit fleet`` only (``rigfit run`` ignores it).
+
+    Attributes
+    ----------
+    unit_from : str or None
+        Regular expression that takes a unit's name from its log path (its first
+        group, or the whole match without groups).
+    workers : int or None
+        Worker processes of the embedded cluster (default: one per core).
+    scheduler : str or None
+        Address of a running ``distributed`` scheduler to send the work to.
+    reference : pathlib.Path or None
+        Reference model file (absolute) the units' modes are matched against.
+    rule : ident.assess.fleet.OutlierRule
+        The outlier rule.
+    """
+
+    unit_from: str | None = None
+    workers: int | None = None
+    scheduler: str | None = None
+    reference: Path | None = None
+    rule: OutlierRule = field(default_factory=OutlierRule)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
 class PipelineSpec:
     """A parsed pipeline file.
 
@@ -202,6 +253,7 @@ class PipelineSpec:
     modes : ModesSpec
     expect : Expectations
     drift : DriftSpec
+    fleet : FleetSpec
     """
 
     name: str
@@ -214,6 +266,7 @@ class PipelineSpec:
     modes: ModesSpec
     expect: Expectations
     drift: DriftSpec
+    fleet: FleetSpec = field(default_factory=FleetSpec)
 
     @property
     def base_dir(self) -> Path:
@@ -261,19 +314,32 @@ class PipelineSpec:
                 **{f.name: getattr(self.drift.thresholds, f.name)
                    for f in dataclasses.fields(self.drift.thresholds)},
             },
+            "fleet": {
+                "unit_from": self.fleet.unit_from,
+                "workers": self.fleet.workers,
+                "scheduler": self.fleet.scheduler,
+                "reference": None if self.fleet.reference is None else str(self.fleet.reference),
+                **self.fleet.rule.to_dict(),
+            },
         }
 
 
 # --------------------------------------------------------------------------- public API
 
 
-def load_pipeline(path: str | os.PathLike) -> PipelineSpec:
+def load_pipeline(path: str | os.PathLike, *, expand_logs: bool = True, allow_outside: bool = False) -> PipelineSpec:
     """Read and check a pipeline file.
 
     Parameters
     ----------
     path : path-like
         The TOML file. Relative paths inside it are relative to its folder.
+    expand_logs : bool, default True
+        Resolve ``[log] paths`` to files (each must exist). ``False`` keeps the
+        patterns only (``LogSpec.files`` empty), for callers that supply the logs
+        themselves, as ``rigfit fleet`` does.
+    allow_outside : bool, default False
+        Read log files and a baseline outside the pipeline file's folder tree.
 
     Returns
     -------
@@ -282,32 +348,33 @@ def load_pipeline(path: str | os.PathLike) -> PipelineSpec:
     Raises
     ------
     PipelineError
-        The file cannot be read, is not valid TOML, has an unknown key (the
-        message names the key path, the hint the nearest valid key), a value
-        of the wrong type or out of range, or a log path that matches no file.
+        The file cannot be read, is not a regular file, is larger than
+        :data:`MAX_PIPELINE_BYTES`, is not valid TOML or is nested too deeply,
+        has an unknown key (the message names the key path, the hint the
+        nearest valid key), a value of the wrong type or out of range, a log
+        path that matches no file, lies outside the folder tree without
+        ``allow_outside``, or a glob that starts at the root or walks too many
+        folders.
     """
+    from .inputs import parse_toml, read_input_bytes
+
     where = Path(path)
-    try:
-        data = where.read_bytes()
-    except FileNotFoundError as exc:
-        raise PipelineError("no such file", path=where) from exc
-    except (IsADirectoryError, PermissionError) as exc:
-        raise PipelineError(f"cannot read ({exc.strerror})", path=where) from exc
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        raise PipelineError(f"not UTF-8 text (byte {exc.start})", path=where) from exc
-    try:
-        mapping = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise PipelineError(f"not valid TOML: {exc}", path=where) from exc
+
+    def error(reason: str) -> PipelineError:
+        return PipelineError(reason, path=where)
+
+    data = read_input_bytes(where, error, what="pipeline file", max_bytes=MAX_PIPELINE_BYTES)
+    mapping = parse_toml(data, error)
     return parse_pipeline(
-        mapping, path=where.resolve(), sha256=hashlib.sha256(data).hexdigest()
+        mapping, path=where.resolve(), sha256=hashlib.sha256(data).hexdigest(), expand_logs=expand_logs,
+        allow_outside=allow_outside,
     )
 
 
 def parse_pipeline(
-    mapping: Mapping[str, Any], *, path: str | os.PathLike | None = None, sha256: str = ""
+    mapping: Mapping[str, Any], *, path: str | os.PathLike | None = None, sha256: str = "",
+    expand_logs: bool = True,
+    allow_outside: bool = False,
 ) -> PipelineSpec:
     """Build a :class:`PipelineSpec` from a parsed TOML document.
 
@@ -320,6 +387,12 @@ def parse_pipeline(
         against its folder (the current folder without it).
     sha256 : str
         Hash of the file bytes, recorded in the spec.
+    expand_logs : bool, default True
+        As in :func:`load_pipeline`.
+    allow_outside : bool, default False
+        With ``path``: read log files and a baseline outside ``path``'s folder
+        tree. Without ``path`` (a mapping built by the caller) nothing is
+        restricted.
 
     Returns
     -------
@@ -332,13 +405,14 @@ def parse_pipeline(
     """
     src = None if path is None else Path(path)
     base = src.parent if src is not None else Path.cwd()
+    tree = None if src is None or allow_outside else base.resolve()
     _check_keys(mapping, "", SECTIONS, src)
     name = _text(mapping, "name", src, default=src.stem if src is not None else "pipeline")
     notes = _text(mapping, "notes", src, default="")
     if "log" not in mapping:
         raise PipelineError("missing section [log] (the log files and their columns)", path=src,
                             key_path="log")
-    log = _parse_log(mapping["log"], base, src)
+    log = _parse_log(mapping["log"], base, src, tree, expand=expand_logs)
 
     prep_table = _section(mapping, "preprocess", src)
     _parse_options(PreprocessOptions, prep_table, "preprocess", src,
@@ -365,10 +439,11 @@ def parse_pipeline(
         )
     except PipelineError as exc:
         raise _with_path(exc, src) from exc
-    drift = _parse_drift(_section(mapping, "drift", src), base, src)
+    drift = _parse_drift(_section(mapping, "drift", src), base, src, tree)
+    fleet = _parse_fleet(_section(mapping, "fleet", src), base, src, tree)
     return PipelineSpec(
         name=name, notes=notes, path=src, sha256=sha256, log=log, fit=fit, check=check,
-        modes=modes, expect=expect, drift=drift,
+        modes=modes, expect=expect, drift=drift, fleet=fleet,
     )
 
 
@@ -462,29 +537,120 @@ def _number(value: Any, key_path: str, src: Path | None, *, what: str) -> float:
     return float(value)
 
 
-def _expand(patterns: tuple[str, ...], base: Path, src: Path | None, key: str = "log.paths") -> tuple[Path, ...]:
+def _inside(path: Path, tree: Path | None) -> bool:
+    if tree is None:
+        return True
+    try:
+        path.resolve().relative_to(tree)
+    except ValueError:
+        return False
+    return True
+
+
+def static_prefix(target: Path) -> tuple[Path, tuple[str, ...]]:
+    """Split an absolute pattern into its folder without glob characters and the parts after it."""
+    parts = target.parts
+    k = 0
+    while k < len(parts) and not (_GLOB_CHARS & set(parts[k])):
+        k += 1
+    return Path(*parts[:k]), tuple(parts[k:])
+
+
+def bounded_glob(start: Path, parts: tuple[str, ...], limit: int | None = None) -> list[Path] | None:
+    """Return the files under ``start`` matching ``parts``, listing at most ``limit`` folders.
+
+    ``parts`` are path components with ``*``, ``?``, ``[...]`` and ``**``.
+
+    Matches as :func:`glob.glob` with ``recursive=True`` does on POSIX (case
+    sensitive; names starting with ``.`` only when the pattern part does;
+    ``**`` is zero or more folders), files only, sorted. Returns ``None`` when
+    the walk would list more than ``limit`` folders (default :data:`MAX_GLOB_FOLDERS`).
+    """
+    limit = MAX_GLOB_FOLDERS if limit is None else limit
+    if parts and parts[-1] == "**":
+        parts = (*parts, "*")
+    matches: set[Path] = set()
+    listed = 0
+    stack = [(start, 0)]
+    seen: set[tuple[Path, int]] = set()
+    while stack:
+        folder, i = stack.pop()
+        if (folder, i) in seen:
+            continue
+        seen.add((folder, i))
+        part, last = parts[i], i == len(parts) - 1
+        if not (_GLOB_CHARS & set(part)):
+            nxt = folder / part
+            if last and nxt.is_file():
+                matches.add(nxt)
+            elif not last and nxt.is_dir():
+                stack.append((nxt, i + 1))
+            continue
+        listed += 1
+        if listed > limit:
+            return None
+        try:
+            entries = list(os.scandir(folder))
+        except OSError:
+            continue
+        if part == "**":
+            stack.append((folder, i + 1))
+        for entry in entries:
+            if entry.name.startswith(".") and not part.startswith("."):
+                continue
+            is_dir = entry.is_dir()
+            if part == "**":
+                if is_dir:
+                    stack.append((Path(entry.path), i))
+            elif fnmatch.fnmatchcase(entry.name, part):
+                if last and entry.is_file():
+                    matches.add(Path(entry.path))
+                elif not last and is_dir:
+                    stack.append((Path(entry.path), i + 1))
+    return sorted(matches)
+
+
+def _expand(patterns: tuple[str, ...], base: Path, src: Path | None, tree: Path | None,
+            where: str = "log.paths") -> tuple[Path, ...]:
     files: list[Path] = []
     for k, pattern in enumerate(patterns):
+        key = f"{where}[{k + 1}]"
         target = Path(pattern).expanduser()
         target = target if target.is_absolute() else base / target
         if _GLOB_CHARS & set(pattern):
-            matches = sorted(Path(p) for p in glob.glob(str(target), recursive=True) if Path(p).is_file())
-            if not matches:
-                raise PipelineError(f"no file matches {pattern!r} (relative to {base})", path=src,
-                                    key_path=f"{key}[{k + 1}]")
+            prefix, parts = static_prefix(Path(os.path.normpath(target)))
+            if prefix == Path(prefix.anchor):
+                raise PipelineError(f"the glob {printable(pattern)!r} starts at the file system root", path=src,
+                                    key_path=key, hint="start the glob in the folder holding the logs")
+            if not _inside(prefix, tree):
+                raise PipelineError(f"{printable(pattern)!r} reaches outside the pipeline's folder", path=src,
+                                    key_path=key, hint=_OUTSIDE_HINT)
+            found = bounded_glob(prefix, parts)
+            if found is None:
+                raise PipelineError(
+                    f"the glob {printable(pattern)!r} would list more than {MAX_GLOB_FOLDERS} folders",
+                    path=src, key_path=key, hint="narrow the glob to the folder holding the logs",
+                )
+            if not found:
+                raise PipelineError(f"no file matches {printable(pattern)!r} (relative to {printable(base)})",
+                                    path=src, key_path=key)
+            matches = found
         else:
             if not target.is_file():
-                raise PipelineError(f"no such file {pattern!r} (relative to {base})", path=src,
-                                    key_path=f"{key}[{k + 1}]")
+                raise PipelineError(f"no such file {printable(pattern)!r} (relative to {printable(base)})",
+                                    path=src, key_path=key)
             matches = [target]
         for m in matches:
+            if not _inside(m, tree):
+                raise PipelineError(f"{printable(pattern)!r} names a file outside the pipeline's folder "
+                                    "(after following links)", path=src, key_path=key, hint=_OUTSIDE_HINT)
             m = m.resolve()
             if m not in files:
                 files.append(m)
     return tuple(files)
 
 
-def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
+def _parse_log(table: Any, base: Path, src: Path | None, tree: Path | None, *, expand: bool = True) -> LogSpec:
     _check_keys(table, "log", LOG_KEYS, src)
     for key in ("paths", "inputs", "outputs"):
         if key not in table:
@@ -502,10 +668,7 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
         raise PipelineError(f"must be a column name; got {time!r}", path=src, key_path="log.time")
     rate = table.get("sample_rate_hz")
     if rate is not None:
-        rate = _number(rate, "log.sample_rate_hz", src, what="a positive number of samples per second")
-        if rate <= 0:
-            raise PipelineError(f"must be a positive number; got {rate!r}", path=src,
-                                key_path="log.sample_rate_hz")
+        rate = _rate(rate, "log.sample_rate_hz", src)
         if time is not None:
             raise PipelineError("give either 'time' or 'sample_rate_hz', not both", path=src,
                                 key_path="log.sample_rate_hz")
@@ -531,7 +694,7 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
             )
     return LogSpec(
         patterns=patterns,
-        files=_expand(patterns, base, src),
+        files=_expand(patterns, base, src, tree) if expand else (),
         inputs=inputs,
         outputs=outputs,
         time=time,
@@ -542,17 +705,18 @@ def _parse_log(table: Any, base: Path, src: Path | None) -> LogSpec:
         units={k.lower(): v for k, v in units.items()},
         resample_hz=_resample(table, src),
         upsample=_upsample(table, src),
-        **_validation_and_period(table, base, src),
+        **_validation_and_period(table, base, src, tree),
     )
 
 
-def _validation_and_period(table: Mapping[str, Any], base: Path, src: Path | None) -> dict[str, Any]:
+def _validation_and_period(table: Mapping[str, Any], base: Path, src: Path | None,
+                           tree: Path | None) -> dict[str, Any]:
     """``validate_with``, ``period`` and ``signal_description`` of the ``[log]`` table."""
     out: dict[str, Any] = {}
     if "validate_with" in table:
         patterns = _names(table["validate_with"], "log.validate_with", src)
         out["validation_patterns"] = patterns
-        out["validation_files"] = _expand(patterns, base, src, "log.validate_with")
+        out["validation_files"] = _expand(patterns, base, src, tree, "log.validate_with")
     period = table.get("period", "auto")
     if isinstance(period, str):
         if period not in ("auto", "none"):
@@ -570,7 +734,11 @@ def _validation_and_period(table: Mapping[str, Any], base: Path, src: Path | Non
             raise PipelineError(f"must be the path of a signal description; got {description!r}", path=src,
                                 key_path="log.signal_description")
         target = Path(description).expanduser()
-        out["signal_description"] = (target if target.is_absolute() else base / target).resolve()
+        target = target if target.is_absolute() else base / target
+        if not _inside(target, tree):
+            raise PipelineError("the signal description is outside the pipeline's folder (after following links)",
+                                path=src, key_path="log.signal_description", hint=_OUTSIDE_HINT)
+        out["signal_description"] = target.resolve()
     return out
 
 
@@ -578,10 +746,17 @@ def _resample(table: Mapping[str, Any], src: Path | None) -> float | None:
     rate = table.get("resample_hz")
     if rate is None:
         return None
-    rate = _number(rate, "log.resample_hz", src, what="a positive number of samples per second")
+    return _rate(rate, "log.resample_hz", src)
+
+
+def _rate(value: Any, key_path: str, src: Path | None) -> float:
+    rate = _number(value, key_path, src, what="a positive number of samples per second")
     if rate <= 0:
-        raise PipelineError(f"must be a positive number; got {rate!r}", path=src, key_path="log.resample_hz")
-    return rate
+        raise PipelineError(f"must be a positive number; got {value!r}", path=src, key_path=key_path)
+    try:
+        return sample_rate_value(rate, "the rate")
+    except OptionError as exc:
+        raise PipelineError(str(exc), path=src, key_path=key_path) from exc
 
 
 def _upsample(table: Mapping[str, Any], src: Path | None) -> str | None:
@@ -623,7 +798,7 @@ def _parse_modes(table: Mapping[str, Any], src: Path | None) -> ModesSpec:
     return ModesSpec(thresholds=thresholds, fail_on=tuple(dict.fromkeys(fail_on)))
 
 
-def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None) -> DriftSpec:
+def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None, tree: Path | None) -> DriftSpec:
     valid = ("baseline", *(f.name for f in dataclasses.fields(DriftThresholds)))
     _check_keys(table, "drift", valid, src)
     baseline = table.get("baseline")
@@ -632,7 +807,50 @@ def _parse_drift(table: Mapping[str, Any], base: Path, src: Path | None) -> Drif
             raise PipelineError(f"must be the path of a model file; got {baseline!r}", path=src,
                                 key_path="drift.baseline")
         target = Path(baseline).expanduser()
-        baseline = (target if target.is_absolute() else base / target).resolve()
+        target = target if target.is_absolute() else base / target
+        if not _inside(target, tree):
+            raise PipelineError("the baseline is outside the pipeline's folder (after following links)",
+                                path=src, key_path="drift.baseline", hint=_OUTSIDE_HINT)
+        baseline = target.resolve()
     rest = {k: v for k, v in table.items() if k != "baseline"}
     thresholds = _parse_options(DriftThresholds, rest, "drift", src, DriftThresholds.from_mapping)
     return DriftSpec(baseline=baseline, thresholds=thresholds)
+
+
+def _parse_fleet(table: Mapping[str, Any], base: Path, src: Path | None, tree: Path | None) -> FleetSpec:
+    valid = (*FLEET_KEYS, *(f.name for f in dataclasses.fields(OutlierRule)))
+    _check_keys(table, "fleet", valid, src)
+    unit_from = table.get("unit_from")
+    if unit_from is not None:
+        if not isinstance(unit_from, str) or not unit_from:
+            raise PipelineError(f"must be a regular expression; got {unit_from!r}", path=src,
+                                key_path="fleet.unit_from")
+        try:
+            re.compile(unit_from)
+        except re.error as exc:
+            raise PipelineError(f"not a valid regular expression ({exc})", path=src,
+                                key_path="fleet.unit_from") from exc
+    workers = table.get("workers")
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
+        raise PipelineError(f"must be a whole number >= 1; got {workers!r}", path=src, key_path="fleet.workers")
+    scheduler = table.get("scheduler")
+    if scheduler is not None and (not isinstance(scheduler, str) or not scheduler):
+        raise PipelineError(f"must be a scheduler address such as 'tcp://host:8786'; got {scheduler!r}",
+                            path=src, key_path="fleet.scheduler")
+    if scheduler is not None and workers is not None:
+        raise PipelineError("give either 'workers' (embedded cluster) or 'scheduler', not both", path=src,
+                            key_path="fleet.workers")
+    reference = table.get("reference")
+    if reference is not None:
+        if not isinstance(reference, str) or not reference:
+            raise PipelineError(f"must be the path of a model file; got {reference!r}", path=src,
+                                key_path="fleet.reference")
+        target = Path(reference).expanduser()
+        target = target if target.is_absolute() else base / target
+        if not _inside(target, tree):
+            raise PipelineError("the reference model is outside the pipeline's folder (after following links)",
+                                path=src, key_path="fleet.reference", hint=_OUTSIDE_HINT)
+        reference = target.resolve()
+    rest = {k: v for k, v in table.items() if k not in FLEET_KEYS}
+    rule = _parse_options(OutlierRule, rest, "fleet", src, OutlierRule.from_mapping)
+    return FleetSpec(unit_from=unit_from, workers=workers, scheduler=scheduler, reference=reference, rule=rule)

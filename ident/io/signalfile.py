@@ -343,6 +343,10 @@ def _description_from_dict(data: Any, where: str | None) -> SignalDescription:
     )
 
 
+#: Largest signal description rigfit reads, in bytes.
+MAX_DESCRIPTION_BYTES = 64 * 2**20
+
+
 def read_signal_description(path: str | os.PathLike) -> SignalDescription:
     """Read a test signal's JSON description.
 
@@ -352,17 +356,13 @@ def read_signal_description(path: str | os.PathLike) -> SignalDescription:
         The file is missing, not JSON, of another format or version, or a
         field is missing or malformed.
     """
+    from .inputs import parse_json, read_input_bytes
+
     where = os.fspath(path)
-    try:
-        with open(where, encoding="utf-8") as fh:
-            text = fh.read()
-    except FileNotFoundError as exc:
-        raise SignalFileError("no such file", path=where) from exc
-    except (IsADirectoryError, PermissionError, UnicodeDecodeError) as exc:
-        raise SignalFileError(f"cannot read ({exc.__class__.__name__})", path=where) from exc
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise SignalFileError(f"not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})",
-                              path=where) from exc
+
+    def error(reason: str) -> SignalFileError:
+        return SignalFileError(reason, path=where)
+
+    data = parse_json(read_input_bytes(where, error, what="signal description", max_bytes=MAX_DESCRIPTION_BYTES),
+                      error)
     return _description_from_dict(data, where)

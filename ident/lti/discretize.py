@@ -14,7 +14,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .._validate import one_of, optional_positive_float, positive_float
+from .._validate import one_of, optional_positive_float, positive_float, sample_time_value
 from ..choices import DISCRETIZE_METHODS
 from ..errors import ModelError
 from .models import StateSpaceModel, TransferFunctionModel, require_state_space, signal_metadata
@@ -145,7 +145,8 @@ def to_discrete(
         (triangle hold, as :func:`scipy.signal.cont2discrete`).
         ``tustin``: bilinear map ``s = k (z - 1) / (z + 1)``, ``k = 2 / T``.
         ``matched``: every pole and finite zero mapped by ``z = exp(s T)``,
-        zeros at infinity put at ``z = -1``, gain matched at DC.
+        zeros at infinity put at ``z = -1``, gain matched at DC; for models
+        with one input and one output (or no states) only.
     prewarp_hz : float, optional
         Tustin only: choose ``k = w / tan(w T / 2)``, ``w = 2 pi prewarp_hz``,
         so that the discrete frequency response equals the continuous one at
@@ -156,14 +157,17 @@ def to_discrete(
     StateSpaceModel
         Discrete-time model with ``sample_time = T``. ``zoh``, ``foh`` and
         ``tustin`` keep the order and are computed on the state space;
-        ``matched`` works per channel on poles and zeros and returns a minimal
-        realisation.
+        ``matched`` works on the transfer function's poles and zeros and
+        returns a minimal realisation of the same order.
 
     Raises
     ------
     ModelError
-        When the model is already discrete, or for Tustin a pole sits at
-        ``s = k`` (the map is singular there).
+        When the model is already discrete, for Tustin a pole sits at
+        ``s = k`` (the map is singular there), or ``matched`` is asked for a
+        model with several inputs or outputs: done channel by channel it would
+        repeat every pole once per channel (a 4-state 2x2 model would come back
+        with 8 states), so it is refused with a pointer to ``zoh``/``tustin``.
 
     Notes
     -----
@@ -184,7 +188,7 @@ def to_discrete(
        pole-zero).
     """
     require_state_space(model)
-    T = positive_float(sample_time, "sample_time")
+    T = sample_time_value(sample_time)
     one_of(method, "method", DISCRETIZE_METHODS)
     prewarp_hz = optional_positive_float(prewarp_hz, "prewarp_hz")
     if model.is_discrete:
@@ -244,7 +248,8 @@ def to_continuous(
     model : StateSpaceModel
         Discrete-time model.
     method : {"zoh", "foh", "tustin", "matched"}, default "zoh"
-        The inverse of the same method of :func:`to_discrete`.
+        The inverse of the same method of :func:`to_discrete` (``matched``: one
+        input and one output, or no states).
     prewarp_hz : float, optional
         Tustin only: the pre-warping frequency used for the discretisation.
 
@@ -271,6 +276,14 @@ def to_continuous(
     ``A = k (Ad + I)^-1 (Ad - I)``, ``B = k (Ad + I)^-1 Bd``,
     ``C = 2 Cd (Ad + I)^-1``, ``D = Dd - C Bd / 2``. Matched: poles and zeros
     by ``s = ln(z) / T``; zeros at ``z = -1`` go back to infinity; DC gain kept.
+    A ``k``-fold zero at ``z = -1`` (relative degree ``k``) comes out of the
+    zero computation split into ``k`` zeros about ``eps**(1/k)`` from ``-1``;
+    they are recognised as one cluster by their spread and their mean (see
+    ``_cluster_at_minus_one``), so the matched discretisation of any model
+    is inverted. The round trip goes through transfer-function polynomials,
+    whose roots lose accuracy when many poles crowd near ``z = 1`` (a sample
+    time far shorter than several similar time constants); ``zoh`` works on
+    the state space and has no such limit.
 
     References
     ----------
@@ -361,6 +374,16 @@ def _real_logm(M: np.ndarray) -> np.ndarray:
 def _matched(model: StateSpaceModel, T: float, *, to_discrete: bool) -> StateSpaceModel:
     from .convert import tf_to_ss
 
+    if model.n_states and (model.n_inputs, model.n_outputs) != (1, 1):
+        # channel by channel, a model with several inputs or outputs would come back with
+        # every pole once per channel (a 4-state 2x2 model with 8 states), and the way back
+        # would be refused: the rule is defined for single-input single-output models only
+        raise ModelError(
+            f"the matched pole-zero rule maps one transfer function; this model has {model.n_inputs} "
+            f"input(s) and {model.n_outputs} output(s)",
+            hint="use --method zoh or tustin, which keep one state per pole for any number of channels",
+        )
+
     poles = np.linalg.eigvals(model.A) if model.n_states else np.zeros(0, dtype=complex)
     nums, dens = [], []
     for channels in channel_zeros_gains(model):
@@ -390,7 +413,7 @@ def _matched_channel(poles, zeros, gain, T, to_discrete):
         old_ref, new_ref = 1j * 2 * np.pi / (100 * T), np.exp(1j * 2 * np.pi / 100)
     else:
         new_poles = np.log(poles) / T
-        finite = np.abs(zeros + 1.0) > 1e-8
+        finite = ~_cluster_at_minus_one(zeros)
         bad = zeros[finite & _on_negative_axis(zeros)]
         if bad.size:
             raise ModelError(
@@ -418,6 +441,42 @@ def _matched_channel(poles, zeros, gain, T, to_discrete):
     num = k * np.real(np.poly(new_zeros)) if new_zeros.size else np.array([k])
     den = np.real(np.poly(new_poles)) if new_poles.size else np.ones(1)
     return num, den
+
+
+#: A cluster of ``k`` zeros is at ``z = -1`` when each is within ``_CLUSTER_SPREAD * eps**(1/k)``
+#: of it (at least ``_CLUSTER_FLOOR``) and their mean within ``_CLUSTER_CENTRE``.
+_CLUSTER_SPREAD = 100.0
+_CLUSTER_FLOOR = 1e-8
+_CLUSTER_CENTRE = 1e-8
+
+
+def _cluster_at_minus_one(zeros: np.ndarray) -> np.ndarray:
+    """Mask of the zeros that stand for a zero of some multiplicity ``k`` at ``z = -1``.
+
+    A ``k``-fold root perturbed by a relative error ``eps`` splits into ``k``
+    roots about ``eps**(1/k)`` away from it (``1e-8`` for two, ``6e-6`` for
+    three, ``1e-4`` for four in double precision), while their mean (the
+    coefficient of the deflated polynomial) moves only by about ``eps``. So the
+    ``k`` zeros nearest ``-1`` are taken as a ``k``-fold zero there when all lie
+    within a distance that grows with ``k`` and their mean is at ``-1`` to
+    ``1e-8``; the largest such ``k`` wins. A genuine zero near ``-1`` (say at
+    ``-0.98``) moves the mean far more than that and is kept.
+    """
+    zeros = np.asarray(zeros, dtype=complex)
+    mask = np.zeros(zeros.shape, dtype=bool)
+    if zeros.size == 0:
+        return mask
+    dist = np.abs(zeros + 1.0)
+    order = np.argsort(dist, kind="stable")
+    eps = np.finfo(float).eps
+    best = 0
+    for k in range(1, zeros.size + 1):
+        cluster = zeros[order[:k]]
+        spread_ok = dist[order[k - 1]] <= max(_CLUSTER_FLOOR, _CLUSTER_SPREAD * eps ** (1.0 / k))
+        if spread_ok and abs(cluster.mean() + 1.0) <= _CLUSTER_CENTRE:
+            best = k
+    mask[order[:best]] = True
+    return mask
 
 
 def _conj_clean(x: np.ndarray) -> np.ndarray:

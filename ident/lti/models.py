@@ -28,7 +28,7 @@ from typing import Any
 
 import numpy as np
 
-from .._validate import as_matrix, names_tuple, optional_positive_float
+from .._validate import as_matrix, names_tuple, sample_time_value
 from ..errors import OptionError
 
 __all__ = ["OperatingPoint", "StateSpaceModel", "TransferFunctionModel"]
@@ -137,7 +137,7 @@ class StateSpaceModel:
         _set(self, "B", B)
         _set(self, "C", C)
         _set(self, "D", D)
-        _set(self, "sample_time", optional_positive_float(self.sample_time, "sample_time"))
+        _set(self, "sample_time", None if self.sample_time is None else sample_time_value(self.sample_time))
         _set(self, "inputs", names_tuple(self.inputs, "inputs", m, "u"))
         _set(self, "outputs", names_tuple(self.outputs, "outputs", p, "y"))
         units_in = ("",) * m if self.input_units is None else self.input_units
@@ -212,6 +212,17 @@ class StateSpaceModel:
         """Return a copy with some fields replaced (arrays are copied again)."""
         return replace(self, **changes)
 
+    def to_scipy(self) -> Any:
+        """Return the equivalent ``scipy.signal.StateSpace`` (discrete with ``dt = sample_time``).
+
+        Names, units and the operating point have no place in scipy's object and stay on this
+        model; the scipy system maps deviations from the operating point.
+        """
+        from scipy import signal
+
+        dt = {} if self.sample_time is None else {"dt": self.sample_time}
+        return signal.StateSpace(np.array(self.A), np.array(self.B), np.array(self.C), np.array(self.D), **dt)
+
 
 @dataclass(frozen=True, slots=True, eq=False)
 class TransferFunctionModel:
@@ -276,7 +287,7 @@ class TransferFunctionModel:
             new_den.append(tuple(drow))
         _set(self, "num", tuple(new_num))
         _set(self, "den", tuple(new_den))
-        _set(self, "sample_time", optional_positive_float(self.sample_time, "sample_time"))
+        _set(self, "sample_time", None if self.sample_time is None else sample_time_value(self.sample_time))
         _set(self, "inputs", names_tuple(self.inputs, "inputs", m, "u"))
         _set(self, "outputs", names_tuple(self.outputs, "outputs", p, "y"))
         units_in = ("",) * m if self.input_units is None else self.input_units

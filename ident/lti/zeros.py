@@ -171,13 +171,31 @@ def siso_zeros_gain(
 
 
 def channel_zeros_gains(model: StateSpaceModel) -> list[list[tuple[np.ndarray, float]]]:
-    """``(zeros, gain)`` of every channel ``G_ij`` (see :func:`siso_zeros_gain`), as ``[i][j]``."""
+    """``(zeros, gain)`` of every channel ``G_ij`` (see :func:`siso_zeros_gain`), as ``[i][j]``.
+
+    Each channel is first scaled to ``b / ||b||``, ``c / ||c||`` (its zeros do not
+    change; the gain is scaled back), so the rank decisions of the deflation
+    are relative to the channel itself. Without it a channel whose ``b`` or
+    ``c`` is tiny next to the rest of the model (a discretisation with a small
+    sample time and a high relative degree has numerator coefficients of
+    ``T**k``) looks like zero to a tolerance set by the whole model.
+    """
     A, B, C, D = model.A, model.B, model.C, model.D
-    tol = system_tolerance(A, B, C, D)
     return [
-        [siso_zeros_gain(A, B[:, j], C[i], D[i, j], tol) for j in range(model.n_inputs)]
+        [_scaled_channel(A, B[:, j], C[i], float(D[i, j])) for j in range(model.n_inputs)]
         for i in range(model.n_outputs)
     ]
+
+
+def _scaled_channel(A: np.ndarray, b: np.ndarray, c: np.ndarray, d: float) -> tuple[np.ndarray, float]:
+    sb = float(np.linalg.norm(b))
+    sc = float(np.linalg.norm(c))
+    if sb == 0.0 or sc == 0.0:  # the channel is its feedthrough alone
+        return np.zeros(0, dtype=complex), d
+    bs, cs, ds = b / sb, c / sc, d / (sb * sc)
+    tol = system_tolerance(A, bs[:, None], cs[None, :], np.array([[ds]]))
+    zeros, gain = siso_zeros_gain(A, bs, cs, ds, tol)
+    return zeros, gain * sb * sc
 
 
 def _poly_from_roots(roots: np.ndarray) -> np.ndarray:

@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 
 from ..assess.drift import DriftReport
+from ._text import literal
 
 __all__ = ["magnitude_overlay"]
 
@@ -28,6 +29,7 @@ def magnitude_overlay(
     *,
     inputs: Sequence[str] | None = None,
     axes: Sequence[Any] | None = None,
+    units: tuple[Sequence[str], Sequence[str]] | None = None,
 ) -> Any:
     """Overlay the baseline and new models' magnitude responses, one panel per channel.
 
@@ -41,6 +43,9 @@ def magnitude_overlay(
         default ``u1, u2, ...``. The output names come from the report.
     axes : sequence of matplotlib.axes.Axes, optional
         One per channel, outputs major (``p * m`` axes); a new figure when omitted.
+    units : (sequence of str, sequence of str), optional
+        Input and output units: a right-hand axis then gives the gain in output
+        unit per input unit beside the dB scale.
 
     Returns
     -------
@@ -82,9 +87,15 @@ def magnitude_overlay(
                 ax.plot([f[k], f[k]], [base[k, i, j], new[k, i, j]], color=_BAD, lw=1.0)
                 ax.plot([f[k]], [new[k, i, j]], "o", color=_BAD, ms=4,
                         label=f"largest difference {r.largest_db:.1f} dB")
-            ax.set_title(f"{ins[j]} → {outs[i]}", fontsize=9, loc="left", color=_INK)
-            ax.set_ylabel("magnitude [dB]", fontsize=8)
+            ax.set_title(literal(f"{ins[j]} → {outs[i]}"), fontsize=9, loc="left", color=_INK)
+            ax.set_ylabel("gain [dB]", fontsize=8)
             ax.legend(fontsize=7, frameon=False)
+            if units is not None:
+                from ..display import ratio_unit
+                from .validation import _gain_axis
+
+                _gain_axis(ax, ratio_unit(units[1][i], units[0][j]) if (units[1][i] or units[0][j])
+                           else "output unit/input unit")
             for side in ("top", "right"):
                 ax.spines[side].set_visible(False)
             ax.tick_params(colors=_INK, labelsize=8)

@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import OptionError
+from ._text import literal
 
 __all__ = ["MAX_INPUTS_DRAWN", "zoom_window", "designed_signal_figure", "periodic_response_figure"]
 
@@ -80,7 +81,7 @@ def _envelope(t: np.ndarray, x: np.ndarray, bins: int) -> tuple[np.ndarray, np.n
 
 
 def _label(name: str, unit: str) -> str:
-    return f"{name} [{unit}]" if unit else name
+    return literal(f"{name} [{unit}]" if unit else name)
 
 
 def designed_signal_figure(signal: Any, names: Sequence[str] | None = None, units: Sequence[str] | None = None,
@@ -116,7 +117,7 @@ def designed_signal_figure(signal: Any, names: Sequence[str] | None = None, unit
         _draw_zoom(fig.add_subplot(grid[1 + j, 0]), signal, j, _label(names[j], units[j]))
         _draw_spectrum(fig.add_subplot(grid[1 + j, 1]), signal, j, names[j])
     opts = signal.options
-    more = f"; inputs {', '.join(names[shown:])} not drawn" if m > shown else ""
+    more = literal(f"; inputs {', '.join(names[shown:])} not drawn") if m > shown else ""
     fig.suptitle(
         f"{opts.kind} test signal, {opts.band_hz[0]:g}-{opts.band_hz[1]:g} Hz at {opts.sample_rate_hz:g} Hz: "
         f"{signal.periods} periods of {signal.period_s:.4g} s"
@@ -210,7 +211,7 @@ def _draw_spectrum(ax: Any, signal: Any, j: int, name: str) -> None:
     ax.set_ylim(_FLOOR_DB - 5, 8)
     ax.set_ylabel("amplitude [dB re largest line]", fontsize=8, color=_INK)
     ax.set_xlabel("frequency [Hz]", fontsize=8, color=_INK)
-    ax.set_title(f"{name}: one period, lines every {signal.resolution_hz:.4g} Hz; band shaded",
+    ax.set_title(f"{literal(name)}: one period, lines every {signal.resolution_hz:.4g} Hz; band shaded",
                  fontsize=8, loc="left", color=_INK)
     ax.legend(fontsize=7, frameon=False, loc="lower left", markerscale=2)
     _style(ax)
@@ -250,7 +251,8 @@ def periodic_response_figure(analysis: Any, *, output: int = 0, input: int = 0, 
     _draw_frf(axes[0], axes[1], analysis, output, input, comparison)
     _draw_output(axes[2], analysis, output, comparison)
     axes[0].set_title(
-        f"{analysis.inputs[input]} → {analysis.outputs[output]}: {analysis.measured_periods} periods averaged"
+        literal(f"{analysis.inputs[input]} → {analysis.outputs[output]}")
+        + f": {analysis.measured_periods} periods averaged"
         + (f" in {analysis.blocks} blocks" if analysis.blocks > 1 else "")
         + f", lines every {analysis.resolution_hz:.4g} Hz", fontsize=9, loc="left", color=_INK)
     for ax in axes[:3]:
@@ -275,7 +277,7 @@ def _draw_frf(ax_mag: Any, ax_ph: Any, analysis: Any, i: int, j: int, comparison
                     zorder=3)
     ax_mag.set_xscale("log")
     ax_mag.set_yscale("log")
-    ax_mag.set_ylabel("|G|", fontsize=8, color=_INK)
+    ax_mag.set_ylabel("|G| [output unit / input unit]", fontsize=8, color=_INK)
     ax_mag.legend(fontsize=7, frameon=False)
     with np.errstate(divide="ignore", invalid="ignore"):
         phase_err = np.degrees(np.arcsin(np.clip(err / np.where(mag > 0, mag, np.inf), 0, 1)))
@@ -303,6 +305,6 @@ def _draw_output(ax: Any, analysis: Any, i: int, comparison: Any) -> None:
                 color=_MODEL, label="model error at excited lines")
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_ylabel(f"{analysis.outputs[i]} amplitude", fontsize=8, color=_INK)
+    ax.set_ylabel(f"{literal(analysis.outputs[i])} amplitude [output unit]", fontsize=8, color=_INK)
     ax.set_xlabel("frequency [Hz]", fontsize=8, color=_INK)
     ax.legend(fontsize=7, frameon=True, framealpha=0.85, edgecolor="none", loc="upper right")

@@ -1,0 +1,73 @@
+"""What a newcomer meets first on the command line: help texts, options, warnings."""
+
+from __future__ import annotations
+
+import dataclasses
+import re
+import subprocess
+import sys
+import warnings
+
+import click
+import pytest
+
+from ident.cli import cli
+
+_CTX = click.Context(cli)
+COMMANDS = cli.list_commands(_CTX)
+
+
+@pytest.mark.parametrize("command", ["", *COMMANDS])
+def test_no_deprecation_warning_reaches_the_user(command):
+    # a fresh process, as a user runs it, with every DeprecationWarning turned into an error
+    args = [sys.executable, "-W", "error::DeprecationWarning", "-W", "error::PendingDeprecationWarning",
+            "-m", "ident", *([command] if command else []), "--help"]
+    run = subprocess.run(args, capture_output=True, text=True)
+    assert run.returncode == 0, run.stderr
+    assert "warning" not in run.stderr.lower()
+
+
+def test_the_warning_printer_drops_library_deprecations():
+    from ident.cli import _common
+
+    @click.command()
+    def noisy() -> None:
+        warnings.warn("old click spelling", DeprecationWarning, stacklevel=1)
+        warnings.warn("model has an unstable pole", UserWarning, stacklevel=1)
+
+    from click.testing import CliRunner
+
+    def run():
+        return _common.run_guarded(noisy, [])
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("always")
+        result = CliRunner().invoke(click.command()(lambda: sys.exit(run())), [])
+    assert "old click spelling" not in result.stderr
+    assert "warning: model has an unstable pole" in result.stderr
+
+
+def test_fit_offers_every_pipeline_fit_option():
+    from ident.estimate.identify import IdentifyOptions
+    from ident.estimate.preprocess import PreprocessOptions
+
+    fit = cli.get_command(_CTX, "fit")
+    params = {p.name for p in fit.params}
+    aliases = {"order": "order_text"}
+    keys = [f.name for f in dataclasses.fields(IdentifyOptions) if f.name != "preprocess"]
+    keys += [f.name for f in dataclasses.fields(PreprocessOptions)]
+    missing = [k for k in keys if aliases.get(k, k) not in params]
+    assert not missing, f"rigfit fit lacks options for pipeline keys {missing}"
+
+
+def test_fit_help_texts_are_whole_sentences():
+    fit = cli.get_command(_CTX, "fit")
+    for p in fit.params:
+        if not getattr(p, "help", None):
+            continue
+        text = p.help.strip()
+        # a sentence starts with a capital letter (or an option/quoted name) and ends with a full stop
+        assert re.match(r"^[A-Z'\-]", text), (p.name, text)
+        assert text.endswith("."), (p.name, text)
+        # and has a verb: the first word is not a bare noun phrase like "Largest order tried"
+        assert not re.match(r"^(Largest|Fraction|Model|Subspace|Input|Output|Time|No) ", text), (p.name, text)
