@@ -225,7 +225,9 @@ def fit(
         "estimation": {"command": "python ident.fit", "method": result.method, "order": result.order,
                        "options": opts.to_dict(), "input_delay": list(result.input_delay),
                        "noise_model": result.noise_model},
-        "validation": {"fit_percent": dict(zip(log.output_names, map(float, result.validation_fit), strict=True))},
+        "validation": {"fit_percent": dict(zip(log.output_names, map(float, result.validation_fit), strict=True)),
+                       "estimation_fit_percent": dict(zip(log.output_names, map(float, result.estimation_fit),
+                                                          strict=True))},
     }
     return ModelResult(model=result.model, provenance=provenance, identification=result,
                        pole_covariance=result.pole_covariance, parameter_covariance=result.covariance,
@@ -458,9 +460,19 @@ class ModelResult:
         u, y = np.array(log.u[a:b]), np.array(log.y[a:b])
         op = model.operating_point
         u, y = (u - u.mean(axis=0), y - y.mean(axis=0)) if op is None else (u - op.inputs, y - op.outputs)
-        report = validate_model(model, u, y, log.sample_time, CheckOptions(**options))
+        report = validate_model(model, u, y, log.sample_time, CheckOptions(**options),
+                                in_sample_fit=self._in_sample_fit())
         return CheckResult(report=report, columns={"inputs": list(log.input_names), "outputs": list(log.output_names)},
                            source=log.source.file_name)
+
+    def _in_sample_fit(self) -> list[float] | None:
+        """In-sample fit per output, in model order, as the provenance records it (``None`` when it does not)."""
+        fits = (self.provenance.get("validation") or {}).get("estimation_fit_percent")
+        outs = self.model.outputs
+        if not isinstance(fits, dict) or set(fits) != set(outs):
+            return None
+        values = [fits[o] for o in outs]
+        return values if all(isinstance(v, (int, float)) for v in values) else None
 
     def save(self, path: str | os.PathLike, *, force: bool = False) -> Path:
         """Write the model file (atomically; an existing file only with ``force``)."""

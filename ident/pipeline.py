@@ -4,9 +4,17 @@
 
 1. **ingest** every log file (each file, and each segment between timing gaps
    when ``split_at_gaps`` is on, is one experiment);
-2. **preprocess, candidates, selection** with :func:`ident.estimate.identify.identify`;
+2. **preprocess, candidates, selection** with :func:`ident.estimate.identify.identify`
+   (with ``[log] validate_with``, the whole of those logs is held out instead of
+   the tail of every segment);
 3. **validation** of the selected model on every held-out part with
-   :func:`ident.assess.diagnostics.validate_model`;
+   :func:`ident.assess.diagnostics.validate_model`: fit figures from rest, with
+   the initial state estimated on a window that is not scored, and continued
+   from the estimation data before the part (the figure to believe), the
+   in-sample fit beside them, the subspace singular values as evidence for the
+   order advice, and for a periodic input (``[log] period``,
+   ``signal_description``, or detected) the frequency response at the excited
+   lines;
 4. **modes and expectations** (:func:`ident.assess.modes.mode_table`,
    :func:`ident.assess.expectations.check_expectations`); an ARX model's poles get
    confidence regions from its parameter covariance
@@ -25,6 +33,9 @@ folder is never reused, so earlier runs stay byte-identical.
 Gates (each listed in ``summary.json`` with its key path, passed or not):
 
 - ``check.min_fit`` and ``check.require_white`` when set in ``[check]``;
+  without them the headline still calls the model poor when an output's
+  held-out fit is below ``check.fit_warning`` (default 50 %), and it always
+  gives the held-out fit per output;
 - ``modes.fail_on``: no mode may carry one of these flags;
 - one gate per stated expectation (``expect.*``);
 - ``drift`` when a baseline is compared: no threshold breached.
@@ -375,6 +386,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
     report("reading logs", 0.0)
     logs = _read_logs(spec)
     first = logs[0]
+    vlogs = _read_validation_logs(spec, first)
     input_units = _units(spec, first.input_names, first.input_units, "input")
     output_units = _units(spec, first.output_names, first.output_units, "output")
 
@@ -386,13 +398,15 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
 
         baseline = load_model(baseline_path)
 
-    result = _identify_logs(spec, logs, input_units, output_units, report)
+    result = _identify_logs(spec, logs, input_units, output_units, report, vlogs)
     model = result.model
     prep = result.prepared
     pole_cov = result.pole_covariance  # first-order, from the parameter covariance, in model.poles() order
 
+    report("periodic input", 0.66)
+    periodic = _periodic(spec, first, result)
     report("validating", 0.68)
-    parts, validation = _validate_held_out(spec, model, prep)
+    parts, validation = _validate_held_out(spec, result, periodic, [*logs, *vlogs])
 
     report("modes and expectations", 0.75)
     duration = max(
@@ -413,11 +427,53 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
         "table": table, "expectations": expectations, "band": band, "excitation": excitation,
         "drift": drift, "baseline": baseline, "log_duration_s": duration, "baseline_path": baseline_path,
         "input_units": input_units, "output_units": output_units, "pole_covariance": pole_cov,
+        "validation_logs": vlogs, "periodic": periodic,
     }
 
 
+def _read_validation_logs(spec: PipelineSpec, first: Any) -> list[Any]:
+    """Read the ``[log] validate_with`` logs like the others; same columns and rate as the first log."""
+    from .io.log import read_log
+
+    ls = spec.log
+    out = []
+    for path in ls.validation_files:
+        log = read_log(path, list(ls.inputs), list(ls.outputs), **ls.read_log_kwargs())
+        if [n.lower() for n in (*log.input_names, *log.output_names)] != \
+                [n.lower() for n in (*first.input_names, *first.output_names)]:
+            raise PipelineError(f"the columns chosen in {log.source.file_name} differ from those in "
+                                f"{first.source.file_name}", path=spec.path, key_path="log.validate_with")
+        if abs(log.sample_time - first.sample_time) > 1e-3 * first.sample_time:
+            raise PipelineError(f"{log.source.file_name} has sample time {log.sample_time:g} s, "
+                                f"{first.source.file_name} {first.sample_time:g} s", path=spec.path,
+                                key_path="log.validate_with")
+        out.append(log)
+    return out
+
+
+def _periodic(spec: PipelineSpec, first: Any, result: Any) -> Any:
+    """Analyse the periods of the first log's longest segment (``None``: not periodic, or decimated)."""
+    from .estimate.periodic_check import period_samples, periodic_for_log
+
+    ls = spec.log
+    if result.prepared.decimation > 1 or (ls.period == "none" and ls.signal_description is None):
+        return None
+    arguments = None
+    if ls.signal_description is not None:
+        from .io.signalfile import read_signal_description
+
+        arguments = read_signal_description(ls.signal_description).periodic_arguments(first.sample_time)
+    period = period_samples(ls.period, first.sample_time) if isinstance(ls.period, float) else None
+    a, b = max(first.segments, key=lambda seg: seg[1] - seg[0])
+    op = result.model.operating_point
+    return periodic_for_log(first.u[a:b] - op.inputs, first.y[a:b] - op.outputs, first.sample_time,
+                            period=period, arguments=arguments, detect=ls.period == "auto",
+                            input_names=first.input_names, output_names=first.output_names)
+
+
 def _identify_logs(spec: PipelineSpec, logs: Sequence[Any], input_units: tuple[str, ...],
-                   output_units: tuple[str, ...], report: Callable[[str, float], None]) -> Any:
+                   output_units: tuple[str, ...], report: Callable[[str, float], None],
+                   vlogs: Sequence[Any] = ()) -> Any:
     """Identify a model from every segment of every log (one experiment each)."""
     from .estimate.identify import identify
 
@@ -433,33 +489,65 @@ def _identify_logs(spec: PipelineSpec, logs: Sequence[Any], input_units: tuple[s
         if step != "done":
             report(step, 0.05 + 0.6 * min(max(fraction, 0.0), 1.0))
 
+    extra: dict[str, Any] = {}
+    if vlogs:
+        vsegments, vstarts, offset = [], [], 0
+        for log in vlogs:
+            for a, b in log.segments:
+                vsegments.append((log.u[a:b], log.y[a:b]))
+                vstarts.append(offset + a)
+            offset += log.n_samples
+        extra = {"validation_segments": vsegments, "validation_starts": vstarts}
     return identify(
         segments, first.sample_time, spec.fit,
         input_names=first.input_names, output_names=first.output_names,
         input_units=input_units, output_units=output_units,
-        segment_starts=starts, progress=ident_progress,
+        segment_starts=starts, progress=ident_progress, **extra,
     )
 
 
-def _validate_held_out(spec: PipelineSpec, model: Any, prep: Any) -> tuple[list[int], tuple[Any, ...]]:
+def _validate_held_out(spec: PipelineSpec, result: Any, periodic: Any,
+                       logs: Sequence[Any]) -> tuple[list[int], tuple[Any, ...]]:
     """Validate the model on every held-out part long enough for the check, longest first."""
-    from .assess.diagnostics import validate_model
+    from .assess.diagnostics import MIN_SAMPLES, score_window, validate_model
+    from .estimate.validation import continued_fits
 
-    need = max(32, 4 * spec.check.max_lag)
-    parts = sorted(
-        (k for k, e in enumerate(prep.validation) if e.n_samples >= need),
-        key=lambda k: -prep.validation[k].n_samples,
-    )
+    model, prep = result.model, result.prepared
+    lag = spec.check.max_lag
+    need = MIN_SAMPLES if lag is None else max(MIN_SAMPLES, 4 * lag)
+    usable = {k: e.n_samples - score_window(e.n_samples, model.n_states) for k, e in enumerate(prep.validation)}
+    parts = sorted((k for k in usable if usable[k] >= need), key=lambda k: -prep.validation[k].n_samples)
     if not parts:
         raise IdentError(
-            f"no held-out part has the {need} samples validation needs (max_lag {spec.check.max_lag})",
-            hint="raise preprocess.holdout or lower check.max_lag",
+            f"no held-out part has the {need} samples validation needs after its initial-state window"
+            + (f" (max_lag {lag})" if lag is not None else ""),
+            hint="raise preprocess.holdout" + (" or lower check.max_lag" if lag is not None else ""),
         )
+    continued = continued_fits(model, prep)
+    filtered = prep.decimation > 1 or any(lg.resampling is not None for lg in logs)
     validation = tuple(
-        validate_model(model, prep.validation[k].u, prep.validation[k].y, prep.sample_time, spec.check)
+        validate_model(model, prep.validation[k].u, prep.validation[k].y, prep.sample_time, spec.check,
+                       continued=continued[k], in_sample_fit=result.estimation_fit,
+                       lines=_part_lines(periodic, prep.validation[k], model),
+                       singular_values=result.singular_values, zero_phase_filtered=filtered)
         for k in parts
     )
     return parts, validation
+
+
+def _part_lines(periodic: Any, part: Any, model: Any) -> Any:
+    """Measure the response at the excited lines of a held-out part of a periodic log (``None``: too short)."""
+    if periodic is None or periodic.blocks > 1:
+        return None
+    from .errors import IdentificationError
+    from .estimate.periodic_check import line_response, periodic_for_log
+
+    try:
+        analysis = periodic_for_log(part.u, part.y, periodic.sample_time, period=periodic.period_samples,
+                                    input_names=model.inputs, output_names=model.outputs)
+    except IdentificationError:
+        return None
+    return None if analysis is None or analysis.measured_periods < 2 else line_response(analysis)
 
 
 def _excitation(prep: Any, input_names: Sequence[str]) -> tuple[Any, Any]:
@@ -512,15 +600,16 @@ def _gates(state: dict[str, Any]) -> list[Gate]:
         gates.append(Gate(
             "minimum fit", "check.min_fit", ok,
             ", ".join(f"{n} {_fmt_fit(w)}" for n, w in zip(outs, worst, strict=True))
-            + f" (simulation on held-out data; required >= {spec.check.min_fit:g} %)",
+            + f" (simulation on held-out data, {reports[0].fits[0].label}; required >= {spec.check.min_fit:g} %)",
         ))
     if spec.check.require_white:
-        pvals = [min(float(r.whiteness[i].ljung_box_pvalue) for r in reports) for i in range(len(outs))]
         ok = all(w.white for r in reports for w in r.whiteness)
+        outside = [sum(len(r.whiteness[i].autocorrelation.significant_lags) for r in reports)
+                   for i in range(len(outs))]
         gates.append(Gate(
             "white residuals", "check.require_white", ok,
-            ", ".join(f"{n} Ljung-Box p = {p:.3g}" for n, p in zip(outs, pvals, strict=True))
-            + f" (required p >= {1 - spec.check.confidence:.3g})",
+            ", ".join(f"{n} {k} lag(s) outside" for n, k in zip(outs, outside, strict=True))
+            + f" (required: every lag inside the {100 * spec.check.confidence:g} % simultaneous band)",
         ))
     table = state["table"]
     if spec.modes.fail_on:
@@ -575,10 +664,7 @@ def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: 
     spec: PipelineSpec = state["spec"]
     result = state["result"]
     failed = [g for g in gates if not g.passed]
-    if failed:
-        headline = f"FAILED: {len(failed)} of {len(gates)} gates failed ({', '.join(g.key_path for g in failed)})"
-    else:
-        headline = f"PASSED: all {len(gates)} gates passed"
+    verdict = _verdict(spec, result, gates, failed)
     table = state["table"]
     modes = mode_table_to_dict(table)
     units = {"inputs": list(state["input_units"]), "outputs": list(state["output_units"])}
@@ -587,16 +673,13 @@ def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: 
         "schema_version": SUMMARY_SCHEMA_VERSION,
         "name": spec.name,
         "notes": spec.notes,
-        "verdict": {
-            "passed": not failed,
-            "headline": headline,
-            "failed_gates": [g.key_path for g in failed],
-        },
+        "verdict": verdict,
         "gates": [g.as_dict() for g in gates],
         "run": {"folder": folder_name, "created_utc": stamp},
         "data": _data_summary(state),
         "model": _model_summary(result, units),
         "validation": _validation_summary(state),
+        "periodic": _periodic_summary(state),
         "modes": {**modes, "units": units, "fail_on": list(spec.modes.fail_on)},
         "expectations": [
             {"name": r.name, "key_path": r.key_path, "met": r.met, "measured": r.measured,
@@ -607,11 +690,32 @@ def _summary(state: dict[str, Any], gates: list[Gate], stamp: str, folder_name: 
         else _drift_dict(state["drift"], state["baseline_path"], state["baseline"]),
         "figures": figures,
         "warnings": list(state["warnings"]),
-        "provenance": _provenance(spec, state["logs"], state["baseline_path"]),
+        "provenance": _provenance(spec, [*state["logs"], *state["validation_logs"]], state["baseline_path"]),
         "safety": SAFETY_CAUTION,
         "files": {"model": MODEL_FILE, "summary": SUMMARY_FILE, "report": REPORT_FILE},
     }
     return json_ready(summary)
+
+
+def _verdict(spec: PipelineSpec, result: Any, gates: Sequence[Gate], failed: Sequence[Gate]) -> dict[str, Any]:
+    """Write the headline: the gates' result, always with the held-out fit per output, and the poor-model warning."""
+    names = result.prepared.output_names
+    fits = [float(v) for v in result.validation_fit]
+    fit_text = ", ".join(f"{n} {_fmt_fit(v)}" for n, v in zip(names, fits, strict=True))
+    if failed:
+        head = f"FAILED: {len(failed)} of {len(gates)} gates failed ({', '.join(g.key_path for g in failed)})"
+    elif gates:
+        head = f"PASSED: all {len(gates)} gates passed"
+    else:
+        head = "PASSED: no gates set"
+    level = spec.check.fit_warning
+    poor = [n for n, v in zip(names, fits, strict=True) if level is not None and not (math.isfinite(v) and v >= level)]
+    headline = f"{head}; held-out fit {fit_text}"
+    if poor:
+        headline = (f"POOR MODEL: held-out fit of {', '.join(poor)} below the warning level of {level:g} % "
+                    f"({head}); held-out fit {fit_text}")
+    return {"passed": not failed, "headline": headline, "failed_gates": [g.key_path for g in failed],
+            "poor_outputs": poor, "fit_warning": level, "held_out_fit": dict(zip(names, fits, strict=True))}
 
 
 def _data_summary(state: dict[str, Any]) -> dict[str, Any]:
@@ -651,6 +755,9 @@ def _data_summary(state: dict[str, Any]) -> dict[str, Any]:
         ],
         "estimation_ranges": [list(r) for r in prep.estimation_ranges],
         "validation_ranges": [list(r) for r in prep.validation_ranges],
+        "validation_logs": [{"path": lg.source.path, "file_name": lg.source.file_name, "sha256": lg.source.sha256,
+                             "n_samples": lg.n_samples, "segments": [list(x) for x in lg.segments]}
+                            for lg in state["validation_logs"]],
         "operating_point": {"inputs": list(prep.operating_point.inputs),
                             "outputs": list(prep.operating_point.outputs)},
         "sample_time": prep.sample_time,
@@ -698,6 +805,13 @@ def _model_summary(result: Any, units: dict[str, list[str]]) -> dict[str, Any]:
     }
 
 
+def _periodic_summary(state: dict[str, Any]) -> dict[str, Any] | None:
+    from .estimate.periodic_check import periodic_summary
+
+    analysis = state["periodic"]
+    return None if analysis is None else periodic_summary(analysis, state["result"].model)
+
+
 def _validation_summary(state: dict[str, Any]) -> list[dict[str, Any]]:
     """One validation report per held-out part used, with its experiment number and range."""
     from .assess.diagnostics import report_to_dict
@@ -708,6 +822,7 @@ def _validation_summary(state: dict[str, Any]) -> list[dict[str, Any]]:
         d = report_to_dict(rep)
         d["experiment"] = k + 1
         d["range"] = list(prep.validation_ranges[k])
+        d["separate_log"] = bool(prep.separate_validation)
         validation.append(d)
     return validation
 
@@ -768,8 +883,9 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
         "above.", verdict_grid(rep))
     for i, out_name in enumerate(rep.outputs):
         add(f"validation_residuals_{i + 1}.png", "validation",
-            f"Residual correlations of {out_name}: autocorrelation and cross-correlation with the inputs, "
-            "with the confidence band.", residual_correlations(rep, output=i))
+            f"Residual analysis of {out_name}: autocorrelation over the model's settling time and cumulative "
+            "periodogram, cross-correlation with the prewhitened inputs; bands hold at every lag together; "
+            "the verdicts on top.", residual_correlations(rep, output=i))
     count = 0
     for i, out_name in enumerate(rep.outputs):
         for j, in_name in enumerate(rep.inputs):
@@ -777,8 +893,18 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
                 break
             count += 1
             add(f"validation_frequency_{i + 1}_{j + 1}.png", "validation",
-                f"Frequency response {in_name} → {out_name}: model against the estimate from the data, "
-                "with the coherence.", frequency_comparison(rep, output=i, input=j, model=model))
+                f"Frequency response {in_name} → {out_name}: the model against the estimate from the data with "
+                "its confidence region, judged where the data are informative (shaded band).",
+                frequency_comparison(rep, output=i, input=j, model=model))
+    if state["periodic"] is not None:
+        from .estimate.periodic import compare_with_model
+        from .plots.excite import periodic_response_figure
+
+        analysis = state["periodic"]
+        add("periodic_response.png", "periodic",
+            "Frequency response at the excited lines of the periodic input, with error bars from the "
+            "period-to-period scatter, the model, and the noise floor.",
+            periodic_response_figure(analysis, comparison=compare_with_model(analysis, state["result"].model)))
     add("modes_poles.png", "modes", "Poles (crosses; orange when flagged) and zeros (circles) in the z-plane.",
         pole_zero_map(state["table"]))
     if state["drift"] is not None:
@@ -801,14 +927,14 @@ def _write(spec: PipelineSpec, state: dict[str, Any], figures: list[tuple[dict[s
     stamp = now.strftime("%Y%m%dT%H%M%SZ")
     created = now.isoformat().replace("+00:00", "Z")
     h = hashlib.sha256(spec.sha256.encode())
-    for lg in state["logs"]:
+    for lg in [*state["logs"], *state["validation_logs"]]:
         h.update(lg.source.sha256.encode())
     if state["baseline_path"] is not None:
         h.update(hashlib.sha256(state["baseline_path"].read_bytes()).digest())
     digest = h.hexdigest()[:8]
     parent = _run_parent(spec, out_dir)
     gates = _gates(state)
-    protected = tuple(lg.source.path for lg in state["logs"])
+    protected = tuple(lg.source.path for lg in [*state["logs"], *state["validation_logs"]])
     base = f"{stamp}-{digest}"
 
     with new_folder(parent, lambda k: base if k == 1 else f"{base}-{k}") as (tmp, final_name):
@@ -874,6 +1000,9 @@ def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[s
                        "input_delay": list(result.input_delay), "noise_model": result.noise_model,
                        **uncertainty_provenance(state["pole_covariance"], result.covariance)},
         "validation": {"ranges": [list(r) for r in prep.validation_ranges],
-                       "fit_percent": summary["model"]["validation_fit"]},
+                       "fit_percent": summary["model"]["validation_fit"],
+                       "estimation_fit_percent": summary["model"]["estimation_fit"],
+                       "logs": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256}
+                                for lg in state["validation_logs"]]},
         "run": {"folder": name, "passed": summary["verdict"]["passed"]},
     }

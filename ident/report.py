@@ -6,9 +6,13 @@ into one HTML document. Figures are embedded as base64 ``data:`` URIs, the
 style sheet is inline and nothing is fetched from anywhere, so the file can be
 mailed, archived or printed as it is.
 
-Order of the sections: headline verdict and gates; data overview; chosen model
-and why (the candidate table); validation; modes in physical units with their
-warnings; expectations; drift from the baseline; provenance; safety caution.
+Order of the sections: headline verdict and gates (with the held-out fit per
+output, and a warning when it is below the warning level); data overview;
+chosen model and why (the candidate table); validation (the fit figures and
+which to believe, residual analysis, the frequency response and where it was
+judged, the order advice, the verdicts); the periodic input, when there is
+one; modes in physical units with their warnings; expectations; drift from
+the baseline; provenance; safety caution.
 
 Every string that comes from the user or the data (names, notes, column
 names, file names, units, messages) is passed through :func:`html.escape`.
@@ -118,21 +122,29 @@ def _ul(items: Iterable[Any], cls: str = "") -> _Raw:
 def _verdict(s: Mapping[str, Any]) -> str:
     v = s["verdict"]
     gates = s.get("gates", [])
-    cls = "verdict ok" if v["passed"] else "verdict bad"
+    poor = v.get("poor_outputs") or []
+    cls = "verdict ok" if v["passed"] and not poor else "verdict bad"
     word = "PASSED" if v["passed"] else "FAILED"
     n_failed = sum(1 for g in gates if not g["passed"])
-    line = (f"all {len(gates)} gates passed" if v["passed"]
-            else f"{n_failed} of {len(gates)} gates failed")
+    if not gates:
+        line = "no gates were set"
+    else:
+        line = (f"all {len(gates)} gates passed" if v["passed"] else f"{n_failed} of {len(gates)} gates failed")
     model = s.get("model", {})
     fits = ", ".join(f"{k} {_pct(x)}" for k, x in model.get("validation_fit", {}).items())
     sub = (f"{model.get('method', '?')} model, {model.get('n_states', '?')} states; "
-           f"validation fit {fits}") if model else ""
+           f"held-out fit {fits}") if model else ""
+    warn = ""
+    if poor:
+        warn = (f'<div class="poor">POOR MODEL: the held-out fit of {_e(", ".join(poor))} is below the warning '
+                f'level of {_e(_num(v.get("fit_warning"), "g"))} % ([check] fit_warning); do not design a '
+                "controller on it before the cause is found.</div>")
     rows = [(_ok(g["passed"]), g["name"], g["key_path"], g["detail"]) for g in gates]
     table = _table(("result", "gate", "set by", "measured"), rows, cls="gates") if gates else _p(
         "No gates were set in the pipeline file.")
     return (
         f'<div class="{cls}"><span class="word">{word}</span> <span class="line">{_e(line)}</span>'
-        f'<div class="sub">{_e(sub)}</div></div>' + table
+        f'<div class="sub">{_e(sub)}</div>{warn}</div>' + table
     )
 
 
@@ -225,27 +237,105 @@ def _model(s: Mapping[str, Any]) -> str:
     return _section("model", "Chosen model and why", *parts)
 
 
+_OUTCOME = {"pass": ("ok", "ok"), "fail": ("FAIL", "bad"), "note": ("note", "note"),
+            "cannot_judge": ("cannot judge", "note")}
+
+
 def _validation(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     parts = []
     for rep in s.get("validation", []):
-        title = (f"Held-out part of experiment {rep.get('experiment')}, samples "
-                 f"{rep['range'][0]}–{rep['range'][1]} ({rep['n_samples']} samples)")
-        rows = []
-        for o in rep["outputs"]:
-            f = rep["fit"][o]
-            w = rep["whiteness"][o]
-            rows.append((o, _pct(f["simulation_percent"]), _pct(f["prediction_percent"]),
-                         _num(w["ljung_box_pvalue"], ".3g"), _ok(bool(w["white"]), "white", "not white")))
+        where = ("Separate validation log" if rep.get("separate_log")
+                 else f"Held-out part of experiment {rep.get('experiment')}")
+        title = f"{where}, samples {rep['range'][0]}–{rep['range'][1]} ({rep['n_samples']} samples)"
         parts.append(_Raw(f"<h3>{_e(title)}</h3>"))
-        parts.append(_table(
-            ("output", "simulation fit", f"{rep['prediction_steps']}-step prediction fit", "Ljung-Box p",
-             "residuals"), rows))
+        parts.append(_p(rep.get("headline", ""), cls="bad" if rep.get("poor_outputs") else ""))
+        parts += _fit_tables(rep)
+        parts += _residual_text(rep)
+        parts += _frequency_text(rep)
+        advice = rep.get("advice")
+        if advice:
+            parts.append(_p(f"Order: {advice['message']}.", cls="" if advice["direction"] == "keep" else "bad"))
         parts.append(_table(
             ("", "test", "finding"),
-            [(_ok(v["passed"], "ok", "!"), v["test"], v["message"]) for v in rep["verdicts"]],
+            [(_OUTCOME.get(v.get("outcome"), ("?", "note")), v["test"], v["message"]) for v in rep["verdicts"]],
             cls="verdicts"))
     parts.append(_figures(s, figures, "validation"))
     return _section("validation", "Validation on held-out data", *parts)
+
+
+def _fit_tables(rep: Mapping[str, Any]) -> list[Any]:
+    """Put the fit figures beside the prediction and whiteness, and say which to believe."""
+    fits = rep.get("fits", [])
+    heads = [f["label"] for f in fits]
+    rows = []
+    for o in rep["outputs"]:
+        w = rep["whiteness"][o]
+        rows.append((o, *[_pct(f["percent"].get(o)) for f in fits], _pct(rep["fit"][o]["prediction_percent"]),
+                     _ok(bool(w["white"]), "white", "not white")))
+    out: list[Any] = [_table(("output", *heads, f"{rep['prediction_steps']}-step prediction", "residuals"), rows)]
+    if rep.get("fit_note"):
+        out.append(_p(f"Which to believe: {rep['fit_note']}."))
+    out += [_p(g["message"] + ".", cls="bad") for g in rep.get("gaps", []) if g["kind"] != "none"]
+    return out
+
+
+def _residual_text(rep: Mapping[str, Any]) -> list[Any]:
+    span = rep.get("lag_span")
+    if not span:
+        return []
+    return [_p(f"Residual correlations over lags up to {_num(span['seconds'])} s ({span['lags']} samples): "
+               f"{span['reason']}. The bands hold at every lag shown together; the inputs are prewhitened "
+               "before the cross-correlation.")]
+
+
+def _frequency_text(rep: Mapping[str, Any]) -> list[Any]:
+    sp = rep.get("spectral", {})
+    judgements = sp.get("judgements", [])
+    if not judgements:
+        return []
+    if sp.get("source") == "periodic":
+        head = f"Frequency response measured at the excited lines of the periodic input ({sp['n_segments']} periods)."
+    else:
+        choice = sp.get("segment_choice") or {}
+        head = (f"Frequency response: {choice.get('text', '')}; {sp['n_segments']} segments; "
+                f"{_num(100 * sp['confidence'], 'g')} % confidence region (Bendat and Piersol).")
+    rows = [(f"{j['input']} → {j['output']}", _judgement_cell(j["status"]),
+             f"{_num(j['low_hz'])}–{_num(j['high_hz'])} Hz" if j["informative"] else "–",
+             f"{100 * j['informative_share']:.0f} %") for j in judgements]
+    return [_p(head), _table(("channel", "model against the data", "band judged", "excited band informative"),
+                             rows)]
+
+
+def _judgement_cell(status: str) -> tuple[str, str]:
+    return {"agrees": ("agrees", "ok"), "disagrees": ("DISAGREES", "bad")}.get(status, ("cannot judge", "note"))
+
+
+def _periodic(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
+    per = s.get("periodic")
+    if not per:
+        return ""
+    parts = [_p(f"Period {per['period_samples']} samples ({_num(per['period_s'])} s, {per['period_source']}); "
+                f"{per['measured_periods']} of {per['periods']} periods averaged after {per['transient_periods']} "
+                f"transient; {per['lines']} excited lines"
+                + (f" from {_num(per['band_hz'][0])} to {_num(per['band_hz'][1])} Hz." if per["band_hz"] else "."))]
+    if per.get("noise_std"):
+        parts.append(_p("Noise standard deviation from the period-to-period scatter: "
+                        + ", ".join(f"{k} {_num(v)}" for k, v in per["noise_std"].items()) + "."))
+    model = per.get("model")
+    if model:
+        parts.append(_p("Model error against the measured noise floor at the lines: "
+                        + ", ".join(f"{k} {_num(v, '+.1f')} dB" for k, v in model["error_to_noise_db"].items())
+                        + " (near 0 dB: the model explains the data down to the noise)."))
+    for d in per.get("distortion") or []:
+        bits = [f"{kind} {_num(d[kind + '_db'], '.1f') + ' dB' if d[kind + '_db'] is not None else 'below the noise'}"
+                f" ({'detected' if d[kind + '_detected'] else 'not detected'})"
+                for kind in ("odd", "even") if d[f"{kind}_lines"]]
+        if bits:
+            parts.append(_p(f"Nonlinear distortion of {d['output']} at the unexcited lines: " + "; ".join(bits)
+                            + " (relative to the excited lines)."))
+    parts.append(_ul([f"note: {n}" for n in per.get("notes", [])], cls="notes"))
+    parts.append(_figures(s, figures, "periodic"))
+    return _section("periodic", "Periodic input", *parts)
 
 
 def _complex_text(value: Any, *, pair: bool = False) -> str:
@@ -418,6 +508,8 @@ h3 { font-size: 1em; margin: 18px 0 6px; }
 .verdict .word { font: bold 1.5em "Helvetica Neue", Arial, sans-serif; letter-spacing: .08em; }
 .verdict.ok .word { color: var(--ok); } .verdict.bad .word { color: var(--bad); }
 .verdict .sub { color: var(--muted); margin-top: 2px; }
+.verdict .poor { color: var(--bad); font-weight: bold; margin-top: 6px; }
+td.note { color: #8a6100; font-weight: 600; }
 table { border-collapse: collapse; margin: 8px 0 12px; font: 13px/1.35 "Helvetica Neue", Arial, sans-serif;
   background: #fff; }
 th, td { border: 1px solid var(--line); padding: 3px 8px; text-align: left; vertical-align: top; }
@@ -491,6 +583,7 @@ def render_report(summary: Mapping[str, Any], figures: Mapping[str, bytes]) -> s
         _data(summary, figures),
         _model(summary),
         _validation(summary, figures),
+        _periodic(summary, figures),
         _modes(summary, figures),
         _expectations(summary),
         _drift(summary, figures),

@@ -138,6 +138,15 @@ def test_check_on_data_without_time_uses_the_model_sample_time(result):
     assert list(verdicts.columns) == ["test", "passed", "about", "message"] and len(verdicts) > 0
 
 
+def test_check_compares_with_the_in_sample_fit_as_rigfit_check_does(result, tmp_path):
+    checked = result.check(_frame(2))
+    (gap,) = checked.report.gaps  # the in-sample fit travels in the provenance, as fit -o writes it
+    assert_allclose(gap.in_sample, result.identification.estimation_fit[0])
+    assert gap.kind == "none"  # fresh data of the same plant: no over-fitting to call out
+    again = ident.load_model(result.save(tmp_path / "valve.json"))
+    assert len(again.check(_frame(2)).report.gaps) == 1
+
+
 def test_check_maps_other_column_names(result):
     other = _frame(3).rename(columns={"valve_cmd [V]": "CMD [V]", "flow [l/min]": "Q [l/min]"})
     checked = result.check(other, inputs=["CMD"], outputs=["Q"], min_fit=50)
@@ -193,7 +202,10 @@ def test_notebook_html_of_result_modes_and_check(result):
     assert "rigfit-fragment" not in result.modes.iloc[:1]._repr_html_()
     check_page = _parse(result.check(_frame(2))._repr_html_())
     assert "Check on DataFrame: 3000 samples" in check_page.headings
-    assert any(t[0][:2] == ["output", "simulation fit"] for t in check_page.tables if t)
+    # the fit table: a column per labelled fit figure (no --from here: initial state estimated, from rest)
+    fit_heads = [t[0] for t in check_page.tables if t and t[0][0] == "output"]
+    assert any(any(h.startswith("initial state estimated") for h in heads) and "from rest" in heads
+               for heads in fit_heads), fit_heads
 
 
 def test_html_escapes_names():

@@ -60,7 +60,8 @@ def test_check_passes_and_prints_report(run_cli, files):
     res = run_cli("check", files["log"], files["model"], "--min-fit", "70")
     assert res.exit_code == 0, res.output
     assert "verdicts" in res.stdout and "flow" in res.stdout
-    assert "result: passed" in res.stdout
+    # the result line never says PASSED without the fit per output beside it
+    assert "result: PASSED; held-out fit flow" in res.stdout
 
 
 def test_json_shape_and_operating_point(run_cli, files):
@@ -145,7 +146,8 @@ def test_split_at_gaps_validates_on_the_longest_segment(run_cli, files, tmp_path
     assert res.exit_code == 0, res.output
     assert "validated on the longest of 2 segments: samples 500..2989" in res.stdout
     data = json.loads(run_cli("check", gappy, files["model"], "--split-at-gaps", "--json").stdout)
-    assert data["segment"] == {"start": 500, "stop": 2990, "n_segments": 2, "dropped_rows": 0}
+    assert {k: data["segment"][k] for k in ("start", "stop", "n_segments", "dropped_rows", "warmup")} == \
+        {"start": 500, "stop": 2990, "n_segments": 2, "dropped_rows": 0, "warmup": 0}
     assert data["n_samples"] == 2490  # the longest segment only (3000 - 10 - 500)
     # the same figures as validating a log holding that stretch alone
     alone = tmp_path / "alone.csv"
@@ -163,3 +165,99 @@ def test_dropped_rows_reported(run_cli, files, tmp_path):
     res = run_cli("check", broken, files["model"], "--drop-bad-rows", "--split-at-gaps")
     assert res.exit_code == 0, res.output
     assert "1 bad rows dropped" in res.stdout
+
+
+# --- issue 13: part of a log, honest fit figures, headlines, periodic input ----------------
+
+
+def test_from_to_scores_part_of_the_log_continued_from_before(run_cli, files):
+    res = run_cli("check", files["log"], files["model"], "--from", "10", "--to", "2500rows", "--json")
+    assert res.exit_code == 0, res.output
+    d = json.loads(res.stdout)
+    # --from 10 s: the first sample at t >= 10 s is index 1000 (t = k * 0.01 s); --to 2500rows includes
+    # data row 2500, i.e. index 2499 (rows count from 1)
+    seg = d["segment"]
+    assert (seg["start"], seg["stop"], seg["warmup"], d["n_samples"]) == (1000, 2500, 1000, 1500)
+    assert [f["kind"] for f in d["fits"]] == ["continued", "initial_state", "from_rest"]
+    # the continued figure is the identification's held-out score with the 1000 rows before as warm-up
+    from ident.estimate.data import Experiment
+    from ident.estimate.scoring import held_out_score
+
+    u, y = files["u"], files["y"]
+    ref = held_out_score(_model(), [Experiment(u[1000:2500], y[1000:2500])], 50,
+                         warmups=[Experiment(u[:1000], y[:1000])]).fit
+    assert_allclose(d["fits"][0]["percent"]["flow"], ref[0], atol=1e-4)  # 9-decimal CSV
+    assert d["fit"]["flow"]["simulation_percent"] == d["fits"][0]["percent"]["flow"]  # believed: continued
+    text = run_cli("check", files["log"], files["model"], "--from", "10", "--to", "2500rows").stdout
+    assert "rows 1001..2500" in text and "after 1000 rows of warm-up" in text
+    assert "which to believe: believe 'continued" in text
+
+
+@pytest.mark.parametrize(("args", "words"), [
+    (("--from", "50"), "outside the log's time axis"),
+    (("--from", "12abc"), "seconds such as 12.5"),
+    (("--from", "20", "--to", "10"), "must come before"),
+    (("--to", "4000rows"), "data rows 1 to 3000"),
+])
+def test_bad_ranges_exit_2(run_cli, files, args, words):
+    res = run_cli("check", files["log"], files["model"], *args)
+    assert res.exit_code == 2 and words in res.stderr, res.output
+
+
+def test_range_across_a_gap_exits_2(run_cli, files, tmp_path):
+    lines = files["log"].read_text().splitlines()
+    del lines[501:511]
+    gappy = tmp_path / "gappy.csv"
+    gappy.write_text("\n".join(lines) + "\n")
+    res = run_cli("check", gappy, files["model"], "--split-at-gaps", "--from", "1", "--to", "10")
+    assert res.exit_code == 2 and "crosses a gap" in res.stderr
+
+
+def test_poor_model_headline_without_a_gate(run_cli, files, tmp_path):
+    bad = tmp_path / "bad.json"
+    save_model(bad, _model().with_changes(C=0.2 * _model().C))
+    res = run_cli("check", files["log"], bad)
+    assert res.exit_code == 0  # a warning, not a gate
+    head = res.stdout.splitlines()[2]
+    assert head.startswith("  POOR MODEL: flow below the warning level of 50 %") and "held-out fit flow" in head
+    assert res.stdout.rstrip().splitlines()[-1].startswith("result: POOR MODEL")
+    quiet = run_cli("check", files["log"], bad, "--no-fit-warning")
+    assert "POOR MODEL" not in quiet.stdout and "result: no gate set; held-out fit flow" in quiet.stdout
+
+
+def _periodic_log(tmp_path, model):
+    # an invented multisine: lines 1..40 of a 200-sample period, random phases, 12 periods
+    rng = np.random.default_rng(5)
+    period, count = 200, 12
+    t = np.arange(period)
+    one = sum(np.cos(2 * np.pi * k * t / period + rng.uniform(0, 2 * np.pi)) for k in range(1, 41)) / 5
+    u = np.tile(one, count)[:, None]
+    y = simulate(model.with_changes(noise_gain=None), u) + 0.05 * rng.standard_normal((u.shape[0], 1))
+    path = tmp_path / "periodic.csv"
+    np.savetxt(path, np.column_stack([np.arange(u.shape[0]) * T, u[:, 0] + U_LEVEL, y[:, 0] + Y_LEVEL]),
+               delimiter=",", header="time [s],valve_cmd [%],flow [l/min]", comments="", fmt="%.10f")
+    return path
+
+
+def test_periodic_log_uses_the_excited_lines(run_cli, files, tmp_path):
+    path = _periodic_log(tmp_path, _model())
+    res = run_cli("check", path, files["plain"], "--json")
+    assert res.exit_code == 0, res.output
+    d = json.loads(res.stdout)
+    per = d["periodic"]
+    assert per["period_samples"] == 200 and per["period_source"] == "detected" and per["lines"] == 40
+    # the noise added was white with std 0.05: the period scatter gives it back (11 periods averaged,
+    # 2200 samples of 10 degrees of freedom each; 5 % is about 5 standard errors)
+    assert per["noise_std"]["flow"] == pytest.approx(0.05, rel=0.05)
+    assert d["spectral"]["source"] == "periodic"
+    assert d["spectral"]["judgements"][0]["status"] == "agrees"
+    assert per["model"]["error_to_noise_db"]["flow"] == pytest.approx(0.0, abs=1.5)  # a right model: 0 dB
+    text = run_cli("check", path, files["plain"]).stdout
+    assert "periodic input: period 200 samples" in text and "excited lines of the periodic input" in text
+    # the period given in seconds, or no periodic analysis at all
+    assert json.loads(run_cli("check", path, files["plain"], "--period", "2", "--json").stdout
+                      )["periodic"]["period_source"] == "given"
+    plain = json.loads(run_cli("check", path, files["plain"], "--period", "none", "--json").stdout)
+    assert plain["periodic"] is None and plain["spectral"]["source"] == "welch"
+    bad = run_cli("check", path, files["plain"], "--period", "1.234")
+    assert bad.exit_code == 2 and "whole number" in bad.stderr

@@ -7,7 +7,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal, stats
 
-from ident.errors import IdentificationError
+from ident.errors import IdentificationError, OptionError
 from ident.estimate.closed_loop import f_survival, feedback_evidence
 from ident.estimate.data import Experiment
 from ident.estimate.identify import IdentifyOptions, identify
@@ -99,3 +99,12 @@ def test_two_stage_through_the_reference():
         warnings.simplefilter("ignore")
         noise = np.random.default_rng(5).standard_normal(u.shape)  # not the loop's reference
         identify([(u, y)], T, IdentifyOptions(max_order=2), references=[noise])
+
+
+
+def test_references_and_separate_validation_records_are_refused_together():
+    u, y, r = _pi_rig(4)
+    half = u.shape[0] // 2
+    with pytest.raises(OptionError, match="references and separate validation records"):
+        identify([(u[:half], y[:half])], T, IdentifyOptions(max_order=2), references=[r[:half]],
+                 validation_segments=[(u[half:], y[half:])])

@@ -335,3 +335,90 @@ def test_arx_model_file_carries_pole_covariance(run_cli, tmp_path):
     m = run_cli("modes", out, "--json")
     pair = [x for x in __import__("json").loads(m.stdout)["modes"] if x["z"][1] > 0][0]
     assert pair["natural_frequency_std_hz"] > 0
+
+
+# --- issue 13: a separate validation log; periodic input --------------------------------------
+
+
+def _tank_logs(path, tmp_path):
+    """The cascaded-tanks benchmark's estimation and validation records as two logs."""
+    import pandas as pd
+
+    data = pd.read_csv(path)
+    est, val = tmp_path / "tank_est.csv", tmp_path / "tank_val.csv"
+    for target, u, y in ((est, 1, 3), (val, 2, 4)):
+        pd.DataFrame({"time [s]": data.iloc[:, 0], "pump [V]": data.iloc[:, u], "level": data.iloc[:, y]}
+                     ).to_csv(target, index=False)
+    return est, val, data
+
+
+@pytest.mark.filterwarnings("ignore::scipy.signal.BadCoefficients")
+def test_validate_with_holds_out_a_whole_separate_log(run_cli, shared_dataset, tmp_path):
+    est, val, data = _tank_logs(shared_dataset("cascaded_tanks.csv"), tmp_path)
+    out = tmp_path / "tank.json"
+    res = run_cli("fit", est, "--input", "pump", "--output", "level", "--validate-with", val, "-o", out,
+                  "--json", "--quiet")
+    assert res.exit_code == 0, res.output
+    d = json.loads(res.stdout)
+    assert d["validation_log"]["file_name"] == "tank_val.csv"
+    # nothing of the estimation log is held out: its whole 1024 samples are estimation data
+    assert d["ranges"]["estimation"] == [[0, 1024]]
+    from ident.io.modelfile import load_model
+
+    model = load_model(out).model
+    op = model.operating_point
+    u = data.iloc[:, 2].to_numpy()[:, None] - op.inputs
+    y = data.iloc[:, 4].to_numpy()[:, None] - op.outputs
+    # an independent simulation of the written model on the validation record (scipy.signal.dlsim):
+    # initial state by least squares on the first max(10 n, 50) samples, which are not scored
+    sys = (model.A, model.B, model.C, model.D, 4.0)
+    n = model.n_states
+    w = max(10 * n, 50)
+    _, forced, _ = signal.dlsim(sys, u)
+    free = np.column_stack([signal.dlsim(sys, np.zeros((w, 1)), x0=np.eye(n)[k])[1][:, 0] for k in range(n)])
+    x0 = np.linalg.lstsq(free, (y - forced)[:w, 0], rcond=None)[0]
+    _, sim, _ = signal.dlsim(sys, u, x0=x0)
+    fit = 100 * (1 - np.linalg.norm(y[w:] - sim[w:]) / np.linalg.norm(y[w:] - y[w:].mean()))
+    assert_allclose(d["validation_fit"]["level"], fit, rtol=1e-8)  # same arithmetic, another order
+    assert load_model(out).provenance["validation"]["log"]["file_name"] == "tank_val.csv"
+    # check on the validation log gives the same figure, labelled
+    chk = json.loads(run_cli("check", val, out, "--json").stdout)
+    assert_allclose(chk["fits"][0]["percent"]["level"], fit, rtol=1e-8)
+    assert chk["fits"][0]["kind"] == "initial_state"
+
+
+def test_validate_with_refuses_other_columns_and_detrend(run_cli, log_file, tmp_path):
+    other = tmp_path / "other.csv"
+    other.write_text(log_file.read_text().replace("flow [l/min]", "pressure [bar]", 1))
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--validate-with", other, "--quiet")
+    assert res.exit_code == 2 and "other.csv" in res.stderr
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--validate-with", log_file,
+                  "--detrend", "--quiet")
+    assert res.exit_code == 2 and "detrend" in res.stderr
+    # the fit through a set point holds out part of LOG itself: no separate validation log with it
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--reference", "valve",
+                  "--validate-with", log_file, "--quiet")
+    assert res.exit_code == 2 and "--reference" in res.stderr and "--validate-with" in res.stderr
+
+
+def test_fit_reports_a_periodic_input(run_cli, tmp_path):
+    rng = np.random.default_rng(8)
+    period, count = 100, 20
+    k = np.arange(period)
+    one = sum(np.cos(2 * np.pi * line * k / period + rng.uniform(0, 2 * np.pi)) for line in range(1, 30)) / 4
+    u = np.tile(one, count)
+    y = signal.lfilter([0.0, 0.5, 0.3], np.poly(POLES).real, u) + 0.01 * rng.standard_normal(u.size)
+    path = tmp_path / "periodic.csv"
+    lines = ["time [s],valve [V],flow [l/min]"] + [f"{j * T:.4f},{u[j]:.10g},{y[j]:.10g}" for j in range(u.size)]
+    path.write_text("\n".join(lines) + "\n")
+    res = run_cli("fit", path, "--input", "valve", "--output", "flow", "--max-order", "3", "--json", "--quiet")
+    assert res.exit_code == 0, res.output
+    per = json.loads(res.stdout)["periodic"]
+    assert per["period_samples"] == 100 and per["lines"] == 29 and per["measured_periods"] == 19
+    # white noise of std 0.01 added: the period scatter gives it back (within 5 %, about 10 standard errors)
+    assert per["noise_std"]["flow"] == pytest.approx(0.01, rel=0.05)
+    text = run_cli("fit", path, "--input", "valve", "--output", "flow", "--max-order", "3", "--quiet").stdout
+    assert "periodic input: period 100 samples" in text and "noise std from the period-to-period scatter" in text
+    none = json.loads(run_cli("fit", path, "--input", "valve", "--output", "flow", "--max-order", "3",
+                              "--period", "none", "--json", "--quiet").stdout)
+    assert none["periodic"] is None

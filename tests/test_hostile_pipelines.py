@@ -100,6 +100,27 @@ def test_baseline_outside_the_folder_tree_needs_allow_outside(tmp_path):
     assert load_pipeline(pipe, allow_outside=True).drift.baseline == (tmp_path / "model.json").resolve()
 
 
+@pytest.mark.parametrize(("extra", "key"), [('validate_with = ["../run2.csv"]', "log.validate_with[1]"),
+                                             ('signal_description = "../test.json"', "log.signal_description")])
+def test_validation_logs_and_signal_description_outside_the_folder_tree_need_allow_outside(tmp_path, extra,
+                                                                                             key):
+    job = tmp_path / "job"
+    job.mkdir()
+    (job / "rig.csv").write_text(LOG)
+    (tmp_path / "run2.csv").write_text(LOG)
+    pipe = job / "job.toml"
+    pipe.write_text(f'[log]\npaths = ["rig.csv"]\ninputs = ["u"]\noutputs = ["y"]\n{extra}\n')
+    with pytest.raises(PipelineError) as info:
+        load_pipeline(pipe)
+    assert info.value.key_path == key and "outside the pipeline's folder" in str(info.value)
+    assert "--allow-outside" in info.value.hint
+    spec = load_pipeline(pipe, allow_outside=True)  # allowed when asked
+    if key == "log.validate_with[1]":
+        assert spec.log.validation_files == ((tmp_path / "run2.csv").resolve(),)
+    else:
+        assert spec.log.signal_description == (tmp_path / "test.json").resolve()
+
+
 def test_a_mapping_built_in_python_is_not_confined(tmp_path):
     from ident.io.pipelinefile import parse_pipeline
 

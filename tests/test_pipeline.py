@@ -305,3 +305,77 @@ def test_drift_between_arx_models_reports_a_z_score(arx_runs, run_cli):
     assert_allclose(cli_m["z_score"], m["z_score"], rtol=1e-9)
     text = run_cli("drift", before.model_path, after.model_path)
     assert "z-score" in text.stdout
+
+
+# ---------------------------------------------------------------------------------------- issue 13
+
+
+def test_headline_gives_the_held_out_fit_and_continued_figures(synthetic):
+    _, result = synthetic
+    verdict = result.summary["verdict"]
+    fit = result.summary["model"]["validation_fit"]["y"]
+    # PASSED never without the fit per output beside it (issue 13)
+    assert verdict["headline"].startswith("PASSED: all 1 gates passed; held-out fit y ")
+    assert verdict["held_out_fit"]["y"] == pytest.approx(fit) and verdict["poor_outputs"] == []
+    rep = result.summary["validation"][0]
+    # the held-out tail continues the estimation part: the continued figure is believed, and it is the
+    # identification's own held-out score (one held-out part)
+    assert [f["kind"] for f in rep["fits"]] == ["continued", "initial_state", "from_rest"]
+    assert rep["fits"][0]["percent"]["y"] == pytest.approx(fit, rel=1e-12)
+    assert rep["gaps"] and rep["advice"]["direction"] in ("keep", "lower", "higher", "unclear")
+    assert load_model(result.model_path).provenance["validation"]["estimation_fit_percent"]["y"] == \
+        pytest.approx(result.summary["model"]["estimation_fit"]["y"])
+    html = result.report_path.read_text(encoding="utf-8")
+    assert "Which to believe" in html and "band judged" in html and "Order:" in html
+
+
+def test_poor_model_without_gates_is_called_poor(tmp_path):
+    write_resonant_log(tmp_path / "rig.csv", noise=3.0)  # noise far above the response: a poor model
+    result = run_pipeline(write_pipeline(tmp_path, "fit_warning = 95"), out_dir=tmp_path / "out")
+    headline = result.summary["verdict"]["headline"]
+    assert headline.startswith("POOR MODEL: held-out fit of y below the warning level of 95 %")
+    assert "(PASSED: all 1 gates passed)" in headline and result.passed  # a warning, not a gate
+    assert "POOR MODEL" in result.report_path.read_text(encoding="utf-8")
+    quiet = run_pipeline(write_pipeline(tmp_path, "fit_warning = false"), out_dir=tmp_path / "out2")
+    assert quiet.summary["verdict"]["poor_outputs"] == [] and "POOR" not in quiet.summary["verdict"]["headline"]
+
+
+def test_validate_with_holds_out_whole_logs(tmp_path):
+    write_resonant_log(tmp_path / "rig.csv", seed=1)
+    write_resonant_log(tmp_path / "second_run.csv", seed=9, n=1500)
+    pipe = write_pipeline(tmp_path, "", paths='["rig.csv"]')
+    pipe.write_text(pipe.read_text().replace('outputs = ["y"]', 'outputs = ["y"]\nvalidate_with = ["second_run.csv"]'))
+    result = run_pipeline(pipe, out_dir=tmp_path / "out")
+    prep = result.identification.prepared
+    assert prep.separate_validation and prep.estimation_ranges == ((0, 2500),)  # nothing of rig.csv held out
+    assert [v.n_samples for v in prep.validation] == [1500]
+    rep = result.summary["validation"][0]
+    assert rep["separate_log"] and [f["kind"] for f in rep["fits"]] == ["initial_state", "from_rest"]
+    assert result.summary["data"]["validation_logs"][0]["file_name"] == "second_run.csv"
+    assert [lg["file_name"] for lg in result.summary["provenance"]["logs"]] == ["rig.csv", "second_run.csv"]
+    assert load_model(result.model_path).provenance["validation"]["logs"][0]["file_name"] == "second_run.csv"
+
+
+@pytest.mark.filterwarnings("ignore::ident.errors.PoorExcitationWarning")
+def test_periodic_input_in_the_run(tmp_path):
+    # an invented multisine (lines 1..30 of a 250-sample period, 10 periods) through the resonant rig
+    rng = np.random.default_rng(4)
+    period, count, T = 250, 10, 0.01
+    k = np.arange(period)
+    one = sum(np.cos(2 * np.pi * line * k / period + rng.uniform(0, 2 * np.pi)) for line in range(1, 31)) / 4
+    u = np.tile(one, count)
+    wn = 2 * np.pi * 2.0
+    num, den, _ = signal.cont2discrete(([wn**2], [1, 0.2 * wn, wn**2]), T, method="zoh")
+    y = signal.lfilter(num.ravel(), den, u) + 5.0 + 0.01 * rng.standard_normal(u.size)
+    lines = ["time,u,y"] + [f"{j * T:.4f},{a:.9f},{b:.9f}" for j, (a, b) in enumerate(zip(u, y, strict=True))]
+    (tmp_path / "rig.csv").write_text("\n".join(lines) + "\n")
+    result = run_pipeline(write_pipeline(tmp_path), out_dir=tmp_path / "out")
+    per = result.summary["periodic"]
+    assert per["period_samples"] == 250 and per["lines"] == 30 and per["period_source"] == "detected"
+    # white noise of std 0.01 was added; what is left of the start-up (tau = 1 / (zeta wn) = 0.8 s) in the
+    # second period (2.5 s later, about 4 %) adds to the scatter: 15 %
+    assert per["noise_std"]["y"] == pytest.approx(0.01, rel=0.15)
+    assert "periodic_response.png" in {f["file"] for f in result.summary["figures"]}
+    # the held-out tail (750 samples, 3 periods) is judged at its excited lines
+    assert result.summary["validation"][0]["spectral"]["source"] == "periodic"
+    assert "Periodic input" in result.report_path.read_text(encoding="utf-8")

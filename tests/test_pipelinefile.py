@@ -218,3 +218,25 @@ def test_wrong_types_are_refused_with_the_key(tmp_path, section, key, value):
     with pytest.raises(PipelineError) as info:
         load_pipeline(pipe)
     assert info.value.key_path == f"{section}.{key}"
+
+
+def test_validation_logs_period_and_fit_warning(tmp_path):
+    (tmp_path / "run2.csv").write_text("time,u,y\n0,0,0\n1,1,0\n", encoding="utf-8")
+    body = MINIMAL.replace('outputs = ["y"]', 'outputs = ["y"]\nvalidate_with = ["run2.csv"]\nperiod = 2.5\n'
+                           'signal_description = "test.json"') + "[check]\nfit_warning = false\n"
+    spec = load_pipeline(write(tmp_path, body))
+    assert spec.log.validation_files == ((tmp_path / "run2.csv").resolve(),)
+    assert spec.log.period == 2.5 and spec.log.signal_description == (tmp_path / "test.json").resolve()
+    assert spec.check.fit_warning is None  # false: no warning level (TOML has no null)
+    assert load_pipeline(write(tmp_path, MINIMAL)).check.fit_warning == 50.0  # documented default
+    assert spec.to_dict()["log"]["validate_with"] == ["run2.csv"]
+
+
+@pytest.mark.parametrize(("line", "key"), [
+    ('validate_with = ["missing.csv"]', "log.validate_with[1]"),
+    ('period = "sometimes"', "log.period"),
+    ("period = -1", "log.period"),
+])
+def test_bad_validation_and_period_keys_are_named(tmp_path, line, key):
+    exc = error_of(tmp_path, MINIMAL.replace('outputs = ["y"]', f'outputs = ["y"]\n{line}'))
+    assert exc.key_path == key

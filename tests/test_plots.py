@@ -20,6 +20,7 @@ from ident.plots.validation import (
     DENSE_POINTS,
     frequency_comparison,
     output_comparison,
+    residual_correlations,
     verdict_grid,
     verdict_outcomes,
 )
@@ -130,6 +131,32 @@ def test_verdict_outcomes_pass_fail_cannot_judge(report):
     assert tests == ["whiteness", "coherence", "frequency_response"]  # VERDICT_TESTS order
     assert outcome == {("motor_speed", "whiteness"): "pass", ("motor_speed", "coherence"): "cannot_judge",
                        ("motor_speed", "frequency_response"): "fail"}
+
+
+def test_verdicts_the_data_cannot_decide_show_a_question_mark(report):
+    far = LONG_NAMES[0]
+    verdicts = (
+        # passed=None: the data cannot judge (nothing informative in the excited band)
+        Verdict("frequency_response", None, "cannot judge", output=far, input="u"),
+        Verdict("whiteness", True, "white", output=far),
+        # a failed data test is a note about the data, not a model failure
+        Verdict("feedback", False, "feedback", output=far, input="u"),
+        # "cannot judge" on one input and a miss on another: the miss wins
+        Verdict("frequency_response", None, "cannot judge", output="motor_speed", input="u"),
+        Verdict("frequency_response", False, "misses", output="motor_speed", input="v"),
+    )
+    rep = dataclasses.replace(report, verdicts=verdicts)
+    _, _, outcome = verdict_outcomes(rep)
+    assert outcome == {(far, "frequency_response"): "cannot_judge", (far, "whiteness"): "pass",
+                       (far, "feedback"): "cannot_judge", ("motor_speed", "frequency_response"): "fail"}
+    fig = verdict_grid(rep)
+    _, renderer = _render(fig)
+    ax = fig.axes[0]
+    marks = sorted(t.get_text() for t in ax.texts if t.get_text() in ("✓", "✗", "?"))
+    assert marks == sorted(["?", "✓", "?", "✗"])  # the fourth cell (motor_speed, feedback) has no verdict
+    (legend,) = fig.legends
+    assert any(t.get_text().startswith("cannot judge") for t in legend.get_texts())
+    assert "1 model test(s) failed" in ax.get_title(loc="left")
 
 
 def test_output_comparison_names_fits_in_a_box_and_units(report):
@@ -300,3 +327,43 @@ def test_slow_signals_need_no_zoom():
     assert zoom_window([u, y]) is None
     fig = plot_signals(t, [("duty [%]", u), ("temp [degC]", y)], roles=["input", "output"])
     assert len(fig.axes) == 2
+
+
+def _texts_inside(fig, renderer):
+    artists = list(fig.texts)
+    if fig._suptitle is not None:
+        artists.append(fig._suptitle)
+    for ax in fig.axes:
+        artists += [ax.title, ax._left_title, ax.xaxis.label, ax.yaxis.label]
+        legend = ax.get_legend()
+        if legend is not None:
+            artists.append(legend)
+    return [a for a in artists if (not hasattr(a, "get_text") or a.get_text()) and not _inside(fig, renderer, a)]
+
+
+def test_residual_figure_groups_one_output_with_its_verdicts(report):
+    fig = residual_correlations(report, output=1)
+    _, renderer = _render(fig)
+    assert _texts_inside(fig, renderer) == []
+    # autocorrelation, cumulative periodogram, one cross-correlation per input (+ the samples axes)
+    titles = [ax.get_title(loc="left") for ax in fig.axes]
+    assert titles[0].startswith("autocorrelation of the motor_speed residuals, lags up to")
+    assert "samples)" in titles[0] and titles[1].startswith("cumulative periodogram")
+    assert "prewhitened motor_torque_cmd" in titles[2] or "motor_torque_cmd" in titles[2]
+    # the band and its level are in the legend; the verdicts are written on the figure
+    legend = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert any(text.startswith("95 % simultaneous band over") for text in legend)
+    assert fig._suptitle.get_text().startswith("verdict: ")
+    assert fig.axes[0].get_xlabel() == "lag [s]"
+
+
+def test_frequency_figure_draws_the_region_and_the_judged_band(report):
+    fig = frequency_comparison(report, output=0, input=0)
+    _, renderer = _render(fig)
+    assert _texts_inside(fig, renderer) == []
+    mag = fig.axes[0]
+    title = mag.get_title(loc="left")
+    status = report.spectral.judgements[0].status
+    assert {"agrees": "agrees", "disagrees": "DISAGREES", "cannot_judge": "cannot judge"}[status] in title
+    labels = [t.get_text() for t in mag.get_legend().get_texts()]
+    assert "95 % region of the estimate" in labels and "model" in labels

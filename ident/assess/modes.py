@@ -372,7 +372,8 @@ def flag_explanation(flag: str, thresholds: ModeThresholds, log_duration_s: floa
         ),
         "near_cancellation": (
             f"pole within {t.cancellation_distance:g} (relative) of a zero: the two nearly "
-            "cancel, the mode hardly shows, and the order is probably too high"
+            "cancel and the mode hardly shows: a sign of too high an order (the validation's order advice "
+            "weighs it with the other evidence)"
         ),
         "uncertain_stability": (
             f"the {100 * t.confidence_level:g} % confidence region of the pole crosses the "

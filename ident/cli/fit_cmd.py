@@ -9,6 +9,7 @@ import click
 
 from ..choices import METHODS, OFFSET_METHODS, REFINEMENTS, WEIGHTINGS
 from ._common import echo_json, log_options, progress_enabled, read_log_kwargs
+from ._periodic import analyse_log_periods, periodic_lines, periodic_options
 
 #: Environment variables through which a user chooses the BLAS thread count.
 _THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "GOTO_NUM_THREADS", "OMP_NUM_THREADS",
@@ -83,6 +84,10 @@ def _parse_order(value: str) -> int | None:
                    "two-stage method for logs taken in closed loop).")
 @click.option("--holdout", type=float, default=0.3, show_default=True, metavar="FRACTION",
               help="Hold out this fraction at the end of the log (of each segment) for validation.")
+@click.option("--validate-with", "validation_path", type=click.Path(dir_okay=False), default=None, metavar="LOG",
+              help="Hold out this whole separate log (same columns, read the same way) instead of the tail "
+                   "of LOG: LOG is used whole for estimation.")
+@periodic_options
 @click.option("--offset", type=click.Choice(OFFSET_METHODS), default="mean", show_default=True,
               help="Take the operating point as the mean of the estimation part ('mean') or as the "
                    "level at its start ('initial', averaged over --initial-window).")
@@ -128,6 +133,9 @@ def fit(
     stabilize: bool,
     references: tuple[str, ...],
     holdout: float,
+    validation_path: str | None,
+    period_text: str,
+    description_path: str | None,
     offset: str,
     initial_window_s: float | None,
     significance: float,
@@ -172,8 +180,11 @@ def fit(
             raise click.BadParameter(
                 f"{name!r} is given as both an input and an output", param_hint="--output"
             )
+    if references and validation_path is not None:
+        raise click.BadParameter("--reference fits through a part of LOG held out of LOG itself; it cannot be "
+                                 "combined with a separate --validate-with log", param_hint="--validate-with")
     if model_out is not None:
-        check_output_path(model_out, force=force, protected=(log_path,))
+        check_output_path(model_out, force=force, protected=(log_path,) + _paths(validation_path))
     options = IdentifyOptions(
         method=method,
         order=order,
@@ -203,6 +214,10 @@ def fit(
             "input_units": log.input_units, "output_units": log.output_units,
             "segment_starts": starts,
         }
+        vlog = _validation_log(validation_path, inputs, outputs, log_kwargs, log)
+        if vlog is not None:
+            kwargs["validation_segments"] = [(vlog.u[a:b], vlog.y[a:b]) for a, b in vlog.segments]
+            kwargs["validation_starts"] = [a for a, _ in vlog.segments]
         if references:  # the set points, read as columns of the same log (same rows, same segments)
             ref_log = read_log(log_path, list(references), list(outputs)[:1], **log_kwargs)
             kwargs["references"] = [ref_log.u[a:b] for a, b in log.segments]
@@ -230,22 +245,71 @@ def fit(
 
     table = mode_table(result.model, log_duration_s=log.duration_s or None,
                        pole_covariance=result.pole_covariance, parameter_covariance=result.covariance)
+    periodic = _periodic_block(log, result, period_text, description_path)
     written = None
     if model_out is not None:
         from ..io.modelfile import save_model
 
+        provenance = _provenance(log, result)
+        if vlog is not None:
+            provenance["validation"]["log"] = {"file_name": vlog.source.file_name, "sha256": vlog.source.sha256,
+                                               "n_samples": vlog.n_samples}
         written = save_model(
-            model_out, result.model, provenance=_provenance(log, result),
-            force=force, protected=(log_path,),
+            model_out, result.model, provenance=provenance,
+            force=force, protected=(log_path,) + _paths(validation_path),
         )
     for text in messages:
         click.echo(f"warning: {text}", err=True)
     if log.resampling is not None:
         click.echo(f"note: {log.resampling.describe()}", err=True)
     if as_json:
-        echo_json(_summary(log, result, table, messages, written))
+        payload = _summary(log, result, table, messages, written)
+        payload["validation_log"] = None if vlog is None else {"file_name": vlog.source.file_name,
+                                                               "sha256": vlog.source.sha256}
+        payload["periodic"] = periodic
+        echo_json(payload)
     else:
-        click.echo(_text(log, result, table, written))
+        click.echo(_text(log, result, table, written, vlog))
+        for line in periodic_lines(periodic):
+            click.echo(line)
+
+
+def _paths(path: str | None) -> tuple[str, ...]:
+    return () if path is None else (path,)
+
+
+def _validation_log(path: str | None, inputs: tuple[str, ...], outputs: tuple[str, ...],
+                    log_kwargs: dict[str, Any], log: Any) -> Any:
+    """Read the --validate-with log with the same columns and options; its sample time must match."""
+    if path is None:
+        return None
+    from ..errors import IdentError
+    from ..io.log import read_log
+
+    vlog = read_log(path, list(inputs), list(outputs), **log_kwargs)
+    if [n.lower() for n in (*vlog.input_names, *vlog.output_names)] != \
+            [n.lower() for n in (*log.input_names, *log.output_names)]:
+        raise IdentError(f"{path}: the columns chosen ({', '.join((*vlog.input_names, *vlog.output_names))}) "
+                         f"differ from those in {log.source.file_name}")
+    if abs(vlog.sample_time - log.sample_time) > 1e-3 * log.sample_time:
+        raise IdentError(f"{path}: sample time {vlog.sample_time:g} s differs from {log.source.file_name}'s "
+                         f"{log.sample_time:g} s", hint="bring both logs to one rate with --resample")
+    return vlog
+
+
+def _periodic_block(log: Any, result: Any, period_text: str, description_path: str | None) -> Any:
+    """Analyse the periods of the longest segment of LOG, with the model against them (same rate only)."""
+    from ..estimate.periodic_check import periodic_summary
+
+    a, b = max(log.segments, key=lambda seg: seg[1] - seg[0])
+    op = result.model.operating_point
+    analysis = analyse_log_periods(log.u[a:b] - op.inputs, log.y[a:b] - op.outputs, log.sample_time, period_text,
+                                   description_path, {"input_names": log.input_names,
+                                                      "output_names": log.output_names})
+    if analysis is None:
+        return None
+    same_rate = result.prepared.decimation == 1
+    return periodic_summary(analysis, result.model if same_rate else None)
 
 
 def _short(values) -> str:
@@ -495,7 +559,7 @@ def _describe(c) -> str:
     return text
 
 
-def _text(log, result, table, written) -> str:
+def _text(log, result, table, written, vlog=None) -> str:
     prep = result.prepared
     seg = f", {len(log.segments)} segments" if len(log.segments) > 1 else ""
     lines = [
@@ -512,7 +576,8 @@ def _text(log, result, table, written) -> str:
         lines.append(f"why: {result.selection.reason}")
     lines.append("")
     held = prep.options.holdout
-    lines.append(f"fit percent     held-out (last {100 * held:g} %)   in-sample")
+    where = f"last {100 * held:g} %" if vlog is None else vlog.source.file_name
+    lines.append(f"fit percent     held-out ({where})   in-sample")
     for k, name in enumerate(prep.output_names):
         unit = prep.output_units[k]
         label = f"{name} [{unit}]" if unit else name

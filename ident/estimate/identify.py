@@ -458,6 +458,8 @@ def identify(
     output_units: Sequence[str] | None = None,
     segment_starts: Sequence[int] | None = None,
     progress: Callable[[str, float], None] | None = None,
+    validation_segments: Any = None,
+    validation_starts: Sequence[int] | None = None,
     references: Sequence[Any] | None = None,
 ) -> Identification:
     """Find the model the data support best: candidates, refinement, selection, validation.
@@ -476,11 +478,20 @@ def identify(
         First sample of each record in the original log (for the ranges).
     progress : callable, optional
         Called as ``progress(step, fraction_done)`` between steps.
+    validation_segments : Experiment, (u, y) pair, or sequence of them, optional
+        Separate validation records (another log): nothing is held out of
+        ``segments``, and these are the held-out data, scored from an initial
+        state fitted to a leading window that is not scored (see
+        :func:`ident.estimate.preprocess.prepare`).
+    validation_starts : sequence of int, optional
+        First sample of each validation record in its own log.
     references : sequence of array_like, optional
         Per segment, the logged reference (set point) a controller acted on,
         shape ``(N_k, r)``: the plant is then fitted from the part of the input
         the reference explains (the two-stage method of
-        :mod:`ident.estimate.closed_loop`), consistent under feedback.
+        :mod:`ident.estimate.closed_loop`), consistent under feedback. Not
+        together with ``validation_segments`` (the reference is held out of
+        the same log).
 
     Returns
     -------
@@ -516,10 +527,14 @@ def identify(
     if not isinstance(options, IdentifyOptions):
         raise OptionError(f"options must be IdentifyOptions; got {type(options).__name__}")
     report = progress if progress is not None else (lambda step, fraction: None)
-    if options.preprocess.holdout <= 0:
+    if options.preprocess.holdout <= 0 and validation_segments is None:
         raise OptionError("identify needs held-out validation data; holdout must be in (0, 1); got 0")
+    if references is not None and validation_segments is not None:
+        raise OptionError("references and separate validation records cannot be combined: the fit through the "
+                          "reference holds out part of its own log; give one of them")
     names = {"input_names": input_names, "output_names": output_names, "input_units": input_units,
-             "output_units": output_units, "segment_starts": segment_starts}
+             "output_units": output_units, "segment_starts": segment_starts,
+             "validation_data": validation_segments, "validation_starts": validation_starts}
     with warnings.catch_warnings(record=True) as caught, one_blas_thread():
         warnings.simplefilter("always")
         try:

@@ -22,6 +22,13 @@ Order of the steps, for every experiment (contiguous record) separately:
 4. **Decimate** (optional). Each whole experiment is low-pass filtered and
    down-sampled with :func:`scipy.signal.decimate`, then split at the
    decimated counterpart of the split point.
+
+With ``validation_data`` (records of a separate log, e.g. a validation run
+recorded after the estimation run) nothing is held out of the estimation
+records: they are used whole for estimation, and the validation records,
+reduced by the same operating point and decimated the same way, are the
+held-out data. Detrending is refused then (a line fitted to one record does not
+carry over to another).
 """
 
 from __future__ import annotations
@@ -163,6 +170,11 @@ class PreparedData:
         Signal names and units.
     options : PreprocessOptions
         The options used.
+    separate_validation : bool
+        The validation records come from separate records (``validation_data``
+        of :func:`prepare`), not from the tails of the estimation records. Their
+        ranges count on after the estimation records with a gap of one sample
+        (records laid end to end, none continuing an estimation record).
     """
 
     estimation: tuple[Experiment, ...]
@@ -178,6 +190,7 @@ class PreparedData:
     input_units: tuple[str, ...]
     output_units: tuple[str, ...]
     options: PreprocessOptions
+    separate_validation: bool = False
 
     @property
     def n_inputs(self) -> int:
@@ -276,6 +289,8 @@ def prepare(
     input_units: Sequence[str] | None = None,
     output_units: Sequence[str] | None = None,
     segment_starts: Sequence[int] | None = None,
+    validation_data: Any = None,
+    validation_starts: Sequence[int] | None = None,
 ) -> PreparedData:
     """Remove the operating point, detrend, decimate and split logged data.
 
@@ -295,6 +310,13 @@ def prepare(
     segment_starts : sequence of int, optional
         Index of each record's first sample in the original log, used for the
         reported ranges; default: records laid end to end from index 0.
+    validation_data : Experiment, (u, y) pair, or sequence of them, optional
+        Separate validation records (another log). When given, ``holdout`` is
+        not applied: the records of ``data`` are all estimation data, and these
+        are the validation data.
+    validation_starts : sequence of int, optional
+        Index of each validation record's first sample in its own log (records
+        laid end to end from index 0 by default).
 
     Returns
     -------
@@ -331,6 +353,9 @@ def prepare(
     labels = _signal_labels(m, p, input_names, output_names, input_units, output_units)
     starts = _record_starts(records, segment_starts)
     q = options.decimate
+    if validation_data is not None:
+        return _prepare_separate(records, as_records(validation_data), sample_time, options, labels,
+                                 starts, validation_starts)
 
     splits = _split_points(records, q, options.holdout)  # 1. split points (raw samples)
     op_u, op_y = _operating_levels(records, splits, options, sample_time)  # 2. operating point
@@ -375,6 +400,42 @@ def prepare(
         **labels,
         options=options,
     )
+
+
+def _prepare_separate(records: tuple, others: tuple, sample_time: float, options: PreprocessOptions,
+                      labels: dict[str, tuple], starts: np.ndarray,
+                      validation_starts: Sequence[int] | None) -> PreparedData:
+    """Estimation on every sample of ``records``, validation on ``others`` (another log)."""
+    m, p = records[0][0].shape[1], records[0][1].shape[1]
+    if (others[0][0].shape[1], others[0][1].shape[1]) != (m, p):
+        raise OptionError(f"the validation records have {others[0][0].shape[1]} inputs and "
+                          f"{others[0][1].shape[1]} outputs; the estimation records {m} and {p}")
+    if options.detrend:
+        raise OptionError("detrend cannot be used with separate validation records: a line fitted to one "
+                          "record does not carry over to another")
+    q = options.decimate
+    full = [(u.shape[0] // q if q > 1 else u.shape[0], u.shape[0]) for u, _ in records]
+    for k, (u, _) in enumerate([*records, *others]):
+        if q > 1 and u.shape[0] < _min_decimate_length(q):
+            raise OptionError(f"record {k} has {u.shape[0]} samples; decimation by {q} needs at least "
+                              f"{_min_decimate_length(q)}")
+    op_u, op_y = _operating_levels(records, full, options, sample_time)
+    level = np.concatenate((op_u, op_y))
+    estimation = [_deviation_experiment(u, y, level, q, m) for u, y in records]
+    validation = [_deviation_experiment(u, y, level, q, m) for u, y in others]
+    est_ranges = tuple((int(a), int(a + u.shape[0])) for (u, _), a in zip(records, starts, strict=True))
+    after = max(b for _, b in est_ranges) + 1
+    own = _record_starts(others, validation_starts)
+    val_ranges = tuple((int(after + a), int(after + a + u.shape[0])) for (u, _), a in zip(others, own, strict=True))
+    return PreparedData(estimation=as_experiments(estimation), validation=tuple(validation),
+                        operating_point=OperatingPoint(inputs=op_u, outputs=op_y), sample_time=sample_time * q,
+                        decimation=q, estimation_ranges=est_ranges, validation_ranges=val_ranges, trends=None,
+                        **labels, options=options, separate_validation=True)
+
+
+def _deviation_experiment(u: np.ndarray, y: np.ndarray, level: np.ndarray, q: int, m: int) -> Experiment:
+    z = _decimate(np.hstack((u, y)) - level, q)
+    return Experiment(u=z[:, :m], y=z[:, m:])
 
 
 def _signal_labels(m: int, p: int, input_names: Sequence[str] | None, output_names: Sequence[str] | None,

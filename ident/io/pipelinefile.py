@@ -22,14 +22,18 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     units = { motor_torque_cmd = "N m" }    # fill in units the header does not carry
     # resample_hz = 100                     # bring every chosen channel to one rate
     # upsample = "zoh"                      # or "linear": for channels slower than resample_hz
+    # validate_with = ["run2.csv"]          # separate validation logs (whole): nothing of paths is held out
+    # period = "auto"                       # periodic input: "auto" (detect), "none", or seconds
+    # signal_description = "test.json"      # written by rigfit excite --describe
 
     [preprocess]   # ident.estimate.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
                    # decimate, holdout
     [fit]          # ident.estimate.identify.IdentifyOptions: method, order ("auto" or N), max_order,
                    # delay, refinement, weighting, horizon, stabilize, significance, per_criterion,
                    # refine_count, screen_samples
-    [check]        # ident.assess.diagnostics.CheckOptions: gates min_fit, require_white; and
-                   # prediction_steps, max_lag, confidence, initial_state, spectral_segment
+    [check]        # ident.assess.diagnostics.CheckOptions: gates min_fit, require_white; fit_warning
+                   # (default 50; false: none); prediction_steps, max_lag, confidence, initial_state,
+                   # spectral_segment
     [modes]        # ident.assess.modes.ModeThresholds, plus fail_on = ["unstable", ...] (flags
                    # that fail the run; default ["unstable"])
     [expect]       # ident.assess.expectations.Expectations
@@ -44,8 +48,8 @@ nearest valid key.
 
 Pipeline files may come from others (a pull request run in CI), so reading one
 is bounded: the file is at most :data:`MAX_PIPELINE_BYTES` and nested at most
-:data:`ident.io.inputs.MAX_NESTING` levels; log paths and the baseline are
-resolved relative to the pipeline file and must lie in its folder or below
+:data:`ident.io.inputs.MAX_NESTING` levels; log paths (also ``validate_with``),
+the signal description and the baseline are resolved relative to the pipeline file and must lie in its folder or below
 (after following links) unless ``allow_outside`` is given (``rigfit run
 --allow-outside``); a glob may not start at the file system root and may walk
 at most :data:`MAX_GLOB_FOLDERS` folders.
@@ -100,7 +104,7 @@ SECTIONS: tuple[str, ...] = (
 #: Keys of the ``[log]`` table.
 LOG_KEYS: tuple[str, ...] = (
     "paths", "inputs", "outputs", "time", "sample_rate_hz", "drop_bad_rows", "split_at_gaps",
-    "jitter_tolerance", "units", "resample_hz", "upsample",
+    "jitter_tolerance", "units", "resample_hz", "upsample", "validate_with", "period", "signal_description",
 )
 #: Keys of the ``[fleet]`` table besides those of :class:`ident.assess.fleet.OutlierRule`.
 FLEET_KEYS: tuple[str, ...] = ("unit_from", "workers", "scheduler", "reference")
@@ -146,6 +150,16 @@ class LogSpec:
     upsample : str or None
         ``"zoh"`` or ``"linear"`` for channels slower than the common rate
         (as ``rigfit fit --upsample``).
+    validation_patterns : tuple of str
+        ``validate_with`` as written: separate validation logs.
+    validation_files : tuple of pathlib.Path
+        The files they match (as ``files``); when any, nothing of ``files`` is
+        held out (as ``rigfit fit --validate-with``).
+    period : str or float
+        ``"auto"`` (detect a periodic input), ``"none"``, or the period in
+        seconds (as ``--period``).
+    signal_description : pathlib.Path or None
+        A test signal's description (as ``--signal-description``).
     """
 
     patterns: tuple[str, ...]
@@ -160,6 +174,10 @@ class LogSpec:
     units: dict[str, str] = field(default_factory=dict)
     resample_hz: float | None = None
     upsample: str | None = None
+    validation_patterns: tuple[str, ...] = ()
+    validation_files: tuple[Path, ...] = ()
+    period: str | float = "auto"
+    signal_description: Path | None = None
 
     def read_log_kwargs(self) -> dict[str, Any]:
         """Keyword arguments of :func:`ident.io.log.read_log` for these settings."""
@@ -276,6 +294,11 @@ class PipelineSpec:
                 "units": dict(self.log.units),
                 "resample_hz": self.log.resample_hz,
                 "upsample": self.log.upsample,
+                "validate_with": list(self.log.validation_patterns),
+                "validation_files": [str(f) for f in self.log.validation_files],
+                "period": self.log.period,
+                "signal_description": None if self.log.signal_description is None
+                else str(self.log.signal_description),
             },
             "preprocess": self.fit.preprocess.to_dict(),
             "fit": {k: v for k, v in self.fit.to_dict().items() if k != "preprocess"},
@@ -587,10 +610,11 @@ def bounded_glob(start: Path, parts: tuple[str, ...], limit: int | None = None) 
     return sorted(matches)
 
 
-def _expand(patterns: tuple[str, ...], base: Path, src: Path | None, tree: Path | None) -> tuple[Path, ...]:
+def _expand(patterns: tuple[str, ...], base: Path, src: Path | None, tree: Path | None,
+            where: str = "log.paths") -> tuple[Path, ...]:
     files: list[Path] = []
     for k, pattern in enumerate(patterns):
-        key = f"log.paths[{k + 1}]"
+        key = f"{where}[{k + 1}]"
         target = Path(pattern).expanduser()
         target = target if target.is_absolute() else base / target
         if _GLOB_CHARS & set(pattern):
@@ -681,7 +705,41 @@ def _parse_log(table: Any, base: Path, src: Path | None, tree: Path | None, *, e
         units={k.lower(): v for k, v in units.items()},
         resample_hz=_resample(table, src),
         upsample=_upsample(table, src),
+        **_validation_and_period(table, base, src, tree),
     )
+
+
+def _validation_and_period(table: Mapping[str, Any], base: Path, src: Path | None,
+                           tree: Path | None) -> dict[str, Any]:
+    """``validate_with``, ``period`` and ``signal_description`` of the ``[log]`` table."""
+    out: dict[str, Any] = {}
+    if "validate_with" in table:
+        patterns = _names(table["validate_with"], "log.validate_with", src)
+        out["validation_patterns"] = patterns
+        out["validation_files"] = _expand(patterns, base, src, tree, "log.validate_with")
+    period = table.get("period", "auto")
+    if isinstance(period, str):
+        if period not in ("auto", "none"):
+            raise PipelineError(f"must be \"auto\", \"none\" or a number of seconds; got {period!r}", path=src,
+                                key_path="log.period")
+    else:
+        period = _number(period, "log.period", src, what="\"auto\", \"none\" or a number of seconds")
+        if period <= 0:
+            raise PipelineError(f"must be a positive number of seconds; got {period!r}", path=src,
+                                key_path="log.period")
+    out["period"] = period
+    description = table.get("signal_description")
+    if description is not None:
+        if not isinstance(description, str) or not description:
+            raise PipelineError(f"must be the path of a signal description; got {description!r}", path=src,
+                                key_path="log.signal_description")
+        target = Path(description).expanduser()
+        target = target if target.is_absolute() else base / target
+        if not _inside(target, tree):
+            raise PipelineError("the signal description is outside the pipeline's folder (after following links)",
+                                path=src, key_path="log.signal_description", hint=_OUTSIDE_HINT)
+        out["signal_description"] = target.resolve()
+    return out
 
 
 def _resample(table: Mapping[str, Any], src: Path | None) -> float | None:
