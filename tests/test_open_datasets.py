@@ -55,7 +55,7 @@ def test_flutter_gives_no_unstable_model(shared_dataset):
 
 
 def test_cascaded_tanks_on_the_published_validation_record(shared_dataset):
-    # Cascaded tanks benchmark (Schoukens, Mattson, Wigren, Noel 2016; the record's own
+    # Cascaded tanks benchmark (Schoukens, Mattsson, Wigren, Noel 2016; the record's own
     # estimation and validation columns): the default fit on the estimation record, scored on
     # the separate validation record from an initial state fitted to its first samples (not
     # scored); the figures: held-out fit at least 70 %, RMSE at most 0.62
