@@ -122,6 +122,27 @@ def test_inputs_not_modified(rng):
     assert_array_equal(y, y0)
 
 
+def test_overwrite_makes_the_deviations_in_place_and_the_same_data(rng):
+    # common practice, no source: the in-place path gives bit for bit the same prepared data
+    # as the copying one; the caller's arrays then hold the deviations; read-only arrays and
+    # detrending (which needs the raw values) are copied as before
+    u, y = rng.standard_normal((500, 2)) + 3.0, rng.standard_normal((500, 1)) - 1.0
+    reference = prepare([(u.copy(), y.copy())], 0.1)
+    uo, yo = u.copy(), y.copy()
+    got = prepare([(uo, yo)], 0.1, overwrite=True)
+    for a, b in zip((*reference.estimation, *reference.validation), (*got.estimation, *got.validation), strict=True):
+        assert_array_equal(a.u, b.u)
+        assert_array_equal(a.y, b.y)
+    assert_array_equal(uo, u - reference.operating_point.inputs)  # numpy's own subtraction
+    frozen = u.copy()
+    frozen.flags.writeable = False
+    prepare([(frozen, y.copy())], 0.1, overwrite=True)
+    assert_array_equal(frozen, u)
+    raw = u.copy()
+    prepare([(raw, y.copy())], 0.1, PreprocessOptions(detrend=True), overwrite=True)
+    assert_array_equal(raw, u)
+
+
 def test_names_and_units(rng):
     u, y = _record(rng, n=100)
     prep = prepare((u, y), 1.0, input_names=["a", "b"], output_names=["c"],

@@ -206,7 +206,11 @@ def fit(
         warnings.simplefilter("always")
         if show_progress:
             click.echo(f"reading {os.path.basename(log_path)} ...", err=True)
-        log = read_log(log_path, list(inputs), list(outputs), **log_kwargs)
+        log = _without_time_stamps(read_log(log_path, list(inputs), list(outputs), **log_kwargs))
+        # the log's values are not needed raw after the fit: let the preprocessing make the
+        # deviations from the operating point in place rather than in a copy of the log
+        consumed = (not references and decimate == 1 and not detrend
+                    and _writeable(log.u) and _writeable(log.y))
         segments = [(log.u[a:b], log.y[a:b]) for a, b in log.segments]
         starts = [a for a, _ in log.segments]
         kwargs: dict[str, Any] = {
@@ -232,9 +236,11 @@ def fit(
                         bar.update(target - done[0])
                         done[0] = target
 
-                result = identify(segments, log.sample_time, options, progress=progress, **kwargs)
+                result = identify(segments, log.sample_time, options, progress=progress,
+                                  overwrite_data=consumed, **kwargs)
         else:
-            result = identify(segments, log.sample_time, options, **kwargs)
+            result = identify(segments, log.sample_time, options, overwrite_data=consumed, **kwargs)
+        del segments
     messages = []
     for w in caught:
         text = str(w.message)
@@ -245,7 +251,7 @@ def fit(
 
     table = mode_table(result.model, log_duration_s=log.duration_s or None,
                        pole_covariance=result.pole_covariance, parameter_covariance=result.covariance)
-    periodic = _periodic_block(log, result, period_text, description_path)
+    periodic = _periodic_block(log, result, period_text, description_path, deviations=consumed)
     written = None
     if model_out is not None:
         from ..io.modelfile import save_model
@@ -297,13 +303,35 @@ def _validation_log(path: str | None, inputs: tuple[str, ...], outputs: tuple[st
     return vlog
 
 
-def _periodic_block(log: Any, result: Any, period_text: str, description_path: str | None) -> Any:
-    """Analyse the periods of the longest segment of LOG, with the model against them (same rate only)."""
+def _without_time_stamps(log: Any) -> Any:
+    """Keep only the first and last time stamps of ``log`` (all ``fit`` needs is the duration)."""
+    import dataclasses
+
+    return dataclasses.replace(log, time=log.time[[0, -1]]) if log.time.size > 2 else log
+
+
+def _writeable(a: Any) -> bool:
+    """Make the array ``a`` writeable where numpy allows (it owns its data); tell whether it is."""
+    if not a.flags.writeable:
+        try:
+            a.flags.writeable = True
+        except ValueError:
+            return False
+    return True
+
+
+def _periodic_block(log: Any, result: Any, period_text: str, description_path: str | None, *,
+                    deviations: bool = False) -> Any:
+    """Analyse the periods of the longest segment of LOG, with the model against them (same rate only).
+
+    ``deviations``: the log's arrays already hold the deviations from the operating point.
+    """
     from ..estimate.periodic_check import periodic_summary
 
     a, b = max(log.segments, key=lambda seg: seg[1] - seg[0])
     op = result.model.operating_point
-    analysis = analyse_log_periods(log.u[a:b] - op.inputs, log.y[a:b] - op.outputs, log.sample_time, period_text,
+    u, y = (log.u[a:b], log.y[a:b]) if deviations else (log.u[a:b] - op.inputs, log.y[a:b] - op.outputs)
+    analysis = analyse_log_periods(u, y, log.sample_time, period_text,
                                    description_path, {"input_names": log.input_names,
                                                       "output_names": log.output_names})
     if analysis is None:

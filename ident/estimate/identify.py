@@ -461,6 +461,7 @@ def identify(
     validation_segments: Any = None,
     validation_starts: Sequence[int] | None = None,
     references: Sequence[Any] | None = None,
+    overwrite_data: bool = False,
 ) -> Identification:
     """Find the model the data support best: candidates, refinement, selection, validation.
 
@@ -492,6 +493,11 @@ def identify(
         :mod:`ident.estimate.closed_loop`), consistent under feedback. Not
         together with ``validation_segments`` (the reference is held out of
         the same log).
+    overwrite_data : bool, default False
+        Let the preprocessing subtract the operating point in place in the
+        arrays of ``segments`` (writeable float64 ones, without detrending or
+        decimation): they then hold the deviations, and the log is not copied
+        (:func:`ident.estimate.preprocess.prepare`, ``overwrite``).
 
     Returns
     -------
@@ -534,7 +540,8 @@ def identify(
                           "reference holds out part of its own log; give one of them")
     names = {"input_names": input_names, "output_names": output_names, "input_units": input_units,
              "output_units": output_units, "segment_starts": segment_starts,
-             "validation_data": validation_segments, "validation_starts": validation_starts}
+             "validation_data": validation_segments, "validation_starts": validation_starts,
+             "overwrite": overwrite_data}
     with warnings.catch_warnings(record=True) as caught, one_blas_thread():
         warnings.simplefilter("always")
         try:

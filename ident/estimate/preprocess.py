@@ -291,6 +291,7 @@ def prepare(
     segment_starts: Sequence[int] | None = None,
     validation_data: Any = None,
     validation_starts: Sequence[int] | None = None,
+    overwrite: bool = False,
 ) -> PreparedData:
     """Remove the operating point, detrend, decimate and split logged data.
 
@@ -317,6 +318,11 @@ def prepare(
     validation_starts : sequence of int, optional
         Index of each validation record's first sample in its own log (records
         laid end to end from index 0 by default).
+    overwrite : bool, default False
+        Let the operating point be subtracted in place in the arrays of
+        ``data`` when they are writeable float64 and neither ``detrend`` nor
+        ``decimate`` is asked (the arrays then hold the deviations): saves a
+        copy of the log, for callers that need the raw values no more.
 
     Returns
     -------
@@ -366,7 +372,7 @@ def prepare(
     for (u, y), (s_dec, s_raw), start in zip(records, splits, starts, strict=True):
         if q == 1 and not options.detrend:
             # the deviations are made once and shared by the two parts (no copy of a copy)
-            ud, yd = u - op_u, y - op_y
+            ud, yd = (_in_place(u, op_u), _in_place(y, op_y)) if overwrite else (u - op_u, y - op_y)
             est_u, est_y, val_u, val_y = ud[:s_dec], yd[:s_dec], ud[s_dec:], yd[s_dec:]
         else:
             z, coef = _deviations(u, y, level, s_raw, options.detrend)  # 3. detrend
@@ -436,6 +442,14 @@ def _prepare_separate(records: tuple, others: tuple, sample_time: float, options
 def _deviation_experiment(u: np.ndarray, y: np.ndarray, level: np.ndarray, q: int, m: int) -> Experiment:
     z = _decimate(np.hstack((u, y)) - level, q)
     return Experiment(u=z[:, :m], y=z[:, m:])
+
+
+def _in_place(x: np.ndarray, level: np.ndarray) -> np.ndarray:
+    """``x - level``, in ``x`` itself when it is a writeable float64 array (else a new array)."""
+    if isinstance(x, np.ndarray) and x.dtype == np.float64 and x.flags.writeable:
+        x -= level
+        return x
+    return x - level
 
 
 def _signal_labels(m: int, p: int, input_names: Sequence[str] | None, output_names: Sequence[str] | None,
