@@ -101,7 +101,7 @@ def _parse_order(value: str) -> int | None:
               help="Refine this many of the best candidates.")
 @click.option("--per-criterion", type=int, default=3, show_default=True, metavar="N",
               help="Shortlist this many ARX structures by each of AIC, BIC and FPE.")
-@click.option("--screen-samples", type=int, default=20_000, show_default=True, metavar="N",
+@click.option("--screen-samples", type=int, default=10_000, show_default=True, metavar="N",
               help="Fit and score the candidates on at most this many estimation and validation "
                    "samples each; the chosen model is then polished on all the data.")
 @click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part from every signal.")

@@ -172,7 +172,7 @@ class IdentifyOptions:
         refined (default 4), besides the best of every other input shift.
     screen_samples : int
         Largest number of estimation and of validation samples the candidates
-        are fitted and scored on (default 20 000); longer logs are screened on
+        are fitted and scored on (default 10 000); longer logs are screened on
         evenly spread stretches, and the final model is polished and scored on
         all the data.
     preprocess : PreprocessOptions
@@ -190,7 +190,7 @@ class IdentifyOptions:
     significance: float = 0.05
     per_criterion: int = PER_CRITERION
     refine_count: int = 4
-    screen_samples: int = 20_000
+    screen_samples: int = 10_000
     preprocess: PreprocessOptions = field(default_factory=PreprocessOptions)
 
     def __post_init__(self) -> None:
