@@ -70,7 +70,7 @@ def as_signal(x: Any, name: str, *, ndim: int = 2, finite: bool = True, bounded:
     if finite and not np.all(np.isfinite(arr)):
         bad = np.argwhere(~np.isfinite(arr))[0]
         raise OptionError(
-            f"{name} must be finite; sample {int(bad[0])} is {arr[tuple(bad)]!r}"
+            f"{name} must be finite; sample {int(bad[0])} is {float(arr[tuple(bad)])}"
         )
     if bounded and arr.size and (arr.max() > MAX_SIGNAL_MAGNITUDE or arr.min() < -MAX_SIGNAL_MAGNITUDE):
         bad = np.argwhere(np.abs(arr) > MAX_SIGNAL_MAGNITUDE)[0]

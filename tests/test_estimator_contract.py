@@ -13,16 +13,33 @@ from scipy import signal
 from ident.errors import OptionError
 from ident.estimate.arx import ArxOptions, fit_arx
 from ident.estimate.data import Experiment
+from ident.estimate.polynomial import PolynomialOptions, fit_polynomial
+from ident.estimate.refine import RefineOptions, refine_state_space
 from ident.estimate.subspace import SubspaceOptions, fit_subspace
 from ident.io.modelfile import load_model, save_model
+from ident.lti.models import StateSpaceModel
 
 T = 0.01
 # true system: second-order, poles 0.8 +- 0.3j, one sample of delay (a chosen invented system)
 NUM, DEN = [0.0, 0.5, 0.25], [1.0, -1.6, 0.73]
 
+
+
+def _refine(data, noise_model):
+    # start: the true system in controllable form (scipy.signal.tf2ss) with its poles moved
+    # (denominator 1 - 1.5 q^-1 + 0.6 q^-2), as a rough subspace estimate would be
+    A, B, C, D = signal.tf2ss(NUM[1:], [1.0, -1.5, 0.6])
+    start = StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=T)
+    return refine_state_space(start, data, RefineOptions(noise_model=noise_model))
+
+
 ESTIMATORS = {
     "arx": lambda data: fit_arx(data, T, ArxOptions(na=2, nb=2, nk=1)),
     "subspace": lambda data: fit_subspace(data, T, SubspaceOptions(order=2)),
+    "refine_output_error": lambda data: _refine(data, "output_error"),
+    "refine_innovations": lambda data: _refine(data, "innovations"),
+    "oe": lambda data: fit_polynomial(data, T, PolynomialOptions(structure="oe", nb=2, nf=2, nk=1)),
+    "armax": lambda data: fit_polynomial(data, T, PolynomialOptions(structure="armax", na=2, nb=2, nc=1, nk=1)),
 }
 
 
@@ -44,9 +61,10 @@ def test_recovers_noise_free_system(name):
 
 @pytest.mark.parametrize("name", sorted(ESTIMATORS))
 def test_rejects_nan_with_clear_error(name):
+    # every estimator takes Experiment records, which refuse a non-finite sample and name it
     u = np.ones((100, 1))
     u[7, 0] = np.nan
-    with pytest.raises(OptionError, match="finite"):
+    with pytest.raises(OptionError, match=r"u must be finite; sample 7 is nan"):
         ESTIMATORS[name](Experiment(u, np.ones((100, 1))))
 
 
