@@ -49,10 +49,10 @@ __all__ = [
 _CHUNK = 1 << 16
 
 #: Block length of each lifting level.
-_BLOCK = 16
+_BLOCK = 8
 
 #: Recursions up to this length run sample by sample.
-_PLAIN = 16
+_PLAIN = 8
 
 #: Samples per block in :func:`all_pole_filter` (at least the filter order).
 _POLE_BLOCK = 32
