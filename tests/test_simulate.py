@@ -360,3 +360,21 @@ def test_import_does_not_load_scipy():
     code = "import sys, ident.lti.simulate; print('scipy' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+@pytest.mark.parametrize(("n", "p"), [(1, 1), (3, 2), (10, 1)])
+@pytest.mark.parametrize("count", [0, 1, 2, 7, 200, 513])
+def test_free_response_matrix_stacks_c_times_powers_of_a(n, p, count):
+    # oracle: numpy.linalg.matrix_power for every k (definition, no source)
+    from ident.lti.simulate import free_response_matrix
+
+    rng = np.random.default_rng(n + 10 * p)
+    A = rng.standard_normal((n, n))
+    A *= 0.99 / np.max(np.abs(np.linalg.eigvals(A)))
+    model = StateSpaceModel(A=A, B=np.ones((n, 1)), C=rng.standard_normal((p, n)), D=np.zeros((p, 1)),
+                            sample_time=1.0)
+    got = free_response_matrix(model, count)
+    assert got.shape == (count * p, n)
+    if count:
+        want = np.vstack([model.C @ np.linalg.matrix_power(A, k) for k in range(count)])
+        assert_allclose(got, want, rtol=0, atol=1e-13 * np.max(np.abs(want)))

@@ -28,7 +28,7 @@ import numpy as np
 
 from ..assess.diagnostics import fit_percent
 from ..lti.models import StateSpaceModel
-from ..lti.simulate import estimate_initial_state, free_response_matrix, simulate
+from ..lti.simulate import free_response_matrix, simulate
 from .data import Experiment
 
 __all__ = ["HeldOutScore", "score_window", "held_out_score", "warmups_for", "initial_conditions"]
@@ -133,40 +133,55 @@ def _record_errors(model: StateSpaceModel, run, part: Experiment, warm: Experime
     """
     if warm is not None and warm.n_samples > 0:
         count = min(warm.n_samples, max(20 * model.n_states, 200))
-        x0, offset = initial_conditions(model, warm.u, warm.y, count)
-        y_all = run(np.vstack([warm.u, part.u]), x0)
+        u_all = np.vstack([warm.u, part.u])
+        forced = run(u_all, None)  # the response from rest; the initial state's enters linearly
+        x0, offset = initial_conditions(model, warm.u, warm.y, count, forced=forced[:count])
+        y_all = _with_free_response(model, forced, x0)
         if not np.all(np.isfinite(y_all)):
             return None
         if warm.n_samples >= 2 * count:
             offset = np.mean(warm.y[count:] - y_all[count:warm.n_samples], axis=0)
         return part.y - y_all[warm.n_samples:] - offset
-    x0, offset = initial_conditions(model, part.u, part.y, window)
-    y_hat = run(part.u, x0)
+    forced = run(part.u, None)
+    x0, offset = initial_conditions(model, part.u, part.y, window, forced=forced[:window])
+    y_hat = _with_free_response(model, forced, x0)
     if not np.all(np.isfinite(y_hat)):
         return None
     start = 0 if in_sample else window
     return part.y[start:] - y_hat[start:] - offset
 
 
+def _with_free_response(model: StateSpaceModel, forced: np.ndarray, x0: np.ndarray | None) -> np.ndarray:
+    """Add the free response ``C A^k x0`` to ``forced`` (the simulation from ``x0``, by linearity)."""
+    if x0 is None or not model.n_states:
+        return forced
+    N, p = forced.shape
+    return forced + (free_response_matrix(model, N) @ x0).reshape(N, p)
+
+
 def initial_conditions(model: StateSpaceModel, u: np.ndarray, y: np.ndarray,
-                       count: int) -> tuple[np.ndarray | None, np.ndarray]:
+                       count: int, *, forced: np.ndarray | None = None) -> tuple[np.ndarray | None, np.ndarray]:
     """Least-squares initial state and constant output offset from the first ``count`` samples.
 
     ``y[k] = C A^k x0 + offset + (forced response)[k]``; both enter linearly.
     On fewer than ``200 + 20 n`` samples the offset is left at zero and the
     state alone is fitted: over a short stretch a constant and a slow mode look
-    alike. Returns ``(x0 or None for a static model, offset (p,))``.
+    alike. ``forced`` (at least ``count`` rows), when the caller has simulated
+    the response from rest already. Returns ``(x0 or None for a static model,
+    offset (p,))``.
     """
     n, p = model.n_states, model.n_outputs
     count = int(min(count, u.shape[0]))
+    forced = simulate(model, u[:count]) if forced is None else forced[:count]
+    if not n:
+        return None, (np.mean(y[:count] - forced, axis=0) if count >= _OFFSET_MIN_SAMPLES else np.zeros(p))
+    obs = free_response_matrix(model, count)
     if count < _OFFSET_MIN_SAMPLES + 20 * n:
-        x0 = estimate_initial_state(model, u, y, n_samples=count) if n else None
+        x0, *_ = np.linalg.lstsq(obs, (y[:count] - forced).reshape(-1), rcond=None)
         return x0, np.zeros(p)
-    forced = simulate(model, u[:count])
-    obs = free_response_matrix(model, count) if n else np.zeros((count * p, 0))
     lhs = np.hstack([obs, np.tile(np.eye(p), (count, 1))])
     sol, *_ = np.linalg.lstsq(lhs, (y[:count] - forced).reshape(-1), rcond=None)
-    return (sol[:n] if n else None), sol[n:]
+    return sol[:n], sol[n:]
 
 
 def warmups_for(validation: Sequence[Experiment], estimation: Sequence[Experiment],

@@ -705,11 +705,17 @@ def free_response_matrix(model: StateSpaceModel, n_samples: int) -> np.ndarray:
     input is zero.
     """
     p, n = model.C.shape
-    out = np.empty((n_samples, p, n))
-    M = model.C.copy()
-    for k in range(n_samples):
-        out[k] = M
-        M = M @ model.A
+    out = np.empty((max(n_samples, 0), p, n))
+    if n_samples <= 0:
+        return out.reshape(0, n)
+    out[0] = model.C
+    power, filled = model.A, 1  # power = A^filled
+    while filled < n_samples:  # doubling: rows filled..2 filled-1 are rows 0..filled-1 times A^filled
+        step = min(filled, n_samples - filled)
+        np.matmul(out[:step], power, out=out[filled:filled + step])
+        filled += step
+        if filled < n_samples:
+            power = power @ power
     return out.reshape(n_samples * p, n)
 
 
