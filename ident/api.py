@@ -461,7 +461,7 @@ class ModelResult:
         op = model.operating_point
         u, y = (u - u.mean(axis=0), y - y.mean(axis=0)) if op is None else (u - op.inputs, y - op.outputs)
         report = validate_model(model, u, y, log.sample_time, CheckOptions(**options),
-                                in_sample_fit=self._in_sample_fit())
+                                in_sample_fit=self._in_sample_fit(), covariance=self.parameter_covariance)
         return CheckResult(report=report, columns={"inputs": list(log.input_names), "outputs": list(log.output_names)},
                            source=log.source.file_name)
 

@@ -529,7 +529,8 @@ def _validate_held_out(spec: PipelineSpec, result: Any, periodic: Any,
         validate_model(model, prep.validation[k].u, prep.validation[k].y, prep.sample_time, spec.check,
                        continued=continued[k], in_sample_fit=result.estimation_fit,
                        lines=_part_lines(periodic, prep.validation[k], model),
-                       singular_values=result.singular_values, zero_phase_filtered=filtered)
+                       singular_values=result.singular_values, zero_phase_filtered=filtered,
+                       covariance=result.covariance)
         for k in parts
     )
     return parts, validation
@@ -895,7 +896,7 @@ def _figures(state: dict[str, Any]) -> list[tuple[dict[str, str], bytes]]:
             add(f"validation_frequency_{i + 1}_{j + 1}.png", "validation",
                 f"Frequency response {in_name} → {out_name}: the model against the estimate from the data with "
                 "its confidence region, judged where the data are informative (shaded band).",
-                frequency_comparison(rep, output=i, input=j, model=model))
+                frequency_comparison(rep, output=i, input=j, model=model, covariance=state["result"].covariance))
     if state["periodic"] is not None:
         from .estimate.periodic import compare_with_model
         from .plots.excite import periodic_response_figure

@@ -12,6 +12,7 @@ from ident.lti.covariance import (
     frequency_response_covariance,
     magnitude_phase_std,
     pole_covariance,
+    response_band,
     theta_layout,
 )
 from ident.lti.models import StateSpaceModel
@@ -114,3 +115,29 @@ def test_noise_states_are_left_out_of_the_poles():
                         noise_gain=[[0.0], [0.4]], noise_states=1)
     with pytest.raises(OptionError, match="noise_gain"):
         StateSpaceModel(A=A, B=[[1.0], [0.0]], C=[[1.0, 1.0]], D=[[0.0]], sample_time=1.0, noise_states=1)
+
+
+def test_response_band_covers_sampled_responses_at_its_level():
+    # Monte Carlo with numpy's normal sampler: theta drawn from N(theta_hat, L L^T), the response computed
+    # directly as C (zI - A)^-1 B + D; in the linear regime (small covariance) the 95 % gain band holds
+    # about 95 % of the draws and the chi-square(2) circle at least 95 % (common practice, no source).
+    rng = np.random.default_rng(3)
+    model = _model(rng, n=2, m=1, p=1)
+    n, m, p = 2, 1, 1
+    q = theta_layout(n, m, p)["K"].stop
+    cov = ParameterCovariance(2e-3 * rng.standard_normal((q, 4)), "gauss", n, m, p)
+    f = np.array([0.3, 1.1, 3.0])
+    band = response_band(model, cov, f, 0.95)
+    theta = _theta(model)
+    draws = theta[:, None] + cov.factor @ rng.standard_normal((4, 4000))
+    z = np.exp(2j * np.pi * f * 0.1)
+    G = np.empty((4000, f.size), dtype=complex)
+    for k in range(4000):
+        mdl = _from_theta(draws[:, k], n, m, p)
+        G[k] = [(mdl.C @ np.linalg.solve(zz * np.eye(n) - mdl.A, mdl.B) + mdl.D)[0, 0] for zz in z]
+    inside = (np.abs(G) >= band.magnitude_low[:, 0, 0]) & (np.abs(G) <= band.magnitude_high[:, 0, 0])
+    assert np.all(np.abs(inside.mean(axis=0) - 0.95) < 0.02)
+    in_circle = np.abs(G - band.response[:, 0, 0]) <= band.radius[:, 0, 0]
+    assert np.all(in_circle.mean(axis=0) >= 0.94)
+    with pytest.raises(OptionError, match="confidence"):
+        response_band(model, cov, f, 1.5)

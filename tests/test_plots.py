@@ -367,3 +367,27 @@ def test_frequency_figure_draws_the_region_and_the_judged_band(report):
     assert {"agrees": "agrees", "disagrees": "DISAGREES", "cannot_judge": "cannot judge"}[status] in title
     labels = [t.get_text() for t in mag.get_legend().get_texts()]
     assert "95 % region of the estimate" in labels and "model" in labels
+
+
+def test_frequency_comparison_shades_the_models_band_from_its_covariance(report):
+    # The shaded band is response_band's gain interval on the dense grid (its own test checks it by
+    # Monte Carlo); here: drawn, named, and absent without a covariance (common practice, no source).
+    from ident.lti.covariance import ParameterCovariance, response_band, theta_layout
+
+    model = _two_output_model()
+    lay = theta_layout(model.n_states, 1, 2)
+    factor = np.zeros((lay["K"].stop, 1))
+    factor[lay["C"], 0] = 0.1 * model.C.ravel()
+    cov = ParameterCovariance(factor, "gauss", model.n_states, 1, 2)
+    fig = frequency_comparison(report, output=0, model=model, covariance=cov)
+    ax_mag = fig.axes[0]
+    shaded = [c for c in ax_mag.collections if "parameter covariance" in str(c.get_label())]
+    assert len(shaded) == 1
+    named = {t.get_text() for t in ax_mag.get_legend().get_texts()}
+    assert shaded[0].get_label() in named
+    top = shaded[0].get_paths()[0].vertices[:, 1].max()
+    fd = [ln for ln in ax_mag.lines if ln.get_label() == "model"][0].get_xdata()
+    band = response_band(model, cov, fd, report.spectral.confidence)
+    assert_allclose(top, 20 * np.log10(band.magnitude_high[:, 0, 0].max()), rtol=1e-9)
+    plain = frequency_comparison(report, output=0, model=model)
+    assert not [c for c in plain.axes[0].collections if "parameter covariance" in str(c.get_label())]

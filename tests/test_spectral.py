@@ -160,3 +160,32 @@ def test_line_response_is_checked():
     bad = LineResponse(np.array([0.1]), np.ones((1, 2, 1)), np.ones((1, 2, 1)), 4)
     with pytest.raises(OptionError, match="shape"):
         spectral_comparison(model, np.zeros((100, 1)), np.zeros((100, 1)), lines=bad)
+
+
+def test_a_difference_inside_the_models_own_region_does_not_count_against_it():
+    # Sums of independent errors: the estimate's and the model's regions combine as sqrt(r^2 + r_m^2)
+    # (common practice, no source). A gain 60 % high whose covariance allows it is not called wrong;
+    # a negligible covariance changes nothing.
+    from ident.lti.covariance import ParameterCovariance, theta_layout
+
+    model, (num, den) = _resonant(0.05, 0.3, 1.0)
+    u, y = _data(num, den, 8192, 0.2, 11)
+    wrong = model.with_changes(C=1.6 * model.C)
+    n = wrong.n_states
+    lay = theta_layout(n, 1, 1)
+
+    def gain_only(scale):
+        factor = np.zeros((lay["K"].stop, 1))
+        factor[lay["C"], 0] = scale * wrong.C.ravel()  # dG = scale * G * xi
+        return ParameterCovariance(factor, "gauss", n, 1, 1)
+
+    assert spectral_comparison(wrong, u, y).model_radius is None
+    tiny = spectral_comparison(wrong, u, y, covariance=gain_only(1e-9))
+    assert tiny.judgements[0].status == "disagrees"
+    assert_allclose(tiny.model_radius[:, 0, 0], 1e-9 * np.abs(tiny.model_response[:, 0, 0])
+                    * math.sqrt(stats.chi2.ppf(0.95, 2)), rtol=1e-6)
+    wide = spectral_comparison(wrong, u, y, covariance=gain_only(0.5))
+    assert wide.judgements[0].status == "agrees"
+    # a covariance of another model's size is ignored, as if there were none
+    other = ParameterCovariance(np.zeros((theta_layout(n + 1, 1, 1)["K"].stop, 1)), "gauss", n + 1, 1, 1)
+    assert spectral_comparison(wrong, u, y, covariance=other).model_radius is None

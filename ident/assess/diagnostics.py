@@ -51,6 +51,7 @@ from .._json import json_ready
 from .._validate import as_signal, fraction, int_in_range, one_of, positive_float
 from ..errors import ModelError, OptionError, UnstableModelWarning
 from ..lti._linalg import column_norms, column_sums
+from ..lti.covariance import ParameterCovariance
 from ..lti.models import StateSpaceModel
 from ..lti.simulate import estimate_initial_state, simulate, simulate_states
 from .advice import FitGap, OrderAdvice, fit_gap, order_advice
@@ -1020,6 +1021,7 @@ def validate_model(
     lines: LineResponse | None = None,
     singular_values: Sequence[float] | None = None,
     zero_phase_filtered: bool = False,
+    covariance: ParameterCovariance | None = None,
 ) -> ValidationReport:
     """Validate a discrete-time model on input/output data it was not fitted on.
 
@@ -1055,6 +1057,10 @@ def validate_model(
         The data passed a zero-phase (non-causal) anti-alias filter when they
         were decimated or resampled; a feedback verdict then says that the
         filter, too, lets the next input samples into each sample.
+    covariance : ParameterCovariance, optional
+        The model's parameter covariance (from its estimation); the
+        frequency-response verdict then allows for the model's own confidence
+        region (:func:`ident.assess.spectral.spectral_comparison`).
 
     Returns
     -------
@@ -1091,7 +1097,7 @@ def validate_model(
     span = _span(model, u.shape[0] - run.start, options)
     tests = _residual_tests(model, u[run.start:], run.resid[run.start:], span.lags, options)
     spectral = spectral_comparison(model, u, y, segment=options.spectral_segment, confidence=options.confidence,
-                                   simulated=run.y_sim, lines=lines)
+                                   simulated=run.y_sim, lines=lines, covariance=covariance)
     levels = _levels(model, u[run.start:], run.resid[run.start:], run.y_sim[run.start:], span.lags)
     believed = run.fits[0].fit
     gaps = () if in_sample_fit is None else fit_gap(model.outputs, _in_sample(in_sample_fit, model), believed)
@@ -1606,6 +1612,11 @@ def _estimate_text(spectral: SpectralComparison) -> str:
             f"{spectral.segment.resolution_hz:.3g} Hz resolution)")
 
 
+def _model_region_text(spectral: SpectralComparison) -> str:
+    """Say that the model's own confidence region was allowed for (when it was)."""
+    return "" if spectral.model_radius is None else " widened by the model's own confidence region"
+
+
 def _channel_verdicts(spectral: SpectralComparison, j: Any) -> list[Verdict]:
     conf = f"{100 * spectral.confidence:g} %"
     where = f"{j.low_hz:.4g}-{j.high_hz:.4g} Hz" if j.informative else ""
@@ -1619,8 +1630,8 @@ def _channel_verdicts(spectral: SpectralComparison, j: Any) -> list[Verdict]:
             "frequency_response", False,
             f"the model misses the measured response from {j.input} to {j.output} in {shown} Hz{more} (relative "
             f"error up to {100 * max(b.worst for b in bands):.0f} %, outside the {100 * MISMATCH_CONFIDENCE:g} % "
-            f"region of {_estimate_text(spectral)}); judged over {where}, {share}", j.output, j.input,
-            "model_mismatch")]
+            f"region of {_estimate_text(spectral)}{_model_region_text(spectral)}); judged over {where}, {share}",
+            j.output, j.input, "model_mismatch")]
     if j.status == "cannot_judge":
         return [Verdict(
             "frequency_response", None,
@@ -1630,7 +1641,8 @@ def _channel_verdicts(spectral: SpectralComparison, j: Any) -> list[Verdict]:
     return [Verdict(
         "frequency_response", True,
         f"the model agrees with the measured response from {j.input} to {j.output} over {where} ({share}; "
-        f"{j.outside} outside the {conf} region of {_estimate_text(spectral)})", j.output, j.input)]
+        f"{j.outside} outside the {conf} region of {_estimate_text(spectral)}{_model_region_text(spectral)})",
+        j.output, j.input)]
 
 
 def _mode_name(mode: Any) -> str:
@@ -1713,6 +1725,7 @@ def _spectral_dict(sp: SpectralComparison) -> dict:
         "estimate_magnitude": json_ready(np.abs(sp.estimate)),
         "estimate_phase_deg": json_ready(np.degrees(np.angle(sp.estimate))),
         "radius": json_ready(sp.radius),
+        "model_radius": None if sp.model_radius is None else json_ready(sp.model_radius),
         "dense_frequencies_hz": json_ready(sp.dense_frequencies_hz),
         "dense_magnitude": json_ready(np.abs(sp.dense_response)),
         "dense_phase_deg": json_ready(np.degrees(np.angle(sp.dense_response))),

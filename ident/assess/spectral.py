@@ -32,6 +32,13 @@ with what the data show, and where can the data tell?":
    estimate only there; when less than :data:`MIN_INFORMATIVE_FRACTION` of the
    excited frequencies are informative it *cannot judge* (never "agrees"), and
    it always names the band it judged.
+5. **The model's own uncertainty**: when the model carries a parameter
+   covariance (:class:`ident.lti.covariance.ParameterCovariance`), its response
+   has a confidence circle of radius ``r_m`` too
+   (:func:`ident.lti.covariance.response_band`); estimate and model errors are
+   independent, so a difference counts against the model only beyond
+   ``sqrt(r^2 + r_m^2)``. A model whose data leave a mode uncertain is then
+   not called wrong for a difference that uncertainty explains.
 
 For a periodic input the frequency response at the excited lines (from
 :mod:`ident.estimate.periodic`, passed in as a :class:`LineResponse`) replaces
@@ -61,6 +68,7 @@ import numpy as np
 from .._validate import fraction, int_in_range
 from ..errors import OptionError
 from ..lti.analysis import frequency_response
+from ..lti.covariance import ParameterCovariance, response_band
 from ..lti.models import StateSpaceModel
 from ..lti.simulate import simulate
 
@@ -407,6 +415,10 @@ class SpectralComparison:
         Welch segment length and number of segments (period and periods for lines).
     effective_averages : float
         Independent averages behind the confidence radius.
+    model_radius : numpy.ndarray, shape (F, p, m), or None
+        Radius of the confidence circle of the model's response at
+        ``confidence`` from its parameter covariance; ``None`` when the model
+        carries none (the verdict then treats the model as exact).
     """
 
     source: str
@@ -429,8 +441,11 @@ class SpectralComparison:
     segment_length: int
     n_segments: int
     effective_averages: float
+    model_radius: np.ndarray | None = None
 
     def __post_init__(self) -> None:
+        if self.model_radius is not None:
+            object.__setattr__(self, "model_radius", _frozen(self.model_radius))
         for name in ("frequencies_hz", "radius", "dense_frequencies_hz", "coherence", "multiple_coherence"):
             object.__setattr__(self, name, _frozen(getattr(self, name)))
         for name in ("estimate", "model_response", "model_seen", "dense_response"):
@@ -555,6 +570,7 @@ def spectral_comparison(
     confidence: float = 0.95,
     simulated: np.ndarray | None = None,
     lines: LineResponse | None = None,
+    covariance: ParameterCovariance | None = None,
 ) -> SpectralComparison:
     """Compare a model's frequency response with the H1 estimate from data (or measured lines).
 
@@ -576,6 +592,10 @@ def spectral_comparison(
     lines : LineResponse, optional
         Measured response at the lines of a periodic input; used instead of
         the Welch estimate.
+    covariance : ParameterCovariance, optional
+        The model's parameter covariance; widens the region a difference must
+        leave before it counts against the model (module docstring, item 5).
+        Ignored when its dimensions are not the model's.
 
     Returns
     -------
@@ -606,6 +626,11 @@ def spectral_comparison(
     G = np.asarray(frequency_response(model, f), dtype=complex)
     dense_f, dense = _dense_grid(model, f)
     informative = _informative(parts, lines is not None)
+    model_radius = _model_radius(model, covariance, f, confidence)
+    if model_radius is not None:
+        strict = math.sqrt(_chi2(MISMATCH_CONFIDENCE) / _chi2(confidence))
+        parts["radius_judged"] = np.hypot(parts["radius"], model_radius)
+        parts["low_radius"] = np.hypot(parts["low_radius"], strict * model_radius)
     low_bands = _low_coherence_bands(model, parts) if lines is None else []
     miss_bands, judgements = _judge(model, parts, informative)
     return SpectralComparison(
@@ -615,8 +640,27 @@ def spectral_comparison(
         multiple_coherence=parts["mcoh"], excited=parts["excited"], informative=informative,
         low_coherence_bands=tuple(low_bands), mismatch_bands=tuple(miss_bands), judgements=tuple(judgements),
         segment=choice, segment_length=seg if lines is None else 0, n_segments=int(parts["segments"]),
-        effective_averages=float(parts["n_d"]),
+        effective_averages=float(parts["n_d"]), model_radius=model_radius,
     )
+
+
+def _chi2(confidence: float) -> float:
+    from scipy import stats
+
+    return float(stats.chi2.ppf(confidence, 2))
+
+
+def _model_radius(model: StateSpaceModel, covariance: ParameterCovariance | None, f: np.ndarray,
+                  confidence: float) -> np.ndarray | None:
+    """Confidence radius of the model's response at ``f``, or ``None`` without a usable covariance."""
+    if covariance is None:
+        return None
+    if not isinstance(covariance, ParameterCovariance):
+        raise OptionError(f"covariance must be a ParameterCovariance; got {type(covariance).__name__}")
+    if not covariance.matches(model):
+        return None
+    radius = response_band(model, covariance, f, confidence).radius
+    return np.where(np.isfinite(radius), radius, np.inf)
 
 
 def _check_lines(model: StateSpaceModel, lines: LineResponse) -> None:
@@ -689,7 +733,7 @@ def _judge(model: StateSpaceModel, parts: dict[str, Any],
             with np.errstate(all="ignore"):
                 diff = np.abs(seen[:, i, j] - H[:, i, j])
                 rel = diff / np.abs(H[:, i, j])
-            outside = info & (diff > parts["radius"][:, i, j])
+            outside = info & (diff > parts.get("radius_judged", parts["radius"])[:, i, j])
             miss = info & (diff > parts["low_radius"][:, i, j]) & (rel > SPECTRAL_REL_TOL)
             runs = _runs(miss, MIN_BAND_BINS)
             for a, b in runs:

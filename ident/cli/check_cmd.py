@@ -124,7 +124,8 @@ def check(
 
     written: list[str] = []
     if plot_dir is not None:
-        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path), model=model)
+        written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path), model=model,
+                               covariance=loaded.parameter_covariance())
     periodic_record = None
     if periodic is not None:
         from ..estimate.periodic_check import periodic_summary
@@ -268,7 +269,8 @@ def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], perio
 
         lines = line_response(periodic)
     return validate_model(model, data["u"], data["y"], data["sample_time"], options, continued=continued,
-                          in_sample_fit=_in_sample_fit(loaded, model), lines=lines, zero_phase_filtered=resampled)
+                          in_sample_fit=_in_sample_fit(loaded, model), lines=lines, zero_phase_filtered=resampled,
+                          covariance=loaded.parameter_covariance())
 
 
 def _read_with_model_rate(path: str, inputs: tuple, outputs: tuple, log_kwargs: dict[str, Any],
@@ -520,7 +522,8 @@ def _check_plot_dir(folder: str, names: dict[tuple, str], *, force: bool, protec
         check_output_paths([target / n for n in names.values()], force=force, protected=protected)
 
 
-def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple, model: Any = None) -> list[str]:
+def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple, model: Any = None,
+                 covariance: Any = None) -> list[str]:
     """Draw every figure, then write them all or none (a folder created here goes again on failure)."""
     import io
     import shutil
@@ -542,7 +545,8 @@ def _write_plots(report: Any, folder: str, *, force: bool, protected: tuple, mod
         jobs.append((names[("residuals", i)], lambda i=i: vplots.residual_correlations(report, output=i)))
         for j in range(len(report.inputs)):
             jobs.append((names[("response", i, j)],
-                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j, model=model)))
+                         lambda i=i, j=j: vplots.frequency_comparison(report, output=i, input=j, model=model,
+                                                                   covariance=covariance)))
     images = []
     for name, make in jobs:
         buffer = io.BytesIO()

@@ -43,6 +43,8 @@ __all__ = [
     "pole_covariance",
     "frequency_response_covariance",
     "magnitude_phase_std",
+    "ResponseBand",
+    "response_band",
     "dc_gain_std",
 ]
 
@@ -243,6 +245,81 @@ def magnitude_phase_std(response: np.ndarray, covariance: np.ndarray) -> tuple[n
     var_m = np.einsum("...a,...ab,...b->...", gm, covariance, gm)
     var_p = np.einsum("...a,...ab,...b->...", gp, covariance, gp)
     return np.sqrt(np.maximum(var_m, 0.0)), np.sqrt(np.maximum(var_p, 0.0))
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ResponseBand:
+    """First-order confidence band of a model's frequency response.
+
+    Attributes
+    ----------
+    frequencies_hz : numpy.ndarray, shape (F,)
+    response : numpy.ndarray of complex, shape (F, p, m)
+        The model's response ``G``.
+    magnitude_low, magnitude_high : numpy.ndarray, shape (F, p, m)
+        ``|G| -+ q sigma_|G|`` (the lower edge kept above ``|G| / 1000`` so it
+        can be drawn in dB), with ``q`` the two-sided normal quantile of
+        ``confidence``.
+    phase_halfwidth_rad : numpy.ndarray, shape (F, p, m)
+        ``q sigma_phase``; the phase band is ``angle(G) -+`` this.
+    radius : numpy.ndarray, shape (F, p, m)
+        Radius of a circle about ``G`` in the complex plane that holds the
+        response with probability at least ``confidence`` (chi-square, two
+        degrees of freedom, on the larger principal axis of
+        ``cov(Re G, Im G)``); comparable with the radius of a nonparametric
+        estimate.
+    confidence : float
+    """
+
+    frequencies_hz: np.ndarray
+    response: np.ndarray
+    magnitude_low: np.ndarray
+    magnitude_high: np.ndarray
+    phase_halfwidth_rad: np.ndarray
+    radius: np.ndarray
+    confidence: float
+
+
+def response_band(model: StateSpaceModel, covariance: ParameterCovariance, frequencies_hz: np.ndarray,
+                  confidence: float = 0.95) -> ResponseBand:
+    """Confidence band of the frequency response from the parameter covariance.
+
+    Parameters
+    ----------
+    model : StateSpaceModel
+        Discrete-time model the covariance belongs to.
+    covariance : ParameterCovariance
+    frequencies_hz : array_like, shape (F,)
+    confidence : float, default 0.95
+        Two-sided level of the band, in (0, 1).
+
+    Returns
+    -------
+    ResponseBand
+
+    Notes
+    -----
+    Gauss' approximation formula ([1]_ sec. 9.4): the band is as good as the
+    linearisation, so it is honest where it is narrow and only indicative
+    where it is wide (near a lightly damped pole whose position is itself
+    uncertain it understates the spread).
+    """
+    from scipy import stats
+
+    if not 0.0 < confidence < 1.0:
+        raise OptionError(f"confidence must lie in (0, 1); got {confidence!r}")
+    f = np.atleast_1d(np.asarray(frequencies_hz, dtype=float))
+    G, cov = frequency_response_covariance(model, covariance, f)
+    mag_std, ph_std = magnitude_phase_std(G, cov)
+    q = float(stats.norm.ppf(0.5 + confidence / 2.0))
+    mag = np.abs(G)
+    largest = np.linalg.eigvalsh(cov)[..., -1]
+    radius = np.sqrt(float(stats.chi2.ppf(confidence, 2)) * np.maximum(largest, 0.0))
+    return ResponseBand(
+        frequencies_hz=f, response=G, magnitude_low=np.maximum(mag - q * mag_std, mag * 1e-3),
+        magnitude_high=mag + q * mag_std, phase_halfwidth_rad=np.minimum(q * np.nan_to_num(ph_std, nan=np.pi), np.pi),
+        radius=radius, confidence=float(confidence),
+    )
 
 
 def dc_gain_std(model: StateSpaceModel, covariance: ParameterCovariance) -> np.ndarray:

@@ -310,7 +310,8 @@ _JUDGED = "#eef5f3"
 
 
 def frequency_comparison(report: ValidationReport, *, output: int = 0, input: int = 0,
-                         model: Any | None = None, axes: Sequence[Any] | None = None) -> Any:
+                         model: Any | None = None, axes: Sequence[Any] | None = None,
+                         covariance: Any | None = None) -> Any:
     """Model against the measured frequency response with its confidence region, and where it is informative.
 
     Parameters
@@ -327,6 +328,11 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
     axes : sequence of matplotlib.axes.Axes, optional
         Three axes: magnitude, phase, and coherence (Welch) or relative width
         of the region (periodic lines).
+    covariance : ident.lti.covariance.ParameterCovariance, optional
+        The model's parameter covariance: its confidence band (at the report's
+        confidence, :func:`ident.lti.covariance.response_band`) is shaded
+        about the model's gain and phase. Needs ``model``; ignored when its
+        dimensions are not the model's.
 
     Returns
     -------
@@ -350,7 +356,9 @@ def frequency_comparison(report: ValidationReport, *, output: int = 0, input: in
     oname, iname = report.outputs[output], report.inputs[input]
     judged = sp.judgement(oname, iname)
     ax_mag, ax_ph, ax_low = axes[:3]
-    _draw_response(sp, output, input, _model_curve(report, model, output, input), ax_mag, ax_ph)
+    curve = _model_curve(report, model, output, input)
+    _draw_response(sp, output, input, curve, ax_mag, ax_ph,
+                   band=_model_band(model, covariance, curve[0], sp.confidence, output, input))
     extra = []
     if judged.informative:
         for ax in (ax_mag, ax_ph):
@@ -389,6 +397,18 @@ def _model_curve(report: ValidationReport, model: Any | None, output: int, input
     return dense, np.asarray(frequency_response(model, dense))[:, output, input]
 
 
+def _model_band(model: Any | None, covariance: Any | None, frequencies: np.ndarray, confidence: float,
+                output: int, input: int) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Lower and upper gain and the phase half-width (rad) of the model's confidence band, or ``None``."""
+    if model is None or covariance is None or not covariance.matches(model):
+        return None
+    from ..lti.covariance import response_band
+
+    band = response_band(model, covariance, frequencies, confidence)
+    return (band.magnitude_low[:, output, input], band.magnitude_high[:, output, input],
+            band.phase_halfwidth_rad[:, output, input])
+
+
 def _gain_unit(model: Any | None, output: int, input: int) -> str:
     if model is None:
         return "output unit/input unit"
@@ -413,7 +433,8 @@ def _gain_axis(ax: Any, unit: str) -> None:
     sec.tick_params(labelsize=7, colors=_INK)
 
 
-def _draw_response(sp: Any, i: int, j: int, curve: tuple[np.ndarray, np.ndarray], ax_mag: Any, ax_ph: Any) -> None:
+def _draw_response(sp: Any, i: int, j: int, curve: tuple[np.ndarray, np.ndarray], ax_mag: Any, ax_ph: Any,
+                   band: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> None:
     f = sp.frequencies_hz
     H, r = sp.estimate[:, i, j], sp.radius[:, i, j]
     info = sp.informative[:, i, j]
@@ -427,6 +448,12 @@ def _draw_response(sp: Any, i: int, j: int, curve: tuple[np.ndarray, np.ndarray]
         ax_mag.semilogx(fd, 20 * np.log10(np.abs(dense)), color=_SIM, lw=1.6, label="model", zorder=2)
     ax_ph.semilogx(fd, model_ph, color=_SIM, lw=1.6, zorder=2)
     level = f"{100 * sp.confidence:g} %"
+    if band is not None:
+        low_g, high_g, half = band
+        ax_mag.fill_between(fd, 20 * np.log10(low_g), 20 * np.log10(high_g), color=_SIM, alpha=0.18, lw=0,
+                            label=f"model, {level} band (parameter covariance)", zorder=1)
+        ax_ph.fill_between(fd, model_ph - np.degrees(half), model_ph + np.degrees(half), color=_SIM, alpha=0.18,
+                           lw=0, zorder=1)
     low, high = _magnitude_band(H, r)
     if sp.source == "periodic":
         for sel, alpha, lab in ((info, 1.0, f"measured at the lines ({level} region)"), (~info, 0.35, None)):
