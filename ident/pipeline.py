@@ -990,7 +990,9 @@ def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[s
     result = state["result"]
     prep = result.prepared
     return {
-        "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256} for lg in state["logs"]],
+        "log": {"files": [{"file_name": lg.source.file_name, "sha256": lg.source.sha256, "format": lg.source.format,
+                           "resampling": None if lg.resampling is None else lg.resampling.to_dict()}
+                          for lg in state["logs"]],
                 "sample_time": state["logs"][0].sample_time,
                 # longest contiguous segment: what `rigfit modes` judges slow time constants against
                 "duration_s": state["log_duration_s"]},

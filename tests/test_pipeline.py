@@ -93,6 +93,9 @@ def test_belt_before_passes_its_gates_and_writes_the_folder(belt_runs):
     # 24000 samples at 1 kHz (sample_data/truth.json), counted as 23999 steps
     file_prov = load_model(before.model_path).provenance
     assert_allclose(file_prov["log"]["duration_s"], 23.999, rtol=1e-9)
+    # and, as `rigfit fit` does, each log's file format and any resampling (none here)
+    assert file_prov["log"]["files"][0]["format"] == "csv"
+    assert file_prov["log"]["files"][0]["resampling"] is None
 
 
 def test_belt_resonance_before_matches_the_generator(belt_runs):
