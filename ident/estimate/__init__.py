@@ -9,13 +9,22 @@ that ARX and delay estimation share (:mod:`~ident.estimate.regression`), ARX
 (:mod:`~ident.estimate.arx`), input-delay estimation
 (:mod:`~ident.estimate.delay`), order criteria (:mod:`~ident.estimate.order`),
 subspace identification (:mod:`~ident.estimate.subspace`), output-error,
-ARMAX and Box-Jenkins models (:mod:`~ident.estimate.polynomial`), the
-long-run covariances (:mod:`~ident.estimate.hac`), parameter to pole
-uncertainty (:mod:`~ident.estimate.uncertainty`), the top-level
-identification job (:mod:`~ident.estimate.identify`), test-signal design
+ARMAX and Box-Jenkins models (:mod:`~ident.estimate.polynomial`),
+prediction-error refinement of state-space models
+(:mod:`~ident.estimate.refine`, with the Gauss-Newton iteration in
+:mod:`~ident.estimate.gauss_newton` and the analytic Jacobians in
+:mod:`~ident.estimate.sensitivity`), the long-run covariances
+(:mod:`~ident.estimate.hac`), parameter to pole uncertainty
+(:mod:`~ident.estimate.uncertainty`), closed-loop identification through a
+reference (:mod:`~ident.estimate.closed_loop`), the candidates of the search,
+their held-out scores and the selection rule
+(:mod:`~ident.estimate.candidates`, :mod:`~ident.estimate.scoring`,
+:mod:`~ident.estimate.selection`), the continued fit of a held-out record
+(:mod:`~ident.estimate.validation`), the top-level identification job
+(:mod:`~ident.estimate.identify`), test-signal design
 (:mod:`~ident.estimate.signal_design`, with :mod:`~ident.estimate.multisine`
 and :mod:`~ident.estimate.slew`) and the analysis of periodic logs
-(:mod:`~ident.estimate.periodic`). Modules here may import
+(:mod:`~ident.estimate.periodic`, :mod:`~ident.estimate.periodic_check`). Modules here may import
 each other (without loops), :mod:`ident.assess`, :mod:`ident.lti` and the
 base modules (:mod:`ident.errors`, :mod:`ident.choices`,
 :mod:`ident._validate`, :mod:`ident._json`), never :mod:`ident.io`,
