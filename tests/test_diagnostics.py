@@ -377,12 +377,19 @@ def test_table_figure_and_verdict_read_the_same_numbers(truth):
     for m in (model, under, early, model.with_changes(noise_gain=None)):
         report = validate_model(m, u, y, T)
         L = report.lag_span.lags
-        for row in report.cross_correlation:
+        as_json = report_to_dict(report)
+        for i, row in enumerate(report.cross_correlation):
             for j, c in enumerate(row):
                 indep = next(v for v in report.verdicts if v.test == "input_independence" and v.input == m.inputs[j])
                 fb = next(v for v in report.verdicts if v.test == "feedback" and v.input == m.inputs[j])
                 assert indep.passed == (not c.outside(range(0, L + 1)))
-                assert fb.passed == (not c.outside(range(-L, 0)))
+                # feedback reads the residual less what past inputs explain, against its own band
+                back = report.feedback_correlation[i][j]
+                assert fb.passed == (not back.outside(range(-L, 0)))
+                o, n = m.outputs[i], m.inputs[j]
+                assert as_json["cross_correlation"][o][n]["outside_judged"] == list(c.outside(range(0, L + 1)))
+                assert as_json["feedback_correlation"][o][n]["outside_judged"] == list(back.outside(range(-L, 0)))
+                assert as_json["feedback_correlation"][o][n]["judged_lags"] == [-L, -1]
         for w in report.whiteness:
             white = next(v for v in report.verdicts if v.test == "whiteness" and v.output == w.output)
             assert white.passed == w.white == (not w.autocorrelation.significant_lags)

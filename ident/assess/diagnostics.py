@@ -1690,8 +1690,9 @@ def _order_verdict(advice: OrderAdvice) -> Verdict:
 # --------------------------------------------------------------------------------------------
 
 
-def _corr_dict(c: Correlation) -> dict:
-    return {
+def _corr_dict(c: Correlation, judged: range | None = None) -> dict:
+    """Return a correlation as JSON; ``judged``: the lags its verdict reads (``judged_lags``, ``outside_judged``)."""
+    out = {
         "lags": json_ready(c.lags),
         "values": json_ready(c.values),
         "band": json_ready(c.band),
@@ -1699,6 +1700,10 @@ def _corr_dict(c: Correlation) -> dict:
         "simultaneous": c.simultaneous,
         "significant_lags": list(c.significant_lags),
     }
+    if judged is not None:
+        out["judged_lags"] = [judged.start, judged.stop - 1]
+        out["outside_judged"] = list(c.outside(judged))
+    return out
 
 
 def _band_dict(b: FrequencyBand) -> dict:
@@ -1745,6 +1750,8 @@ def _spectral_dict(sp: SpectralComparison) -> dict:
 def _residual_dict(report: ValidationReport) -> dict:
     outs, ins = report.outputs, report.inputs
     span = report.lag_span
+    leads = None if span is None else range(0, span.lags + 1)
+    lags_back = None if span is None else range(-span.lags, 0)
     return {
         "lag_span": None if span is None else {
             "lags": span.lags, "seconds": span.lags * report.sample_time, "settling_time_s": span.settling_time_s,
@@ -1765,11 +1772,11 @@ def _residual_dict(report: ValidationReport) -> dict:
                                   "innovation_share": w.innovation_share}
                          for j, w in enumerate(report.whiteners)},
         "cross_correlation": {
-            outs[i]: {ins[j]: _corr_dict(c) for j, c in enumerate(row)}
+            outs[i]: {ins[j]: _corr_dict(c, leads) for j, c in enumerate(row)}
             for i, row in enumerate(report.cross_correlation)
         },
         "feedback_correlation": {
-            outs[i]: {ins[j]: _corr_dict(c) for j, c in enumerate(row)}
+            outs[i]: {ins[j]: _corr_dict(c, lags_back) for j, c in enumerate(row)}
             for i, row in enumerate(report.feedback_correlation)
         },
         "normality": {

@@ -440,12 +440,13 @@ def _residual_lines(report: Any) -> list[str]:
     for i, row in enumerate(report.cross_correlation):
         for j, c in enumerate(row):
             order = report.whiteners[j].order
+            fb = report.feedback_correlation[i][j]
             pos = c.outside(range(0, L + 1))
-            neg = report.feedback_correlation[i][j].outside(range(-L, 0))
+            neg = fb.outside(range(-L, 0))
             lines.append(
-                f"  {outs[i]} / {ins[j]} (AR({order}) prewhitening, {c.band_text}): "
-                f"lags 0..{L}: {_outside(pos, 'independent', 'depends on the input')}; "
-                f"lags -{L}..-1: {_outside(neg, 'no feedback', 'feedback')}")
+                f"  {outs[i]} / {ins[j]} (AR({order}) prewhitening): "
+                f"lags 0..{L} ({c.band_text}): {_outside(pos, 'independent', 'depends on the input')}; "
+                f"lags -{L}..-1 ({fb.band_text}): {_outside(neg, 'no feedback', 'feedback')}")
     return lines
 
 
