@@ -66,6 +66,10 @@ def test_run_example_pipeline_exit_0(run_cli, tmp_path):
     true_taus = [m["time_constant_s"] for m in truth["files"]["heated_platen.csv"]["modes"]]
     assert_allclose(taus[0], true_taus[0], rtol=0.25)
     assert_allclose(taus[1:3], true_taus[1:3], rtol=0.15)
+    # the summary line gives a thermal plant's real modes as time constants, never as a frequency
+    # (a real pole of this T = 5 s model read as "0.11 Hz" would lie above its 0.1 Hz Nyquist frequency)
+    modes_line = next(line for line in result.stdout.splitlines() if line.startswith("modes: "))
+    assert "Hz" not in modes_line and modes_line.count("time constant") >= 3, modes_line
 
 
 def test_run_gate_failure_exit_3_and_json(run_cli, tmp_path, monkeypatch):

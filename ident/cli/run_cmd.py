@@ -26,6 +26,24 @@ def progress_printer(quiet: bool, prefix: str = "") -> Any:
     return progress
 
 
+def _mode_text(mode: dict) -> str:
+    """One mode as the summary line gives it: an oscillation by frequency and damping, a real mode by time constant."""
+    f, zeta, tau = mode["natural_frequency_hz"], mode["damping_ratio"], mode["time_constant_s"]
+    if "integrator" in mode["flags"]:
+        text = "integrator"
+    elif mode["is_pair"] and f is not None:
+        text = f"{f:.4g} Hz" + (f" (zeta {zeta:.3g})" if zeta is not None else "")
+    elif mode["s"] is None:  # on the negative real axis (or at 0): no continuous-time equivalent
+        z = mode["z"][0] if isinstance(mode["z"], list) else mode["z"]
+        text = f"real pole at z = {z:.3g}"
+    elif tau is not None:
+        text = f"time constant {tau:.4g} s"
+    else:
+        return ""
+    flags = [flag for flag in mode["flags"] if flag != "integrator"]
+    return text + (" [" + ", ".join(flags) + "]" if flags else "")
+
+
 def run_text(result: Any) -> str:
     """Readable summary of a :class:`ident.pipeline.RunResult`."""
     s = result.summary
@@ -33,16 +51,8 @@ def run_text(result: Any) -> str:
     fits = ", ".join(f"{k} {v:.1f} %" if v is not None else f"{k} diverged"
                      for k, v in m["validation_fit"].items())
     lines = [s["name"], s["verdict"]["headline"],
-             f"model: {m['method']} order {m['order']} ({m['n_states']} states); validation fit {fits}"]
-    modes = []
-    for mode in s["modes"]["modes"]:
-        f, z = mode["natural_frequency_hz"], mode["damping_ratio"]
-        if f is None:
-            continue
-        text = f"{f:.4g} Hz" + (f" (zeta {z:.3g})" if mode["is_pair"] and z is not None else "")
-        if mode["flags"]:
-            text += " [" + ", ".join(mode["flags"]) + "]"
-        modes.append(text)
+             f"model: {m['method']} order {m['order']} ({m['n_states']} states); held-out fit {fits}"]
+    modes = [text for text in map(_mode_text, s["modes"]["modes"]) if text]
     if modes:
         lines.append("modes: " + "; ".join(modes))
     drift = s.get("drift")
