@@ -261,3 +261,23 @@ def test_periodic_log_uses_the_excited_lines(run_cli, files, tmp_path):
     assert plain["periodic"] is None and plain["spectral"]["source"] == "welch"
     bad = run_cli("check", path, files["plain"], "--period", "1.234")
     assert bad.exit_code == 2 and "whole number" in bad.stderr
+
+
+def test_checking_the_rows_a_model_was_fitted_on_says_so(run_cli, files, tmp_path):
+    # rigfit fit holds out the last 30 % (rows 2101..3000 of 3000) and records the log's SHA-256 and
+    # its estimation rows; check on the whole log says the first 2100 rows were fitted on; on the
+    # held-out rows, or on another log, it says nothing (common practice, no source)
+    fitted = tmp_path / "fitted.json"
+    res = run_cli("fit", files["log"], "--input", "valve_cmd", "--output", "flow", "--order", "3", "-o", fitted,
+                  "--quiet")
+    assert res.exit_code == 0, res.stderr
+    whole = run_cli("check", files["log"], fitted)
+    assert whole.exit_code == 0, whole.stderr
+    assert "note: rows 1..2100 of this log were used to fit the model" in whole.stdout
+    as_json = json.loads(run_cli("check", files["log"], fitted, "--json").stdout)
+    assert as_json["fitted_rows_checked"] == [0, 2100]
+    held_out = run_cli("check", files["log"], fitted, "--from", "2101rows")
+    assert "used to fit the model" not in held_out.stdout
+    other = run_cli("check", files["renamed"], fitted, "--output", "flow_rate")
+    assert other.exit_code == 0, other.stderr
+    assert "used to fit the model" not in other.stdout

@@ -117,6 +117,7 @@ def check(
         _check_plot_dir(plot_dir, _figure_names(model.inputs, model.outputs), force=force,
                         protected=(log_path, model_path))
     where = _record(log, range_from, range_to, log_path)
+    overlap = _fitted_rows(loaded.provenance, log, where)
     data = _deviations(log, model, model_path, where)
     periodic = analyse_log_periods(data["u"], data["y"], log.sample_time, period_text, description_path,
                                    {"input_names": model.inputs, "output_names": model.outputs})
@@ -136,6 +137,7 @@ def check(
         payload.update({"log": log_path, "model": model_path, "figures": written, "periodic": periodic_record,
                         "columns": {"inputs": list(log.input_names), "outputs": list(log.output_names)},
                         "sample_time_from_model": time_note is not None,
+                        "fitted_rows_checked": None if overlap is None else list(overlap),
                         "segment": {"start": where.start, "stop": where.stop, "n_segments": len(log.segments),
                                     "dropped_rows": log.dropped_rows, "warmup": where.start - where.segment_start,
                                     "time_s": [float(log.time[where.start]), float(log.time[where.stop - 1])]}})
@@ -148,6 +150,10 @@ def check(
                                periodic=periodic_record, mapping=_mapping_line(model, log), time_note=time_note))
         if where.note is not None:
             click.echo(f"note: {where.note}")
+        if overlap is not None:
+            click.echo(f"note: rows {overlap[0] + 1}..{overlap[1]} of this log were used to fit the model (the "
+                       "model file records the log's fingerprint and its estimation rows): the figures above are "
+                       "not held-out figures there; check the rows held out (--from/--to) or another log")
         if log.dropped_rows:
             click.echo(f"note: {log.dropped_rows} bad rows dropped")
         for path in written:
@@ -197,6 +203,31 @@ def _position(text: str, log: Any, option: str, path: str, *, end: bool) -> int:
     tol = 1e-6 * log.sample_time
     return int(np.searchsorted(t, seconds + tol, side="right")) if end else \
         int(np.searchsorted(t, seconds - tol, side="left"))
+
+
+def _fitted_rows(provenance: Any, log: Any, where: _Where) -> tuple[int, int] | None:
+    """Rows ``[a, b)`` of the stretch checked that the model was fitted on, by the model file's record (or None).
+
+    The model file names the log it was fitted on by its SHA-256 (``provenance.log``: one file for
+    ``rigfit fit``, ``files`` for ``rigfit run``) and the estimation rows
+    (``provenance.estimation.ranges``, one per log, in samples after decimation).
+    """
+    if not isinstance(provenance, dict) or not log.source.sha256:
+        return None
+    block = provenance.get("log")
+    files = block.get("files", [block]) if isinstance(block, dict) else []
+    hashes = [f.get("sha256") for f in files if isinstance(f, dict)]
+    if log.source.sha256 not in hashes:
+        return None
+    estimation = provenance.get("estimation") if isinstance(provenance.get("estimation"), dict) else {}
+    ranges, q = estimation.get("ranges"), estimation.get("decimation", 1)
+    k = hashes.index(log.source.sha256)
+    try:
+        a, b = (int(v) * int(q) for v in ranges[k]) if len(ranges) == len(hashes) else (0, log.n_samples)
+    except (TypeError, ValueError, IndexError):
+        a, b = 0, log.n_samples
+    lo, hi = max(a, where.start), min(b, where.stop)
+    return (lo, hi) if hi > lo else None
 
 
 def _record(log: Any, range_from: str | None, range_to: str | None, path: str) -> _Where:
