@@ -216,7 +216,7 @@ def _residual_verdict_text(report: ValidationReport, name: str) -> tuple[str, bo
     import textwrap
 
     words = {"whiteness": ("white", "correlated"), "input_independence": ("independent of", "depends on"),
-             "feedback": ("no feedback from", "feedback to")}
+             "feedback": ("no feedback to", "feedback to")}  # from this output to the input
     parts, good = [], True
     for v in report.verdicts:
         if v.output != name or v.test not in words:
