@@ -183,8 +183,13 @@ def _data(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
              + (f" Decimated by {d['decimation']} to T = {_num(d['sample_time'])} s." if d["decimation"] > 1 else ""))
     resampled = [_p(f"{lg['file_name']}: {lg['resampling_text']}.") for lg in d["logs"]
                  if lg.get("resampling_text")]
+    held = d.get("validation_logs") or []
+    separate = [_p("Separate validation logs (held out whole, never fitted on):"),
+                _table(("file", "samples", "segments", "SHA-256"),
+                       [(lg["file_name"], lg["n_samples"], len(lg["segments"]), lg["sha256"][:16] + "…")
+                        for lg in held])] if held else []
     return _section(
-        "data", "Data", logs, *resampled, sig, _p(band_text), exc,
+        "data", "Data", logs, *resampled, *separate, sig, _p(band_text), exc,
         _p("Operating point (subtracted before fitting): " + "; ".join(op_in + op_out) + "."),
         _p(split), _figures(s, figures, "data"),
     )

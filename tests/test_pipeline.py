@@ -357,6 +357,9 @@ def test_validate_with_holds_out_whole_logs(tmp_path):
     assert result.summary["data"]["validation_logs"][0]["file_name"] == "second_run.csv"
     assert [lg["file_name"] for lg in result.summary["provenance"]["logs"]] == ["rig.csv", "second_run.csv"]
     assert load_model(result.model_path).provenance["validation"]["logs"][0]["file_name"] == "second_run.csv"
+    # the report's Data section lists it beside the estimation log
+    data_section = result.report_path.read_text(encoding="utf-8").split('id="data"')[1].split("</section>")[0]
+    assert "Separate validation logs" in data_section and "second_run.csv" in data_section
 
 
 @pytest.mark.filterwarnings("ignore::ident.errors.PoorExcitationWarning")
