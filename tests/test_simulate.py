@@ -378,3 +378,23 @@ def test_free_response_matrix_stacks_c_times_powers_of_a(n, p, count):
     if count:
         want = np.vstack([model.C @ np.linalg.matrix_power(A, k) for k in range(count)])
         assert_allclose(got, want, rtol=0, atol=1e-13 * np.max(np.abs(want)))
+
+
+@pytest.mark.parametrize(("n", "p"), [(1, 1), (3, 2)])
+@pytest.mark.parametrize("count", [1, 4096, 10_001])
+def test_add_free_response_is_scipy_dlsim_from_x0_with_zero_input(n, p, count, monkeypatch):
+    # oracle: scipy.signal.dlsim with x0 and a zero input; blocks of 4096 and of 1000 samples
+    import ident.lti.simulate as sim
+
+    rng = np.random.default_rng(3 * n + p)
+    A = rng.standard_normal((n, n))
+    A *= 0.999 / np.max(np.abs(np.linalg.eigvals(A)))
+    C = rng.standard_normal((p, n))
+    model = StateSpaceModel(A=A, B=np.ones((n, 1)), C=C, D=np.zeros((p, 1)), sample_time=1.0)
+    x0 = rng.standard_normal(n)
+    _, want, _ = signal.dlsim((A, np.ones((n, 1)), C, np.zeros((p, 1)), 1.0), np.zeros(count), x0=x0)
+    base = rng.standard_normal((count, p))
+    for block in (4096, 1000):
+        monkeypatch.setattr(sim, "_FREE_BLOCK", block)
+        got = sim.add_free_response(model, x0, base.copy())
+        assert_allclose(got - base, want.reshape(count, p), rtol=0, atol=1e-11 * np.max(np.abs(want)))

@@ -28,7 +28,7 @@ import numpy as np
 
 from ..assess.diagnostics import fit_percent
 from ..lti.models import StateSpaceModel
-from ..lti.simulate import free_response_matrix, simulate
+from ..lti.simulate import add_free_response, free_response_matrix, simulate
 from .data import Experiment
 
 __all__ = ["HeldOutScore", "score_window", "held_out_score", "warmups_for", "initial_conditions"]
@@ -155,8 +155,8 @@ def _with_free_response(model: StateSpaceModel, forced: np.ndarray, x0: np.ndarr
     """Add the free response ``C A^k x0`` to ``forced`` (the simulation from ``x0``, by linearity)."""
     if x0 is None or not model.n_states:
         return forced
-    N, p = forced.shape
-    return forced + (free_response_matrix(model, N) @ x0).reshape(N, p)
+    out = forced if forced.flags.writeable else forced.copy()
+    return add_free_response(model, x0, out)
 
 
 def initial_conditions(model: StateSpaceModel, u: np.ndarray, y: np.ndarray,

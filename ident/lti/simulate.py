@@ -40,6 +40,7 @@ __all__ = [
     "simulate_states",
     "estimate_initial_state",
     "free_response_matrix",
+    "add_free_response",
     "all_pole_filter",
     "first_order_recursion",
     "state_chunks",
@@ -717,6 +718,34 @@ def free_response_matrix(model: StateSpaceModel, n_samples: int) -> np.ndarray:
         if filled < n_samples:
             power = power @ power
     return out.reshape(n_samples * p, n)
+
+
+#: Samples per block of :func:`add_free_response` (its working memory is this many rows of ``C A^k``).
+_FREE_BLOCK = 4096
+
+
+def add_free_response(model: StateSpaceModel, x0: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """Add the free response ``C A^k x0`` (k = 0 .. N-1) to ``out`` (N, p) in place, and return it.
+
+    Block by block: one :func:`free_response_matrix` of :data:`_FREE_BLOCK`
+    samples maps the state at each block's start to the block's outputs, and
+    ``A^block`` carries the state to the next block, so the memory is that of
+    one block whatever ``N`` (the state reaching exactly zero ends the loop).
+    """
+    N, p = out.shape
+    if N == 0 or model.n_states == 0:
+        return out
+    block = min(N, _FREE_BLOCK)
+    rows = free_response_matrix(model, block)
+    step = np.linalg.matrix_power(model.A, block)
+    x = np.asarray(x0, dtype=float).reshape(-1)
+    for start in range(0, N, block):
+        stop = min(N, start + block)
+        out[start:stop] += (rows[: (stop - start) * p] @ x).reshape(stop - start, p)
+        x = step @ x
+        if not np.any(x):
+            break
+    return out
 
 
 def estimate_initial_state(
