@@ -1,5 +1,6 @@
 """Awkward and hostile logs: honest one-line messages (exit status 2), never a wrong answer or exit 1."""
 
+import json
 import os
 from pathlib import Path
 
@@ -183,6 +184,24 @@ def test_huge_values_are_refused_naming_row_and_column(tmp_path, capsys, scale):
     assert code == 2 and out == ""
     first = one_error(err)
     assert "huge.csv, row 2, column 'u'" in first and "overflow double precision" in first
+
+
+def test_plain_inspect_shows_huge_values_without_overflow_and_says_fit_refuses_them(tmp_path, capsys):
+    # a random binary signal of +-1e300 has a std near 1e300 (common practice, no source): finite, not inf
+    path = write(tmp_path / "huge.csv", "time,u,y\n" + "\n".join(lag_rows(800, 1e300)) + "\n")
+    code, out, err = rigfit(capsys, "inspect", path)
+    assert code == 0 and "warning" not in err and "inf" not in out
+    assert "columns u, y hold values beyond +-1e+50: fit and check refuse them" in out
+    code, out, _ = rigfit(capsys, "inspect", path, "--json")
+    column = next(c for c in json.loads(out)["columns"] if c["name"] == "u")
+    assert column["beyond_limit"] and np.isfinite(column["std"]) and column["std"] > 1e299
+
+
+def test_a_header_cell_beyond_the_csv_field_limit_is_a_format_error(tmp_path, capsys):
+    path = write(tmp_path / "longname.csv", "time," + "a" * 200_000 + ",y\n0,1,2\n1,2,3\n")
+    code, out, err = rigfit(capsys, "inspect", path)
+    assert code == 2 and out == ""
+    assert "longname.csv, row 1: the header line cannot be split into column names" in one_error(err)
 
 
 @pytest.mark.parametrize("method", ["subspace", "auto"])

@@ -178,9 +178,15 @@ def _segments(table: Any, t, segs, lines: bool) -> list[dict]:
 
 
 def _stats(v) -> dict:
+    """Min, mean, max and std of a column (scaled by its largest magnitude, so huge values do not overflow)."""
     import numpy as np
 
-    return {"min": float(np.min(v)), "mean": float(np.mean(v)), "max": float(np.max(v)), "std": float(np.std(v))}
+    from .._validate import MAX_SIGNAL_MAGNITUDE
+
+    big = float(np.max(np.abs(v)))
+    scale = big if 0.0 < big < np.inf else 1.0
+    return {"min": float(np.min(v)), "mean": scale * float(np.mean(v / scale)), "max": float(np.max(v)),
+            "std": scale * float(np.std(v / scale)), "beyond_limit": big > MAX_SIGNAL_MAGNITUDE}
 
 
 def _groups(rec: Any, bases: list) -> list[dict]:
@@ -368,6 +374,13 @@ def _column_lines(p: dict) -> list[str]:
         lines.append(line + "  ".join(f"{_g(c[k]):>12}" for k in ("min", "mean", "max", "std")))
     if p["skipped"]:
         lines.append(f"not numeric (not read): {', '.join(p['skipped'])}")
+    huge = [c["name"] for c in cols if c.get("beyond_limit")]
+    if huge:
+        from .._validate import MAX_SIGNAL_MAGNITUDE
+
+        lines.append(f"note: {'columns' if len(huge) > 1 else 'column'} {', '.join(huge)} "
+                     f"{'hold' if len(huge) > 1 else 'holds'} values beyond +-{MAX_SIGNAL_MAGNITUDE:g}: fit and "
+                     "check refuse them (their sums of squares would overflow double precision); scale them first")
     return lines
 
 

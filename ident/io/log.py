@@ -1347,7 +1347,11 @@ def _read_header(path: str) -> _Header:
             if any(_DECIMAL_COMMA_RE.match(f) for f in ln.split(sep)):
                 decimal = ","
                 break
-    raw = next(csv.reader([header_text], delimiter=sep, quotechar='"'))
+    try:
+        raw = next(csv.reader([header_text], delimiter=sep, quotechar='"'))
+    except csv.Error as exc:  # a single cell beyond the csv module's field limit (128 KiB)
+        raise LogFormatError(f"the header line cannot be split into column names ({exc})", path=path, row=h + 1,
+                             hint="a rig log's header names its columns; no name is that long") from None
     while raw and not raw[-1].strip():
         raw.pop()  # trailing empty columns
     if not raw:
