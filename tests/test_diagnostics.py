@@ -541,3 +541,20 @@ def test_frequency_verdict_agrees_with_the_time_domain_fit_on_measured_data(shar
         assert status != "agrees" or report.spectral.judgements[0].informative_share >= 0.3
     if name == "robot_arm.csv":  # the case of the issue: a 97 % model the old verdict called wrong
         assert whole.simulation_fit[0] > 90.0 and whole.spectral.judgements[0].status == "agrees"
+
+
+@pytest.mark.filterwarnings("ignore::scipy.signal.BadCoefficients")
+def test_an_initial_state_the_record_cannot_overdetermine_is_refused(rng):
+    # 21 states (a lag behind 20 samples of delay) on 60 samples: the window of N / 4 = 15 samples gives
+    # 15 equations for 21 unknowns (least squares needs more equations than unknowns; common practice)
+    num = np.zeros(22)
+    num[21] = 0.1
+    A, B, C, D = signal.tf2ss(num, np.r_[1.0, -0.9, np.zeros(20)])
+    model = StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=T)
+    assert model.n_states == 21
+    u = rng.standard_normal((60, 1))
+    y = simulate(model, u) + 0.01 * rng.standard_normal((60, 1))
+    with pytest.raises(OptionError, match="15 equations for 21 unknowns"):
+        validate_model(model, u, y, T)
+    report = validate_model(model, u, y, T, CheckOptions(initial_state="zero"))  # from rest: nothing to fit
+    assert np.isfinite(report.simulation_fit).all()

@@ -1143,9 +1143,17 @@ def _check_validation_data(model: StateSpaceModel, N: int, sample_time: float, o
             f"{model.sample_time:g} s",
             hint="resample the log or use a model identified at this rate",
         )
+    window = score_window(N, model.n_states)
+    if options.initial_state == "estimate" and window * model.n_outputs <= model.n_states:
+        raise OptionError(
+            f"the initial state of this {model.n_states}-state model cannot be estimated on {N} samples: their "
+            f"initial-state window of {window} samples gives {window * model.n_outputs} equations for "
+            f"{model.n_states} unknowns (a fit figure would be meaningless)",
+            hint="validate on a longer record (at least 4 samples per state)",
+        )
     L = options.max_lag
     need = MIN_SAMPLES if L is None else max(MIN_SAMPLES, MIN_SAMPLES_PER_LAG * L)
-    usable = N - (score_window(N, model.n_states) if options.initial_state == "estimate" else 0)
+    usable = N - (window if options.initial_state == "estimate" else 0)
     if usable < need:
         what = f" for max_lag {L}" if L is not None else ""
         raise OptionError(f"validation needs at least {need} samples after the initial-state window{what}; "
