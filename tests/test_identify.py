@@ -201,6 +201,14 @@ def test_constant_input_refused(rng):
     y = rng.standard_normal((500, 1))
     with pytest.raises(IdentificationError, match="constant"):
         identify((u, y), T)
+    # round-off variation on a level is still constant; a signal in small units is not (the test is
+    # relative to the signal's own magnitude; common practice, no source)
+    with pytest.raises(IdentificationError, match="input 'u1' is constant"):
+        identify((5.0 + 1e-15 * rng.standard_normal((500, 1)), y), T, IdentifyOptions(method="arx", order=1))
+    small = 1e-13 * rng.standard_normal((500, 1))
+    res = identify((small, 1e-13 * signal.lfilter([0.0, 0.5], [1.0, -0.7], small[:, 0] / 1e-13)[:, None]), T,
+                   IdentifyOptions(method="arx", order=1))
+    assert_allclose(res.model.poles(), [0.7], atol=1e-4)  # the pole of the noise-free lag
 
 
 def test_weak_excitation_is_a_warning_never_a_cap(rng):

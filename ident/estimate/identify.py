@@ -381,16 +381,26 @@ def _check_signals(prep: PreparedData) -> list[str]:
     return _check_collinear(prep, u) if prep.n_inputs > 1 else []
 
 
+def _constant(std: float, level: float, deviations: np.ndarray) -> bool:
+    """Tell whether a signal's variation is at round-off level: its std within 1e-12 of its own magnitude.
+
+    Relative to the signal (its operating point or largest deviation), so a signal measured in
+    small units (values near 1e-12) is not called constant for being small.
+    """
+    scale = max(abs(level), float(np.max(np.abs(deviations))) if deviations.size else 0.0)
+    return not std > 1e-12 * scale
+
+
 def _check_constant(prep: PreparedData, u: np.ndarray, y: np.ndarray) -> None:
     u_std, y_std = column_stds(u), column_stds(y)
     for j in range(prep.n_inputs):
-        if not u_std[j] > 1e-12 * max(1.0, float(np.max(np.abs(prep.operating_point.inputs[j])))):
+        if _constant(u_std[j], float(prep.operating_point.inputs[j]), u[:, j]):
             raise IdentificationError(
                 f"input {prep.input_names[j]!r} is constant over the estimation part; it excites nothing",
                 hint="choose an input column that varies, or a longer estimation part",
             )
     for i in range(prep.n_outputs):
-        if not y_std[i] > 1e-12 * max(1.0, float(np.max(np.abs(prep.operating_point.outputs[i])))):
+        if _constant(y_std[i], float(prep.operating_point.outputs[i]), y[:, i]):
             raise IdentificationError(
                 f"output {prep.output_names[i]!r} is constant over the estimation part; there is nothing to model",
                 hint="check the output column name",
