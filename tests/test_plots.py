@@ -391,3 +391,24 @@ def test_frequency_comparison_shades_the_models_band_from_its_covariance(report)
     assert_allclose(top, 20 * np.log10(band.magnitude_high[:, 0, 0].max()), rtol=1e-9)
     plain = frequency_comparison(report, output=0, model=model)
     assert not [c for c in plain.axes[0].collections if "parameter covariance" in str(c.get_label())]
+
+
+def test_strip_figure_names_outliers_at_either_edge_in_full():
+    # Units flagged at the smallest and the largest value sit next to the panel's edges; their names
+    # must be drawn whole inside the panel, not clipped by it (common practice, no source).
+    from ident.plots.fleet import StripPanel, strip_figure
+
+    values = [22.08, 23.8, 23.9, 24.0, 24.1, 25.9]
+    names = ["AX-11-0003-long-serial", "a", "b", "c", "d", "AX-11-0017-long-serial"]
+    flagged = [True, False, False, False, False, True]
+    panel = StripPanel("mode 2 natural frequency", "Hz", values, names, flagged, 23.95, 0.1, 3.5)
+    fig = strip_figure([panel, panel], title="Mode 2")
+    _, renderer = _render(fig)
+    for ax in fig.axes:
+        labels = [t for t in ax.texts if t.get_text().startswith("AX-11-")]
+        assert len(labels) == 2
+        box = ax.get_window_extent(renderer)
+        for label in labels:
+            text = label.get_window_extent(renderer)
+            # one pixel of slack for anti-aliasing/rounding (common practice, no source)
+            assert box.x0 - 1 <= text.x0 and text.x1 <= box.x1 + 1, label.get_text()
