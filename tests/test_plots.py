@@ -12,7 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from ident.assess.diagnostics import CheckOptions, Verdict, validate_model
+from ident.assess.diagnostics import CheckOptions, Correlation, Verdict, validate_model
 from ident.assess.modes import mode_table
 from ident.lti.models import StateSpaceModel
 from ident.plots.poles import pole_zero_map
@@ -356,6 +356,61 @@ def test_residual_figure_groups_one_output_with_its_verdicts(report):
     assert fig._suptitle.get_text().startswith("verdict: ")
     assert fig.axes[0].get_xlabel() == "lag [s]"
 
+
+
+def _crowded(c: Correlation, *, height: float) -> Correlation:
+    # every lag outside the band, signs alternating: stems and markers at every place of the panel
+    values = height * c.band * np.where(c.lags % 2 == 0, 1.0, -1.0)
+    values[c.lags == 0] = 1.0 if c.lags.min() == 0 else values[c.lags == 0]
+    return dataclasses.replace(c, values=values, significant_lags=tuple(int(k) for k in c.lags if k != 0))
+
+
+def _marks(ax, renderer) -> list:
+    """Display boxes of the stems (vlines), markers (scatter) and notes (texts) an axes draws, within the axes."""
+    from matplotlib.collections import LineCollection, PathCollection
+    from matplotlib.transforms import Bbox
+
+    frame = ax.get_window_extent(renderer)
+    boxes = []
+    for c in ax.collections:
+        if isinstance(c, LineCollection):
+            for seg in c.get_segments():
+                xy = ax.transData.transform(seg)
+                boxes.append(Bbox.from_extents(*xy.min(axis=0), *xy.max(axis=0)))
+        elif isinstance(c, PathCollection):
+            radius = math.sqrt(float(np.max(c.get_sizes()))) / 2 * ax.figure.dpi / 72  # s is in points^2
+            for x, y in c.get_offset_transform().transform(c.get_offsets()):
+                boxes.append(Bbox.from_extents(x - radius, y - radius, x + radius, y + radius))
+    boxes += [t.get_window_extent(renderer) for t in ax.texts]
+    return [b for b in (Bbox.intersection(b, frame) for b in boxes) if b is not None]
+
+
+@pytest.mark.parametrize("with_feedback", [True, False])
+def test_residual_figure_legends_never_cover_a_stem_or_marker(report, with_feedback):
+    # A legend is read over the panel's data only if it covers none of it: with stems and markers
+    # everywhere in every panel, each legend must lie outside its axes (common practice, no source).
+    w = report.whiteness[1]
+    crowded = dataclasses.replace(
+        report,
+        whiteness=(report.whiteness[0], dataclasses.replace(w, autocorrelation=_crowded(w.autocorrelation, height=3))),
+        cross_correlation=tuple(tuple(_crowded(c, height=3) for c in row) for row in report.cross_correlation),
+        feedback_correlation=(tuple(tuple(_crowded(c, height=3) for c in row) for row in report.feedback_correlation)
+                              if with_feedback else ()),
+    )
+    fig = residual_correlations(crowded, output=1)
+    _, renderer = _render(fig)
+    assert _texts_inside(fig, renderer) == []
+    legends = [(ax, ax.get_legend()) for ax in fig.axes if ax.get_legend() is not None]
+    assert len(legends) == 3  # autocorrelation, periodogram, the one input's cross-correlation
+    for ax, legend in legends:
+        box = legend.get_window_extent(renderer)
+        covered = [b for b in _marks(ax, renderer) if b.overlaps(box)]
+        assert covered == [], (ax.get_title(loc="left"), [t.get_text() for t in legend.get_texts()])
+        labels = [t.get_text() for t in legend.get_texts()]
+        assert len(labels) == len(set(labels))  # "outside the band" once, though both halves have it
+    cross = [t.get_text() for t in legends[2][1].get_texts()]
+    assert cross.count("outside the band") == 1
+    assert sum(text.startswith(("negative lags", "positive lags")) for text in cross) == (2 if with_feedback else 0)
 
 def test_frequency_figure_draws_the_region_and_the_judged_band(report):
     fig = frequency_comparison(report, output=0, input=0)
