@@ -365,7 +365,7 @@ def _crowded(c: Correlation, *, height: float) -> Correlation:
     return dataclasses.replace(c, values=values, significant_lags=tuple(int(k) for k in c.lags if k != 0))
 
 
-def _marks(ax, renderer) -> list:
+def _marks(ax, renderer, *, notes: bool = True) -> list:
     """Display boxes of the stems (vlines), markers (scatter) and notes (texts) an axes draws, within the axes."""
     from matplotlib.collections import LineCollection, PathCollection
     from matplotlib.transforms import Bbox
@@ -381,7 +381,7 @@ def _marks(ax, renderer) -> list:
             radius = math.sqrt(float(np.max(c.get_sizes()))) / 2 * ax.figure.dpi / 72  # s is in points^2
             for x, y in c.get_offset_transform().transform(c.get_offsets()):
                 boxes.append(Bbox.from_extents(x - radius, y - radius, x + radius, y + radius))
-    boxes += [t.get_window_extent(renderer) for t in ax.texts]
+    boxes += [t.get_window_extent(renderer) for t in ax.texts] if notes else []
     return [b for b in (Bbox.intersection(b, frame) for b in boxes) if b is not None]
 
 
@@ -408,6 +408,11 @@ def test_residual_figure_legends_never_cover_a_stem_or_marker(report, with_feedb
         assert covered == [], (ax.get_title(loc="left"), [t.get_text() for t in legend.get_texts()])
         labels = [t.get_text() for t in legend.get_texts()]
         assert len(labels) == len(set(labels))  # "outside the band" once, though both halves have it
+    for ax in fig.axes:  # nor is a note written over a stem
+        stems = _marks(ax, renderer, notes=False)
+        for note in ax.texts:
+            box = note.get_window_extent(renderer)
+            assert not [b for b in stems if b.overlaps(box)], note.get_text()
     cross = [t.get_text() for t in legends[2][1].get_texts()]
     assert cross.count("outside the band") == 1
     assert sum(text.startswith(("negative lags", "positive lags")) for text in cross) == (2 if with_feedback else 0)

@@ -282,8 +282,8 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
         how = literal(f"prewhitened {report.inputs[j]} (AR({order}))" if order else report.inputs[j])
         ax = axes[2 + j]
         raw = report.cross_correlation[output][j]
-        lag_label = ("lag [s]   (negative: the residual less what past inputs explain leads, feedback; "
-                     "positive: the input leads, missed dynamics)")
+        lag_label = ("lag [s]   (← negative: the residual less what past inputs explain leads, feedback;  "
+                     "positive: the input leads, missed dynamics →)")
         if report.feedback_correlation:
             fb = _half(report.feedback_correlation[output][j], True)
             _draw_correlation(ax, fb, f"{shown} residuals against {how}", skip_zero=False, sample_time=T,
@@ -295,8 +295,6 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
             _draw_correlation(ax, raw, f"{shown} residuals against {how}", skip_zero=False, sample_time=T,
                               label=lag_label)
         _legend_each_once(ax)
-        ax.text(0.01, 0.03, "← feedback side", transform=ax.transAxes, fontsize=7, color="#7b8a97")
-        ax.text(0.99, 0.03, "input leads →", transform=ax.transAxes, fontsize=7, color="#7b8a97", ha="right")
     text, good = _residual_verdict_text(report, name)
     fig.suptitle(text, fontsize=9, color=_GOOD if good else _BAD, x=0.01, ha="left")
     return fig
