@@ -462,9 +462,13 @@ def test_strip_figure_names_outliers_at_either_edge_in_full():
     names = ["AX-11-0003-long-serial", "a", "b", "c", "d", "AX-11-0017-long-serial"]
     flagged = [True, False, False, False, False, True]
     panel = StripPanel("mode 2 natural frequency", "Hz", values, names, flagged, 23.95, 0.1, 3.5)
-    fig = strip_figure([panel, panel], title="Mode 2")
+    ratio = dataclasses.replace(panel, title="mode 2 damping ratio", unit="")
+    fig = strip_figure([panel, panel, ratio], title="Mode 2")
     _, renderer = _render(fig)
-    for ax in fig.axes:
+    # every axis label names a unit, [-] when dimensionless (the house rule for figures)
+    assert [ax.get_xlabel() for ax in fig.axes if ax.get_visible()] == [
+        "mode 2 natural frequency [Hz]", "mode 2 natural frequency [Hz]", "mode 2 damping ratio [-]"]
+    for ax in fig.axes[:2]:
         labels = [t for t in ax.texts if t.get_text().startswith("AX-11-")]
         assert len(labels) == 2
         box = ax.get_window_extent(renderer)

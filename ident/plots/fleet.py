@@ -36,7 +36,7 @@ class StripPanel:
     title : str
         Panel title, e.g. ``"mode 2 natural frequency"``.
     unit : str
-        Unit of measure for the axis label.
+        Unit of measure for the axis label (empty: dimensionless, shown as ``[-]``).
     values : sequence of float
         One value per unit (nan where a unit has none; not drawn).
     names : sequence of str
@@ -107,7 +107,7 @@ def _panel(ax, panel: StripPanel) -> None:
                     ha=_label_alignment(ax, x[k]), fontsize=7.5, color=_ODD, clip_on=True)
     ax.set_ylim(-0.85, 0.85)
     ax.set_yticks([])
-    label = f"{panel.title} [{panel.unit}]" if panel.unit else panel.title
+    label = f"{panel.title} [{panel.unit or '-'}]"  # [-]: dimensionless
     ax.set_xlabel(literal(label), fontsize=9)
     ax.tick_params(labelsize=8)
     for side in ("left", "right", "top"):
