@@ -227,7 +227,7 @@ h3 { font-size: 1em; margin: 16px 0 6px; }
 .scroll { overflow-x: auto; max-width: 100%; }
 table { border-collapse: collapse; margin: 6px 0 12px; font-size: 12.5px; }
 th, td { border-bottom: 1px solid var(--rule); padding: 3px 9px; text-align: left; vertical-align: top; }
-th { border-bottom: 2px solid var(--ink); font-weight: 600; white-space: nowrap; }
+th { border-bottom: 2px solid var(--ink); font-weight: 600; }
 td.bad { color: var(--alarm); font-weight: 600; }
 table.odd td ul { margin: 0; padding-left: 16px; }
 table.prov td:first-child { color: var(--soft); white-space: nowrap; }

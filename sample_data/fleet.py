@@ -113,27 +113,28 @@ def draw_fleet(n_units: int, seed: int, plants: dict[int, str] | None = None) ->
     return units
 
 
-def unit_log(a: Actuator, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
-    """Simulate one unit's test: the current command and the noisy rod speed."""
-    n_clock = -(-SAMPLES // HOLD_SAMPLES)
+def unit_log(a: Actuator, rng: np.random.Generator, samples: int = SAMPLES) -> tuple[np.ndarray, np.ndarray]:
+    """Simulate one unit's test of ``samples`` samples: the current command and the noisy rod speed."""
+    n_clock = -(-samples // HOLD_SAMPLES)
     levels = np.where(rng.random(n_clock) < 0.5, *CURRENT_LEVELS_A)
-    u = np.repeat(levels, HOLD_SAMPLES)[:SAMPLES]
+    u = np.repeat(levels, HOLD_SAMPLES)[:samples]
     num, den = actuator_tf(a)
     numd, dend, _ = signal.cont2discrete((num, den), SAMPLE_TIME_S, method="zoh")
     # start in steady state at the first level: the DC gain times the first command
     zi = signal.lfilter_zi(numd.ravel(), dend) * u[0]
     y, _ = signal.lfilter(numd.ravel(), dend, u, zi=zi)
-    return u, y + NOISE_MM_S * rng.standard_normal(SAMPLES)
+    return u, y + NOISE_MM_S * rng.standard_normal(samples)
 
 
-def write_fleet(folder: Path, n_units: int, *, seed: int = 7, plants: dict[int, str] | None = None) -> dict:
-    """Write ``eol_<k>.csv`` for every unit and ``truth.json``; return the truth."""
+def write_fleet(folder: Path, n_units: int, *, seed: int = 7, plants: dict[int, str] | None = None,
+                samples: int = SAMPLES) -> dict:
+    """Write ``eol_<k>.csv`` of ``samples`` rows for every unit and ``truth.json``; return the truth."""
     folder.mkdir(parents=True, exist_ok=True)
     units = draw_fleet(n_units, seed, plants)
     rng = np.random.default_rng(seed + 1)
-    t = np.arange(SAMPLES) * SAMPLE_TIME_S
+    t = np.arange(samples) * SAMPLE_TIME_S
     for k, a in enumerate(units, start=1):
-        u, y = unit_log(a, rng)
+        u, y = unit_log(a, rng, samples)
         lines = ["time [s],unit,current_cmd [A],rod_speed [mm/s]"]
         lines += [f"{ti:.3f},{a.serial},{ui:.1f},{yi:.3f}" for ti, ui, yi in zip(t, u, y, strict=True)]
         (folder / f"eol_{k:04d}.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
@@ -141,7 +142,7 @@ def write_fleet(folder: Path, n_units: int, *, seed: int = 7, plants: dict[int, 
         "scenario": "end-of-line test of linear actuators",
         "seed": seed,
         "sample_time_s": SAMPLE_TIME_S,
-        "samples": SAMPLES,
+        "samples": samples,
         "noise_mm_s": NOISE_MM_S,
         "units": [{"file": f"eol_{k:04d}.csv", **asdict(a)} for k, a in enumerate(units, start=1)],
     }

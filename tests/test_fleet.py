@@ -3,12 +3,10 @@ found, failed units isolated, resume after a kill, the fleet table through panda
 
 from __future__ import annotations
 
-import importlib.util
 import json
 import logging
 import subprocess
 import sys
-import textwrap
 import time
 from pathlib import Path
 
@@ -16,38 +14,16 @@ import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
+from fleets import FLEET, write_pipeline
 
 from ident.fleet.aggregate import FIXED_COLUMNS
 from ident.fleet.run import run_fleet
 from ident.fleet.units import UnitJob, evaluate_unit, settings_hash
 from ident.io.pipelinefile import load_pipeline
 
-REPO = Path(__file__).resolve().parents[1]
-_spec = importlib.util.spec_from_file_location("fleet_scenario", REPO / "sample_data" / "fleet.py")
-FLEET = importlib.util.module_from_spec(_spec)
-sys.modules[_spec.name] = FLEET  # dataclasses look their module up while the module runs
-_spec.loader.exec_module(FLEET)
-
 #: Planted odd units (1-based unit numbers) of the test fleet.
 PLANTS = {3: "low_resonance", 7: "high_damping", 10: "extra_mode"}
 N_UNITS = 12
-
-
-def write_pipeline(folder: Path, first_log: str) -> Path:
-    path = folder / "eol.toml"
-    path.write_text(textwrap.dedent(f"""
-        name = "actuator end-of-line test"
-        [log]
-        paths = ["{first_log}"]
-        inputs = ["current_cmd"]
-        outputs = ["rod_speed"]
-        [fit]
-        method = "subspace"
-        max_order = 6
-        [check]
-        max_lag = 25
-        """), encoding="utf-8")
-    return path
 
 
 @pytest.fixture(scope="module")

@@ -12,7 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from ident.assess.diagnostics import CheckOptions, Verdict, validate_model
+from ident.assess.diagnostics import CheckOptions, Correlation, Verdict, validate_model
 from ident.assess.modes import mode_table
 from ident.lti.models import StateSpaceModel
 from ident.plots.poles import pole_zero_map
@@ -357,6 +357,66 @@ def test_residual_figure_groups_one_output_with_its_verdicts(report):
     assert fig.axes[0].get_xlabel() == "lag [s]"
 
 
+
+def _crowded(c: Correlation, *, height: float) -> Correlation:
+    # every lag outside the band, signs alternating: stems and markers at every place of the panel
+    values = height * c.band * np.where(c.lags % 2 == 0, 1.0, -1.0)
+    values[c.lags == 0] = 1.0 if c.lags.min() == 0 else values[c.lags == 0]
+    return dataclasses.replace(c, values=values, significant_lags=tuple(int(k) for k in c.lags if k != 0))
+
+
+def _marks(ax, renderer, *, notes: bool = True) -> list:
+    """Display boxes of the stems (vlines), markers (scatter) and notes (texts) an axes draws, within the axes."""
+    from matplotlib.collections import LineCollection, PathCollection
+    from matplotlib.transforms import Bbox
+
+    frame = ax.get_window_extent(renderer)
+    boxes = []
+    for c in ax.collections:
+        if isinstance(c, LineCollection):
+            for seg in c.get_segments():
+                xy = ax.transData.transform(seg)
+                boxes.append(Bbox.from_extents(*xy.min(axis=0), *xy.max(axis=0)))
+        elif isinstance(c, PathCollection):
+            radius = math.sqrt(float(np.max(c.get_sizes()))) / 2 * ax.figure.dpi / 72  # s is in points^2
+            for x, y in c.get_offset_transform().transform(c.get_offsets()):
+                boxes.append(Bbox.from_extents(x - radius, y - radius, x + radius, y + radius))
+    boxes += [t.get_window_extent(renderer) for t in ax.texts] if notes else []
+    return [b for b in (Bbox.intersection(b, frame) for b in boxes) if b is not None]
+
+
+@pytest.mark.parametrize("with_feedback", [True, False])
+def test_residual_figure_legends_never_cover_a_stem_or_marker(report, with_feedback):
+    # A legend is read over the panel's data only if it covers none of it: with stems and markers
+    # everywhere in every panel, each legend must lie outside its axes (common practice, no source).
+    w = report.whiteness[1]
+    crowded = dataclasses.replace(
+        report,
+        whiteness=(report.whiteness[0], dataclasses.replace(w, autocorrelation=_crowded(w.autocorrelation, height=3))),
+        cross_correlation=tuple(tuple(_crowded(c, height=3) for c in row) for row in report.cross_correlation),
+        feedback_correlation=(tuple(tuple(_crowded(c, height=3) for c in row) for row in report.feedback_correlation)
+                              if with_feedback else ()),
+    )
+    fig = residual_correlations(crowded, output=1)
+    _, renderer = _render(fig)
+    assert _texts_inside(fig, renderer) == []
+    legends = [(ax, ax.get_legend()) for ax in fig.axes if ax.get_legend() is not None]
+    assert len(legends) == 3  # autocorrelation, periodogram, the one input's cross-correlation
+    for ax, legend in legends:
+        box = legend.get_window_extent(renderer)
+        covered = [b for b in _marks(ax, renderer) if b.overlaps(box)]
+        assert covered == [], (ax.get_title(loc="left"), [t.get_text() for t in legend.get_texts()])
+        labels = [t.get_text() for t in legend.get_texts()]
+        assert len(labels) == len(set(labels))  # "outside the band" once, though both halves have it
+    for ax in fig.axes:  # nor is a note written over a stem
+        stems = _marks(ax, renderer, notes=False)
+        for note in ax.texts:
+            box = note.get_window_extent(renderer)
+            assert not [b for b in stems if b.overlaps(box)], note.get_text()
+    cross = [t.get_text() for t in legends[2][1].get_texts()]
+    assert cross.count("outside the band") == 1
+    assert sum(text.startswith(("negative lags", "positive lags")) for text in cross) == (2 if with_feedback else 0)
+
 def test_frequency_figure_draws_the_region_and_the_judged_band(report):
     fig = frequency_comparison(report, output=0, input=0)
     _, renderer = _render(fig)
@@ -391,3 +451,28 @@ def test_frequency_comparison_shades_the_models_band_from_its_covariance(report)
     assert_allclose(top, 20 * np.log10(band.magnitude_high[:, 0, 0].max()), rtol=1e-9)
     plain = frequency_comparison(report, output=0, model=model)
     assert not [c for c in plain.axes[0].collections if "parameter covariance" in str(c.get_label())]
+
+
+def test_strip_figure_names_outliers_at_either_edge_in_full():
+    # Units flagged at the smallest and the largest value sit next to the panel's edges; their names
+    # must be drawn whole inside the panel, not clipped by it (common practice, no source).
+    from ident.plots.fleet import StripPanel, strip_figure
+
+    values = [22.08, 23.8, 23.9, 24.0, 24.1, 25.9]
+    names = ["AX-11-0003-long-serial", "a", "b", "c", "d", "AX-11-0017-long-serial"]
+    flagged = [True, False, False, False, False, True]
+    panel = StripPanel("mode 2 natural frequency", "Hz", values, names, flagged, 23.95, 0.1, 3.5)
+    ratio = dataclasses.replace(panel, title="mode 2 damping ratio", unit="")
+    fig = strip_figure([panel, panel, ratio], title="Mode 2")
+    _, renderer = _render(fig)
+    # every axis label names a unit, [-] when dimensionless (the house rule for figures)
+    assert [ax.get_xlabel() for ax in fig.axes if ax.get_visible()] == [
+        "mode 2 natural frequency [Hz]", "mode 2 natural frequency [Hz]", "mode 2 damping ratio [-]"]
+    for ax in fig.axes[:2]:
+        labels = [t for t in ax.texts if t.get_text().startswith("AX-11-")]
+        assert len(labels) == 2
+        box = ax.get_window_extent(renderer)
+        for label in labels:
+            text = label.get_window_extent(renderer)
+            # one pixel of slack for anti-aliasing/rounding (common practice, no source)
+            assert box.x0 - 1 <= text.x0 and text.x1 <= box.x1 + 1, label.get_text()

@@ -1,9 +1,11 @@
 """Every HTML page rigfit writes, in a real browser (headless Chromium).
 
-For each page: every figure is displayed (image loaded, non-zero size), no table or figure
-reaches beyond a 1280-pixel-wide window, and printing to PDF works with a page count in the
-expected range. A screenshot of each page is kept under ``test-artifacts/`` (ignored by git)
-for a person to look at; its path is printed.
+The pages: the run reports of the belt-axis demo (before, and after with drift) and the fleet
+report of a small generated fleet (``sample_data/fleet.py``). For each page: every figure is
+displayed (image loaded, non-zero size), no table or figure reaches beyond a 1280-pixel-wide
+window, no box holds content wider than itself (a table scrolled out of sight), and printing to
+PDF works with a page count in the expected range. A screenshot of each page is kept under
+``test-artifacts/`` (ignored by git) for a person to look at; its path is printed.
 
 Chromium is the Debian package ``chromium`` (``.ci/run`` installs it); where it is missing the
 tests are skipped with the reason.
@@ -12,6 +14,7 @@ tests are skipped with the reason.
 from __future__ import annotations
 
 import json
+import logging
 import re
 import shutil
 import subprocess
@@ -41,7 +44,7 @@ window.addEventListener("load", function () {
             right: r.right};
   });
   var wide = [];
-  document.querySelectorAll("table, figure, img, pre, section").forEach(function (el) {
+  document.querySelectorAll("table, figure, img, pre, section, div").forEach(function (el) {
     var r = el.getBoundingClientRect();
     if (r.right > width + 0.5 || el.scrollWidth > el.clientWidth + 1 && el.tagName !== "PRE") {
       wide.push({tag: el.tagName, right: r.right, scroll: el.scrollWidth, client: el.clientWidth,
@@ -92,14 +95,49 @@ def run_reports(tmp_path_factory) -> dict[str, Path]:
     return {"run_report_before": before.report_path, "run_report_after": after.report_path}
 
 
-@pytest.mark.parametrize("page_name", ["run_report_before", "run_report_after"])
-def test_page_in_a_real_browser(page_name, run_reports, tmp_path):
-    page = run_reports[page_name]
+@pytest.fixture(scope="module")
+def fleet_reports(tmp_path_factory) -> dict[str, Path]:
+    """The fleet report of six short generated units: one planted odd unit and one unreadable log.
+
+    The units are computed on an in-process Dask cluster (threads, no worker processes), which
+    starts in a fraction of a second; ``tests/test_fleet.py`` covers worker processes.
+    """
+    from distributed import LocalCluster
+    from fleets import FLEET, write_pipeline
+
+    from ident.fleet.run import run_fleet
+
+    d = tmp_path_factory.mktemp("fleet")
+    FLEET.write_fleet(d / "logs", 6, seed=11, plants={3: "low_resonance"}, samples=1500)
+    good = d / "logs" / "eol_0001.csv"
+    lines = good.read_text(encoding="utf-8").replace("AX-11-0001", "AX-11-0099").splitlines()
+    lines[40] = lines[40].rsplit(",", 1)[0] + ",12.5x"  # a failed unit: its row is in the report
+    (d / "logs" / "eol_0099.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=":0",
+                      silence_logs=logging.ERROR) as cluster:
+        result = run_fleet(write_pipeline(d, "logs/eol_0001.csv"), [str(d / "logs" / "eol_*.csv")],
+                           out_dir=d / "runs", scheduler=cluster.scheduler_address)
+    assert result.analysis.outliers and result.summary["failed"], "the page should show outliers and failures"
+    return {"fleet_report": result.report_path}
+
+
+#: Every page, the fixture that writes it, and the least number of figures it shows.
+PAGES = {
+    "run_report_before": ("run_reports", 5),
+    "run_report_after": ("run_reports", 5),
+    "fleet_report": ("fleet_reports", 3),  # a strip per fleet mode (two here), fits, DC gains
+}
+
+
+@pytest.mark.parametrize("page_name", list(PAGES))
+def test_page_in_a_real_browser(page_name, request, tmp_path):
+    fixture, min_figures = PAGES[page_name]
+    page = request.getfixturevalue(fixture)[page_name]
     html_text = page.read_text(encoding="utf-8")
     n_figures = html_text.count("<img ")
-    assert n_figures >= 5
+    assert n_figures >= min_figures
 
-    # every figure displayed, nothing wider than the window
+    # every figure displayed, nothing wider than the window or than its box
     probe = _probe(page, tmp_path)
     assert probe["width"] == WIDTH - 0 or probe["width"] <= WIDTH
     assert len(probe["images"]) == n_figures

@@ -36,7 +36,7 @@ class StripPanel:
     title : str
         Panel title, e.g. ``"mode 2 natural frequency"``.
     unit : str
-        Unit of measure for the axis label.
+        Unit of measure for the axis label (empty: dimensionless, shown as ``[-]``).
     values : sequence of float
         One value per unit (nan where a unit has none; not drawn).
     names : sequence of str
@@ -78,6 +78,13 @@ def _band(ax, panel: StripPanel) -> None:
     ax.set_xlim(x0, x1)
 
 
+def _label_alignment(ax, x: float) -> str:
+    """Align a unit's name so that it runs into the panel: near an edge it starts (or ends) at the dot."""
+    lo, hi = ax.get_xlim()
+    where = (x - lo) / (hi - lo)
+    return "left" if where < 0.25 else "right" if where > 0.75 else "center"
+
+
 def _panel(ax, panel: StripPanel) -> None:
     x = np.asarray(panel.values, dtype=float)
     flagged = np.asarray(panel.flagged, dtype=bool)
@@ -97,10 +104,10 @@ def _panel(ax, panel: StripPanel) -> None:
     _band(ax, panel)
     for k in odd[:MAX_LABELS]:
         ax.annotate(literal(str(panel.names[k])), (x[k], y[k]), xytext=(0, 7), textcoords="offset points",
-                    ha="center", fontsize=7.5, color=_ODD, clip_on=True)
+                    ha=_label_alignment(ax, x[k]), fontsize=7.5, color=_ODD, clip_on=True)
     ax.set_ylim(-0.85, 0.85)
     ax.set_yticks([])
-    label = f"{panel.title} [{panel.unit}]" if panel.unit else panel.title
+    label = f"{panel.title} [{panel.unit or '-'}]"  # [-]: dimensionless
     ax.set_xlabel(literal(label), fontsize=9)
     ax.tick_params(labelsize=8)
     for side in ("left", "right", "top"):

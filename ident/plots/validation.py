@@ -39,6 +39,10 @@ _LOWCOH = "#fbeee6"
 _MAX_POINTS = 20_000
 #: Samples shown in the zoomed window of :func:`output_comparison`.
 ZOOM_SAMPLES = 300
+#: Characters per line of a legend entry set beside a residual panel.
+_LEGEND_CHARS = 30
+#: Legend entry of the correlations outside their band.
+_OUTSIDE = "outside the band"
 
 
 def _new_figure(rows: int, cols: int = 1, *, width: float = 8.0, height: float = 2.4,
@@ -177,7 +181,7 @@ def _draw_correlation(ax: Any, c: Correlation, title: str, *, skip_zero: bool, s
     ax.vlines(t[~outside], 0.0, vals[~outside], colors=_SIM, lw=1.0)
     if outside.any():
         ax.vlines(t[outside], 0.0, vals[outside], colors=_BAD, lw=1.4)
-        ax.scatter(t[outside], vals[outside], s=10, c=_BAD, zorder=3, label="outside the band")
+        ax.scatter(t[outside], vals[outside], s=10, c=_BAD, zorder=3, label=_OUTSIDE)
     ax.set_title(title, fontsize=9, color=_INK, loc="left")
     ax.set_xlabel(label, fontsize=8)
     ax.set_ylabel("correlation [-]", fontsize=8)
@@ -189,7 +193,6 @@ def _draw_correlation(ax: Any, c: Correlation, title: str, *, skip_zero: bool, s
     top = ax.secondary_xaxis("top", functions=(lambda x: x / sample_time, lambda k: k * sample_time))
     top.tick_params(labelsize=7, colors="#7b8a97")
     top.set_xlabel("[samples]", fontsize=7, color="#7b8a97")
-    ax.legend(fontsize=7, frameon=False, loc="upper right" if skip_zero else "upper left")
     _style(ax)
 
 
@@ -207,7 +210,6 @@ def _draw_periodogram(ax: Any, cp: Any) -> None:
     ax.set_title(f"cumulative periodogram: {word}", fontsize=9, color=_INK, loc="left")
     ax.set_xlabel("frequency [Hz]", fontsize=8)
     ax.set_ylabel("share of the power [-]", fontsize=8)
-    ax.legend(fontsize=7, frameon=False, loc="upper left")
     _style(ax)
 
 
@@ -246,8 +248,9 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
     -------
     matplotlib.figure.Figure
         Lags in seconds (samples on the top axis) over the span the model's
-        settling time sets; the band and its level in each legend; values
-        outside the band in orange; the output's verdicts written at the top.
+        settling time sets; the band and its level in each legend, set beside
+        its panel, off the stems; values outside the band in orange; the
+        output's verdicts written at the top.
     """
     m = len(report.inputs)
     name = report.outputs[output]
@@ -268,8 +271,10 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
     span_text = "" if span is None else f", lags up to {span.lags * T:.4g} s ({span.lags} samples)"
     _draw_correlation(axes[0], w.autocorrelation, f"autocorrelation of the {shown} residuals{span_text}",
                       skip_zero=True, sample_time=T, label="lag [s]")
+    _legend_each_once(axes[0])
     if w.periodogram is not None:
         _draw_periodogram(axes[1], w.periodogram)
+        _legend_each_once(axes[1])
     else:
         axes[1].set_axis_off()
     for j in range(m):
@@ -277,8 +282,8 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
         how = literal(f"prewhitened {report.inputs[j]} (AR({order}))" if order else report.inputs[j])
         ax = axes[2 + j]
         raw = report.cross_correlation[output][j]
-        lag_label = ("lag [s]   (negative: the residual less what past inputs explain leads, feedback; "
-                     "positive: the input leads, missed dynamics)")
+        lag_label = ("lag [s]   (← negative: the residual less what past inputs explain leads, feedback;  "
+                     "positive: the input leads, missed dynamics →)")
         if report.feedback_correlation:
             fb = _half(report.feedback_correlation[output][j], True)
             _draw_correlation(ax, fb, f"{shown} residuals against {how}", skip_zero=False, sample_time=T,
@@ -289,11 +294,25 @@ def residual_correlations(report: ValidationReport, *, output: int = 0,
         else:
             _draw_correlation(ax, raw, f"{shown} residuals against {how}", skip_zero=False, sample_time=T,
                               label=lag_label)
-        ax.text(0.01, 0.03, "← feedback side", transform=ax.transAxes, fontsize=7, color="#7b8a97")
-        ax.text(0.99, 0.03, "input leads →", transform=ax.transAxes, fontsize=7, color="#7b8a97", ha="right")
+        _legend_each_once(ax)
     text, good = _residual_verdict_text(report, name)
     fig.suptitle(text, fontsize=9, color=_GOOD if good else _BAD, x=0.01, ha="left")
     return fig
+
+
+def _legend_each_once(ax: Any) -> None:
+    """Put the legend beside the axes, off the stems, each label once and wrapped into a narrow column.
+
+    Both halves of a split lag axis mark their values outside the band; the legend names that once,
+    after the bands.
+    """
+    import textwrap
+
+    first: dict[str, Any] = {}
+    for handle, text in zip(*ax.get_legend_handles_labels(), strict=True):
+        first.setdefault(text, handle)
+    texts = sorted(first, key=lambda text: text == _OUTSIDE)
+    _legend_beside(ax, [first[t] for t in texts], [textwrap.fill(t, _LEGEND_CHARS) for t in texts])
 
 
 def _magnitude_band(H: np.ndarray, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
