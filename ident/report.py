@@ -59,7 +59,10 @@ def _num(x: Any, spec: str = ".4g", none: str = "–") -> str:
 
 
 def _pct(x: Any) -> str:
-    return _num(x, ".1f", none="diverged") + (" %" if x is not None else "")
+    """Format a fit percent: ``diverged`` for none or for a simulation that ran away (below -1e6 %)."""
+    if x is None or (isinstance(x, (int, float)) and x <= -1e6):
+        return "diverged"
+    return _num(x, ".1f") + " %"
 
 
 def _table(headers: Sequence[Any], rows: Iterable[Sequence[Any]], *, cls: str = "") -> _Raw:
@@ -330,7 +333,8 @@ def _periodic(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     if model:
         parts.append(_p("Model error against the measured noise floor at the lines: "
                         + ", ".join(f"{k} {_num(v, '+.1f')} dB" for k, v in model["error_to_noise_db"].items())
-                        + " (near 0 dB: the model explains the data down to the noise)."))
+                        + " (0 dB: the error is at the noise level, the best a model can do; +10 dB: ten times the "
+                        "noise power, the model misses part of the response)."))
     for d in per.get("distortion") or []:
         bits = [f"{kind} {_num(d[kind + '_db'], '.1f') + ' dB' if d[kind + '_db'] is not None else 'below the noise'}"
                 f" ({'detected' if d[kind + '_detected'] else 'not detected'})"

@@ -422,3 +422,12 @@ def test_fit_reports_a_periodic_input(run_cli, tmp_path):
     none = json.loads(run_cli("fit", path, "--input", "valve", "--output", "flow", "--max-order", "3",
                               "--period", "none", "--json", "--quiet").stdout)
     assert none["periodic"] is None
+
+
+def test_a_diverged_candidate_reads_diverged_in_the_tables():
+    # a simulation that ran away scores a fit like -1e140 %: printed as a word, not 140 digits
+    from ident.cli.fit_cmd import _fit_cell
+    from ident.report import _pct
+
+    assert _fit_cell(-1e140) == "diverged" and _pct(-1e140) == "diverged" and _pct(None) == "diverged"
+    assert _fit_cell(87.654).strip() == "87.65" and _pct(87.654) == "87.7 %"

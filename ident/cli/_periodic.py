@@ -62,7 +62,8 @@ def periodic_lines(summary: dict[str, Any] | None) -> list[str]:
     if model is not None:
         ratio = ", ".join(f"{k} {_db(v)}" for k, v in model["error_to_noise_db"].items())
         lines.append(f"  model error against the measured noise floor at the lines: {ratio} "
-                     "(near 0 dB: the model explains the data down to the noise)")
+                     "(0 dB: the error is at the noise level, the best a model can do; +10 dB: ten times the noise "
+                     "power, the model misses part of the response)")
     for d in s["distortion"] or []:
         parts = []
         for kind in ("odd", "even"):

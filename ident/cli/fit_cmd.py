@@ -523,6 +523,11 @@ def _fmt_fit(value: float) -> str:
     return f"{value:7.2f} %" if value > -1e6 else "   diverged"
 
 
+def _fit_cell(value: float) -> str:
+    """Format a candidate's held-out fit for a table cell: ``diverged`` for a simulation that ran away."""
+    return f"{value:7.2f}" if value > -1e6 else "diverged"
+
+
 def _candidate_lines(result) -> list[str]:
     """List the refined candidates with their starts, after a count of the direct estimates."""
     cands = list(result.candidates)
@@ -548,17 +553,17 @@ def _candidate_lines(result) -> list[str]:
     for c in rows:
         k = cands.index(c)
         start = cands[c.structure["refined_from"]] if c.stage == "refined" else None
-        before = f"{start.mean_fit:7.2f} -> " if start is not None else ""
+        before = f"{_fit_cell(start.mean_fit)} -> " if start is not None else ""
         mark = "  <- selected" if c.selected else ""
         crit = ""
         if with_criteria:
             crit = (f"{c.criteria.aic:>11.5g}{c.criteria.bic:>11.5g}{c.criteria.fpe:>12.5g}  "
                     if c.criteria is not None else f"{'-':>11}{'-':>11}{'-':>12}  ")
             lines.append(f"  {k:>4}  {_describe(c):<{wide}}{c.n_states:>6} {c.n_parameters:>6}{crit}"
-                         f"{c.mean_fit:5.2f}{mark}")
+                         f"{_fit_cell(c.mean_fit)}{mark}")
             continue
         lines.append(f"  {k:>4}  {_describe(c):<{wide}}{c.n_states:>3} states {c.n_parameters:>4} params  "
-                     f"{before}{c.mean_fit:7.2f}{mark}")
+                     f"{before}{_fit_cell(c.mean_fit)}{mark}")
     if result.best_by:
         chosen = next(k for k, c in enumerate(cands) if c.selected)
         prefs = ", ".join(f"{name.upper()} -> #{k}" for name, k in result.best_by.items())
