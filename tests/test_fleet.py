@@ -16,6 +16,7 @@ import pyarrow.parquet as pq
 import pytest
 from fleets import FLEET, write_pipeline
 
+from ident.errors import IdentError
 from ident.fleet.aggregate import FIXED_COLUMNS
 from ident.fleet.run import run_fleet
 from ident.fleet.units import UnitJob, evaluate_unit, settings_hash
@@ -202,6 +203,15 @@ def test_resume_after_a_kill_redoes_nothing_finished(tmp_path, fleet_dir, cluste
     # a second resume finds everything done and starts no engine at all
     again = run_fleet(pipeline, [pattern], resume=folder, scheduler="tcp://127.0.0.1:9")
     assert again.reused == n and again.computed == 0
+    # resuming with other settings would replace every unit's results: refused, nothing touched
+    other = pipeline.with_name("other.toml")
+    text = pipeline.read_text(encoding="utf-8")
+    assert "max_order = 6" in text  # tests/fleets.py
+    other.write_text(text.replace("max_order = 6", "max_order = 5"), encoding="utf-8")
+    before = {p: p.read_bytes() for p in folder.rglob("*") if p.is_file()}
+    with pytest.raises(IdentError, match="made with other pipeline settings"):
+        run_fleet(other, [pattern], resume=folder, scheduler="tcp://127.0.0.1:9")
+    assert {p: p.read_bytes() for p in folder.rglob("*") if p.is_file()} == before
 
 
 def test_embedded_cluster_from_the_command_line(tmp_path, fleet_dir, run_cli):

@@ -118,6 +118,15 @@ def _open_folder(spec: PipelineSpec, digest: str, logs: Sequence[Path], out_dir:
         if not (folder / RUN_MARKER).is_file():
             raise IdentError(f"{folder}: not a fleet run folder (no {RUN_MARKER})",
                              hint="give the folder an earlier 'rigfit fleet' run created")
+        try:
+            made_with = json.loads((folder / RUN_MARKER).read_text(encoding="utf-8")).get("settings_hash")
+        except (OSError, ValueError, AttributeError):
+            made_with = None
+        if made_with != digest:  # resuming would recompute every unit and replace the folder's results
+            raise IdentError(f"{folder}: this fleet run was made with other pipeline settings; resuming it with "
+                             "these would replace every unit's results",
+                             hint="start a new run (--out), or resume with the pipeline file the run used "
+                                  f"(a copy is in {folder / 'pipeline.toml'})")
         return folder
     parent = Path(out_dir) if out_dir is not None else spec.base_dir / "runs"
     if parent.exists() and not parent.is_dir():
