@@ -71,3 +71,18 @@ def test_fit_help_texts_are_whole_sentences():
         assert text.endswith("."), (p.name, text)
         # and has a verb: the first word is not a bare noun phrase like "Largest order tried"
         assert not re.match(r"^(Largest|Fraction|Model|Subspace|Input|Output|Time|No) ", text), (p.name, text)
+
+
+def test_a_reader_that_stops_early_ends_the_command_quietly():
+    # `rigfit inspect LOG | true`: the reader closes the pipe before rigfit writes; the command stops
+    # with status 0 and prints nothing on stderr (common practice, no source)
+    from pathlib import Path
+
+    log = Path(__file__).resolve().parents[1] / "sample_data" / "belt_axis_before.csv"
+    proc = subprocess.Popen([sys.executable, "-m", "ident", "inspect", str(log)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc.stdout.close()
+    err = proc.stderr.read()
+    proc.stderr.close()
+    assert proc.wait(timeout=300) == 0, err
+    assert err == b""

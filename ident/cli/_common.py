@@ -85,11 +85,18 @@ def run_guarded(command: click.Command, argv: list[str] | None = None) -> int:
     debug = "--debug" in args
     old_show = warnings.showwarning
     warnings.showwarning = _show_warning
+    streams = (sys.stdout, sys.stderr)
     try:
         command.main(args=args, prog_name="rigfit", standalone_mode=False)
         return EXIT_OK
     except click.exceptions.Exit as exc:
         return exc.exit_code
+    except SystemExit:
+        if sys.stdout is not streams[0]:  # click met a closed stdout pipe: it swapped the streams, then exit(1)
+            sys.stdout, sys.stderr = streams
+            _silence_stdout()
+            return EXIT_OK
+        raise
     except click.Abort as exc:
         if isinstance(exc.__context__, KeyboardInterrupt):  # Ctrl-C while click parsed the options
             click.echo("interrupted", err=True)
@@ -112,6 +119,9 @@ def run_guarded(command: click.Command, argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)
         return EXIT_INTERRUPTED
+    except BrokenPipeError:  # the reader of stdout went away (`rigfit ... | head`): stop quietly
+        _silence_stdout()
+        return EXIT_OK
     except Exception as exc:  # internal error: short message, traceback on --debug
         if debug:
             traceback.print_exc()
@@ -123,6 +133,17 @@ def run_guarded(command: click.Command, argv: list[str] | None = None) -> int:
         return EXIT_INTERNAL
     finally:
         warnings.showwarning = old_show
+
+
+def _silence_stdout() -> None:
+    """Point stdout at the null device, so the interpreter's last flush finds no closed pipe."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
 
 
 def echo_json(payload: Any) -> None:
