@@ -8,6 +8,7 @@ from typing import Any
 import numpy as np
 
 from ..assess.modes import ModeTable
+from ..display import shows_as_integrator
 from ._text import literal
 
 __all__ = ["pole_zero_map"]
@@ -71,7 +72,7 @@ def pole_label(mode: Any, nyquist_hz: float) -> str | None:
         return text
     if mode.s is None:
         return f"z = {mode.z.real:.3g}"
-    if "integrator" in mode.flags:
+    if "integrator" in mode.flags or shows_as_integrator(mode.z):
         return "integrator"
     if mode.time_constant_s is not None:
         return f"τ {mode.time_constant_s:.3g} s"
