@@ -19,10 +19,38 @@ import math
 from collections.abc import Sequence
 from typing import Any
 
-__all__ = ["transfer_function_text", "state_space_text", "modes_text", "mode_rows", "root_rows", "ratio_unit"]
+__all__ = [
+    "transfer_function_text", "state_space_text", "modes_text", "mode_rows", "root_rows", "ratio_unit",
+    "INTEGRATOR_DISTANCE", "shows_as_integrator",
+]
 
 #: Roots whose imaginary part is below this fraction of ``max(1, |root|)`` are real.
 _REAL_RTOL = 1e-9
+
+#: A discrete pole within this distance of z = 1 is shown as an integrator, with no time constant.
+#: The refinement keeps every pole inside |z| < 1 - 1e-9 (``ident.estimate.sensitivity.STABLE_RADIUS``)
+#: and leaves a pole it cannot tell from an integrator just inside that boundary; eigenvalue and
+#: polynomial-root rounding move it a further 1e-16 to 1e-13 (1 - 1.00000008e-9 on the heating-system
+#: record, at T = 2 s a "time constant" of 2e9 s). A time constant of 5e8 samples or more is a figure of
+#: that boundary and of rounding, not of the rig.
+INTEGRATOR_DISTANCE = 2e-9
+
+
+def shows_as_integrator(z: complex) -> bool:
+    """Tell whether a discrete pole is displayed as an integrator (within :data:`INTEGRATOR_DISTANCE` of 1).
+
+    Parameters
+    ----------
+    z : complex
+        Pole in the z-plane.
+
+    Returns
+    -------
+    bool
+        ``True`` when ``|z - 1| <= INTEGRATOR_DISTANCE``; the displays then
+        show ``-`` for its time constant and call it an integrator.
+    """
+    return abs(complex(z) - 1.0) <= INTEGRATOR_DISTANCE
 
 
 def _num(value: float | None, fmt: str = ".4g") -> str:
@@ -89,7 +117,10 @@ def root_rows(roots: Any, sample_time: float | None) -> list[dict[str, Any]]:
         part), ``pair`` (bool), ``magnitude``, ``frequency_hz``,
         ``damping_ratio`` (pairs only), ``time_constant_s`` (real stable roots
         and pairs) and ``note`` (``"integrator"``, ``"at z = 0"``, ``"no
-        continuous equivalent"`` or ``""``). Roots are sorted by magnitude.
+        continuous equivalent"`` or ``""``). Roots are sorted by magnitude. A
+        discrete root within :data:`INTEGRATOR_DISTANCE` of z = 1 (a
+        continuous one within 1e-12 of s = 0) is an ``"integrator"``, with no
+        time constant.
 
     Notes
     -----
@@ -108,6 +139,10 @@ def root_rows(roots: Any, sample_time: float | None) -> list[dict[str, Any]]:
         row: dict[str, Any] = {"root": complex(r), "pair": bool(pair), "magnitude": float(abs(r)),
                                "frequency_hz": None, "damping_ratio": None, "time_constant_s": None, "note": ""}
         if sample_time is not None:
+            if shows_as_integrator(r):
+                row["note"] = "integrator"
+                rows.append(row)
+                continue
             if abs(r) == 0.0:
                 row["note"] = "at z = 0"
                 rows.append(row)
@@ -119,7 +154,7 @@ def root_rows(roots: Any, sample_time: float | None) -> list[dict[str, Any]]:
             s = complex(np.log(complex(r))) / sample_time
         else:
             s = complex(r)
-        if abs(s) <= 1e-12 * (1.0 / sample_time if sample_time else 1.0):
+        if sample_time is None and abs(s) <= 1e-12:
             row["note"] = "integrator"
         elif pair:
             row["frequency_hz"] = abs(s) / (2 * math.pi)
@@ -144,9 +179,11 @@ def _channel_lines(num: Any, den: Any, sample_time: float | None, gain_unit: str
     rows = []
     for kind, roots in (("zero", zeros), ("pole", poles)):
         for r in root_rows(roots, sample_time):
+            # a zero where a pole would be an integrator blocks the DC component: a differentiator
+            note = "differentiator" if kind == "zero" and r["note"] == "integrator" else r["note"]
             rows.append((
                 kind + (" pair" if r["pair"] else ""), _complex_text(r["root"]), f"{r['magnitude']:.4g}",
-                _num(r["frequency_hz"]), _num(r["damping_ratio"], ".3g"), _num(r["time_constant_s"]), r["note"],
+                _num(r["frequency_hz"]), _num(r["damping_ratio"], ".3g"), _num(r["time_constant_s"]), note,
             ))
     if rows:
         lines += ["  " + ln for ln in _columns(header, rows, right={2, 3, 4, 5})]
@@ -235,7 +272,7 @@ def state_space_text(model: Any) -> str:
 
 
 def _kind(m: Any) -> str:
-    if "integrator" in m.flags:
+    if "integrator" in m.flags or shows_as_integrator(m.z):
         return "integrator"
     return "oscillation" if m.is_pair else "real"
 
@@ -255,16 +292,21 @@ def mode_rows(table: Any) -> list[dict[str, Any]]:
         oscillation; ``None`` for a real mode), ``frequency_std_hz``,
         ``damping_ratio`` and ``damping_ratio_std`` (oscillations),
         ``time_constant_s``, ``time_constant_std_s``, ``period_s`` and ``flags``.
+        A pole within :data:`INTEGRATOR_DISTANCE` of z = 1 is an integrator
+        with no time constant (``None``; the mode table keeps the figure
+        ``-T / ln|z|``, which there only measures rounding).
     """
     rows = []
     for k, m in enumerate(table.modes, start=1):
+        at_one = shows_as_integrator(m.z)
         rows.append({
             "mode": k, "kind": _kind(m),
             "frequency_hz": m.natural_frequency_hz if m.is_pair else None,
             "frequency_std_hz": m.natural_frequency_std_hz if m.is_pair else None,
             "damping_ratio": m.damping_ratio if m.is_pair else None,
             "damping_ratio_std": m.damping_ratio_std if m.is_pair else None,
-            "time_constant_s": m.time_constant_s, "time_constant_std_s": m.time_constant_std_s,
+            "time_constant_s": None if at_one else m.time_constant_s,
+            "time_constant_std_s": None if at_one else m.time_constant_std_s,
             "period_s": m.period_s, "flags": tuple(m.flags),
         })
     return rows

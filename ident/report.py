@@ -28,6 +28,8 @@ import re
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
+from .display import shows_as_integrator
+
 __all__ = ["render_report", "html_fragment", "modes_html", "validation_html", "table_html"]
 
 
@@ -362,6 +364,16 @@ def _complex_text(value: Any, *, pair: bool = False) -> str:
     return _num(value)
 
 
+def _at_one(value: Any) -> bool:
+    """Tell whether ``[re, im]`` (as in summary.json) is a pole the displays call an integrator."""
+    if isinstance(value, Sequence) and not isinstance(value, str) and len(value) == 2:
+        try:
+            return shows_as_integrator(complex(float(value[0]), float(value[1])))
+        except (TypeError, ValueError):
+            return False
+    return False
+
+
 def _pm(std: float | None) -> str:
     """`` ± std`` (two significant digits), or nothing when unknown."""
     return "" if std is None else f" ± {std:.2g}"
@@ -372,15 +384,16 @@ def _modes(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     rows = []
     for k, m in enumerate(t["modes"], start=1):
         pair = bool(m["is_pair"])
-        kind = "integrator" if "integrator" in m["flags"] else ("oscillation" if pair else "real")
+        at_one = _at_one(m.get("z"))
+        kind = "integrator" if "integrator" in m["flags"] or at_one else ("oscillation" if pair else "real")
         if m["multiplicity"] > 1:
             kind += f" ×{m['multiplicity']}"
         rows.append((k, kind, _num(m["natural_frequency_hz"] if pair else None)
                      + _pm(m.get("natural_frequency_std_hz") if pair else None),
                      _num(m["damping_ratio"] if pair else None, ".3g")
                      + _pm(m.get("damping_ratio_std") if pair else None),
-                     _num(m["time_constant_s"]) + _pm(m.get("time_constant_std_s")), _num(m.get("period_s")),
-                     (", ".join(m["flags"]) or "–", "bad" if m["flags"] else ""),
+                     _num(None) if at_one else _num(m["time_constant_s"]) + _pm(m.get("time_constant_std_s")),
+                     _num(m.get("period_s")), (", ".join(m["flags"]) or "–", "bad" if m["flags"] else ""),
                      _complex_text(m.get("z"), pair=pair)))
     parts = [
         _p(f"{t['n_states']} states, sample time {_num(t['sample_time'])} s. Frequency and damping ratio of each "

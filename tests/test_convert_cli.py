@@ -157,3 +157,22 @@ def test_readable_ss_shows_operating_point(run_cli, zoh_example):
 def test_method_refused_where_it_does_not_apply(run_cli, zoh_example):
     r = run_cli("convert", zoh_example, "--to", "tf", "--method", "tustin")
     assert r.exit_code == 2 and "--method applies only" in r.stderr
+
+
+def test_tf_pole_table_shows_a_pole_at_the_stability_boundary_as_an_integrator(run_cli, tmp_path):
+    # poles at |z| = STABLE_RADIUS = 1 - 1e-9 (where the refinement holds a pole it cannot tell from an
+    # integrator) and 0.5, a zero at z = 1, T = 2 s (invented). -T / ln z of the first would be
+    # 2 / 1e-9 = 2e9 s (closed form): a figure of rounding, shown as "-" with the note "integrator";
+    # the zero at z = 1 blocks the DC component (a differentiator)
+    from ident.estimate.sensitivity import STABLE_RADIUS
+
+    A, B, C, D = signal.tf2ss([1.0, -1.0], np.poly([STABLE_RADIUS, 0.5]))
+    path = save_model(tmp_path / "boundary.json", StateSpaceModel(A, B, C, D, sample_time=2.0, inputs=("u",),
+                                                                   outputs=("y",)))
+    out = run_cli("convert", path, "--to", "tf").stdout
+    assert "2e+09" not in out
+    rows = [ln.split() for ln in out.splitlines() if ln.strip().startswith(("pole", "zero"))]
+    # -T / ln 0.5 = 2.885 s (closed form)
+    assert rows == [["zero", "1", "1", "-", "-", "-", "differentiator"],
+                    ["pole", "0.5", "0.5", "-", "-", "2.885"],
+                    ["pole", "1", "1", "-", "-", "-", "integrator"]]

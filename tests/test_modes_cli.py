@@ -272,3 +272,53 @@ def test_unknown_log_duration_is_reported_on_stderr(run_cli, clean_file):
     assert "slow_for_log not checked" not in result.stdout
     known = run_cli("modes", clean_file, "--log-duration", "30")
     assert "slow_for_log not checked" not in known.stderr
+
+
+def _integrator_model() -> StateSpaceModel:
+    # T = 2 s; a pole where the refinement holds one it cannot tell from an integrator
+    # (|z| = STABLE_RADIUS = 1 - 1e-9; in floating point 1 - 1.00000008e-9, as on the heating-system
+    # record), a pole at 1 - 1e-4 (a slow but real time constant) and one at 0.5 (invented plant)
+    from ident.estimate.sensitivity import STABLE_RADIUS
+
+    A = np.diag([STABLE_RADIUS, 1.0 - 1e-4, 0.5])
+    return StateSpaceModel(A=A, B=np.ones((3, 1)), C=np.ones((1, 3)), D=np.zeros((1, 1)), sample_time=2.0,
+                           inputs=["drive"], outputs=["plate_temp"])
+
+
+def _main_rows(out: str) -> list[list[str]]:
+    """Cells of the main mode table (mark, #, kind, frequency, damping, time constant, period, flags)."""
+    import re
+
+    lines = out.splitlines()
+    start = next(k for k, ln in enumerate(lines) if "time constant [s]" in ln) + 1
+    body = lines[start:lines.index("", start)]
+    return [[ln[:1].strip()] + re.split(r"\s{2,}", ln[1:].strip()) for ln in body]
+
+
+def test_a_pole_at_the_stability_boundary_is_shown_as_an_integrator(run_cli, tmp_path):
+    from ident.assess.modes import mode_table, mode_table_to_dict
+    from ident.display import mode_rows
+    from ident.report import modes_html
+
+    path = tmp_path / "boundary.json"
+    save_model(path, _integrator_model())
+    out = run_cli("modes", path, "--log-duration", "1600").stdout
+    rows = {cells[1]: cells for cells in _main_rows(out)}
+    # mode 1: -T / ln z would be 2 / 1.00000008e-9 = 2e9 s (closed form), a figure of rounding: shown as "-"
+    assert rows["1"][2] == "integrator" and rows["1"][5] == "-"
+    assert "2e+09" not in out
+    # mode 2: 1 - 1e-4 carries the integrator flag (within 1e-3 of 1) but keeps its time constant,
+    # -T / ln(1 - 1e-4) = 19999 s (closed form, 4 digits)
+    assert rows["2"][2] == "integrator" and rows["2"][5] == "2e+04"
+    # the JSON keeps the number -T / ln|z| of the pole as stored (closed form, to rounding of ln)
+    data = json.loads(run_cli("modes", path, "--json").stdout)
+    (boundary,) = [m for m in data["modes"] if 1.0 - m["z"][0] < 1e-8]
+    assert_allclose(boundary["time_constant_s"], 2.0 / 1.000000082740371e-09, rtol=1e-6)
+    # the API's table and the report's table show it the same way as the text
+    table = mode_table(_integrator_model())
+    first_row = mode_rows(table)[0]
+    assert first_row["kind"] == "integrator" and first_row["time_constant_s"] is None
+    assert first_row["time_constant_std_s"] is None
+    assert mode_rows(table)[1]["time_constant_s"] == pytest.approx(-2.0 / math.log1p(-1e-4), rel=1e-12)
+    html_rows = modes_html(mode_table_to_dict(table) | {"units": {"inputs": ["V"], "outputs": ["degC"]}})
+    assert "2e+09" not in html_rows and "1.999e+09" not in html_rows

@@ -224,6 +224,59 @@ def _no_overlap(boxes):
             assert not boxes[i].overlaps(boxes[j])
 
 
+def _marker_boxes(ax):
+    """Display boxes of the pole and zero markers in view, as drawn, with one point of clearance.
+
+    A marker of size s (points^2) is sqrt(s) points across (matplotlib's scatter), plus half its line
+    width; the point of clearance keeps a label from touching it (common practice, no source).
+    """
+    from matplotlib.collections import PathCollection
+    from matplotlib.transforms import Bbox
+
+    boxes = []
+    x0, x1 = ax.get_xlim()
+    y0, y1 = ax.get_ylim()
+    for coll in [c for c in ax.collections if isinstance(c, PathCollection)]:
+        half = (math.sqrt(coll.get_sizes()[0]) / 2 + coll.get_linewidths()[0] / 2 + 1.0) * ax.figure.dpi / 72
+        for x, y in coll.get_offsets():
+            if x0 <= x <= x1 and y0 <= y <= y1:
+                px, py = ax.transData.transform((x, y))
+                boxes.append(Bbox.from_extents(px - half, py - half, px + half, py + half))
+    return boxes
+
+
+def _check_pole_map_labels(fig, renderer):
+    """Every pole label inside the figure, clear of the other labels and of every pole and zero marker."""
+    for axis in fig.axes:
+        labels = _pole_labels(axis)
+        boxes = [t.get_window_extent(renderer) for t in labels]
+        for t, box in zip(labels, boxes, strict=True):
+            assert _inside(fig, renderer, t), t.get_text()
+            covered = [m for m in _marker_boxes(axis) if box.overlaps(m)]
+            assert not covered, f"label {t.get_text()!r} covers {len(covered)} marker(s)"
+        _no_overlap(boxes)
+        assert _inside(fig, renderer, axis._left_title), axis.get_title(loc="left")
+
+
+def _zoomed_poles_apart(zoom, poles):
+    """The markers of ``poles`` (upper half plane) on ``zoom`` are all in view and at least one marker apart."""
+    x0, x1 = zoom.get_xlim()
+    y0, y1 = zoom.get_ylim()
+    assert all(x0 <= p.real <= x1 and y0 <= p.imag <= y1 for p in poles)
+    px = [zoom.transData.transform((p.real, p.imag)) for p in poles]
+    across = math.sqrt(60) * zoom.figure.dpi / 72  # the cross is sqrt(s) points wide (s = 60, matplotlib)
+    gaps = [math.dist(a, b) for i, a in enumerate(px) for b in px[i + 1:]]
+    assert min(gaps) >= across, gaps
+
+
+def _shows_z1_and_the_circle(zoom) -> bool:
+    x0, x1 = zoom.get_xlim()
+    y0, y1 = zoom.get_ylim()
+    theta = np.linspace(0, math.pi / 2, 20001)
+    arc = [(math.cos(t), math.sin(t)) for t in theta if x0 <= math.cos(t) <= x1 and y0 <= math.sin(t) <= y1]
+    return x0 < 1.0 < x1 and y0 <= 0.0 <= y1 and len(arc) > 1
+
+
 def test_pole_map_lists_zeros_outside_the_view_and_keeps_labels_inside():
     table = mode_table(_far_zero_model())
     fig = pole_zero_map(table)
@@ -236,19 +289,105 @@ def test_pole_map_lists_zeros_outside_the_view_and_keeps_labels_inside():
     assert len(fig.axes) == 2 and _png_size(data) == (1280, 640)  # figsize 12.8 x 6.4 in at 100 dpi
     zoom = fig.axes[1]
     x0, x1 = zoom.get_xlim()
-    assert 0.9 < x0 < 0.92 and 0.99 < x1 < 1.05
+    # 0.99 lies closer to the unit circle than the cluster is wide: the zoom reaches on to z = 1
+    assert 0.89 < x0 < 0.92 and 1.0 < x1 < 1.05 and _shows_z1_and_the_circle(zoom)
+    assert zoom.get_title(loc="left") == "zoom on the 3 crowded poles near z = 1"
+    _check_pole_map_labels(fig, renderer)
     for axis in fig.axes:
-        labels = _pole_labels(axis)
-        for t in labels:
-            assert _inside(fig, renderer, t), t.get_text()
-            # real poles are labelled with their time constant, never a frequency: with T = 5 s the
-            # Nyquist frequency is 0.1 Hz, and a real pole's corner frequency can lie above it
-            assert not t.get_text().endswith("Hz")
-        _no_overlap([t.get_window_extent(renderer) for t in labels])
+        # real poles are labelled with their time constant, never a frequency: with T = 5 s the
+        # Nyquist frequency is 0.1 Hz, and a real pole's corner frequency can lie above it
+        assert not any(t.get_text().endswith("Hz") for t in _pole_labels(axis))
     zoom_texts = {t.get_text() for t in _pole_labels(zoom)}
     # tau = -T / ln z (closed form): 0.99 -> 497.5 s, 0.94 -> 80.81 s, 0.92 -> 59.97 s
     assert zoom_texts == {"τ 497 s", "τ 80.8 s", "τ 60 s"}
     assert {t.get_text() for t in _pole_labels(ax)} == {"z = -0.3"}  # the crowded ones only in the zoom
+    _zoomed_poles_apart(zoom, [0.99, 0.94, 0.92])
+
+
+def _platen_model() -> StateSpaceModel:
+    # Poles and zeros of the demo's heated platen model (two heaters, two zones; one channel here), T = 5 s,
+    # rounded to 4 digits: slow poles 0.9874, 0.9359, 0.9192 (time constants 396, 75.5, 59.3 s), a pair of
+    # fitted poles on the negative real axis at -0.2454 and -0.2215, zeros -0.5866, -0.5323, 0.9705 and
+    # two far outside the circle
+    zeros = np.array([-0.5866, -0.5323, 0.9705, 39.83, 49.31])
+    poles = np.array([0.9874, 0.9359, 0.9192, -0.2454, -0.2215])
+    A, B, C, D = signal.zpk2ss(zeros, poles, 1e-3)
+    return StateSpaceModel(A=A, B=B, C=C, D=D, sample_time=5.0, inputs=["heater_1_duty"], outputs=["zone_1_temp"])
+
+
+def test_pole_map_zooms_on_each_crowded_cluster_apart():
+    fig = pole_zero_map(mode_table(_platen_model()))
+    data, renderer = _render(fig)
+    assert len(fig.axes) == 3 and _png_size(data) == (1000, 640)  # figsize 10 x 6.4 in at 100 dpi
+    ax, slow, negative = fig.axes
+    # each zoom frames its own cluster: the slow poles apart from one another, the zero at 0.9705 between
+    # them uncovered, z = 1 and the unit circle in view (0.9874 is closer to it than the cluster is wide)
+    _zoomed_poles_apart(slow, [0.9874, 0.9359, 0.9192])
+    assert slow.get_xlim()[0] > 0.85 and _shows_z1_and_the_circle(slow)
+    assert slow.get_title(loc="left") == "zoom A: 3 crowded poles\nnear z = 1"
+    _zoomed_poles_apart(negative, [-0.2454, -0.2215])
+    x0, x1 = negative.get_xlim()
+    assert -0.3 < x0 and x1 < -0.15  # the negative pair alone, not the span from it to the slow poles
+    # centre of the pair: (-0.2454 - 0.2215) / 2 = -0.23345 (3 digits)
+    assert negative.get_title(loc="left") == "zoom B: 2 crowded poles\nnear z = -0.233"
+    # tau = -T / ln z (closed form): 0.9874 -> 394.3 s, 0.9359 -> 75.48 s, 0.9192 -> 59.35 s
+    assert {t.get_text() for t in _pole_labels(slow)} == {"τ 394 s", "τ 75.5 s", "τ 59.3 s"}
+    # z to 3 digits; -0.2215 is stored as -0.22149999... (binary), so "-0.221"
+    assert {t.get_text() for t in _pole_labels(negative)} == {"z = -0.245", "z = -0.221"}
+    assert _pole_labels(ax) == []  # every pole is crowded: each labelled in its zoom only
+    _check_pole_map_labels(fig, renderer)
+    # both zooms are framed and tagged on the full map
+    assert sorted(t.get_text() for t in ax.texts if t.get_text() in ("A", "B")) == ["A", "B"]
+
+
+def _modal_model(poles, sample_time: float) -> StateSpaceModel:
+    # real modal form, one 2 x 2 rotation block per pair (listed by its upper member), so the poles are exact
+    from scipy.linalg import block_diag
+
+    blocks = [np.array([[p.real, p.imag], [-p.imag, p.real]]) if isinstance(p, complex) else np.array([[p]])
+              for p in poles]
+    A = block_diag(*blocks)
+    n = A.shape[0]
+    return StateSpaceModel(A=A, B=np.ones((n, 1)), C=np.ones((1, n)), D=np.zeros((1, 1)), sample_time=sample_time,
+                           inputs=["u"], outputs=["y"])
+
+
+def test_pole_map_zoom_away_from_z1_says_where_it_looks():
+    # two lightly damped pairs at 0.68 + 0.72j and 0.69 + 0.712j (about 129 Hz at T = 1 ms) and a real pole
+    # at 0.3 (invented): the zoom is on the pairs, far from z = 1
+    pairs = [complex(0.68, 0.72), complex(0.69, 0.712)]
+    fig = pole_zero_map(mode_table(_modal_model([*pairs, 0.3], 1e-3)))
+    _, renderer = _render(fig)
+    assert len(fig.axes) == 2
+    zoom = fig.axes[1]
+    # the centre of the two upper members: 0.685 + 0.716j
+    assert zoom.get_title(loc="left") == "zoom on the 2 crowded poles near z = 0.685 ± 0.716j"
+    x0, x1 = zoom.get_xlim()
+    assert x1 < 1.0 and x1 - x0 < 0.05
+    _zoomed_poles_apart(zoom, pairs)
+    # s = ln(z) / T, f = |s| / 2 pi, zeta = -Re s / |s| (closed form): 129.6 Hz, 0.0119 and 127.5 Hz, 0.0107
+    assert {t.get_text() for t in _pole_labels(zoom)} == {"130 Hz, ζ 0.012", "128 Hz, ζ 0.011"}
+    _check_pole_map_labels(fig, renderer)
+
+
+def test_pole_map_zoom_shows_z1_and_the_circle_for_a_pole_flagged_uncertain_stability():
+    # real poles 0.91 and 0.90 (T = 0.1 s, invented) crowd, 0.09 from the unit circle, far more than they
+    # are apart (0.01): the zoom alone would leave z = 1 out. With a standard deviation of 0.05 per axis,
+    # the 95 % region of 0.91 (radius sqrt(-2 ln 0.05) * 0.05 = 0.122, closed form) crosses the circle
+    model = _modal_model([0.91, 0.90, -0.5], 0.1)
+    plain = pole_zero_map(mode_table(model))
+    assert not _shows_z1_and_the_circle(plain.axes[1])
+    assert plain.axes[1].get_title(loc="left") == "zoom on the 2 crowded poles near z = 0.905"
+    cov = np.array([np.eye(2) * 0.05**2, np.eye(2) * 1e-8, np.eye(2) * 1e-8])
+    table = mode_table(model, pole_covariance=cov)
+    assert "uncertain_stability" in table.modes[0].flags + table.modes[1].flags
+    fig = pole_zero_map(table)
+    _, renderer = _render(fig)
+    zoom = fig.axes[1]
+    assert _shows_z1_and_the_circle(zoom)
+    assert zoom.get_title(loc="left") == "zoom on the 2 crowded poles near z = 1"
+    _zoomed_poles_apart(zoom, [0.91, 0.90])
+    _check_pole_map_labels(fig, renderer)
 
 
 def _crowded_pairs_model() -> StateSpaceModel:
@@ -268,16 +407,22 @@ def _crowded_pairs_model() -> StateSpaceModel:
 
 
 def test_pole_map_zooms_on_crowded_pairs_and_separates_their_labels():
-    fig = pole_zero_map(mode_table(_crowded_pairs_model()))
+    table = mode_table(_crowded_pairs_model())
+    fig = pole_zero_map(table)
     _, renderer = _render(fig)
-    assert len(fig.axes) == 2
-    zoom = fig.axes[1]
-    labels = _pole_labels(zoom)
-    texts = sorted(t.get_text() for t in labels)
-    assert texts == sorted(["1 Hz, ζ 0.05", "1.05 Hz, ζ 0.05", "1.1 Hz, ζ 0.05", "1.15 Hz, ζ 0.05", "τ 3 s"])
-    for t in labels:
-        assert _inside(fig, renderer, t)
-    _no_overlap([t.get_window_extent(renderer) for t in labels])
+    # the pairs and the real pole crowd near z = 1 (zoom A); within that zoom the four pairs still crowd
+    # (0.0031 apart in angle: 2 pi 0.05 Hz T), so zoom B is on them
+    assert len(fig.axes) == 3
+    _, whole, pairs = fig.axes
+    assert {t.get_text() for t in _pole_labels(whole)} == {"τ 3 s"}
+    texts = sorted(t.get_text() for t in _pole_labels(pairs))
+    assert texts == sorted(["1 Hz, ζ 0.05", "1.05 Hz, ζ 0.05", "1.1 Hz, ζ 0.05", "1.15 Hz, ζ 0.05"])
+    _zoomed_poles_apart(pairs, [m.z for m in table.modes if m.is_pair and m.z.imag > 0])
+    assert _shows_z1_and_the_circle(whole)
+    assert pairs.get_title(loc="left").startswith("zoom B: 4 crowded poles\nnear z = 0.99")
+    # zoom B is framed on zoom A, where it lies, not on the full map
+    assert [t.get_text() for t in whole.texts if t.get_text() == "B"] == ["B"]
+    _check_pole_map_labels(fig, renderer)
     assert all("[-]" in text for text in _axis_labels(fig))
 
 
