@@ -1,3 +1,5 @@
+import math
+
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
@@ -167,3 +169,26 @@ def test_real_modes_drift_by_time_constant():
                                                       response_difference_db=100.0, dc_gain_change_percent=100.0))
     assert loose.passed, loose.breaches
     assert DriftThresholds.from_mapping({"time_constant_shift_percent": 15}).time_constant_shift_percent == 15
+
+
+def test_an_extra_mode_never_unpairs_a_mode_both_models_share():
+    # Costs by hand (|ln f ratio| + |zeta difference|, +10 between a pair and a real pole; a real pole
+    # counts as zeta 1): the shared real pole (tau 49.7 ms vs 50.2 ms) and the shared 24 Hz pair cost
+    # about 0.01 each; pairing every mode of the new model instead (its 70 Hz pair with the base's 24 Hz
+    # pair at 1.07, its real pole with the base's 85 ms one at 0.53) is cheaper only if the unpaired
+    # modes cost nothing. Leaving a mode unpaired costs limit / 2, so the shared modes stay paired.
+    from types import SimpleNamespace
+
+    from ident.assess.drift import match_modes
+
+    def real(tau):
+        return SimpleNamespace(natural_frequency_hz=1 / (2 * math.pi * tau), damping_ratio=None, is_pair=False)
+
+    def pair(f, zeta):
+        return SimpleNamespace(natural_frequency_hz=f, damping_ratio=zeta, is_pair=True)
+
+    base = (real(0.0497), pair(24.1, 0.0571), real(0.0849))
+    new = (real(0.0502), pair(24.13, 0.0603), pair(69.9, 0.05))
+    pairs = match_modes(base, new, 0.7)
+    assert sorted(p for p in pairs if None not in p) == [(0, 0), (1, 1)]
+    assert (2, None) in pairs and (None, 2) in pairs

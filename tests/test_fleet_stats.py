@@ -135,6 +135,12 @@ def test_presence_reasons_name_extra_and_missing_modes():
     assert len(extra) == 1 and extra[0].startswith("extra mode 3 (70 Hz") and "1 of 7 units" in extra[0]
     missing = presence_reasons(fleet, 6, units[6], rule)
     assert len(missing) == 1 and missing[0].startswith("lacks mode 2 (24 Hz") and "6 of 7 units" in missing[0]
+    # an extra mode the unit's data leave unidentified (its confidence region crosses the unit
+    # circle) is no evidence: the same unit with that mode unidentified is not called odd for it
+    from dataclasses import replace
+
+    vague = [*units[:5], [*units[5][:2], replace(units[5][2], identified=False)], units[6]]
+    assert presence_reasons(match_fleet_modes(vague, vague[0]), 5, vague[5], rule) == []
 
 
 def test_chance_flags_counts_the_normal_tail():

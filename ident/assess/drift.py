@@ -244,8 +244,13 @@ def match_modes(base: Sequence[Any], new: Sequence[Any], limit: float) -> list[t
     -----
     The cost of pairing is ``|ln(f_new / f_base)| + |zeta_new - zeta_base|`` (a real
     pole counts as damping ratio 1), plus 10 when a complex pair would meet a real
-    pole; the total cost of the one-to-one pairing is minimised exactly by
-    :func:`scipy.optimize.linear_sum_assignment` [1]_.
+    pole. Leaving a mode unpaired costs ``limit / 2`` (so a pair costing more than
+    ``limit`` is never worth making), and the total cost over pairs and unpaired
+    modes is minimised exactly by :func:`scipy.optimize.linear_sum_assignment` [1]_
+    on the matrix augmented with those options (gated assignment). Without the
+    gate, the assignment would pair every mode of the smaller set and could trade
+    a close pair for two costly ones that are then dropped: an extra mode in one
+    model could unpair a mode both share.
 
     References
     ----------
@@ -265,11 +270,17 @@ def match_modes(base: Sequence[Any], new: Sequence[Any], limit: float) -> list[t
             for b in base
         ]
     )
-    rows, cols = linear_sum_assignment(cost)
+    nb, nn = cost.shape
+    skip = np.full((nb, nb), np.inf)
+    np.fill_diagonal(skip, limit / 2)  # base mode i left unpaired
+    skip_new = np.full((nn, nn), np.inf)
+    np.fill_diagonal(skip_new, limit / 2)  # new mode j left unpaired
+    gated = np.block([[np.where(cost <= limit, cost, np.inf), skip], [skip_new, np.zeros((nn, nb))]])
+    rows, cols = linear_sum_assignment(np.where(np.isfinite(gated), gated, 1e12))
     pairs: list[tuple[int | None, int | None]] = []
     used_b, used_n = set(), set()
     for i, j in zip(rows, cols, strict=True):
-        if cost[i, j] <= limit:
+        if i < nb and j < nn and cost[i, j] <= limit:
             pairs.append((int(i), int(j)))
             used_b.add(int(i))
             used_n.add(int(j))

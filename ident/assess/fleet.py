@@ -141,12 +141,17 @@ class ModePoint:
     time_constant_s : float or None
     is_pair : bool
         A complex-conjugate pair (oscillating mode) rather than a real pole.
+    identified : bool
+        The unit's data pin the mode down: its 95 % confidence region does not
+        cross the unit circle (no ``uncertain_stability`` flag). A mode the data
+        cannot even call stable or unstable is no evidence that a unit is odd.
     """
 
     natural_frequency_hz: float
     damping_ratio: float | None
     time_constant_s: float | None
     is_pair: bool
+    identified: bool = True
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -442,7 +447,9 @@ def presence_reasons(modes: FleetModes, unit: int, unit_modes: Sequence[ModePoin
 
     Only modes inside the band the unit's input excited count: outside it the data
     cannot pin a mode down (a fit may add or drop one there by chance), as in the
-    drift comparison.
+    drift comparison. For the same reason an extra mode that the unit's own data
+    leave unidentified (``ModePoint.identified`` false: its confidence region
+    crosses the unit circle) does not count.
 
     Parameters
     ----------
@@ -474,7 +481,7 @@ def presence_reasons(modes: FleetModes, unit: int, unit_modes: Sequence[ModePoin
         mode = unit_modes[j] if j >= 0 else modes.reference[k]
         if not lo <= mode.natural_frequency_hz <= hi:
             continue
-        if j >= 0 and not common:
+        if j >= 0 and not common and unit_modes[j].identified:
             reasons.append(f"extra mode {k + 1} ({_mode_words(unit_modes[j])}), present in {count} of "
                            f"{n_units} units")
         elif j < 0 and common:

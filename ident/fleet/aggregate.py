@@ -118,7 +118,8 @@ def mode_points(modes: Sequence[dict[str, Any]]) -> tuple[ModePoint, ...]:
         if f is None or f <= 0 or "negative_real" in (m.get("flags") or ()):
             continue
         out.append(ModePoint(f, _finite(m.get("damping_ratio")), _finite(m.get("time_constant_s")),
-                             bool(m.get("is_pair"))))
+                             bool(m.get("is_pair")),
+                             identified="uncertain_stability" not in (m.get("flags") or ())))
     return tuple(out)
 
 
