@@ -121,12 +121,13 @@ def check(
     data = _deviations(log, model, model_path, where)
     periodic = analyse_log_periods(data["u"], data["y"], log.sample_time, period_text, description_path,
                                    {"input_names": model.inputs, "output_names": model.outputs})
-    report = _validate(model, loaded, options, data, periodic, log.resampling is not None)
+    covariance = loaded.parameter_covariance()  # read from the model file once: the verdict and the figures
+    report = _validate(model, loaded, options, data, periodic, log.resampling is not None, covariance)
 
     written: list[str] = []
     if plot_dir is not None:
         written = _write_plots(report, plot_dir, force=force, protected=(log_path, model_path), model=model,
-                               covariance=loaded.parameter_covariance())
+                               covariance=covariance)
     periodic_record = None
     if periodic is not None:
         from ..estimate.periodic_check import periodic_summary
@@ -289,7 +290,8 @@ def _in_sample_fit(loaded: Any, model: Any) -> list[float] | None:
     return values if all(isinstance(v, (int, float)) for v in values) else None
 
 
-def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], periodic: Any, resampled: bool) -> Any:
+def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], periodic: Any, resampled: bool,
+              covariance: Any) -> Any:
     from ..assess.diagnostics import validate_model
     from ..estimate.validation import continued_fit
 
@@ -301,7 +303,7 @@ def _validate(model: Any, loaded: Any, options: Any, data: dict[str, Any], perio
         lines = line_response(periodic)
     return validate_model(model, data["u"], data["y"], data["sample_time"], options, continued=continued,
                           in_sample_fit=_in_sample_fit(loaded, model), lines=lines, zero_phase_filtered=resampled,
-                          covariance=loaded.parameter_covariance())
+                          covariance=covariance)
 
 
 def _read_with_model_rate(path: str, inputs: tuple, outputs: tuple, log_kwargs: dict[str, Any],
