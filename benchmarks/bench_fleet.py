@@ -85,22 +85,31 @@ def _run_fleet(pipeline: Path, pattern: str, out: Path, workers: int) -> dict:
     cmd = [sys.executable, "-m", "ident", "fleet", str(pipeline), pattern, "--workers", str(workers),
            "--out", str(out), "--quiet", "--json"]
     start = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    watch = psutil.Process(proc.pid)
-    peak, cpu = 0, 0.0
-    while proc.poll() is None:
-        try:
-            peak = max(peak, watch.memory_info().rss)
-            times = watch.cpu_times()
-            cpu = times.user + times.system
-        except psutil.Error:
-            break
-        time.sleep(0.02)
-    stdout, stderr = proc.communicate()
-    wall = time.perf_counter() - start
+    with tempfile.TemporaryFile("w+") as out_file, tempfile.TemporaryFile("w+") as err_file:
+        # files, not pipes: a full pipe would stall the command while the loop below samples it
+        proc = subprocess.Popen(cmd, stdout=out_file, stderr=err_file, text=True)
+        watch = psutil.Process(proc.pid)
+        peak, cpu = 0, 0.0
+        while proc.poll() is None:
+            try:
+                peak = max(peak, watch.memory_info().rss)
+                times = watch.cpu_times()
+                cpu = times.user + times.system
+            except psutil.Error:
+                break
+            time.sleep(0.02)
+        proc.wait()
+        wall = time.perf_counter() - start
+        out_file.seek(0)
+        err_file.seek(0)
+        stdout, stderr = out_file.read(), err_file.read()
     if proc.returncode not in (0, 3):
         raise SystemExit(f"rigfit fleet failed ({proc.returncode}): {stderr}")
-    return {"wall_s": wall, "peak_rss_mib": peak / 2**20, "driver_cpu_s": cpu, **json.loads(stdout)}
+    try:
+        summary = json.loads(stdout)
+    except json.JSONDecodeError as exc:
+        raise SystemExit(f"rigfit fleet printed no JSON document ({exc}); stdout began {stdout[:200]!r}") from exc
+    return {"wall_s": wall, "peak_rss_mib": peak / 2**20, "driver_cpu_s": cpu, **summary}
 
 
 def main(argv: list[str] | None = None) -> None:

@@ -240,3 +240,38 @@ def test_scenario_units_have_the_documented_dynamics():
     assert num[-1] / den[-1] == pytest.approx(40.0, rel=1e-12)
     extra = FLEET.actuator_tf(FLEET.Actuator("AX", 40.0, 24.0, 0.06, 0.05, extra_mode_hz=70.0))
     assert extra[0][-1] / extra[1][-1] == pytest.approx(40.0, rel=1e-12)  # unity DC gain of the extra mode
+
+
+_PROBE = """
+import json, os
+from ident.fleet.engine import open_client
+
+def probe():
+    os.write(1, b"native-output-probe\\n")  # as a compiled library writes its message
+    return {k: os.environ.get(k) for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MALLOC_TRIM_THRESHOLD_")}
+
+if __name__ == "__main__":
+    with open_client(workers=1) as client:
+        seen = next(iter(client.run(probe).values()))
+    print(json.dumps(seen))
+"""
+
+
+def test_embedded_workers_keep_stdout_clean_and_the_usual_allocator(tmp_path):
+    # common practice, no source: stdout carries --json, so what a worker's libraries print
+    # must go to stderr; the engine's eager memory trimming is left out. In a fresh process
+    # with none of the variables set: variables already in the environment win (the
+    # engine's rule), and an engine started earlier in a process sets them there.
+    import os
+
+    script = tmp_path / "probe.py"
+    script.write_text(_PROBE, encoding="utf-8")
+    env = {k: v for k, v in os.environ.items()
+           if k not in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MALLOC_TRIM_THRESHOLD_")}
+    proc = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, env=env, timeout=120,
+                          cwd=tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert "native-output-probe" not in proc.stdout and "native-output-probe" in proc.stderr
+    # one numeric thread per worker (the engine's default; a unit limits itself to one anyway)
+    assert json.loads(proc.stdout) == {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1",
+                                       "MALLOC_TRIM_THRESHOLD_": None}

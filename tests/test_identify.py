@@ -337,6 +337,24 @@ def test_held_out_scores_match_dlsim(rng):
     assert_allclose(fast.errors[0], slow.errors[0], atol=1e-9)
 
 
+def test_an_overflowing_candidate_scores_minus_infinity_quietly(rng, capfd):
+    # common practice, no source: a strongly unstable candidate's response overflows over the
+    # warm-up; it must score -inf without handing LAPACK a non-finite matrix (LAPACK then prints
+    # its own complaint on standard output, which carries --json documents)
+    from ident.estimate.data import Experiment
+    from ident.estimate.scoring import held_out_score
+    from ident.lti.models import StateSpaceModel
+
+    model = StateSpaceModel(np.array([[40.0]]), np.array([[1.0]]), np.array([[1.0]]), np.array([[0.0]]),
+                            sample_time=T)
+    u = rng.standard_normal((2000, 1))
+    y = rng.standard_normal((2000, 1))
+    score = held_out_score(model, [Experiment(u[1000:], y[1000:])], 50, warmups=[Experiment(u[:1000], y[:1000])])
+    assert score.errors == () and np.all(score.fit == -np.inf)
+    out, _ = capfd.readouterr()
+    assert out == ""
+
+
 def test_a_delay_too_long_for_the_log_is_refused(rng):
     u, y = _second_order_log(rng, n=600)
     # 600 samples: 420 estimation, 180 held out; a 100-sample delay needs 100 states

@@ -168,7 +168,8 @@ def initial_conditions(model: StateSpaceModel, u: np.ndarray, y: np.ndarray,
     state alone is fitted: over a short stretch a constant and a slow mode look
     alike. ``forced`` (at least ``count`` rows), when the caller has simulated
     the response from rest already. Returns ``(x0 or None for a static model,
-    offset (p,))``.
+    offset (p,))``; raises :class:`numpy.linalg.LinAlgError` when the model's
+    response over the ``count`` samples is not finite (an unstable model).
     """
     n, p = model.n_states, model.n_outputs
     count = int(min(count, u.shape[0]))
@@ -176,6 +177,10 @@ def initial_conditions(model: StateSpaceModel, u: np.ndarray, y: np.ndarray,
     if not n:
         return None, (np.mean(y[:count] - forced, axis=0) if count >= _OFFSET_MIN_SAMPLES else np.zeros(p))
     obs = free_response_matrix(model, count)
+    if not (np.all(np.isfinite(obs)) and np.all(np.isfinite(forced))):
+        # an unstable model's response overflows: no least-squares problem to solve (LAPACK
+        # would print its own complaint about the non-finite matrix on standard output)
+        raise np.linalg.LinAlgError("the model's response is not finite over the initial-state window")
     if count < _OFFSET_MIN_SAMPLES + 20 * n:
         x0, *_ = np.linalg.lstsq(obs, (y[:count] - forced).reshape(-1), rcond=None)
         return x0, np.zeros(p)
