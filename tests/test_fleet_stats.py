@@ -143,6 +143,18 @@ def test_presence_reasons_name_extra_and_missing_modes():
     assert presence_reasons(match_fleet_modes(vague, vague[0]), 5, vague[5], rule) == []
 
 
+def test_a_mode_that_cancels_a_zero_or_may_be_unstable_is_not_identified():
+    # common practice, no source: a pole nearly cancelled by a zero hardly enters the response
+    # (at N = 1000 such noise-fitted real poles called five healthy units odd), and one whose
+    # confidence region crosses the unit circle is not pinned down; other flags do not matter
+    from ident.fleet.aggregate import mode_points
+
+    base = {"natural_frequency_hz": 3.2, "damping_ratio": 1.0, "time_constant_s": 0.05, "is_pair": False}
+    flags = [["near_cancellation"], ["uncertain_stability"], ["lightly_damped"], []]
+    points = mode_points([{**base, "flags": f} for f in flags])
+    assert [p.identified for p in points] == [False, False, True, True]
+
+
 def test_chance_flags_counts_the_normal_tail():
     x = np.column_stack([np.linspace(-1, 1, 101), np.linspace(90, 99, 101)])
     qs = [Quantity("a", "a", ""), Quantity("fit", "fit", "%", side="low")]

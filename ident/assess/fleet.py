@@ -143,8 +143,10 @@ class ModePoint:
         A complex-conjugate pair (oscillating mode) rather than a real pole.
     identified : bool
         The unit's data pin the mode down: its 95 % confidence region does not
-        cross the unit circle (no ``uncertain_stability`` flag). A mode the data
-        cannot even call stable or unstable is no evidence that a unit is odd.
+        cross the unit circle (no ``uncertain_stability`` flag) and the pole does
+        not nearly cancel a zero (no ``near_cancellation`` flag). A mode the data
+        cannot even call stable or unstable, or one that hardly enters the unit's
+        response, is no evidence that a unit is odd.
     """
 
     natural_frequency_hz: float
@@ -449,7 +451,7 @@ def presence_reasons(modes: FleetModes, unit: int, unit_modes: Sequence[ModePoin
     cannot pin a mode down (a fit may add or drop one there by chance), as in the
     drift comparison. For the same reason an extra mode that the unit's own data
     leave unidentified (``ModePoint.identified`` false: its confidence region
-    crosses the unit circle) does not count.
+    crosses the unit circle, or it nearly cancels a zero) does not count.
 
     Parameters
     ----------

@@ -106,6 +106,11 @@ def _finite(x: Any) -> float | None:
     return v if math.isfinite(v) else None
 
 
+#: Mode flags that say the unit's data do not show the mode: its 95 % confidence region
+#: crosses the unit circle, or the pole nearly cancels a zero (it hardly enters the response).
+_UNIDENTIFIED_FLAGS = frozenset({"uncertain_stability", "near_cancellation"})
+
+
 def mode_points(modes: Sequence[dict[str, Any]]) -> tuple[ModePoint, ...]:
     """Return the comparable modes of a summary's mode list.
 
@@ -119,7 +124,7 @@ def mode_points(modes: Sequence[dict[str, Any]]) -> tuple[ModePoint, ...]:
             continue
         out.append(ModePoint(f, _finite(m.get("damping_ratio")), _finite(m.get("time_constant_s")),
                              bool(m.get("is_pair")),
-                             identified="uncertain_stability" not in (m.get("flags") or ())))
+                             identified=not _UNIDENTIFIED_FLAGS & set(m.get("flags") or ())))
     return tuple(out)
 
 
