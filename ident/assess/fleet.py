@@ -125,7 +125,8 @@ class OutlierRule:
             f"{100 * self.min_relative_spread:g} % of |median|; fits are screened on the low side only; "
             f"a quantity is screened when at least {self.min_units} units have it; a mode present in fewer "
             f"than {100 * self.rare_mode_fraction:g} % of the units is rare (a unit with it has an extra "
-            "mode), and a unit without a mode the others have lacks it"
+            "mode, unless the unit's data do not pin that mode down: its confidence region crosses the unit "
+            "circle or its pole nearly cancels a zero), and a unit without a mode the others have lacks it"
         )
 
 
