@@ -5,8 +5,9 @@ The engine is the ``dask`` / ``distributed`` pair (an optional extra,
 :func:`open_client` starts a :class:`distributed.LocalCluster` of worker processes
 (one per core, one thread each; see :data:`WORKER_ENVIRONMENT` for their memory
 allocator; what their compiled libraries print goes to standard error) and shuts
-it down at the end; with a scheduler address it connects to a running cluster instead, whose workers must have the same
-rigfit version installed and see the log paths the driver gives them.
+it down at the end; with a scheduler address it connects to a running cluster
+instead, whose workers must have the same rigfit version installed and see the
+log paths the driver gives them.
 
 :func:`run_jobs` sends the units in small batches (one task computes a few units,
 so the engine's fixed cost per task is shared; about 16 tasks per worker thread keep

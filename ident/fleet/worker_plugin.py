@@ -24,7 +24,7 @@ class NativeOutputToStderr(WorkerPlugin):
 
     name = "rigfit-native-output-to-stderr"
 
-    def setup(self, worker: Any) -> None:  # noqa: ARG002 - the engine's plugin interface
+    def setup(self, worker: Any) -> None:
         """Redirect file descriptor 1 to 2 in the worker process (called by the engine)."""
         sys.stdout.flush()
         os.dup2(sys.stderr.fileno(), 1)
