@@ -169,6 +169,7 @@ def fit(
     time: str | None = None,
     units: Mapping[str, str] | None = None,
     progress: Callable[[str, float], None] | None = None,
+    workers: int = 1,
     **options: Any,
 ) -> ModelResult:
     """Identify a linear model from logged inputs and outputs.
@@ -189,6 +190,9 @@ def fit(
         Unit per column name, for columns whose names carry none.
     progress : callable, optional
         Called as ``progress(step, fraction_done)``.
+    workers : int, default 1
+        Processes for the candidate search (``workers`` of
+        :func:`ident.estimate.identify.identify`; the model does not depend on it).
     **options
         Fit options, as in a pipeline file's ``[fit]`` and ``[preprocess]``
         tables: ``method``, ``order`` (an int or ``"auto"``), ``max_order``,
@@ -216,7 +220,7 @@ def fit(
         [(log.u[a:b], log.y[a:b]) for a, b in log.segments], log.sample_time, opts,
         input_names=log.input_names, output_names=log.output_names,
         input_units=log.input_units, output_units=log.output_units,
-        segment_starts=[a for a, _ in log.segments], progress=progress,
+        segment_starts=[a for a, _ in log.segments], progress=progress, workers=workers,
     )
     duration = max((b - a - 1) * log.sample_time for a, b in log.segments) or None
     provenance = {

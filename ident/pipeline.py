@@ -205,6 +205,7 @@ def run_pipeline(
     baseline: str | os.PathLike | None = None,
     progress: Callable[[str, float], None] | None = None,
     allow_outside: bool = False,
+    workers: int = 1,
 ) -> RunResult:
     """Run a pipeline end to end and write a new run folder.
 
@@ -222,6 +223,9 @@ def run_pipeline(
     allow_outside : bool, default False
         Read log files and a baseline outside the pipeline file's folder tree
         (see :func:`ident.io.pipelinefile.load_pipeline`).
+    workers : int, default 1
+        Processes for the identification's candidate search (``workers`` of
+        :func:`ident.estimate.identify.identify`); the results do not depend on it.
 
     Returns
     -------
@@ -249,7 +253,7 @@ def run_pipeline(
         spec = load_pipeline(spec, allow_outside=allow_outside)
     check_new_folder(_run_parent(spec, out_dir), longest_name=_LONGEST_RUN_PATH)
     report = progress if progress is not None else (lambda step, fraction: None)
-    state = _compute_and_warn(spec, baseline, report)
+    state = _compute_and_warn(spec, baseline, report, workers)
     report("drawing figures", 0.85)
     figures = _figures(state)
     report("writing the run folder", 0.95)
@@ -315,11 +319,12 @@ def evaluate_pipeline(
 # --------------------------------------------------------------------------- steps
 
 
-def _compute_and_warn(spec: PipelineSpec, baseline: Any, report: Callable[[str, float], None]) -> dict[str, Any]:
+def _compute_and_warn(spec: PipelineSpec, baseline: Any, report: Callable[[str, float], None],
+                      workers: int = 1) -> dict[str, Any]:
     """:func:`_compute` with its warnings collected in ``state["warnings"]`` and re-issued once each."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        state = _compute(spec, baseline, report)
+        state = _compute(spec, baseline, report, workers)
     texts: list[str] = []
     for w in caught:
         text = str(w.message)
@@ -378,7 +383,8 @@ def _units(spec: PipelineSpec, names: Sequence[str], header: Sequence[str], role
     return tuple(out)
 
 
-def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float], None]) -> dict[str, Any]:
+def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float], None],
+             workers: int = 1) -> dict[str, Any]:
     """Run every computation of the pipeline, in order, and return what the outputs are made from."""
     from .assess.expectations import check_expectations
     from .assess.modes import mode_table
@@ -398,7 +404,7 @@ def _compute(spec: PipelineSpec, baseline_arg: Any, report: Callable[[str, float
 
         baseline = load_model(baseline_path)
 
-    result = _identify_logs(spec, logs, input_units, output_units, report, vlogs)
+    result = _identify_logs(spec, logs, input_units, output_units, report, vlogs, workers)
     model = result.model
     prep = result.prepared
     pole_cov = result.pole_covariance  # first-order, from the parameter covariance, in model.poles() order
@@ -473,7 +479,7 @@ def _periodic(spec: PipelineSpec, first: Any, result: Any) -> Any:
 
 def _identify_logs(spec: PipelineSpec, logs: Sequence[Any], input_units: tuple[str, ...],
                    output_units: tuple[str, ...], report: Callable[[str, float], None],
-                   vlogs: Sequence[Any] = ()) -> Any:
+                   vlogs: Sequence[Any] = (), workers: int = 1) -> Any:
     """Identify a model from every segment of every log (one experiment each)."""
     from .estimate.identify import identify
 
@@ -502,7 +508,7 @@ def _identify_logs(spec: PipelineSpec, logs: Sequence[Any], input_units: tuple[s
         segments, first.sample_time, spec.fit,
         input_names=first.input_names, output_names=first.output_names,
         input_units=input_units, output_units=output_units,
-        segment_starts=starts, progress=ident_progress, **extra,
+        segment_starts=starts, progress=ident_progress, workers=workers, **extra,
     )
 
 

@@ -104,6 +104,9 @@ def _parse_order(value: str) -> int | None:
 @click.option("--screen-samples", type=int, default=10_000, show_default=True, metavar="N",
               help="Fit and score the candidates on at most this many estimation and validation "
                    "samples each; the chosen model is then polished on all the data.")
+@click.option("--workers", type=click.IntRange(min=1), default=None, metavar="N",
+              help="Processes for the candidate search (default: the cores this process may use, at most "
+                   "8; 1 keeps it in this process). The model does not depend on it.")
 @click.option("--detrend", is_flag=True, help="Remove a straight line fitted to the estimation part from every signal.")
 @click.option("--decimate", type=int, default=1, show_default=True, metavar="Q",
               help="Low-pass filter the signals and keep every Q-th sample before fitting.")
@@ -142,6 +145,7 @@ def fit(
     refine_count: int,
     per_criterion: int,
     screen_samples: int,
+    workers: int | None,
     detrend: bool,
     decimate: int,
     model_out: str | None,
@@ -169,11 +173,13 @@ def fit(
     log_kwargs = read_log_kwargs(locals())
     _single_blas_thread()
     from ..estimate.identify import IdentifyOptions, identify
+    from ..estimate.jobs import workers_for
     from ..estimate.preprocess import PreprocessOptions
     from ..io.atomic import check_output_path
     from ..io.log import read_log
 
     order = _parse_order(order_text)
+    workers = workers_for(workers)
     names_in = [n.lower() for n in inputs]
     for name in outputs:
         if name.lower() in names_in:
@@ -237,9 +243,9 @@ def fit(
                         done[0] = target
 
                 result = identify(segments, log.sample_time, options, progress=progress,
-                                  overwrite_data=consumed, **kwargs)
+                                  overwrite_data=consumed, workers=workers, **kwargs)
         else:
-            result = identify(segments, log.sample_time, options, overwrite_data=consumed, **kwargs)
+            result = identify(segments, log.sample_time, options, overwrite_data=consumed, workers=workers, **kwargs)
         del segments
     messages = []
     for w in caught:

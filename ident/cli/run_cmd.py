@@ -81,10 +81,13 @@ def run_text(result: Any) -> str:
 @click.option("--allow-outside", is_flag=True,
               help="Read log files and a [drift] baseline outside the pipeline file's folder tree "
                    "(refused by default: pipeline files may come from others).")
+@click.option("--workers", type=click.IntRange(min=1), default=None, metavar="N",
+              help="Processes for the identification's candidate search (default: the cores this process "
+                   "may use, at most 8; 1 keeps it in this process). The results do not depend on it.")
 @click.option("--quiet", is_flag=True, help="No progress messages on stderr.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
-def run(pipeline_path: str, out_dir: str | None, baseline: str | None, allow_outside: bool, quiet: bool,
-        as_json: bool) -> None:
+def run(pipeline_path: str, out_dir: str | None, baseline: str | None, allow_outside: bool, workers: int | None,
+        quiet: bool, as_json: bool) -> None:
     """Run the pipeline file PIPELINE end to end into a new run folder.
 
     Ingest, preprocess, fit candidates, select, validate, check modes and
@@ -99,10 +102,12 @@ def run(pipeline_path: str, out_dir: str | None, baseline: str | None, allow_out
     expectation or drift threshold failed (the summary and the report say which);
     130 interrupted (no run folder written).
     """
+    from ..estimate.jobs import workers_for
     from ..pipeline import run_pipeline
 
     result = run_pipeline(pipeline_path, out_dir=out_dir, baseline=baseline,
-                          progress=progress_printer(quiet), allow_outside=allow_outside)
+                          progress=progress_printer(quiet), allow_outside=allow_outside,
+                          workers=workers_for(workers))
     if as_json:
         s = result.summary
         echo_json({

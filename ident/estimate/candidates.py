@@ -152,10 +152,16 @@ class Screen:
         and of validation samples for scores.
     max_states : int
         Largest model state count expected (sets the initial-state window).
+    direct_in_sample : bool
+        Score direct estimates (stage ``"estimated"``) on the estimation data
+        too (default). ``False`` when only refined candidates are selected
+        from: the in-sample errors serve the selection only.
     """
 
-    def __init__(self, prep: PreparedData, screen_samples: int, max_states: int) -> None:
+    def __init__(self, prep: PreparedData, screen_samples: int, max_states: int, *,
+                 direct_in_sample: bool = True) -> None:
         self.prep = prep
+        self.direct_in_sample = direct_in_sample
         self.estimation = working_stretches(prep.estimation, screen_samples)
         self.validation, warmups = _screen_validation(prep, screen_samples)
         self.window = score_window(self.validation, max_states)
@@ -174,7 +180,7 @@ class Screen:
         return self._shifted[key]
 
     def score(self, fitted: Fitted, *, as_model: StateSpaceModel | None = None, simulator=None) -> None:
-        """Score a candidate on the screening validation data and on its estimation data.
+        """Score a candidate on the screening validation data and on its estimation data (see ``direct_in_sample``).
 
         ``as_model`` (with its own ``simulator``) replaces ``fitted.model`` for the
         held-out score: another realisation of the same model (an ARX model in
@@ -182,6 +188,8 @@ class Screen:
         """
         model = fitted.model if as_model is None else as_model
         fitted.score = held_out_score(model, self.validation, self.window, simulator, self.warmups)
+        if not self.direct_in_sample and fitted.candidate.stage == "estimated":
+            return
         est = held_out_score(fitted.core, self.estimation_for(fitted.shift), min(self.window, 50))
         fitted.estimation_errors = est.errors
         if est.errors:
@@ -314,34 +322,47 @@ def subspace_candidates(prep: PreparedData, screen: Screen, orders: Sequence[int
         The candidates, and evidence of the first projection (``singular_values``,
         ``suggested_order``, ``factorization``).
     """
-    from .subspace import SubspaceOptions, model_of_order, project_weightings, suggest_order
-
     out: list[Fitted] = []
     evidence: dict = {}
-    names = {"input_names": prep.input_names, "output_names": prep.output_names}
     for shift in shifts:
-        data = screen.estimation_for(shift, full=True)
         for h in dict.fromkeys(horizons):
-            try:
-                projections = project_weightings(data, weightings, horizon=h, max_order=max(orders))
-            except (OptionError, IdentificationError):
-                continue
-            if not evidence:
-                first = projections[0]
-                evidence = {"singular_values": np.asarray(first.singular_values, dtype=float),
-                            "suggested_order": int(suggest_order(first).order),
-                            "factorization": {"path": first.factorization,
-                                              "gram_condition": float(first.gram_condition)},
-                            "horizon": int(first.horizon)}
-            for proj in projections:
-                for n in (n for n in orders if n <= proj.max_order):
-                    opts = SubspaceOptions(order=n, weighting=proj.weighting, horizon=proj.horizon,
-                                           max_order=proj.max_order, stabilize=stabilize)
-                    with warnings.catch_warnings(record=True) as caught:
-                        warnings.simplefilter("always")
-                        res = model_of_order(proj, screen.estimation_for(shift), n, prep.sample_time,
-                                             options=opts, **names)
-                    out.append(_subspace_fitted(res, shift, feedthrough, screen, list(caught)))
+            found, first = subspace_group(prep, screen, orders, shift, h, weightings=weightings, stabilize=stabilize,
+                                          feedthrough=feedthrough)
+            out += found
+            evidence = evidence or first
+    return out, evidence
+
+
+def subspace_group(prep: PreparedData, screen: Screen, orders: Sequence[int], shift: tuple[int, ...],
+                   horizon: int | None, *, weightings: Sequence[str], stabilize: bool,
+                   feedthrough: Sequence[bool]) -> tuple[list[Fitted], dict]:
+    """Fit and score the subspace models of every order and weighting for one input shift and horizon.
+
+    Returns the candidates (none when the projection cannot be made) and the
+    evidence of the first weighting's projection (empty then).
+    """
+    from .subspace import SubspaceOptions, model_of_order, project_weightings, suggest_order
+
+    names = {"input_names": prep.input_names, "output_names": prep.output_names}
+    try:
+        projections = project_weightings(screen.estimation_for(shift, full=True), weightings, horizon=horizon,
+                                         max_order=max(orders))
+    except (OptionError, IdentificationError):
+        return [], {}
+    first = projections[0]
+    evidence = {"singular_values": np.asarray(first.singular_values, dtype=float),
+                "suggested_order": int(suggest_order(first).order),
+                "factorization": {"path": first.factorization, "gram_condition": float(first.gram_condition)},
+                "horizon": int(first.horizon)}
+    out: list[Fitted] = []
+    for proj in projections:
+        for n in (n for n in orders if n <= proj.max_order):
+            opts = SubspaceOptions(order=n, weighting=proj.weighting, horizon=proj.horizon,
+                                   max_order=proj.max_order, stabilize=stabilize)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                res = model_of_order(proj, screen.estimation_for(shift), n, prep.sample_time, options=opts, **names)
+            out.append(_subspace_fitted(res, shift, feedthrough, screen, list(caught)))
     return out, evidence
 
 

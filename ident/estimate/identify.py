@@ -68,9 +68,10 @@ from .candidates import (
     arx_candidates,
     polynomial_candidates,
     state_space_parameters,
-    subspace_candidates,
+    subspace_group,
 )
 from .data import Experiment
+from .jobs import MAX_WORKERS, Jobs
 from .preprocess import PreparedData, PreprocessOptions, prepare
 from .scoring import IN_SAMPLE_WINDOW, held_out_score, score_window, warmups_for
 from .selection import Contender, SelectionRecord, select
@@ -472,6 +473,7 @@ def identify(
     validation_starts: Sequence[int] | None = None,
     references: Sequence[Any] | None = None,
     overwrite_data: bool = False,
+    workers: int = 1,
 ) -> Identification:
     """Find the model the data support best: candidates, refinement, selection, validation.
 
@@ -508,6 +510,15 @@ def identify(
         arrays of ``segments`` (writeable float64 ones, without detrending or
         decimation): they then hold the deviations, and the log is not copied
         (:func:`ident.estimate.preprocess.prepare`, ``overwrite``).
+    workers : int, default 1
+        Processes for the independent jobs of the search (the feedback test,
+        the candidates, the screening refinements), forked from this one
+        (:class:`ident.estimate.jobs.Jobs`; at most
+        :data:`ident.estimate.jobs.MAX_WORKERS`; where processes cannot be
+        forked the jobs run here). The result does not depend on it.
+        :func:`ident.estimate.jobs.usable_cores` tells how many cores this
+        process may use; keep 1 where runs are already spread over processes
+        (a fleet).
 
     Returns
     -------
@@ -542,6 +553,7 @@ def identify(
     options = IdentifyOptions() if options is None else options
     if not isinstance(options, IdentifyOptions):
         raise OptionError(f"options must be IdentifyOptions; got {type(options).__name__}")
+    workers = int_in_range(workers, "workers", 1, MAX_WORKERS)
     report = progress if progress is not None else (lambda step, fraction: None)
     if options.preprocess.holdout <= 0 and validation_segments is None:
         raise OptionError("identify needs held-out validation data; holdout must be in (0, 1); got 0")
@@ -555,7 +567,7 @@ def identify(
     with warnings.catch_warnings(record=True) as caught, one_blas_thread():
         warnings.simplefilter("always")
         try:
-            result = _identify(segments, sample_time, options, names, report, references)
+            result = _identify(segments, sample_time, options, names, report, references, workers)
         finally:
             pending = list(caught)
     texts: list[str] = []
@@ -591,40 +603,91 @@ class _Search:
     feedback: Any = None
 
 
+@dataclass(frozen=True, slots=True, eq=False)
+class _Run:
+    """What every job of the search reads (inherited by forked workers, never pickled)."""
+
+    prep: PreparedData
+    fit_prep: PreparedData
+    screen: Screen
+    options: IdentifyOptions
+    orders: list[int]
+    delays: list[tuple[int, ...]]
+
+
 def _identify(segments, sample_time, options: IdentifyOptions, names: dict, report,
-              references: Sequence[Any] | None = None) -> Identification:
-    """Run the stages of :func:`identify` in order (the caller records the warnings)."""
+              references: Sequence[Any] | None = None, workers: int = 1) -> Identification:
+    """Run the stages of :func:`identify` in order (the caller records the warnings).
+
+    The feedback test and the candidates, then the screening refinements, are
+    independent jobs (:class:`ident.estimate.jobs.Jobs`): with several
+    ``workers`` they run side by side, with the same results.
+    """
     report("preparing data", 0.0)
     prep, refs = _prepare(segments, sample_time, options, names, references)
     search = _Search(report=report)
     report("estimating delays", 0.05)
     delays = _delay_vectors(prep, options, search)
-    search.feedback = _feedback(prep, refs, min(delays[0]), search)
-    fit_prep = _through_reference(prep, refs, options, search) if refs is not None else prep
     orders = _orders(prep, options, search)
+    fit_prep = prep
+    if refs is not None:  # the fit through the reference follows the feedback test
+        search.feedback = _noted_feedback(_feedback(prep, refs, min(delays[0])), search)
+        fit_prep = _through_reference(prep, refs, options, search, workers)
     _excitation_evidence(fit_prep, options, orders, search)
-    screen = Screen(fit_prep, options.screen_samples, max(orders) + max(max(v) for v in delays))
-    if options.method in POLYNOMIAL_STRUCTURES:
-        report("polynomial candidates", 0.1)
-        search.raw.extend(polynomial_candidates(fit_prep, screen, orders, delays[0], options.method))
-    if options.method in ("arx", "auto"):
-        report("ARX candidates", 0.1)
-        found, search.arx_sweep = arx_candidates(fit_prep, screen, orders, delays,
-                                                 per_criterion=options.per_criterion, fixed_order=options.order)
-        search.raw.extend(found)
-    if options.method in ("subspace", "auto"):
-        report("subspace candidates", 0.3)
-        _add_subspace(fit_prep, options, orders, delays, screen, search)
-    pool = search.raw
-    if options.method in ("auto", "subspace") and options.refinement != "none":
-        search.forms = _refinement_forms(options, search, refs is not None)
-        _refine_best(options, screen, search)
-        if options.order is None:
-            _reduce_best(options, screen, search)
-        pool = search.refined
+    refining = options.method in ("auto", "subspace") and options.refinement != "none"
+    screen = Screen(fit_prep, options.screen_samples, max(orders) + max(max(v) for v in delays),
+                    direct_in_sample=not refining)
+    for shift in _input_shifts(delays):  # shifted copies made once, before workers inherit the screen
+        screen.estimation_for(shift)
+    with Jobs(workers, _Run(prep, fit_prep, screen, options, orders, delays)) as jobs:
+        feedback = jobs.submit(_feedback_job, min(delays[0])) if refs is None else None
+        arx = jobs.submit(_arx_job) if options.method in ("arx", "auto") else None
+        if options.method in POLYNOMIAL_STRUCTURES:
+            report("polynomial candidates", 0.1)
+            search.raw.extend(polynomial_candidates(fit_prep, screen, orders, delays[0], options.method))
+        subspace = _submit_subspace(jobs, options, orders, delays, prep.n_inputs, prep.n_outputs) \
+            if options.method in ("subspace", "auto") else None
+        if feedback is not None:
+            search.feedback = _noted_feedback(feedback.result(), search)
+        if arx is not None:
+            report("ARX candidates", 0.1)
+            found, search.arx_sweep = arx.result()
+            search.raw.extend(found)
+        if subspace is not None:
+            report("subspace candidates", 0.3)
+            _add_subspace(subspace, search)
+        pool = search.raw
+        if refining:
+            search.forms = _refinement_forms(options, search, refs is not None)
+            _refine_best(options, screen, search, jobs)
+            if options.order is None:
+                _reduce_best(options, screen, search)
+            pool = search.refined
     report("selecting", 0.85)
     pool, record = _select_form(pool, screen, options, search)
     return _assemble(prep, options, search, pool, record, screen)
+
+
+def _input_shifts(delays: Sequence[tuple[int, ...]]) -> list[tuple[int, ...]]:
+    """Input shifts of the candidates: ``nk - 1`` of every delay vector (ARX) and of no delay."""
+    shifts = [tuple(max(v - 1, 0) for v in d) for d in delays]
+    return list(dict.fromkeys([*shifts, (0,) * len(delays[0])]))
+
+
+def _feedback_job(run: _Run, input_delay: int) -> Any:
+    return _feedback(run.prep, None, input_delay)
+
+
+def _arx_job(run: _Run) -> tuple[list[Fitted], Any]:
+    return arx_candidates(run.fit_prep, run.screen, run.orders, run.delays,
+                          per_criterion=run.options.per_criterion, fixed_order=run.options.order)
+
+
+def _subspace_job(run: _Run, shift: tuple[int, ...], horizon: int | None) -> tuple[list[Fitted], dict]:
+    options = run.options
+    weightings = [options.weighting] if options.weighting is not None else list(WEIGHTINGS)
+    return subspace_group(run.fit_prep, run.screen, run.orders, shift, horizon, weightings=weightings,
+                          stabilize=options.stabilize, feedthrough=(True,) * run.fit_prep.n_inputs)
 
 
 def _select_form(pool: list[Fitted], screen: Screen, options: IdentifyOptions, search: _Search):
@@ -710,22 +773,27 @@ def _split_references(prep: PreparedData, m: int) -> PreparedData:
                    trends=trends, input_names=prep.input_names[:m], input_units=prep.input_units[:m])
 
 
-def _feedback(prep: PreparedData, refs, input_delay: int, search: _Search) -> Any:
-    """Feedback evidence on the estimation data (see :mod:`ident.estimate.closed_loop`)."""
+def _feedback(prep: PreparedData, refs, input_delay: int) -> Any:
+    """Feedback evidence on the estimation data (see :mod:`ident.estimate.closed_loop`); ``None`` when untestable."""
     from .closed_loop import feedback_evidence
 
     try:
-        evidence = feedback_evidence(prep.estimation, references=refs, input_delay=input_delay)
+        return feedback_evidence(prep.estimation, references=refs, input_delay=input_delay)
     except (OptionError, np.linalg.LinAlgError):
         return None
-    if evidence.closed_loop:
+
+
+def _noted_feedback(evidence: Any, search: _Search) -> Any:
+    """Return ``evidence``, with a note when the log looks closed-loop."""
+    if evidence is not None and evidence.closed_loop:
         search.notes.append(
             f"the log looks closed-loop: past outputs predict the input (F = {evidence.f_statistic:.3g}, "
             f"p = {evidence.p_value:.2g}); an output-error fit would be biased by the feedback")
     return evidence
 
 
-def _through_reference(prep: PreparedData, refs, options: IdentifyOptions, search: _Search) -> PreparedData:
+def _through_reference(prep: PreparedData, refs, options: IdentifyOptions, search: _Search,
+                       workers: int = 1) -> PreparedData:
     """Stage 1 of the two-stage method: estimation inputs replaced by their part the reference explains.
 
     The input sensitivity ``S`` from reference to input is itself identified by
@@ -740,7 +808,7 @@ def _through_reference(prep: PreparedData, refs, options: IdentifyOptions, searc
     records = [(r, e.u) for e, r in zip(prep.estimation, refs, strict=True)]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        sens = identify(records, prep.sample_time, sub_options)
+        sens = identify(records, prep.sample_time, sub_options, workers=workers)
     op = sens.model.operating_point
     parts = []
     for (r, u), e in zip(records, prep.estimation, strict=True):
@@ -859,22 +927,25 @@ def _signal_to_noise(delay: Any) -> float:
 # --------------------------------------------------------------------------- candidates
 
 
-def _add_subspace(prep, options: IdentifyOptions, orders, delays, screen: Screen, search: _Search) -> None:
-    """Subspace candidates for the input shifts of the estimated delay and of no delay."""
-    d_hat = delays[0]
-    shifts = list(dict.fromkeys([tuple(max(v - 1, 0) for v in d_hat), (0,) * prep.n_inputs]))
+def _submit_subspace(jobs: Jobs, options: IdentifyOptions, orders, delays, m: int, p: int) -> list:
+    """Submit one subspace job per input shift (of the estimated delay, and of none) and horizon."""
     from .subspace import default_horizon
 
-    h0 = default_horizon(max(orders), prep.n_outputs)
+    shifts = list(dict.fromkeys([tuple(max(v - 1, 0) for v in delays[0]), (0,) * m]))
+    h0 = default_horizon(max(orders), p)
     horizons = [options.horizon] if options.horizon is not None else [None, 2 * h0]
-    weightings = [options.weighting] if options.weighting is not None else list(WEIGHTINGS)
-    found, evidence = subspace_candidates(prep, screen, orders, shifts, horizons=horizons, weightings=weightings,
-                                          stabilize=options.stabilize, feedthrough=(True,) * prep.n_inputs)
-    if not found:
+    return [jobs.submit(_subspace_job, shift, h) for shift in shifts for h in dict.fromkeys(horizons)]
+
+
+def _add_subspace(submitted: Sequence[Any], search: _Search) -> None:
+    """Collect the subspace jobs' candidates (and the first projection's evidence)."""
+    for job in submitted:
+        found, evidence = job.result()
+        search.raw.extend(found)
+        search.subspace = search.subspace or evidence
+    if not any(f.candidate.method == "subspace" for f in search.raw):
         raise IdentificationError("no subspace candidate could be fitted (the log is too short for the horizon)",
                                   hint="lower --max-order or --horizon, or use a longer log")
-    search.raw.extend(found)
-    search.subspace = evidence
 
 
 def _refinement_starts(raw: Sequence[Fitted], count: int, output_variance: np.ndarray,
@@ -909,24 +980,36 @@ def _refinement_starts(raw: Sequence[Fitted], count: int, output_variance: np.nd
     return starts
 
 
-def _refine_best(options: IdentifyOptions, screen: Screen, search: _Search) -> None:
-    """Refine the best few candidates on the screening data and score them again."""
-    from .refine import RefineOptions
-
+def _refine_best(options: IdentifyOptions, screen: Screen, search: _Search, jobs: Jobs) -> None:
+    """Refine the best few candidates on the screening data and score them again (one job each)."""
     starts = _refinement_starts(search.raw, options.refine_count, screen.output_variance, options.significance)
-    jobs = [(start, form) for form in search.forms for start in starts]
-    for k, (start, form) in enumerate(jobs):
-        search.report(f"refining candidate {k + 1} of {len(jobs)}", 0.4 + 0.4 * k / max(len(jobs), 1))
-        opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
-                             working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
-                             max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
-        refined = _refine_one(start, screen.estimation_for(start.shift), opts)
+    submitted = [(start, jobs.submit(_refine_job, start, form)) for form in search.forms for start in starts]
+    for k, (start, job) in enumerate(submitted):
+        search.report(f"refining candidate {k + 1} of {len(submitted)}", 0.4 + 0.4 * k / max(len(submitted), 1))
+        refined = job.result()
         if refined is None:
             continue
         origin = next(i for i, f in enumerate(search.raw) if f.candidate is start.candidate)
-        search.refined.append(_refined(start, *refined, form, {"refined_from": origin}, screen))
+        refined.candidate = replace(refined.candidate,
+                                    structure={**refined.candidate.structure, "refined_from": origin})
+        search.refined.append(refined)
     if not search.refined:
         raise IdentificationError("no candidate could be refined", hint="try --refine none, or check the data")
+
+
+def _refine_job(run: _Run, start: Fitted, form: str) -> Fitted | None:
+    return _screening_refinement(start, form, run.screen)
+
+
+def _screening_refinement(start: Fitted, form: str, screen: Screen) -> Fitted | None:
+    """``start`` refined in ``form`` on the screening data and scored (``None`` when it cannot be refined)."""
+    from .refine import RefineOptions
+
+    opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
+                         working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
+                         max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
+    refined = _refine_one(start, screen.estimation_for(start.shift), opts)
+    return None if refined is None else _refined(start, *refined, form, {}, screen)
 
 
 def _refined(start: Fitted, res, caught: list, form: str, extra: dict, screen: Screen) -> Fitted:

@@ -515,7 +515,9 @@ def _search(model, problem: PredictionProblem, theta0, scaled: _Scaled, options:
     """Weighting, working stage on :func:`ident.estimate.data.working_stretches`, polish on all data, result."""
     x0 = [_fit_x0(problem, theta0, u, y) for u, y in problem.parts]
     problem = problem.with_weight(_weight(problem, Point(theta0, x0)))
-    start = Point(theta0, [_fit_x0(problem, theta0, u, y) for u, y in problem.parts])
+    if problem.p > 1:  # a weighting of one output scales the least-squares problem only
+        x0 = [_fit_x0(problem, theta0, u, y) for u, y in problem.parts]
+    start = Point(theta0, x0)
     start_var = _error_variance(problem, start)
     start_loss = problem.loss(start) / problem.n_samples
     history: list[float] = []

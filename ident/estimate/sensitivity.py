@@ -76,6 +76,9 @@ STABLE_RADIUS = 1.0 - 1e-9
 #: which its R factor comes from a Cholesky factorisation (else Householder QR).
 _GRAM_MAX_CONDITION = 1e10
 
+#: Points whose prediction errors :meth:`PredictionProblem.all_errors` keeps.
+_RECENT = 2
+
 #: Samples of ``[u, y]`` stacked at a time to drive an innovations predictor.
 _DRIVE_BLOCK = 1 << 16
 
@@ -200,10 +203,14 @@ class PredictionProblem:
         self.offsets = bool(offsets) and not innovations
         self.nuisance = self.n + (self.p if self.offsets else 0)
         self.n_samples = sum(u.shape[0] for u, _ in self.parts)
+        self._recent: list[tuple[bytes, list[np.ndarray]]] = []  # errors of the last points evaluated
 
     def _like(self, parts, weight) -> PredictionProblem:
-        return PredictionProblem(parts, (self.n, self.m, self.p), self.free, self.innovations, weight,
+        like = PredictionProblem(parts, (self.n, self.m, self.p), self.free, self.innovations, weight,
                                  gauge=self.gauge, offsets=self.offsets)
+        if parts is self.parts:  # the errors do not depend on the weighting
+            like._recent = self._recent
+        return like
 
     def with_parts(self, parts) -> PredictionProblem:
         """Return the same criterion on other experiments."""
@@ -265,9 +272,22 @@ class PredictionProblem:
         return e
 
     def all_errors(self, point: Point) -> list[np.ndarray]:
-        """Unweighted prediction errors of every experiment."""
-        return [self.errors(point.theta, x0, u, y)
-                for (u, y), x0 in zip(self.parts, point.x0, strict=True)]
+        """Unweighted prediction errors of every experiment (read-only arrays).
+
+        The errors of the last :data:`_RECENT` points are kept: a search asks
+        for the loss, the error covariance and the weighting at the same point
+        (each a pass over all the data).
+        """
+        key = b"".join([np.ascontiguousarray(point.theta).tobytes(),
+                        *(np.ascontiguousarray(x).tobytes() for x in point.x0)])
+        for seen, errors in self._recent:
+            if seen == key:
+                return errors
+        errors = [self.errors(point.theta, x0, u, y) for (u, y), x0 in zip(self.parts, point.x0, strict=True)]
+        for e in errors:
+            e.setflags(write=False)
+        self._recent[:] = [(key, errors), *self._recent[:_RECENT - 1]]
+        return errors
 
     def loss(self, point: Point) -> float:
         """``sum ||W e||^2`` over all experiments; ``inf`` when not admissible or not finite."""
