@@ -249,6 +249,27 @@ def test_output_equal_to_input(run_cli, log_file):
     assert res.exit_code == 2
 
 
+def test_fit_with_one_worker_or_several_writes_the_same_model(run_cli, log_file, tmp_path):
+    # the jobs of the search are independent and taken in submission order: the number of worker
+    # processes changes the wall time only (common practice for parallel code, no source)
+    outputs = {}
+    for workers in ("1", "3"):
+        out = tmp_path / f"plant-{workers}.json"
+        res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--max-order", "4",
+                      "--workers", workers, "-o", out, "--json", "--quiet")
+        assert res.exit_code == 0, res.output
+        outputs[workers] = (json.loads(res.stdout), json.loads(out.read_text()))
+    (summary_1, model_1), (summary_3, model_3) = outputs["1"], outputs["3"]
+    for data in (summary_1, summary_3):
+        data.pop("model_file", None)
+    assert summary_1 == summary_3
+    for data in (model_1, model_3):
+        data["provenance"].pop("created_utc")
+    assert model_1 == model_3
+    res = run_cli("fit", log_file, "--input", "valve", "--output", "flow", "--workers", "0")
+    assert res.exit_code == 2 and "--workers" in res.output
+
+
 @pytest.mark.parametrize("args", [["--order", "zero"], ["--order", "0"], ["--holdout", "1.5"],
                                   ["--method", "best"]])
 def test_bad_options_exit_2(run_cli, log_file, args):

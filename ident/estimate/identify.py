@@ -640,13 +640,14 @@ def _identify(segments, sample_time, options: IdentifyOptions, names: dict, repo
     for shift in _input_shifts(delays):  # shifted copies made once, before workers inherit the screen
         screen.estimation_for(shift)
     with Jobs(workers, _Run(prep, fit_prep, screen, options, orders, delays)) as jobs:
-        feedback = jobs.submit(_feedback_job, min(delays[0])) if refs is None else None
+        # submitted longest first (the workers take them in this order), collected in the order of the search
+        subspace = _submit_subspace(jobs, options, orders, delays, prep.n_inputs, prep.n_outputs) \
+            if options.method in ("subspace", "auto") else None
         arx = jobs.submit(_arx_job) if options.method in ("arx", "auto") else None
+        feedback = jobs.submit(_feedback_job, min(delays[0])) if refs is None else None
         if options.method in POLYNOMIAL_STRUCTURES:
             report("polynomial candidates", 0.1)
             search.raw.extend(polynomial_candidates(fit_prep, screen, orders, delays[0], options.method))
-        subspace = _submit_subspace(jobs, options, orders, delays, prep.n_inputs, prep.n_outputs) \
-            if options.method in ("subspace", "auto") else None
         if feedback is not None:
             search.feedback = _noted_feedback(feedback.result(), search)
         if arx is not None:
@@ -928,13 +929,20 @@ def _signal_to_noise(delay: Any) -> float:
 
 
 def _submit_subspace(jobs: Jobs, options: IdentifyOptions, orders, delays, m: int, p: int) -> list:
-    """Submit one subspace job per input shift (of the estimated delay, and of none) and horizon."""
+    """Submit one subspace job per input shift (of the estimated delay, and of none) and horizon.
+
+    The jobs of the longer horizon (the larger projections) are submitted
+    first; the list returned is in the order of the search (shift, then horizon).
+    """
     from .subspace import default_horizon
 
     shifts = list(dict.fromkeys([tuple(max(v - 1, 0) for v in delays[0]), (0,) * m]))
     h0 = default_horizon(max(orders), p)
-    horizons = [options.horizon] if options.horizon is not None else [None, 2 * h0]
-    return [jobs.submit(_subspace_job, shift, h) for shift in shifts for h in dict.fromkeys(horizons)]
+    horizons = list(dict.fromkeys([options.horizon] if options.horizon is not None else [None, 2 * h0]))
+    groups = [(shift, h) for shift in shifts for h in horizons]
+    longest_first = sorted(groups, key=lambda g: -(h0 if g[1] is None else g[1]))
+    submitted = {g: jobs.submit(_subspace_job, *g) for g in longest_first}
+    return [submitted[g] for g in groups]
 
 
 def _add_subspace(submitted: Sequence[Any], search: _Search) -> None:
