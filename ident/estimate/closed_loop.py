@@ -48,6 +48,7 @@ import numpy as np
 from .._validate import int_in_range
 from ..errors import OptionError
 from .data import Experiment, as_experiments
+from .regression import r_factor
 
 __all__ = ["FeedbackEvidence", "feedback_evidence", "f_survival", "explained_share"]
 
@@ -138,7 +139,7 @@ def feedback_evidence(data: Experiment | Sequence[Experiment], *, references: Se
     lags = int_in_range(lags, "lags", 1, 200)
     current = int(input_delay) >= 1
     innovations = _innovations(experiments, lags, current)
-    rows_small, rows_full, target = [], [], []
+    rows_full, target, k_small = [], [], 0
     for k, e in enumerate(experiments):
         u, y = e.u[:_FEEDBACK_SAMPLES], innovations[k]
         if u.shape[0] <= 3 * lags:
@@ -148,14 +149,14 @@ def feedback_evidence(data: Experiment | Sequence[Experiment], *, references: Se
             r = np.asarray(references[k], dtype=float)[:_FEEDBACK_SAMPLES].reshape(u.shape[0], -1)
             base.append(r[lags:])
             base.append(_lagged(r, lags))
-        small = np.hstack(base + [np.ones((u.shape[0] - lags, 1))])
-        rows_small.append(small)
+        small = [*base, np.ones((u.shape[0] - lags, 1))]
+        k_small = sum(x.shape[1] for x in small)
         past = _lagged(y, lags)
-        rows_full.append(np.hstack([small, y[lags:], past] if current else [small, past]))
+        rows_full.append(np.hstack([*small, y[lags:], past] if current else [*small, past]))
         target.append(u[lags:])
-    if not rows_small:
+    if not rows_full:
         raise OptionError(f"the feedback test needs more than {3 * lags} samples per experiment")
-    return _f_test(np.vstack(rows_small), np.vstack(rows_full), np.vstack(target), lags, significance)
+    return _f_test(np.vstack(rows_full), k_small, np.vstack(target), lags, significance)
 
 
 def f_survival(f: float, d1: float, d2: float) -> float:
@@ -188,22 +189,27 @@ def _innovations(experiments: Sequence[Experiment], lags: int, strictly_proper: 
         if N > 3 * lags:
             now = [] if strictly_proper else [u[lags:]]
             X = np.hstack([_lagged(y, lags), *now, _lagged(u, lags), np.ones((N - lags, 1))])
-            coef, *_ = np.linalg.lstsq(X, y[lags:], rcond=None)
+            k = X.shape[1]
+            R = r_factor(np.hstack([X, y[lags:]]))
+            coef, *_ = np.linalg.lstsq(R[:k, :k], R[:k, k:], rcond=None)  # minimum norm if deficient
             resid[lags:] = y[lags:] - X @ coef
         out.append(resid)
     return out
 
 
-def _f_test(small: np.ndarray, full: np.ndarray, target: np.ndarray, lags: int, significance: float):
-    def rss(X):
-        coef, *_ = np.linalg.lstsq(X, target, rcond=None)
-        resid = target - X @ coef
-        return float(np.sum(resid * resid))
+def _f_test(full: np.ndarray, k_small: int, target: np.ndarray, lags: int, significance: float):
+    """F-test of the columns of ``full`` after its first ``k_small`` ones, pooled over the targets.
 
-    m = target.shape[1]
-    q = (full.shape[1] - small.shape[1]) * m
-    dof = target.shape[0] * m - full.shape[1] * m
-    rss_s, rss_f = rss(small), rss(full)
+    One R factor of ``[full, target]`` gives both residual sums of squares: a
+    target column's residual on the first ``k`` columns is the norm of its R
+    entries from row ``k`` down.
+    """
+    k_full, m = full.shape[1], target.shape[1]
+    R = r_factor(np.hstack([full, target]))
+    T = R[:, k_full:]
+    rss_s, rss_f = float(np.sum(T[k_small:] ** 2)), float(np.sum(T[k_full:] ** 2))
+    q = (k_full - k_small) * m
+    dof = target.shape[0] * m - k_full * m
     if dof <= 0 or rss_f <= 0:
         return FeedbackEvidence(math.nan, math.nan, lags, False, significance)
     f = ((rss_s - rss_f) / q) / (rss_f / dof)

@@ -27,7 +27,7 @@ import numpy as np
 from .._validate import int_in_range, positive_float
 from ..errors import IdentificationError, OptionError
 from .data import Experiment, as_experiments
-from .regression import accumulate_r, column_index, lag_blocks, largest_lag, rows_available, solve_subset
+from .regression import accumulate_r, column_index, lag_blocks, largest_lag, r_factor, rows_available, solve_subset
 
 __all__ = ["DELAY_METHOD", "PREWHITENING_MAX_ORDER", "DelayEstimate", "estimate_delay", "prewhiten"]
 
@@ -277,7 +277,7 @@ def _input_ar_model(items: Sequence[Experiment], max_order: int) -> tuple[int, n
     # columns: lags 1 .. max_order, then the current sample (the target last)
     lags = list(range(1, max_order + 1)) + [0]
     rows = np.vstack([np.column_stack([c[max_order - i:c.size - i] for i in lags]) for c in cols])
-    R = np.linalg.qr(rows, mode="r")
+    R = r_factor(rows)
     N = rows.shape[0]
     best, best_coef = 0, np.zeros(0)
     best_aic = N * np.log(max(float(rows[:, -1] @ rows[:, -1]) / N, 1e-300))

@@ -39,6 +39,7 @@ __all__ = [
     "fill_rows",
     "lag_blocks",
     "largest_lag",
+    "r_factor",
     "rows_available",
     "solve_subset",
 ]
@@ -165,6 +166,24 @@ def _absorb_rows(tasks: Sequence[tuple[Experiment, int, int]], blocks: Sequence[
         fill_rows(buf[have:], exp, blocks, max_lag, k0, k1)
         R = np.linalg.qr(buf, mode="r")  # min(c, rows so far) x c, upper triangular
     return R
+
+
+def r_factor(matrix: np.ndarray) -> np.ndarray:
+    """R factor (``c x c``, upper triangular) of a tall matrix, by Householder QR one block of rows at a time.
+
+    The same numbers as ``numpy.linalg.qr(matrix, mode="r")`` up to rounding,
+    several times faster on long matrices: each block (about 1 MiB) is stacked
+    under the R so far and factorised while it sits in cache.
+    """
+    matrix = np.asarray(matrix, dtype=float)
+    n, c = matrix.shape
+    chunk = max(8 * c, _BLOCK_VALUES // max(c, 1))
+    R = np.zeros((0, c))
+    for k0 in range(0, n, chunk):
+        R = np.linalg.qr(np.vstack([R, matrix[k0:k0 + chunk]]), mode="r")
+    out = np.zeros((c, c))
+    out[:R.shape[0]] = R
+    return out
 
 
 # --------------------------------------------------------------------------- solving

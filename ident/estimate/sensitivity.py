@@ -326,10 +326,16 @@ class PredictionProblem:
         for k, (_, J, Jx, e) in self.jacobian_chunks(point, Q):
             rows = e.shape[0] * p
             block = np.zeros((rows, width))
-            block[:, :d] = -np.einsum("ab,tbk->tak", self.weight, J).reshape(rows, d)
-            block[:, d + k * w:d + (k + 1) * w] = -np.einsum("ab,tbk->tak", self.weight, Jx).reshape(rows, w)
+            block[:, :d] = -self._weighted(J).reshape(rows, d)
+            block[:, d + k * w:d + (k + 1) * w] = -self._weighted(Jx).reshape(rows, w)
             block[:, -1] = (e @ self.weight.T).reshape(rows)
             yield block
+
+    def _weighted(self, J: np.ndarray) -> np.ndarray:
+        """``W J[t]`` for every sample ``t`` of ``J`` (T, p, k); a stacked product, several times faster than einsum."""
+        if self.p == 1:
+            return J * float(self.weight[0, 0])
+        return np.matmul(self.weight, J)
 
     def jacobian_chunks(self, point: Point, Q: np.ndarray):
         """Yield ``(experiment, (t0, dyhat/dbeta (T, p, d), dyhat/dnuisance (T, p, n [+ p]), e (T, p)))``."""
