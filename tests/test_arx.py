@@ -142,6 +142,22 @@ def test_parameters_equal_statsmodels_ols_when_accumulated_in_many_blocks(rng, m
     assert_allclose(res.std_errors[0], ols.bse, rtol=1e-9)
 
 
+@pytest.mark.parametrize("rows", [5, 40, 3000, 70_000])
+def test_blocked_r_factor_is_numpy_qr(rng, rows):
+    # the R factor built a block of rows at a time against numpy.linalg.qr of the whole matrix:
+    # R is unique up to the signs of its rows (Golub & Van Loan, Matrix Computations, 4th ed.,
+    # thm. 5.2.3), so R^T R and |R| agree
+    from ident.estimate.regression import r_factor
+
+    A = rng.standard_normal((rows, 12)) @ np.diag(np.logspace(0, 4, 12))
+    R = r_factor(A)
+    ref = np.linalg.qr(A, mode="r")
+    assert R.shape == (12, 12) and np.allclose(np.tril(R, -1), 0.0)
+    k = ref.shape[0]
+    assert_allclose(np.abs(R[:k]), np.abs(ref), rtol=1e-9, atol=1e-9 * np.abs(ref).max())
+    assert_allclose(R.T @ R, A.T @ A, rtol=1e-9, atol=1e-9 * np.abs(A.T @ A).max())
+
+
 def test_two_experiments_equal_stacked_regression(rng):
     u1, u2 = rng.standard_normal(400), rng.standard_normal(250)
     y1 = _arx_output(u1, 0.1 * rng.standard_normal(400))

@@ -57,6 +57,28 @@ def test_f_survival_matches_scipy():
         assert_allclose(f_survival(f, d1, d2), stats.f.sf(f, d1, d2), rtol=0.15)
 
 
+def test_f_statistic_equals_two_ordinary_least_squares_fits():
+    # the nested sums of squares read from one R factor against two numpy.linalg.lstsq fits of the
+    # same regressions, the textbook F statistic ((RSS_s - RSS_f) / q) / (RSS_f / dof)
+    # (Granger 1969; any regression text), on the open-loop and the closed-loop rig
+    from ident.estimate.closed_loop import _innovations, _lagged
+
+    lags = 10
+    u_cl, y_cl, _ = _pi_rig(3, n=6000)
+    rng = np.random.default_rng(4)
+    u_ol = signal.lfilter([1.0], [1.0, -0.9], rng.standard_normal(6000))[:, None]
+    y_ol = signal.lfilter(*_plant(), u_ol[:, 0])[:, None] + 0.05 * rng.standard_normal((6000, 1))
+    for u, y in ((u_cl, y_cl), (u_ol, y_ol)):
+        e = _innovations([Experiment(u, y)], lags, True)[0]
+        small = np.hstack([_lagged(u, lags), np.ones((u.shape[0] - lags, 1))])
+        full = np.hstack([small, e[lags:], _lagged(e, lags)])
+        rss = [float(np.sum((u[lags:] - X @ np.linalg.lstsq(X, u[lags:], rcond=None)[0]) ** 2)) for X in (small, full)]
+        dof = full.shape[0] - full.shape[1]
+        expected = ((rss[0] - rss[1]) / (full.shape[1] - small.shape[1])) / (rss[1] / dof)
+        got = feedback_evidence(Experiment(u, y), input_delay=1)
+        assert_allclose(got.f_statistic, expected, rtol=1e-8)
+
+
 def test_feedback_is_found_in_closed_loop_and_not_in_open_loop():
     u, y, _ = _pi_rig(1)
     assert feedback_evidence(Experiment(u, y)).closed_loop
