@@ -27,6 +27,11 @@ the signals and finds the model the data support best, in four stages:
    (the noise gain of its innovations form, :func:`ident.estimate.refine.fit_noise_gain`)
    and its parameter covariance, and is scored on all the held-out data.
 
+With ``workers`` above 1 the independent jobs of stages 1-3 (the feedback test,
+each subspace input shift and horizon, the ARX grid, each refinement) run in
+forked worker processes (:mod:`ident.estimate.jobs`); the results are taken in
+the order of the search, so the model does not depend on the number of workers.
+
 The model returned is estimated on the estimation part only; it is not
 re-estimated on the held-out data, so the validation figures it carries are
 figures of exactly this model.
