@@ -1014,15 +1014,18 @@ def _refine_job(run: _Run, start: Fitted, form: str) -> Fitted | None:
     return _screening_refinement(start, form, run.screen)
 
 
-def _screening_refinement(start: Fitted, form: str, screen: Screen) -> Fitted | None:
-    """``start`` refined in ``form`` on the screening data and scored (``None`` when it cannot be refined)."""
+def _screening_refinement(start: Fitted, form: str, screen: Screen, extra: dict | None = None) -> Fitted | None:
+    """``start`` refined in ``form`` on the screening data and scored (``None`` when it cannot be refined).
+
+    ``extra`` joins the candidate's structure record.
+    """
     from .refine import RefineOptions
 
     opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
                          working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
                          max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
     refined = _refine_one(start, screen.estimation_for(start.shift), opts)
-    return None if refined is None else _refined(start, *refined, form, {}, screen)
+    return None if refined is None else _refined(start, *refined, form, extra or {}, screen)
 
 
 def _refined(start: Fitted, res, caught: list, form: str, extra: dict, screen: Screen) -> Fitted:
@@ -1059,7 +1062,6 @@ def _reduce_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
        controllability, observability, and model reduction", IEEE Trans.
        Automatic Control 26(1), 17-32, 1981.
     """
-    from .refine import RefineOptions
     from .selection import as_accurate_pvalue
 
     scales = np.where(screen.output_variance > 0, screen.output_variance, 1.0)
@@ -1074,15 +1076,11 @@ def _reduce_best(options: IdentifyOptions, screen: Screen, search: _Search) -> N
             if start is None:
                 break
             search.report(f"reducing to {start.core.n_states} states", 0.8)
-            opts = RefineOptions(noise_model=form, feedthrough=start.feedthrough,
-                                 working_samples=_SCREEN_WORKING_SAMPLES, polish_iterations=0, covariance=False,
-                                 max_iterations=_SCREEN_ITERATIONS, step_tolerance=_SCREEN_STEP_TOLERANCE)
-            refined = _refine_one(start, screen.estimation_for(start.shift), opts)
-            if refined is None:
-                break
             index = len(search.raw) + search.refined.index(parent)
-            reduced = _refined(start, *refined, form, {"refined_from": index,
-                                                       "reduced_from": parent.core.n_states}, screen)
+            reduced = _screening_refinement(start, form, screen,
+                                            {"refined_from": index, "reduced_from": parent.core.n_states})
+            if reduced is None:
+                break
             search.refined.append(reduced)
             if (not reduced.score.errors
                     or as_accurate_pvalue(reduced.score.errors, best.score.errors, scales) < options.significance):
