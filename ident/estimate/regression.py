@@ -135,7 +135,7 @@ def accumulate_r(experiments: Sequence[Experiment], blocks: Sequence[RegressorBl
     block whatever the length of the log.
     """
     c = sum(b.width for b in blocks)
-    chunk = max(8 * c, _BLOCK_VALUES // max(c, 1))
+    chunk = _rows_per_block(c)
     tasks: list[tuple[Experiment, int, int]] = []
     total = 0
     for exp in experiments:
@@ -168,6 +168,11 @@ def _absorb_rows(tasks: Sequence[tuple[Experiment, int, int]], blocks: Sequence[
     return R
 
 
+def _rows_per_block(c: int) -> int:
+    """Rows of ``c`` columns factorised at a time: about :data:`_BLOCK_VALUES` values, at least ``8 c`` rows."""
+    return max(8 * c, _BLOCK_VALUES // max(c, 1))
+
+
 def r_factor(matrix: np.ndarray) -> np.ndarray:
     """R factor (``c x c``, upper triangular) of a tall matrix, by Householder QR one block of rows at a time.
 
@@ -177,7 +182,7 @@ def r_factor(matrix: np.ndarray) -> np.ndarray:
     """
     matrix = np.asarray(matrix, dtype=float)
     n, c = matrix.shape
-    chunk = max(8 * c, _BLOCK_VALUES // max(c, 1))
+    chunk = _rows_per_block(c)
     R = np.zeros((0, c))
     for k0 in range(0, n, chunk):
         R = np.linalg.qr(np.vstack([R, matrix[k0:k0 + chunk]]), mode="r")
