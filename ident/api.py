@@ -39,7 +39,7 @@ __all__ = ["fit", "load_model", "ModelResult", "CheckResult", "ModeFrame"]
 FRAME_NAME = "DataFrame"
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\]]*)\]|\((?P<u2>[^)]*)\))\s*$")
 #: Keys of :class:`ident.estimate.preprocess.PreprocessOptions` accepted directly by :func:`fit`.
-_PREPROCESS_KEYS = ("offset", "initial_window_s", "detrend", "decimate", "holdout")
+_PREPROCESS_KEYS = ("offset", "initial_window_s", "detrend", "decimate", "holdout", "drop_frozen_tail")
 
 
 # --------------------------------------------------------------------------- data in
@@ -197,7 +197,7 @@ def fit(
         Fit options, as in a pipeline file's ``[fit]`` and ``[preprocess]``
         tables: ``method``, ``order`` (an int or ``"auto"``), ``max_order``,
         ``delay``, ``weighting``, ``horizon``, ``stabilize``, ``refinement``,
-        ... and ``offset``, ``detrend``, ``decimate``, ``holdout``.
+        ... and ``offset``, ``detrend``, ``decimate``, ``holdout``, ``drop_frozen_tail``.
 
     Returns
     -------

@@ -23,6 +23,7 @@ __all__ = [
     "IdentWarning",
     "PoorExcitationWarning",
     "IllConditionedWarning",
+    "FrozenDataWarning",
     "UnstableModelWarning",
     "ResamplingWarning",
     "SignalDesignWarning",
@@ -252,6 +253,10 @@ class IllConditionedWarning(IdentWarning):
 
 class UnstableModelWarning(IdentWarning):
     """An estimated model has a pole outside the unit circle."""
+
+
+class FrozenDataWarning(IdentWarning):
+    """A record ends in samples that repeat one value in every channel (padding or a stopped logger)."""
 
 
 class ResamplingWarning(IdentWarning):

@@ -762,6 +762,7 @@ def _data_summary(state: dict[str, Any]) -> dict[str, Any]:
         ],
         "estimation_ranges": [list(r) for r in prep.estimation_ranges],
         "validation_ranges": [list(r) for r in prep.validation_ranges],
+        "frozen_tails": [list(r) for r in prep.frozen_tails],
         "validation_logs": [{"path": lg.source.path, "file_name": lg.source.file_name, "sha256": lg.source.sha256,
                              "n_samples": lg.n_samples, "segments": [list(x) for x in lg.segments]}
                             for lg in state["validation_logs"]],
@@ -1005,6 +1006,7 @@ def _model_provenance(spec: PipelineSpec, state: dict[str, Any], summary: dict[s
         "estimation": {"command": "run", "pipeline": spec.name, "pipeline_sha256": spec.sha256,
                        "method": result.method, "order": result.order, "options": result.options.to_dict(),
                        "ranges": [list(r) for r in prep.estimation_ranges],
+                       "frozen_tails": [list(r) for r in prep.frozen_tails],
                        "sample_time": prep.sample_time, "decimation": prep.decimation,
                        "input_delay": list(result.input_delay), "noise_model": result.noise_model,
                        **uncertainty_provenance(state["pole_covariance"], result.covariance)},

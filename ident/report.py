@@ -185,6 +185,8 @@ def _data(s: Mapping[str, Any], figures: Mapping[str, bytes]) -> str:
     split = (f"Estimation samples {', '.join(f'{a}–{b}' for a, b in d['estimation_ranges'])}; held out for "
              f"validation {', '.join(f'{a}–{b}' for a, b in d['validation_ranges'])} (sample indices, "
              "files laid end to end)."
+             + (f" Left out as frozen (every channel repeating one value to the end of its record): "
+                f"{', '.join(f'{a}–{b}' for a, b in d['frozen_tails'])}." if d.get("frozen_tails") else "")
              + (f" Decimated by {d['decimation']} to T = {_num(d['sample_time'])} s." if d["decimation"] > 1 else ""))
     resampled = [_p(f"{lg['file_name']}: {lg['resampling_text']}.") for lg in d["logs"]
                  if lg.get("resampling_text")]

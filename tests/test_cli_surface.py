@@ -53,7 +53,7 @@ def test_fit_offers_every_pipeline_fit_option():
 
     fit = cli.get_command(_CTX, "fit")
     params = {p.name for p in fit.params}
-    aliases = {"order": "order_text"}
+    aliases = {"order": "order_text", "drop_frozen_tail": "keep_frozen_tail"}  # the flag is the key negated
     keys = [f.name for f in dataclasses.fields(IdentifyOptions) if f.name != "preprocess"]
     keys += [f.name for f in dataclasses.fields(PreprocessOptions)]
     missing = [k for k in keys if aliases.get(k, k) not in params]

@@ -270,6 +270,28 @@ def test_fit_with_one_worker_or_several_writes_the_same_model(run_cli, log_file,
     assert res.exit_code == 2 and "--workers" in res.output
 
 
+def test_a_frozen_tail_is_left_out_and_named_unless_kept(run_cli, tmp_path):
+    # the log's last 600 rows repeat row 2399 in every column but time (a logger writing its last
+    # reading); the hold-out is taken from the 2400 rows before (common practice, no source)
+    lines = _write_log(tmp_path / "src.csv").read_text().splitlines()
+    frozen = lines[:2401] + [f"{k * T:.4f}," + lines[2400].split(",", 1)[1] for k in range(2400, 3000)]
+    log = tmp_path / "stopped.csv"
+    log.write_text("\n".join(frozen) + "\n")
+    before = log.read_bytes()
+    res = run_cli("fit", log, "--input", "valve", "--output", "flow", "--max-order", "2", "--json", "--quiet")
+    assert res.exit_code == 0, res.output
+    data = json.loads(res.stdout)
+    assert data["ranges"] == {"estimation": [[0, 1680]], "validation": [[1680, 2400]],
+                              "frozen_tails": [[2400, 3000]]}
+    assert any("samples 2400-2999 (the last 600 of the log)" in w for w in data["warnings"])
+    text = run_cli("fit", log, "--input", "valve", "--output", "flow", "--max-order", "2", "--quiet")
+    assert "600 frozen samples at the end left out" in text.stdout
+    kept = run_cli("fit", log, "--input", "valve", "--output", "flow", "--max-order", "2", "--json", "--quiet",
+                   "--keep-frozen-tail")
+    assert json.loads(kept.stdout)["ranges"]["validation"] == [[2100, 3000]]
+    assert log.read_bytes() == before
+
+
 @pytest.mark.parametrize("args", [["--order", "zero"], ["--order", "0"], ["--holdout", "1.5"],
                                   ["--method", "best"]])
 def test_bad_options_exit_2(run_cli, log_file, args):

@@ -68,6 +68,22 @@ def test_json_summary(run_cli, axis_log):
     assert_allclose(exc["band_hz"], exc["band_fraction_of_nyquist"] * 500.0, rtol=1e-12)  # f_N
 
 
+def test_frozen_tail_of_the_chosen_channels_is_named(run_cli, tmp_path, axis_log):
+    # the last 500 rows repeat row 3499 in both chosen columns (time still counts): what fit leaves out
+    _, frame = axis_log
+    frame = frame.copy()
+    frame.iloc[3500:, 1:] = frame.iloc[3499, 1:].to_numpy()
+    path = tmp_path / "stopped.csv"
+    frame.to_csv(path, index=False)
+    args = ("inspect", path, "--input", "motor_torque_cmd", "--output", "motor_speed")
+    result = run_cli(*args)
+    assert result.exit_code == 0, result.stderr
+    assert "frozen     samples 3500-3999 repeat sample 3499 in every chosen channel" in result.stdout
+    assert json.loads(run_cli(*args, "--json").stdout)["log"]["frozen_tails"] == [[3500, 4000]]
+    plain = run_cli("inspect", axis_log[0], "--input", "motor_torque_cmd", "--output", "motor_speed", "--json")
+    assert json.loads(plain.stdout)["log"]["frozen_tails"] == []
+
+
 def test_plot_written_atomically_and_not_overwritten(run_cli, axis_log, tmp_path):
     path, _ = axis_log
     png = tmp_path / "signals.png"

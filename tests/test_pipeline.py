@@ -12,7 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from ident.errors import IdentError, LogFormatError
+from ident.errors import FrozenDataWarning, IdentError, LogFormatError
 from ident.estimate.excitation import excited_band
 from ident.io.modelfile import load_model
 from ident.pipeline import run_pipeline
@@ -360,6 +360,27 @@ def test_validate_with_holds_out_whole_logs(tmp_path):
     # the report's Data section lists it beside the estimation log
     data_section = result.report_path.read_text(encoding="utf-8").split('id="data"')[1].split("</section>")[0]
     assert "Separate validation logs" in data_section and "second_run.csv" in data_section
+
+
+def test_a_frozen_tail_is_left_out_and_recorded_by_the_run(tmp_path):
+    # rows 2000-2499 repeat row 1999's values (time still counting): a logger writing its last reading
+    write_resonant_log(tmp_path / "rig.csv")
+    lines = (tmp_path / "rig.csv").read_text().splitlines()
+    held = lines[2000].split(",", 1)[1]
+    lines[2001:] = [f"{k * 0.01:.4f},{held}" for k in range(2000, 2500)]
+    (tmp_path / "rig.csv").write_text("\n".join(lines) + "\n")
+    pipe = write_pipeline(tmp_path)
+    with pytest.warns(FrozenDataWarning, match="samples 2000-2499"):
+        result = run_pipeline(pipe, out_dir=tmp_path / "out")
+    prep = result.identification.prepared
+    assert prep.frozen_tails == ((2000, 2500),) and prep.validation_ranges == ((1400, 2000),)
+    assert result.summary["data"]["frozen_tails"] == [[2000, 2500]]
+    assert load_model(result.model_path).provenance["estimation"]["frozen_tails"] == [[2000, 2500]]
+    data_section = result.report_path.read_text(encoding="utf-8").split('id="data"')[1].split("</section>")[0]
+    assert "Left out as frozen" in data_section and "2000–2500" in data_section
+    pipe.write_text(pipe.read_text() + "[preprocess]\ndrop_frozen_tail = false\n")
+    kept = run_pipeline(pipe, out_dir=tmp_path / "kept").identification.prepared
+    assert kept.frozen_tails == () and kept.validation_ranges == ((1750, 2500),)
 
 
 @pytest.mark.filterwarnings("ignore::ident.errors.PoorExcitationWarning")

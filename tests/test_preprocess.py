@@ -7,9 +7,9 @@ import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
-from ident.errors import OptionError, PipelineError
+from ident.errors import FrozenDataWarning, OptionError, PipelineError
 from ident.estimate.data import Experiment
-from ident.estimate.preprocess import OFFSET_METHODS, PreprocessOptions, prepare
+from ident.estimate.preprocess import OFFSET_METHODS, PreprocessOptions, frozen_tail_length, prepare
 
 
 def _record(rng, n=1000, m=2, p=1, offset=(3.0, -1.0, 20.0)):
@@ -153,7 +153,7 @@ def test_names_and_units(rng):
 @pytest.mark.parametrize(
     "kwargs",
     [{"offset": "median"}, {"holdout": 1.0}, {"holdout": -0.1}, {"decimate": 0},
-     {"initial_window_s": 0.0}, {"detrend": "yes"}],
+     {"initial_window_s": 0.0}, {"detrend": "yes"}, {"drop_frozen_tail": "no"}],
 )
 def test_bad_options(kwargs):
     with pytest.raises(OptionError):
@@ -179,3 +179,71 @@ def test_short_experiment_for_decimation_is_refused(rng):
 def test_mismatched_lengths_refused(rng):
     with pytest.raises(OptionError, match="same number of samples"):
         prepare([(np.zeros((10, 1)), np.zeros((9, 1)))], 1.0)
+
+
+def _frozen_by_loop(u, y):
+    # direct reference: walk back from the end while a row equals the last row (common practice, no source)
+    z = np.hstack((u, y))
+    k = z.shape[0] - 1
+    while k > 0 and np.array_equal(z[k - 1], z[-1]):
+        k -= 1
+    return z.shape[0] - 1 - k
+
+
+@pytest.mark.parametrize("tail", [0, 1, 5, 255, 256, 257, 700, 2999])
+def test_frozen_tail_length_matches_a_direct_loop(rng, tail):
+    u, y = _record(rng, n=3000)
+    if tail:
+        u[-tail:], y[-tail:] = u[-tail - 1], y[-tail - 1]
+    assert frozen_tail_length(u, y) == _frozen_by_loop(u, y) == tail
+
+
+def test_frozen_tail_needs_every_channel_to_repeat(rng):
+    u, y = _record(rng, n=500)
+    u[-100:] = u[-101]  # the input is held, the output still moves
+    assert frozen_tail_length(u, y) == 0
+    y[-100:] = y[-101]
+    y[-1, 0] = np.nextafter(y[-1, 0], np.inf)  # one bit off in the last sample: not frozen
+    assert frozen_tail_length(u, y) == 0
+
+
+def test_frozen_tail_is_left_out_before_the_split(rng):
+    u, y = _record(rng, n=1000)
+    u[800:], y[800:] = u[799], y[799]  # a record padded with its last values (200 repeats)
+    with pytest.warns(FrozenDataWarning, match=r"samples 800-999 \(the last 200 of the log\)"):
+        prep = prepare((u, y), 1.0, PreprocessOptions(holdout=0.25))
+    assert prep.frozen_tails == ((800, 1000),)
+    # the hold-out fraction applies to the 800 samples that remain: round(0.75 * 800) = 600
+    assert prep.estimation_ranges == ((0, 600),) and prep.validation_ranges == ((600, 800),)
+    assert_allclose(prep.validation[0].y, y[600:800] - y[:600].mean(axis=0), atol=1e-13)
+    kept = prepare((u, y), 1.0, PreprocessOptions(holdout=0.25, drop_frozen_tail=False))
+    assert kept.frozen_tails == () and kept.validation_ranges == ((750, 1000),)
+
+
+def test_short_or_whole_frozen_runs_are_kept(rng):
+    import warnings
+
+    u, y = _record(rng, n=4000)
+    u[-39:], y[-39:] = u[-40], y[-40]  # 39 repeats: fewer than 1 % of 4000
+    const = (np.ones((300, 1)), np.ones((300, 1)))  # a record that is one value throughout
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", FrozenDataWarning)
+        assert prepare((u, y), 1.0).frozen_tails == ()
+        assert prepare(const, 1.0).frozen_tails == ()
+
+
+def test_frozen_tails_of_several_records_and_of_a_separate_validation_log(rng):
+    a, b = _record(rng, n=500), _record(rng, n=600)
+    for u, y in (a, b):
+        u[-50:], y[-50:] = u[-51], y[-51]
+    with pytest.warns(FrozenDataWarning) as caught:
+        prep = prepare([a, b], 1.0, segment_starts=[0, 700])
+    assert ["of segment 1" in str(w.message) for w in caught] == [True, False]
+    assert "samples 1250-1299 (the last 50 of segment 2)" in str(caught[1].message)
+    assert prep.frozen_tails == ((450, 500), (1250, 1300))
+    assert prep.estimation_ranges == ((0, 315), (700, 1085))
+    with pytest.warns(FrozenDataWarning, match="of the validation log"):
+        sep = prepare([_record(rng, n=400)], 1.0, validation_data=[a])
+    # validation records count on after the estimation records with a gap of one sample
+    assert sep.frozen_tails == ((401 + 450, 401 + 500),)
+    assert sep.validation_ranges == ((401, 401 + 450),)

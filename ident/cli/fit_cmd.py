@@ -84,6 +84,9 @@ def _parse_order(value: str) -> int | None:
                    "two-stage method for logs taken in closed loop).")
 @click.option("--holdout", type=float, default=0.3, show_default=True, metavar="FRACTION",
               help="Hold out this fraction at the end of the log (of each segment) for validation.")
+@click.option("--keep-frozen-tail", is_flag=True,
+              help="Keep samples at the end of the log that repeat one value in every channel (by default "
+                   "such a padded or stopped stretch is left out before the hold-out is taken).")
 @click.option("--validate-with", "validation_path", type=click.Path(dir_okay=False), default=None, metavar="LOG",
               help="Hold out this whole separate log (same columns, read the same way) instead of the tail "
                    "of LOG: LOG is used whole for estimation.")
@@ -136,6 +139,7 @@ def fit(
     stabilize: bool,
     references: tuple[str, ...],
     holdout: float,
+    keep_frozen_tail: bool,
     validation_path: str | None,
     period_text: str,
     description_path: str | None,
@@ -205,7 +209,7 @@ def fit(
         per_criterion=per_criterion,
         screen_samples=screen_samples,
         preprocess=PreprocessOptions(holdout=holdout, detrend=detrend, decimate=decimate, offset=offset,
-                                     initial_window_s=initial_window_s),
+                                     initial_window_s=initial_window_s, drop_frozen_tail=not keep_frozen_tail),
     )
     show_progress = progress_enabled(quiet)
     with warnings.catch_warnings(record=True) as caught:
@@ -381,6 +385,7 @@ def _provenance(log, result) -> dict[str, Any]:
             "structure": result.selected.structure,
             "options": result.options.to_dict(),
             "ranges": [list(r) for r in prep.estimation_ranges],
+            "frozen_tails": [list(r) for r in prep.frozen_tails],
             "n_samples": prep.n_estimation_samples,
             "sample_time": prep.sample_time,
             "decimation": prep.decimation,
@@ -452,6 +457,7 @@ def _summary(log, result, table, messages, written) -> dict[str, Any]:
         "ranges": {
             "estimation": [list(r) for r in prep.estimation_ranges],
             "validation": [list(r) for r in prep.validation_ranges],
+            "frozen_tails": [list(r) for r in prep.frozen_tails],
         },
         "modes": mode_table_to_dict(table),
         "flags": flags,
@@ -605,6 +611,8 @@ def _text(log, result, table, written, vlog=None) -> str:
         f"{log.source.file_name}: {log.n_samples} samples{seg}, T = {log.sample_time:g} s"
         + (f", decimated by {prep.decimation} to T = {prep.sample_time:g} s" if prep.decimation > 1 else "")
         + (f", {log.dropped_rows} bad rows dropped" if log.dropped_rows else "")
+        + (f", {sum(b - a for a, b in prep.frozen_tails)} frozen samples at the end left out"
+           if prep.frozen_tails else "")
     ]
     sel = result.selected
     how = {"output_error": "refined by output error", "innovations": "refined in innovations form"}

@@ -264,7 +264,8 @@ def _summary(rec: Any, bases: list, log: Any, excitation: tuple) -> dict:
         **_top(rec, bases, log), "groups": _groups(rec, bases), "columns": columns,
         "skipped": list(rec.skipped),
         "log": None if log is None else {"inputs": list(log.input_names), "outputs": list(log.output_names),
-                                         "n_samples": log.n_samples, "sample_time_s": log.sample_time},
+                                         "n_samples": log.n_samples, "sample_time_s": log.sample_time,
+                                         "frozen_tails": _frozen_tails(log)},
         "excitation": [
             {"input": r.name, "pe_order": r.pe_order, "pe_order_is_lower_bound":
              r.pe_order_is_lower_bound, "max_order_tested": r.max_order_tested, "rcond": r.rcond,
@@ -273,6 +274,18 @@ def _summary(rec: Any, bases: list, log: Any, excitation: tuple) -> dict:
             for r in excitation
         ],
     }
+
+
+def _frozen_tails(log: Any) -> list[list[int]]:
+    """Sample ranges ``[a, b)`` that ``rigfit fit`` leaves out as frozen tails of the chosen channels' segments."""
+    from ..estimate.preprocess import frozen_tail_length, frozen_tail_rule
+
+    tails = []
+    for a, b in log.segments:
+        count = frozen_tail_length(log.u[a:b], log.y[a:b])
+        if frozen_tail_rule(count, b - a):
+            tails.append([b - count, b])
+    return tails
 
 
 def _g(x: float | None, digits: int = 6) -> str:
@@ -402,6 +415,10 @@ def summary_text(p: dict) -> str:
             "(PE order: largest n whose n x n input covariance has lambda_min/lambda_max > "
             f"{p['excitation'][0]['rcond']:g}; a model with nb input terms needs nb <= it)"
         )
+    for a, b in (p["log"] or {}).get("frozen_tails", []):
+        lines.append("")
+        lines.append(f"frozen     samples {a}-{b - 1} repeat sample {a - 1} in every chosen channel, to the last "
+                     "bit (a padded or stopped recording): rigfit fit leaves them out")
     if p.get("plot"):
         lines.append("")
         lines.append(f"plot       {p['plot']}")

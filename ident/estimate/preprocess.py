@@ -6,6 +6,18 @@ decimated, split into an estimation part and a held-out validation part.
 
 Order of the steps, for every experiment (contiguous record) separately:
 
+0. **Frozen tail** (on by default). Trailing samples that repeat the record's
+   last values in every channel, input and output alike, bit for bit, are
+   left out when there are at least ``max(20, 1 %)`` of them: a record padded
+   to a length or a logger that kept writing its last reading after the
+   signals stopped. No measured channel holds one value to the last bit for
+   that long while it carries information, and a hold-out made of such
+   samples scores the model on nothing (its fit percent divides by the
+   variation of an almost constant signal). The first sample of the run is
+   kept (it is where the signals arrived); the rest is reported by
+   :class:`~ident.errors.FrozenDataWarning` and in
+   :attr:`PreparedData.frozen_tails`. Leading samples at rest are kept: they
+   are the initial state and the ``offset="initial"`` level.
 1. **Split.** The last ``holdout`` fraction of each experiment is held out for
    validation; the first part is used for estimation. Every experiment
    contributes to both parts, so a log of several experiments is validated on
@@ -34,6 +46,7 @@ carry over to another).
 from __future__ import annotations
 
 import math
+import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, fields
 from typing import Any, Literal
@@ -50,7 +63,7 @@ from .._validate import (
     sample_time_value,
 )
 from ..choices import OFFSET_METHODS
-from ..errors import OptionError
+from ..errors import FrozenDataWarning, OptionError
 from ..lti._linalg import column_sums
 from ..lti.models import OperatingPoint
 from .data import Experiment, as_experiments
@@ -68,6 +81,11 @@ _DEFAULT_INITIAL_FRACTION = 0.05
 
 #: Largest decimation factor accepted.
 _MAX_DECIMATION = 1000
+
+#: A frozen tail is left out when it is at least this many samples long and
+#: at least this share of its record (step 0 of the module docstring).
+_FROZEN_MIN_SAMPLES = 20
+_FROZEN_MIN_FRACTION = 0.01
 
 
 @dataclass(frozen=True, slots=True, eq=False, kw_only=True)
@@ -92,6 +110,10 @@ class PreprocessOptions:
     holdout : float
         Fraction in ``[0, 1)`` of each experiment, at its end, held out for
         validation (default 0.3). ``0`` keeps everything for estimation.
+    drop_frozen_tail : bool
+        Leave out the trailing samples of a record that repeat its last values
+        in every channel (step 0 of the module docstring; default ``True``).
+        The hold-out fraction applies to what remains.
     """
 
     offset: Literal["mean", "initial"] = "mean"
@@ -99,6 +121,7 @@ class PreprocessOptions:
     detrend: bool = False
     decimate: int = 1
     holdout: float = 0.3
+    drop_frozen_tail: bool = True
 
     def __post_init__(self) -> None:
         one_of(self.offset, "offset", OFFSET_METHODS)
@@ -115,6 +138,9 @@ class PreprocessOptions:
             raise OptionError(f"holdout must be a number in [0, 1); got {self.holdout!r}")
         holdout = float(self.holdout)
         object.__setattr__(self, "holdout", holdout)
+        if not isinstance(self.drop_frozen_tail, (bool, np.bool_)):
+            raise OptionError(f"drop_frozen_tail must be true or false; got {self.drop_frozen_tail!r}")
+        object.__setattr__(self, "drop_frozen_tail", bool(self.drop_frozen_tail))
 
     @classmethod
     def from_mapping(cls, mapping: Mapping[str, Any], *, key_path: str = "") -> PreprocessOptions:
@@ -175,6 +201,10 @@ class PreparedData:
         of :func:`prepare`), not from the tails of the estimation records. Their
         ranges count on after the estimation records with a gap of one sample
         (records laid end to end, none continuing an estimation record).
+    frozen_tails : tuple of (int, int)
+        Half-open sample index ranges, counted like the other ranges, left out
+        because they repeat their record's last values in every channel
+        (``drop_frozen_tail``); empty when none was found.
     """
 
     estimation: tuple[Experiment, ...]
@@ -191,6 +221,7 @@ class PreparedData:
     output_units: tuple[str, ...]
     options: PreprocessOptions
     separate_validation: bool = False
+    frozen_tails: tuple[tuple[int, int], ...] = ()
 
     @property
     def n_inputs(self) -> int:
@@ -363,6 +394,7 @@ def prepare(
         return _prepare_separate(records, as_records(validation_data), sample_time, options, labels,
                                  starts, validation_starts)
 
+    records, frozen = _without_frozen_tails(records, starts, options, ("the log", "segment"))  # 0. frozen tails
     splits = _split_points(records, q, options.holdout)  # 1. split points (raw samples)
     op_u, op_y = _operating_levels(records, splits, options, sample_time)  # 2. operating point
     operating_point = OperatingPoint(inputs=op_u, outputs=op_y)
@@ -405,7 +437,72 @@ def prepare(
         trends=trend_array,
         **labels,
         options=options,
+        frozen_tails=frozen,
     )
+
+
+def frozen_tail_length(u: np.ndarray, y: np.ndarray) -> int:
+    """Count the trailing samples that repeat an earlier sample's values in every channel, bit for bit.
+
+    The samples counted are those after the first one of the final run of
+    identical rows (that one is where the signals arrived and is not counted);
+    ``N - 1`` when the whole record holds one value.
+
+    Parameters
+    ----------
+    u, y : numpy.ndarray
+        Inputs (N, m) and outputs (N, p) of one record.
+
+    Returns
+    -------
+    int
+    """
+    n = u.shape[0]
+    last_u, last_y = u[-1], y[-1]
+    end, block = n - 1, 256  # rows [end, n) equal the last row
+    while end > 0:
+        a = max(0, end - block)
+        same = np.all(u[a:end] == last_u, axis=1) & np.all(y[a:end] == last_y, axis=1)
+        if not same.all():
+            first = a + int(np.flatnonzero(~same)[-1]) + 1  # first row of the final run
+            return n - first - 1
+        end, block = a, 2 * block
+    return n - 1
+
+
+def frozen_tail_rule(count: int, n: int) -> bool:
+    """Return whether ``count`` trailing repeats (:func:`frozen_tail_length`) of an ``n``-sample record are left out.
+
+    At least ``max(20, 1 %)`` of the record, and not the whole record (a
+    record that is one value throughout is left to the signal checks).
+    """
+    return max(_FROZEN_MIN_SAMPLES, math.ceil(_FROZEN_MIN_FRACTION * n)) <= count < n - 1
+
+
+def _without_frozen_tails(records: tuple, starts: Sequence[int], options: PreprocessOptions,
+                          what: tuple[str, str]) -> tuple[tuple, tuple[tuple[int, int], ...]]:
+    """Return the records without their frozen tails (step 0) and the ranges left out.
+
+    ``what`` names the records in the warning: one record, and one of several
+    (numbered from 1).
+    """
+    if not options.drop_frozen_tail:
+        return records, ()
+    kept, frozen = [], []
+    for k, ((u, y), start) in enumerate(zip(records, starts, strict=True)):
+        n = u.shape[0]
+        count = frozen_tail_length(u, y)
+        if frozen_tail_rule(count, n):
+            a, b = int(start) + n - count, int(start) + n
+            where = what[0] if len(records) == 1 else f"{what[1]} {k + 1}"
+            warnings.warn(f"samples {a}-{b - 1} (the last {count} of {where}) repeat the values of sample {a - 1} in "
+                          "every channel, to the last bit (a padded or stopped recording); they are left out of "
+                          "estimation and validation", FrozenDataWarning, stacklevel=3)
+            kept.append((u[:n - count], y[:n - count]))
+            frozen.append((a, b))
+        else:
+            kept.append((u, y))
+    return tuple(kept), tuple(frozen)
 
 
 def _prepare_separate(records: tuple, others: tuple, sample_time: float, options: PreprocessOptions,
@@ -420,6 +517,11 @@ def _prepare_separate(records: tuple, others: tuple, sample_time: float, options
         raise OptionError("detrend cannot be used with separate validation records: a line fitted to one "
                           "record does not carry over to another")
     q = options.decimate
+    own = _record_starts(others, validation_starts)
+    after = max(int(a) + u.shape[0] for (u, _), a in zip(records, starts, strict=True)) + 1
+    records, frozen_est = _without_frozen_tails(records, starts, options, ("the estimation log", "estimation record"))
+    others, frozen_val = _without_frozen_tails(others, [after + a for a in own], options,
+                                               ("the validation log", "validation record"))
     full = [(u.shape[0] // q if q > 1 else u.shape[0], u.shape[0]) for u, _ in records]
     for k, (u, _) in enumerate([*records, *others]):
         if q > 1 and u.shape[0] < _min_decimate_length(q):
@@ -430,13 +532,12 @@ def _prepare_separate(records: tuple, others: tuple, sample_time: float, options
     estimation = [_deviation_experiment(u, y, level, q, m) for u, y in records]
     validation = [_deviation_experiment(u, y, level, q, m) for u, y in others]
     est_ranges = tuple((int(a), int(a + u.shape[0])) for (u, _), a in zip(records, starts, strict=True))
-    after = max(b for _, b in est_ranges) + 1
-    own = _record_starts(others, validation_starts)
     val_ranges = tuple((int(after + a), int(after + a + u.shape[0])) for (u, _), a in zip(others, own, strict=True))
     return PreparedData(estimation=as_experiments(estimation), validation=tuple(validation),
                         operating_point=OperatingPoint(inputs=op_u, outputs=op_y), sample_time=sample_time * q,
                         decimation=q, estimation_ranges=est_ranges, validation_ranges=val_ranges, trends=None,
-                        **labels, options=options, separate_validation=True)
+                        **labels, options=options, separate_validation=True,
+                        frozen_tails=frozen_est + frozen_val)
 
 
 def _deviation_experiment(u: np.ndarray, y: np.ndarray, level: np.ndarray, q: int, m: int) -> Experiment:

@@ -27,7 +27,7 @@ command line accept. Layout (every section but ``[log]`` is optional)::
     # signal_description = "test.json"      # written by rigfit excite --describe
 
     [preprocess]   # ident.estimate.preprocess.PreprocessOptions: offset, initial_window_s, detrend,
-                   # decimate, holdout
+                   # decimate, holdout, drop_frozen_tail
     [fit]          # ident.estimate.identify.IdentifyOptions: method, order ("auto" or N), max_order,
                    # delay, refinement, weighting, horizon, stabilize, significance, per_criterion,
                    # refine_count, screen_samples
